@@ -1,0 +1,15 @@
+//! ogive: serve logit, probit, cloglog and cauchit models with marginal effects, delta-method
+//! intervals, extrapolation warnings and monitoring.
+//!
+//! ```text
+//! link      F, f, f′ for each link, accurate in both tails
+//! model     the model file, its validation, covariates and terms
+//! engine    probability, effects, intervals, warnings, contributions, averages
+//! cli       the subcommands of the binary, one file each
+//! ```
+#![warn(missing_docs)]
+
+pub mod cli;
+pub mod engine;
+pub mod link;
+pub mod model;

@@ -1,0 +1,257 @@
+//! The model file as it is written on disk: plain serde types, one-to-one with the JSON, and the
+//! JSON Schema generated from them.
+//!
+//! These types accept anything that is well-formed JSON of the right shape; they promise nothing
+//! about consistency. [`crate::model::Model::from_file`] turns one into a validated model.
+//!
+//! Format version 1. A later format that adds optional fields keeps the version; one that
+//! changes the meaning of a field raises it, and readers refuse versions they do not know.
+
+use std::collections::BTreeMap;
+
+use schemars::JsonSchema;
+use serde::{Deserialize, Serialize};
+
+use crate::link::Link;
+
+/// The value of the `format` field in every ogive model file.
+pub const FORMAT_NAME: &str = "ogive-model";
+/// The newest format version this build reads and the one it writes.
+pub const FORMAT_VERSION: u32 = 1;
+
+/// A binary-outcome regression model, ready to be validated and served.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct ModelFile {
+    /// Always `"ogive-model"`.
+    pub format: String,
+    /// The format version; this build reads version 1.
+    pub format_version: u32,
+    /// The model's name: lower-case letters, digits and `-`, as used in routes and directories.
+    pub name: String,
+    /// The version label, unique within the model: letters, digits, `.`, `_` and `-`.
+    pub version: String,
+    /// What the model is for, in a sentence or two.
+    #[serde(default)]
+    pub description: String,
+    /// What a probability from this model is the probability of.
+    pub outcome: Outcome,
+    /// The link between the linear index and the probability.
+    pub link: Link,
+    /// The raw inputs of an observation.
+    pub covariates: Vec<CovariateSpec>,
+    /// The columns of the design, each with its coefficient, in the order of `covariance`.
+    pub terms: Vec<TermSpec>,
+    /// The coefficient covariance matrix, rows and columns in the order of `terms`. Without it
+    /// the model gives no standard errors or intervals, and every answer says so.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub covariance: Option<Vec<Vec<f64>>>,
+    /// How the covariance was estimated (for example `classical` or `robust`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub covariance_type: Option<String>,
+    /// The training mean and covariance of the continuous covariates, for the joint
+    /// extrapolation warning.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub joint: Option<JointSpec>,
+    /// The distribution of fitted probabilities over the training data (for prediction drift).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub fitted_probabilities: Option<Histogram>,
+    /// Observations with the probability the fitting software computed; loading refuses a file
+    /// whose check cases do not reproduce to relative 1e-9.
+    #[serde(default)]
+    pub check_cases: Vec<CheckCase>,
+    /// An optional decision threshold and named probability bands.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub decision: Option<DecisionSpec>,
+    /// What fitted the model, when, and on how much data.
+    pub provenance: Provenance,
+}
+
+/// What the probability is the probability of.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct Outcome {
+    /// The outcome column's name in the training data.
+    pub name: String,
+    /// A plain sentence: what `1` means.
+    pub meaning: String,
+}
+
+/// The kind of a covariate.
+#[derive(Debug, Clone, Copy, Serialize, Deserialize, JsonSchema, PartialEq, Eq, Hash)]
+#[serde(rename_all = "lowercase")]
+pub enum CovariateKind {
+    /// A real number; its effect is the derivative dP/dx.
+    Continuous,
+    /// A non-negative whole number; its effect is the derivative dP/dx.
+    Count,
+    /// 0 or 1; its effect is the discrete change P(x=1) − P(x=0).
+    Binary,
+    /// One of a fixed set of text levels; each level's effect is P(level) − P(reference).
+    Categorical,
+}
+
+impl CovariateKind {
+    /// The name used in files and answers.
+    pub fn name(self) -> &'static str {
+        match self {
+            CovariateKind::Continuous => "continuous",
+            CovariateKind::Count => "count",
+            CovariateKind::Binary => "binary",
+            CovariateKind::Categorical => "categorical",
+        }
+    }
+}
+
+/// One raw input of an observation.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct CovariateSpec {
+    /// The field name callers send.
+    pub name: String,
+    /// What kind of value it takes.
+    pub kind: CovariateKind,
+    /// The unit of a numeric covariate (for example `thousand EUR` or `years`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub unit: Option<String>,
+    /// A plain description for callers and reviewers.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub description: Option<String>,
+    /// The levels of a categorical covariate, reference level included.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub levels: Option<Vec<String>>,
+    /// The reference level of a categorical covariate: effects compare each level with it.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reference: Option<String>,
+    /// What the training data looked like.
+    pub training: TrainingSummary,
+}
+
+/// The training distribution of one covariate. Numeric kinds carry `min`, `max`, `mean` and
+/// `std_dev` (and usually a histogram); a categorical covariate carries `level_counts`.
+#[derive(Debug, Clone, Default, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct TrainingSummary {
+    /// The smallest training value.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub min: Option<f64>,
+    /// The largest training value.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max: Option<f64>,
+    /// The training mean (for a binary covariate, the share of ones).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub mean: Option<f64>,
+    /// The training standard deviation (divisor n − 1).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub std_dev: Option<f64>,
+    /// A histogram of the training values.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub histogram: Option<Histogram>,
+    /// Training count of each level of a categorical covariate.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub level_counts: Option<BTreeMap<String, u64>>,
+}
+
+/// A histogram: `counts[i]` values fell in `[edges[i], edges[i+1])` (the last bin is closed).
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct Histogram {
+    /// Bin edges, strictly increasing; one more than `counts`.
+    pub edges: Vec<f64>,
+    /// Training values per bin.
+    pub counts: Vec<u64>,
+}
+
+/// One term of the design and its coefficient.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct TermSpec {
+    /// The term in the syntax of `ogive fit --terms`: `intercept`, `x`, `x^2`, `log(x)`,
+    /// `sector[retail]` or a product such as `x*sector[retail]`.
+    pub term: String,
+    /// Its coefficient β.
+    pub coefficient: f64,
+}
+
+/// Training mean and covariance of the continuous covariates, for the Mahalanobis warning.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct JointSpec {
+    /// The continuous covariates, in the order of `mean` and `covariance`.
+    pub covariates: Vec<String>,
+    /// Their training means.
+    pub mean: Vec<f64>,
+    /// Their training covariance (divisor n − 1); must be positive definite.
+    pub covariance: Vec<Vec<f64>>,
+    /// The largest Mahalanobis distance (not squared) of any training observation.
+    pub max_distance: f64,
+}
+
+/// A stored observation and the probability the fitting software computed for it.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct CheckCase {
+    /// The covariate values, as a caller would send them.
+    pub observation: serde_json::Map<String, serde_json::Value>,
+    /// The fitted probability.
+    pub probability: f64,
+}
+
+/// An optional decision rule on the probability.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct DecisionSpec {
+    /// Probabilities at or above this are flagged (for example, referred for review).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub threshold: Option<f64>,
+    /// Named bands in increasing order: a probability falls in the first band whose `below`
+    /// exceeds it; the last band's `below` must be 1 (it then also holds p = 1).
+    #[serde(default)]
+    pub bands: Vec<Band>,
+}
+
+/// One named probability band.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct Band {
+    /// The band's name (for example `low`).
+    pub name: String,
+    /// The exclusive upper bound of the band.
+    pub below: f64,
+}
+
+/// Where the model came from.
+#[derive(Debug, Clone, Default, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct Provenance {
+    /// The software that fitted it, with its version (for example `ogive 0.1.0`).
+    pub fitted_by: String,
+    /// When, as an RFC 3339 timestamp.
+    pub fitted_at: String,
+    /// Observations used in the fit.
+    pub observations: u64,
+    /// The log-likelihood at the estimate.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub log_likelihood: Option<f64>,
+    /// The log-likelihood of the intercept-only model.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub null_log_likelihood: Option<f64>,
+    /// Newton iterations to convergence.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub iterations: Option<u32>,
+    /// The training data: a file name, a query, or a data-set name.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub data: Option<String>,
+    /// Free-form notes (for example, how a hand-written demo model was made).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub notes: Option<String>,
+}
+
+/// The JSON Schema of the model file, as committed in `model-files/model.schema.json`.
+pub fn json_schema() -> serde_json::Value {
+    let settings = schemars::gen::SchemaSettings::draft2019_09();
+    let schema = settings
+        .into_generator()
+        .into_root_schema_for::<ModelFile>();
+    serde_json::to_value(schema).unwrap_or_default()
+}
