@@ -5,6 +5,7 @@
 //! link      F, f, f′ for each link, accurate in both tails
 //! model     the model file, its validation, covariates and terms
 //! engine    probability, effects, intervals, warnings, contributions, averages
+//! registry  the model directory, live versions, promotion, hot swap
 //! cli       the subcommands of the binary, one file each
 //! ```
 #![warn(missing_docs)]
@@ -13,3 +14,4 @@ pub mod cli;
 pub mod engine;
 pub mod link;
 pub mod model;
+pub mod registry;

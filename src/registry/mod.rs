@@ -1,0 +1,67 @@
+//! The registry: which version of each model is live (and which, if any, shadows it), held
+//! behind one atomic pointer so that a request sees one whole snapshot, never a mix.
+//!
+//! Readers call [`Registry::snapshot`] (a lock-free load) and keep the returned `Arc` for the
+//! whole request; writers build a new [`Snapshot`] and swap it in. This module knows nothing of
+//! HTTP.
+
+use std::collections::BTreeMap;
+use std::sync::Arc;
+
+use arc_swap::ArcSwap;
+
+use crate::model::Model;
+
+/// One model as served: its live version and an optional shadow candidate.
+#[derive(Debug, Clone)]
+pub struct Entry {
+    /// The live version.
+    pub live: Arc<Model>,
+    /// A candidate scored beside the live version, its answers only measured.
+    pub shadow: Option<Arc<Model>>,
+}
+
+/// Every served model, by name, at one instant.
+#[derive(Debug, Clone, Default)]
+pub struct Snapshot {
+    /// Models by name.
+    pub models: BTreeMap<String, Arc<Entry>>,
+}
+
+/// The served models, swappable atomically.
+#[derive(Debug, Default)]
+pub struct Registry {
+    current: ArcSwap<Snapshot>,
+}
+
+impl Registry {
+    /// A registry serving these models as live, with no shadows (for tests and embedding).
+    pub fn from_models(models: impl IntoIterator<Item = Model>) -> Registry {
+        let models = models
+            .into_iter()
+            .map(|m| {
+                let name = m.name().to_string();
+                (
+                    name,
+                    Arc::new(Entry {
+                        live: Arc::new(m),
+                        shadow: None,
+                    }),
+                )
+            })
+            .collect();
+        Registry {
+            current: ArcSwap::from_pointee(Snapshot { models }),
+        }
+    }
+
+    /// The current snapshot; hold it for the duration of one request.
+    pub fn snapshot(&self) -> Arc<Snapshot> {
+        self.current.load_full()
+    }
+
+    /// Replace the whole snapshot in one atomic swap.
+    pub fn replace(&self, snapshot: Snapshot) {
+        self.current.store(Arc::new(snapshot));
+    }
+}
