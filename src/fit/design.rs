@@ -1,0 +1,202 @@
+//! The design matrix: one row of term values per observation, stored row-major as `f64`, and
+//! the blocked, parallel reduction over its rows that every pass of the fit uses.
+//!
+//! Term values come from [`Term::value`], the function the engine scores with, so a model's
+//! check cases reproduce exactly what the fit saw.
+//!
+//! Rows are reduced in fixed blocks of [`ROWS_PER_BLOCK`] and the block results are combined in
+//! block order, so a fit gives the same bits whatever the number of threads.
+
+use std::ops::Range;
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::Mutex;
+
+use crate::model::{Term, Value};
+
+use super::reader::ColumnData;
+
+/// Rows per reduction block.
+pub const ROWS_PER_BLOCK: usize = 16_384;
+
+/// The design matrix.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Design {
+    rows: usize,
+    columns: usize,
+    values: Vec<f64>,
+}
+
+impl Design {
+    /// A design from row-major values (`rows × columns`).
+    ///
+    /// Returns `None` if the length does not match.
+    pub fn from_row_major(rows: usize, columns: usize, values: Vec<f64>) -> Option<Design> {
+        (values.len() == rows * columns).then_some(Design {
+            rows,
+            columns,
+            values,
+        })
+    }
+
+    /// Build the design from the covariate columns of a table.
+    pub fn build(columns: &[ColumnData], rows: usize, terms: &[Term]) -> Design {
+        let k = terms.len();
+        let mut values = vec![0.0; rows * k];
+        let no_shares: Vec<Vec<f64>> = vec![Vec::new(); columns.len()];
+        let chunk_rows = ROWS_PER_BLOCK;
+        let chunks: Vec<(usize, &mut [f64])> = values
+            .chunks_mut(chunk_rows * k.max(1))
+            .enumerate()
+            .collect();
+        let queue = Mutex::new(chunks.into_iter());
+        let threads = worker_threads();
+        std::thread::scope(|scope| {
+            for _ in 0..threads {
+                scope.spawn(|| {
+                    let mut observation = vec![Value::Number(0.0); columns.len()];
+                    loop {
+                        let next = queue.lock().ok().and_then(|mut q| q.next());
+                        let Some((chunk, out)) = next else { break };
+                        let first = chunk * chunk_rows;
+                        for (r, row) in out.chunks_mut(k.max(1)).enumerate() {
+                            let i = first + r;
+                            for (value, column) in observation.iter_mut().zip(columns) {
+                                *value = match column {
+                                    ColumnData::Numeric(x) => Value::Number(x[i]),
+                                    ColumnData::Categorical { codes, .. } => {
+                                        Value::Level(codes[i] as usize)
+                                    }
+                                };
+                            }
+                            for (cell, term) in row.iter_mut().zip(terms) {
+                                *cell = term.value(&observation, &no_shares);
+                            }
+                        }
+                    }
+                });
+            }
+        });
+        Design {
+            rows,
+            columns: k,
+            values,
+        }
+    }
+
+    /// Observations.
+    pub fn rows(&self) -> usize {
+        self.rows
+    }
+
+    /// Terms.
+    pub fn columns(&self) -> usize {
+        self.columns
+    }
+
+    /// Row `i`.
+    #[inline]
+    pub fn row(&self, i: usize) -> &[f64] {
+        &self.values[i * self.columns..(i + 1) * self.columns]
+    }
+
+    /// Column `j`, copied out.
+    pub fn column(&self, j: usize) -> Vec<f64> {
+        (0..self.rows)
+            .map(|i| self.values[i * self.columns + j])
+            .collect()
+    }
+}
+
+/// Threads to use for passes over the data.
+pub fn worker_threads() -> usize {
+    std::thread::available_parallelism()
+        .map(|n| n.get())
+        .unwrap_or(1)
+        .clamp(1, 16)
+}
+
+/// Reduce `rows` rows in blocks: `work` folds a range of rows into a fresh accumulator, and the
+/// block accumulators are combined in block order with `combine`.
+pub fn reduce_rows<A: Send>(
+    rows: usize,
+    init: impl Fn() -> A + Sync,
+    work: impl Fn(&mut A, Range<usize>) + Sync,
+    combine: impl Fn(&mut A, A),
+) -> A {
+    let blocks = rows.div_ceil(ROWS_PER_BLOCK);
+    let next = AtomicUsize::new(0);
+    let slots: Vec<Mutex<Option<A>>> = (0..blocks).map(|_| Mutex::new(None)).collect();
+    let threads = worker_threads().min(blocks.max(1));
+    let run = || loop {
+        let b = next.fetch_add(1, Ordering::Relaxed);
+        if b >= blocks {
+            break;
+        }
+        let mut acc = init();
+        work(
+            &mut acc,
+            b * ROWS_PER_BLOCK..((b + 1) * ROWS_PER_BLOCK).min(rows),
+        );
+        if let Ok(mut slot) = slots[b].lock() {
+            *slot = Some(acc);
+        }
+    };
+    if threads <= 1 {
+        run();
+    } else {
+        std::thread::scope(|scope| {
+            for _ in 0..threads {
+                scope.spawn(run);
+            }
+        });
+    }
+    let mut total = init();
+    for slot in slots {
+        if let Some(acc) = slot.into_inner().ok().flatten() {
+            combine(&mut total, acc);
+        }
+    }
+    total
+}
+
+/// The lower triangle of `Σ wᵢ xᵢ xᵢᵀ` is accumulated into `matrix` (row-major `k × k`).
+#[inline]
+pub fn add_outer_lower(matrix: &mut [f64], x: &[f64], weight: f64) {
+    let k = x.len();
+    for a in 0..k {
+        let wa = weight * x[a];
+        if wa == 0.0 {
+            continue;
+        }
+        let row = &mut matrix[a * k..a * k + a + 1];
+        for (cell, &xb) in row.iter_mut().zip(&x[..=a]) {
+            *cell += wa * xb;
+        }
+    }
+}
+
+/// Copy the lower triangle of a row-major square matrix into its upper triangle.
+pub fn symmetrise(matrix: &mut [f64], k: usize) {
+    for a in 0..k {
+        for b in 0..a {
+            matrix[b * k + a] = matrix[a * k + b];
+        }
+    }
+}
+
+/// `XᵀX`, the unweighted Gram matrix (for the rank check).
+pub fn gram(design: &Design) -> Vec<f64> {
+    let k = design.columns();
+    let mut g = reduce_rows(
+        design.rows(),
+        || vec![0.0; k * k],
+        |acc, range| {
+            for i in range {
+                add_outer_lower(acc, design.row(i), 1.0);
+            }
+        },
+        |total, part| total.iter_mut().zip(part).for_each(|(t, p)| *t += p),
+    );
+    symmetrise(&mut g, k);
+    g
+}

@@ -1,0 +1,632 @@
+//! Fitting: maximum-likelihood estimation of a binary-outcome model from a CSV file, and the
+//! complete model file it writes (training summaries, joint block, fitted-probability
+//! histogram, coefficient covariance, check cases, provenance).
+//!
+//! The steps, one file each:
+//!
+//! ```text
+//! terms        parse --terms, expand categorical covariates into level indicators
+//! reader       CSV → outcome and covariate columns (parallel, bounded, row-numbered errors)
+//! kinds        binary / count / continuous for numeric columns
+//! design       the design matrix (row-major f64) and the blocked parallel reduction
+//! rank         collinear terms, named with their combination
+//! separation   complete and quasi-complete separation, named with term and direction
+//! likelihood   ℓ, score, observed and expected information for every link
+//! newton       Newton–Raphson with step-halving and a Fisher-scoring fallback
+//! summaries    ranges, moments, histograms, level counts, joint block
+//! check_cases  observations spread over the index, scored by the engine
+//! report       the printed summary
+//! write        crash-safe writing of the model file
+//! ```
+//!
+//! Covariance: `classical` is the inverse of the observed information (the negative Hessian)
+//! at the estimate; `robust` is the HC0 sandwich:
+//!
+//! ```text
+//! V_classical = H⁻¹          V_HC0 = H⁻¹ (Σ sᵢ² xᵢ xᵢᵀ) H⁻¹,   sᵢ = ∂ℓᵢ/∂zᵢ
+//! ```
+//!
+//! Memory: the design matrix and the covariate columns, one `f64` (or one `u32` level code) per
+//! cell, plus two `f64` per observation for the fitted index and probability. No per-row text is
+//! kept. This module depends on nothing of the service; progress is reported through the
+//! [`Progress`] trait so the command line can draw a bar.
+
+pub mod check_cases;
+pub mod design;
+pub mod error;
+pub mod kinds;
+pub mod likelihood;
+pub mod newton;
+pub mod rank;
+pub mod reader;
+pub mod report;
+pub mod separation;
+pub mod summaries;
+pub mod terms;
+pub mod timestamp;
+pub mod write;
+
+use std::path::PathBuf;
+
+use crate::link::Link;
+use crate::model::file::{
+    CovariateKind, CovariateSpec, DecisionSpec, ModelFile, Outcome, Provenance, TermSpec,
+};
+use crate::model::{TermText, FORMAT_NAME, FORMAT_VERSION};
+
+pub use error::FitError;
+pub use report::FitReport;
+pub use write::write_model_file;
+
+use design::{reduce_rows, Design};
+use likelihood::{accumulate, Matrix};
+use reader::{ColumnData, ColumnRequest, ReadRequest};
+use terms::CovariateShape;
+
+/// How the coefficient covariance is estimated.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum CovarianceType {
+    /// The inverse of the observed information at the estimate.
+    #[default]
+    Classical,
+    /// The HC0 sandwich (heteroskedasticity-consistent, no small-sample correction).
+    Robust,
+}
+
+impl CovarianceType {
+    /// The name written to `covariance_type`.
+    pub fn name(self) -> &'static str {
+        match self {
+            CovarianceType::Classical => "classical",
+            CovarianceType::Robust => "robust",
+        }
+    }
+}
+
+/// A categorical covariate named with `--categorical COL[=REF]`.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct CategoricalSpec {
+    /// The column.
+    pub column: String,
+    /// The reference level; by default the first level in sorted (byte) order.
+    pub reference: Option<String>,
+}
+
+impl std::str::FromStr for CategoricalSpec {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        let (column, reference) = match s.split_once('=') {
+            Some((c, r)) => (c.trim(), Some(r.trim().to_string())),
+            None => (s.trim(), None),
+        };
+        if column.is_empty() || reference.as_deref() == Some("") {
+            return Err(format!("expected COLUMN or COLUMN=REFERENCE, got '{s}'"));
+        }
+        Ok(CategoricalSpec {
+            column: column.to_string(),
+            reference,
+        })
+    }
+}
+
+/// Everything a fit needs.
+#[derive(Debug, Clone)]
+pub struct FitRequest {
+    /// The CSV file, with a header line.
+    pub data: PathBuf,
+    /// The outcome column.
+    pub outcome: String,
+    /// What outcome = 1 means, for the model file.
+    pub outcome_meaning: Option<String>,
+    /// The `--terms` list.
+    pub terms: String,
+    /// Categorical covariates and their reference levels.
+    pub categorical: Vec<CategoricalSpec>,
+    /// Columns to treat as counts whatever the inference says.
+    pub count: Vec<String>,
+    /// Columns to treat as continuous whatever the inference says.
+    pub continuous: Vec<String>,
+    /// Units of covariates, `(column, unit)`.
+    pub units: Vec<(String, String)>,
+    /// The link.
+    pub link: Link,
+    /// The covariance estimator.
+    pub covariance: CovarianceType,
+    /// Include the intercept.
+    pub intercept: bool,
+    /// Drop rows with missing values instead of failing.
+    pub drop_missing: bool,
+    /// The Newton iteration cap.
+    pub max_iterations: u32,
+    /// Model name.
+    pub name: String,
+    /// Version label.
+    pub version: String,
+    /// Model description.
+    pub description: String,
+    /// An optional decision threshold and bands.
+    pub decision: Option<DecisionSpec>,
+    /// Seconds since the Unix epoch to record as the fit time (default: now).
+    pub fitted_at_unix: Option<u64>,
+}
+
+impl FitRequest {
+    /// A request with the defaults of `ogive fit` (logit, classical covariance, intercept).
+    pub fn new(data: impl Into<PathBuf>, outcome: &str, terms: &str) -> FitRequest {
+        FitRequest {
+            data: data.into(),
+            outcome: outcome.to_string(),
+            outcome_meaning: None,
+            terms: terms.to_string(),
+            categorical: Vec::new(),
+            count: Vec::new(),
+            continuous: Vec::new(),
+            units: Vec::new(),
+            link: Link::Logit,
+            covariance: CovarianceType::Classical,
+            intercept: true,
+            drop_missing: false,
+            max_iterations: newton::NewtonOptions::default().max_iterations,
+            name: "model".to_string(),
+            version: "1".to_string(),
+            description: String::new(),
+            decision: None,
+            fitted_at_unix: None,
+        }
+    }
+}
+
+/// Progress of a fit, for a progress bar. Every method does nothing by default.
+pub trait Progress: Sync {
+    /// Reading starts; the file has this many bytes.
+    fn start_reading(&self, _total_bytes: u64) {}
+    /// Bytes handed to the parser so far.
+    fn bytes_read(&self, _bytes: u64) {}
+    /// Rows parsed so far.
+    fn rows_read(&self, _rows: u64) {}
+    /// Estimation starts.
+    fn start_fitting(&self) {}
+    /// One Newton step done.
+    fn iteration(&self, _iteration: u32, _log_likelihood: f64) {}
+}
+
+/// Reports nothing.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Silent;
+
+impl Progress for Silent {}
+
+struct Iterations<'a>(&'a dyn Progress);
+
+impl newton::IterationObserver for Iterations<'_> {
+    fn iteration(&self, iteration: u32, log_likelihood: f64) {
+        self.0.iteration(iteration, log_likelihood);
+    }
+}
+
+/// A finished fit: the validated model file and the summary to print.
+#[derive(Debug, Clone)]
+pub struct Fitted {
+    /// The model file, already validated by [`crate::model::Model::from_file`].
+    pub file: ModelFile,
+    /// The summary.
+    pub report: FitReport,
+}
+
+fn check_flag_columns(request: &FitRequest, names: &[String]) -> Result<(), FitError> {
+    let known = |flag: &str, column: &str| {
+        if names.iter().any(|n| n == column) {
+            Ok(())
+        } else {
+            Err(FitError::BadOption(format!(
+                "{flag} {column}: no term uses '{column}' (covariates in --terms: {})",
+                names.join(", ")
+            )))
+        }
+    };
+    for c in &request.categorical {
+        known("--categorical", &c.column)?;
+    }
+    for c in &request.count {
+        known("--count", c)?;
+        if request.continuous.contains(c) {
+            return Err(FitError::BadOption(format!(
+                "'{c}' is named by both --count and --continuous"
+            )));
+        }
+    }
+    for c in &request.continuous {
+        known("--continuous", c)?;
+    }
+    for (c, _) in &request.units {
+        known("--unit", c)?;
+    }
+    for c in request.count.iter().chain(&request.continuous) {
+        if request.categorical.iter().any(|s| &s.column == c) {
+            return Err(FitError::BadOption(format!(
+                "'{c}' is named by --categorical and by --count or --continuous"
+            )));
+        }
+    }
+    if names.contains(&request.outcome) {
+        return Err(FitError::BadOption(format!(
+            "the outcome '{}' cannot also be a covariate",
+            request.outcome
+        )));
+    }
+    Ok(())
+}
+
+/// A level must survive being written as `name[level]` and read back.
+fn check_level_nameable(column: &str, level: &str) -> Result<(), FitError> {
+    let written = format!("{column}[{level}]");
+    let round_trip = TermText::parse(&written);
+    let fine = level.trim() == level
+        && !level.contains(['[', ']'])
+        && round_trip == Ok(TermText::Level(column.to_string(), level.to_string()));
+    if fine {
+        Ok(())
+    } else {
+        Err(FitError::LevelNotNameable {
+            column: column.to_string(),
+            level: level.to_string(),
+        })
+    }
+}
+
+/// Covariate shapes from the table: kinds, levels, references.
+fn shapes(
+    request: &FitRequest,
+    names: &[String],
+    columns: &[ColumnData],
+) -> Result<Vec<CovariateShape>, FitError> {
+    let mut out = Vec::with_capacity(names.len());
+    for (name, column) in names.iter().zip(columns) {
+        let shape = match column {
+            ColumnData::Numeric(values) => {
+                let kind = if request.count.contains(name) {
+                    kinds::overridden_kind(name, values, CovariateKind::Count)?
+                } else if request.continuous.contains(name) {
+                    CovariateKind::Continuous
+                } else {
+                    kinds::infer_kind(values)
+                };
+                CovariateShape {
+                    name: name.clone(),
+                    kind,
+                    levels: Vec::new(),
+                    reference: 0,
+                }
+            }
+            ColumnData::Categorical { levels, .. } => {
+                for level in levels {
+                    check_level_nameable(name, level)?;
+                }
+                let asked = request
+                    .categorical
+                    .iter()
+                    .find(|c| &c.column == name)
+                    .and_then(|c| c.reference.clone());
+                let reference = match asked {
+                    Some(r) => levels.iter().position(|l| *l == r).ok_or_else(|| {
+                        FitError::LevelNotObserved {
+                            covariate: name.clone(),
+                            level: r.clone(),
+                            levels: levels.join(", "),
+                        }
+                    })?,
+                    None => 0,
+                };
+                if levels.len() < 2 {
+                    return Err(FitError::SingleLevel {
+                        covariate: name.clone(),
+                        level: levels.first().cloned().unwrap_or_default(),
+                    });
+                }
+                CovariateShape {
+                    name: name.clone(),
+                    kind: CovariateKind::Categorical,
+                    levels: levels.clone(),
+                    reference,
+                }
+            }
+        };
+        out.push(shape);
+    }
+    Ok(out)
+}
+
+/// The linear index of every row.
+fn indices(design: &Design, beta: &[f64]) -> Vec<f64> {
+    reduce_rows(
+        design.rows(),
+        Vec::new,
+        |acc: &mut Vec<f64>, range| {
+            acc.extend(range.map(|i| likelihood::index(design.row(i), beta)));
+        },
+        |total, part| total.extend(part),
+    )
+}
+
+fn square(flat: &[f64], k: usize) -> Vec<Vec<f64>> {
+    flat.chunks(k).map(<[f64]>::to_vec).collect()
+}
+
+/// `A⁻¹ M A⁻¹` for row-major `k × k` matrices.
+fn sandwich(bread: &[f64], meat: &[f64], k: usize) -> Vec<f64> {
+    let product = |a: &[f64], b: &[f64]| {
+        let mut out = vec![0.0; k * k];
+        for r in 0..k {
+            for m in 0..k {
+                let x = a[r * k + m];
+                for c in 0..k {
+                    out[r * k + c] += x * b[m * k + c];
+                }
+            }
+        }
+        out
+    };
+    let mut v = product(&product(bread, meat), bread);
+    for r in 0..k {
+        for c in 0..r {
+            let mean = 0.5 * (v[r * k + c] + v[c * k + r]);
+            v[r * k + c] = mean;
+            v[c * k + r] = mean;
+        }
+    }
+    v
+}
+
+/// Fit the model a request describes.
+pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitError> {
+    let parsed = terms::parse_term_list(&request.terms)?;
+    let names = terms::covariate_names(&parsed);
+    if names.is_empty() {
+        return Err(FitError::BadOption(
+            "--terms names no covariate: a model needs at least one".into(),
+        ));
+    }
+    check_flag_columns(request, &names)?;
+
+    let read = ReadRequest {
+        path: request.data.clone(),
+        outcome: request.outcome.clone(),
+        columns: names
+            .iter()
+            .map(|n| ColumnRequest {
+                name: n.clone(),
+                categorical: request.categorical.iter().any(|c| &c.column == n),
+                log_term: terms::log_term_of(&parsed, n),
+            })
+            .collect(),
+        drop_missing: request.drop_missing,
+    };
+    let table = reader::read_table(&read, progress)?;
+    let n = table.rows();
+    if n == 0 {
+        return Err(FitError::NoRows(if table.dropped > 0 {
+            format!(
+                " (all {} rows had a missing value and were dropped)",
+                table.dropped
+            )
+        } else {
+            String::new()
+        }));
+    }
+    let ones = table.outcome.iter().filter(|&&y| y > 0.5).count();
+    if ones == 0 || ones == n {
+        return Err(FitError::OutcomeConstant {
+            column: request.outcome.clone(),
+            value: u8::from(ones == n),
+            rows: n as u64,
+        });
+    }
+
+    let shapes = shapes(request, &names, &table.columns)?;
+    let design_terms = terms::expand(&parsed, &shapes, request.intercept)?;
+    let labels: Vec<String> = design_terms.iter().map(|t| t.label()).collect();
+    let resolved: Vec<_> = design_terms.iter().map(|t| t.term.clone()).collect();
+    let k = labels.len();
+    let design = Design::build(&table.columns, n, &resolved);
+    rank::check_rank(&design::gram(&design), &labels, n)?;
+    separation::check_single_terms(&design, &table.outcome, &labels)?;
+
+    progress.start_fitting();
+    let share = ones as f64 / n as f64;
+    let start: Vec<f64> = labels
+        .iter()
+        .map(|l| {
+            if l == "intercept" {
+                likelihood::quantile(request.link, share)
+            } else {
+                0.0
+            }
+        })
+        .collect();
+    let options = newton::NewtonOptions {
+        max_iterations: request.max_iterations,
+    };
+    let estimate = newton::maximise(
+        &design,
+        &table.outcome,
+        request.link,
+        &start,
+        options,
+        &Iterations(progress),
+    )
+    .map_err(|stopped| {
+        separation::diagnose(
+            &design,
+            &table.outcome,
+            request.link,
+            &stopped.coefficients,
+            &labels,
+        )
+        .unwrap_or(if stopped.singular {
+            FitError::SingularInformation(stopped.reason.clone())
+        } else {
+            FitError::NotConverged(stopped.reason.clone())
+        })
+    })?;
+    let beta = &estimate.coefficients;
+    let bread = newton::inverse(&estimate.information, k).ok_or_else(|| {
+        FitError::SingularInformation(format!(
+            "after {} Newton–Raphson steps the observed information could not be inverted",
+            estimate.iterations
+        ))
+    })?;
+    let covariance = match request.covariance {
+        CovarianceType::Classical => bread,
+        CovarianceType::Robust => {
+            let meat = accumulate(
+                &design,
+                &table.outcome,
+                request.link,
+                beta,
+                Matrix::ScoreOuter,
+            );
+            sandwich(&bread, &meat.matrix, k)
+        }
+    };
+    let null_log_likelihood = likelihood::null_log_likelihood(&table.outcome);
+
+    // Fitted index and probabilities, then the design is no longer needed.
+    let index = indices(&design, beta);
+    drop(design);
+    let probabilities: Vec<f64> = index.iter().map(|&z| request.link.probability(z)).collect();
+
+    let kinds: Vec<CovariateKind> = shapes.iter().map(|s| s.kind).collect();
+    let mut remarks = Vec::new();
+    let mut covariates = Vec::with_capacity(names.len());
+    let mut joint_names = Vec::new();
+    let mut joint_columns: Vec<&[f64]> = Vec::new();
+    let mut joint_means = Vec::new();
+    for (shape, column) in shapes.iter().zip(&table.columns) {
+        let training = match column {
+            ColumnData::Numeric(values) => summaries::numeric_summary(values),
+            ColumnData::Categorical { codes, levels } => summaries::level_summary(codes, levels),
+        };
+        if let (ColumnData::Numeric(values), true) = (column, summaries::in_joint(shape.kind)) {
+            joint_names.push(shape.name.clone());
+            joint_columns.push(values);
+            joint_means.push(training.mean.unwrap_or(0.0));
+        }
+        let categorical = shape.kind == CovariateKind::Categorical;
+        covariates.push(CovariateSpec {
+            name: shape.name.clone(),
+            kind: shape.kind,
+            unit: request
+                .units
+                .iter()
+                .find(|(c, _)| *c == shape.name)
+                .map(|(_, u)| u.clone()),
+            description: None,
+            levels: categorical.then(|| shape.levels.clone()),
+            reference: categorical.then(|| shape.levels[shape.reference].clone()),
+            training,
+        });
+    }
+    let joint = if joint_columns.is_empty() {
+        None
+    } else {
+        let joint = summaries::joint(&joint_names, &joint_columns, &joint_means);
+        if joint.is_none() {
+            remarks.push(
+                "the continuous covariates' training covariance is singular, so the file has no joint extrapolation check".to_string(),
+            );
+        }
+        joint
+    };
+
+    let std_errors: Vec<f64> = (0..k)
+        .map(|j| covariance[j * k + j].max(0.0).sqrt())
+        .collect();
+    let report = FitReport {
+        link: request.link,
+        covariance_type: request.covariance.name().to_string(),
+        observations: n as u64,
+        dropped: table.dropped,
+        iterations: estimate.iterations,
+        fisher_steps: estimate.fisher_steps,
+        halvings: estimate.halvings,
+        log_likelihood: estimate.log_likelihood,
+        null_log_likelihood,
+        terms: labels.clone(),
+        coefficients: beta.clone(),
+        std_errors,
+        remarks,
+    };
+    let references: Vec<String> = shapes
+        .iter()
+        .filter(|s| s.kind == CovariateKind::Categorical)
+        .map(|s| format!("{} = {}", s.name, s.levels[s.reference]))
+        .collect();
+    let notes = format!(
+        "{} link; {} covariance ({}); McFadden pseudo-R² {:.6}, AIC {:.6}, BIC {:.6}; {} rows in the file, {} dropped for missing values{}",
+        request.link,
+        request.covariance.name(),
+        match request.covariance {
+            CovarianceType::Classical => "inverse of the observed information",
+            CovarianceType::Robust => "HC0 sandwich",
+        },
+        report.pseudo_r_squared(),
+        report.aic(),
+        report.bic(),
+        table.rows_in_file,
+        table.dropped,
+        if references.is_empty() {
+            String::new()
+        } else {
+            format!("; reference levels: {}", references.join(", "))
+        }
+    );
+    let file = ModelFile {
+        format: FORMAT_NAME.to_string(),
+        format_version: FORMAT_VERSION,
+        name: request.name.clone(),
+        version: request.version.clone(),
+        description: request.description.clone(),
+        outcome: Outcome {
+            name: request.outcome.clone(),
+            meaning: request
+                .outcome_meaning
+                .clone()
+                .unwrap_or_else(|| format!("{} = 1", request.outcome)),
+        },
+        link: request.link,
+        covariates,
+        terms: labels
+            .iter()
+            .zip(beta)
+            .map(|(term, &coefficient)| TermSpec {
+                term: term.clone(),
+                coefficient,
+            })
+            .collect(),
+        covariance: Some(square(&covariance, k)),
+        covariance_type: Some(request.covariance.name().to_string()),
+        joint,
+        fitted_probabilities: Some(summaries::probability_histogram(&probabilities)),
+        check_cases: Vec::new(),
+        decision: request.decision.clone(),
+        provenance: Provenance {
+            fitted_by: format!("ogive {}", env!("CARGO_PKG_VERSION")),
+            fitted_at: match request.fitted_at_unix {
+                Some(s) => timestamp::rfc3339_utc(s),
+                None => timestamp::now_rfc3339_utc(),
+            },
+            observations: n as u64,
+            log_likelihood: Some(estimate.log_likelihood),
+            null_log_likelihood: Some(null_log_likelihood),
+            iterations: Some(estimate.iterations),
+            data: Some(request.data.display().to_string()),
+            notes: Some(notes),
+        },
+    };
+    let observations = check_cases::spread_rows(&index, check_cases::CHECK_CASES)
+        .into_iter()
+        .map(|i| check_cases::observation(&names, &kinds, &table.columns, i))
+        .collect();
+    let file = check_cases::attach(file, observations)?;
+    Ok(Fitted { file, report })
+}

@@ -1,0 +1,131 @@
+//! The rank check: before any iteration, find the terms that are (to rounding) linear
+//! combinations of earlier terms, and name them with the combination.
+//!
+//! The Gram matrix G = XᵀX is scaled to unit diagonal, C = D^−½ G D^−½, and factorised by
+//! Cholesky one term at a time, in the order of `--terms`. Term j's squared residual after
+//! projecting on the earlier kept terms is
+//!
+//! ```text
+//! rⱼ = Cⱼⱼ − yᵀy,   L y = C[kept, j]          (the share of its length the others miss)
+//! ```
+//!
+//! and rⱼ < 1e-10 means term j adds nothing: its combination b = L⁻ᵀ y is reported in the
+//! original units, `xⱼ ≈ Σ bₗ·√(Gⱼⱼ/Gₗₗ)·xₗ`. Later terms are named, earlier ones kept, so the
+//! message reads in the order the user wrote the terms.
+
+use super::error::FitError;
+
+/// A term whose residual share is below this is collinear with the terms before it.
+pub const COLLINEAR_TOLERANCE: f64 = 1e-10;
+
+/// Below this (in the scaled units) a coefficient of the combination is not listed.
+const NEGLIGIBLE: f64 = 1e-7;
+
+fn format_coefficient(x: f64) -> String {
+    let rounded = format!("{x:.6}");
+    let trimmed = rounded.trim_end_matches('0').trim_end_matches('.');
+    trimmed.to_string()
+}
+
+/// Check that the design has full column rank; `gram` is `XᵀX` row-major `k × k`.
+pub fn check_rank(gram: &[f64], labels: &[String], rows: usize) -> Result<(), FitError> {
+    let k = labels.len();
+    let diagonal: Vec<f64> = (0..k).map(|j| gram[j * k + j]).collect();
+    let mut problems = Vec::new();
+    // Rows of L for the kept terms, and which terms they are.
+    let mut kept: Vec<usize> = Vec::new();
+    let mut lower: Vec<Vec<f64>> = Vec::new();
+    for j in 0..k {
+        if diagonal[j].partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
+            problems.push(format!("term '{}' is zero in every observation", labels[j]));
+            continue;
+        }
+        let scaled = |a: usize| gram[a * k + j] / (diagonal[a] * diagonal[j]).sqrt();
+        let mut y = Vec::with_capacity(kept.len());
+        for (m, row) in lower.iter().enumerate() {
+            let partial: f64 = row[..m].iter().zip(&y).map(|(l, yv)| l * yv).sum();
+            y.push((scaled(kept[m]) - partial) / row[m]);
+        }
+        let residual = 1.0 - y.iter().map(|v| v * v).sum::<f64>();
+        if residual < COLLINEAR_TOLERANCE {
+            // Back-substitute Lᵀ b = y for the combination in scaled units.
+            let mut b = vec![0.0; kept.len()];
+            for m in (0..kept.len()).rev() {
+                let later: f64 = (m + 1..kept.len()).map(|n| lower[n][m] * b[n]).sum();
+                b[m] = (y[m] - later) / lower[m][m];
+            }
+            let parts: Vec<String> = kept
+                .iter()
+                .zip(&b)
+                .filter(|(_, &coef)| coef.abs() > NEGLIGIBLE)
+                .map(|(&l, &coef)| {
+                    let original = coef * (diagonal[j] / diagonal[l]).sqrt();
+                    format!("{}·{}", format_coefficient(original), labels[l])
+                })
+                .collect();
+            problems.push(format!(
+                "term '{}' is a linear combination of earlier terms: {} = {}",
+                labels[j],
+                labels[j],
+                if parts.is_empty() {
+                    "0".to_string()
+                } else {
+                    parts.join(" + ")
+                }
+            ));
+            continue;
+        }
+        let mut row = y;
+        row.push(residual.sqrt());
+        lower.push(row);
+        kept.push(j);
+    }
+    if problems.is_empty() {
+        return Ok(());
+    }
+    let mut message = problems.join("; ");
+    if rows < k {
+        message.push_str(&format!(" ({rows} observations for {k} terms)"));
+    }
+    Err(FitError::RankDeficient(message))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::fit::design::{gram, Design};
+
+    fn design(rows: &[[f64; 3]]) -> Design {
+        Design::from_row_major(rows.len(), 3, rows.iter().flatten().copied().collect())
+            .expect("sizes match")
+    }
+
+    #[test]
+    fn names_the_later_term_and_its_combination() {
+        // third = 1 + 2·second
+        let d = design(&[
+            [1.0, 0.0, 1.0],
+            [1.0, 1.0, 3.0],
+            [1.0, 2.0, 5.0],
+            [1.0, 5.0, 11.0],
+        ]);
+        let labels = ["intercept".to_string(), "a".into(), "b".into()];
+        let e = check_rank(&gram(&d), &labels, 4).unwrap_err();
+        assert_eq!(
+            e.to_string(),
+            "the design is rank-deficient: term 'b' is a linear combination of earlier terms: b = 1·intercept + 2·a"
+        );
+    }
+
+    #[test]
+    fn full_rank_passes() {
+        let d = design(&[
+            [1.0, 0.0, 1.0],
+            [1.0, 1.0, 0.0],
+            [1.0, 2.0, 5.0],
+            [1.0, 5.0, 1.0],
+        ]);
+        let labels = ["intercept".to_string(), "a".into(), "b".into()];
+        assert!(check_rank(&gram(&d), &labels, 4).is_ok());
+    }
+}

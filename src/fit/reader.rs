@@ -1,0 +1,650 @@
+//! Reading the training CSV into columns: the outcome as 0/1, each requested numeric column as
+//! `f64`, each categorical column as level codes. Nothing else is kept (no per-row strings), so
+//! memory is one number per requested cell.
+//!
+//! The file is read in blocks that end at a record boundary (a newline outside quotes); worker
+//! threads parse blocks while the next one is read, and the results are joined in file order,
+//! so row numbers in errors and the order of observations are those of the file. The block
+//! size does not depend on the number of threads, so neither does anything downstream.
+//!
+//! What a cell may hold (documented in the README and `ogive fit --help`):
+//!
+//! ```text
+//! missing            empty, NA, N/A, NaN, nan, null or NULL (after trimming spaces)
+//! outcome            0 or 1 (also 0.0 / 1.0), or false / true in any letter case
+//! numeric column     a decimal number; inf is refused
+//! categorical column any other text; the level is the trimmed text
+//! ```
+//!
+//! A column not named with `--categorical` is categorical when its first non-missing value in
+//! the first block of the file is not a number, and numeric otherwise; a later non-number in a
+//! numeric column is an error naming the row, so a stray typo is never taken for a level.
+//!
+//! This module knows nothing of terms or models beyond "this column must be positive".
+
+use std::collections::HashMap;
+use std::fs::File;
+use std::io::Read;
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::mpsc;
+use std::sync::Mutex;
+
+use super::error::FitError;
+use super::Progress;
+
+/// Bytes per block handed to a parsing thread.
+const BLOCK_BYTES: usize = 1 << 20;
+
+/// One column the fit needs.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ColumnRequest {
+    /// The header name.
+    pub name: String,
+    /// Named with `--categorical`: read as text levels whatever it looks like.
+    pub categorical: bool,
+    /// The label of a log term over this column: every value must then be > 0.
+    pub log_term: Option<String>,
+}
+
+/// What to read.
+#[derive(Debug, Clone)]
+pub struct ReadRequest {
+    /// The CSV file.
+    pub path: PathBuf,
+    /// The outcome column.
+    pub outcome: String,
+    /// The covariate columns.
+    pub columns: Vec<ColumnRequest>,
+    /// Drop rows with a missing value in any requested column instead of failing.
+    pub drop_missing: bool,
+}
+
+/// A column as read.
+#[derive(Debug, Clone, PartialEq)]
+pub enum ColumnData {
+    /// Numbers.
+    Numeric(Vec<f64>),
+    /// Level codes into `levels`, which are sorted (byte order) and each observed at least once.
+    Categorical {
+        /// One code per observation.
+        codes: Vec<u32>,
+        /// The distinct levels, sorted.
+        levels: Vec<String>,
+    },
+}
+
+/// The data of a fit.
+#[derive(Debug, Clone)]
+pub struct Table {
+    /// The outcome, 0.0 or 1.0 per observation.
+    pub outcome: Vec<f64>,
+    /// The requested columns, in request order.
+    pub columns: Vec<ColumnData>,
+    /// Rows dropped for missing values.
+    pub dropped: u64,
+    /// Rows in the file (kept and dropped).
+    pub rows_in_file: u64,
+}
+
+impl Table {
+    /// Observations kept.
+    pub fn rows(&self) -> usize {
+        self.outcome.len()
+    }
+}
+
+/// Whether a trimmed cell counts as missing.
+pub fn is_missing(text: &[u8]) -> bool {
+    matches!(
+        text,
+        b"" | b"NA" | b"N/A" | b"NaN" | b"nan" | b"null" | b"NULL"
+    )
+}
+
+fn trim(bytes: &[u8]) -> &[u8] {
+    bytes.trim_ascii()
+}
+
+fn text_of(bytes: &[u8]) -> String {
+    String::from_utf8_lossy(bytes).into_owned()
+}
+
+/// Parse an outcome cell.
+fn parse_outcome(text: &[u8]) -> Option<f64> {
+    match text {
+        b"0" => return Some(0.0),
+        b"1" => return Some(1.0),
+        _ => {}
+    }
+    if text.eq_ignore_ascii_case(b"true") {
+        return Some(1.0);
+    }
+    if text.eq_ignore_ascii_case(b"false") {
+        return Some(0.0);
+    }
+    let x: f64 = std::str::from_utf8(text).ok()?.parse().ok()?;
+    (x == 0.0 || x == 1.0).then_some(x)
+}
+
+fn parse_number(text: &[u8]) -> Option<f64> {
+    std::str::from_utf8(text).ok()?.parse().ok()
+}
+
+/// How each requested column is parsed, decided once before the parallel read.
+#[derive(Debug, Clone)]
+struct Plan {
+    outcome_index: usize,
+    outcome_name: String,
+    /// Per requested column: header index, categorical or not, log term label.
+    columns: Vec<(usize, bool, Option<String>)>,
+    names: Vec<String>,
+    header_len: usize,
+    drop_missing: bool,
+}
+
+/// Parsed columns with their level dictionaries: one block's, or (after joining blocks in file
+/// order) the whole file's.
+#[derive(Debug, Default)]
+struct BlockData {
+    outcome: Vec<f64>,
+    numeric: Vec<Vec<f64>>,
+    codes: Vec<Vec<u32>>,
+    dictionaries: Vec<HashMap<Vec<u8>, u32>>,
+    records: u64,
+    dropped: u64,
+}
+
+/// A parse failure inside a block, with the row counted from the block's start.
+struct BlockFailure {
+    local_row: u64,
+    make: Box<dyn FnOnce(u64) -> FitError + Send>,
+}
+
+fn failure(local_row: u64, make: impl FnOnce(u64) -> FitError + Send + 'static) -> BlockFailure {
+    BlockFailure {
+        local_row,
+        make: Box::new(make),
+    }
+}
+
+/// The byte index just past the last newline that lies outside quotes, if any.
+fn record_boundary(block: &[u8]) -> Option<usize> {
+    if !block.contains(&b'"') {
+        return block.iter().rposition(|&b| b == b'\n').map(|i| i + 1);
+    }
+    let mut in_quotes = false;
+    let mut last = None;
+    for (i, &b) in block.iter().enumerate() {
+        match b {
+            b'"' => in_quotes = !in_quotes,
+            b'\n' if !in_quotes => last = Some(i + 1),
+            _ => {}
+        }
+    }
+    last
+}
+
+/// The byte index just past the first newline that lies outside quotes, if any.
+fn first_record_end(block: &[u8]) -> Option<usize> {
+    let mut in_quotes = false;
+    for (i, &b) in block.iter().enumerate() {
+        match b {
+            b'"' => in_quotes = !in_quotes,
+            b'\n' if !in_quotes => return Some(i + 1),
+            _ => {}
+        }
+    }
+    None
+}
+
+fn csv_reader(bytes: &[u8]) -> csv::Reader<&[u8]> {
+    csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .from_reader(bytes)
+}
+
+fn parse_block(plan: &Plan, bytes: &[u8]) -> Result<BlockData, BlockFailure> {
+    let width = plan.columns.len();
+    let mut data = BlockData::new(width);
+    let mut reader = csv_reader(bytes);
+    let mut record = csv::ByteRecord::new();
+    let mut row_numbers = vec![0.0; width];
+    let mut row_codes = vec![0u32; width];
+    loop {
+        let local = data.records + 1;
+        match reader.read_byte_record(&mut record) {
+            Ok(false) => break,
+            Ok(true) => {}
+            Err(e) => {
+                let message = e.to_string();
+                return Err(failure(local, move |row| FitError::Csv { row, message }));
+            }
+        }
+        data.records += 1;
+        if record.len() < plan.header_len {
+            let (found, expected) = (record.len(), plan.header_len);
+            return Err(failure(local, move |row| FitError::ShortRow {
+                row,
+                found,
+                expected,
+            }));
+        }
+        let mut missing: Option<String> = None;
+        let outcome_text = trim(&record[plan.outcome_index]);
+        let outcome = if is_missing(outcome_text) {
+            missing = Some(plan.outcome_name.clone());
+            0.0
+        } else {
+            match parse_outcome(outcome_text) {
+                Some(y) => y,
+                None => {
+                    let (column, text) = (plan.outcome_name.clone(), text_of(outcome_text));
+                    return Err(failure(local, move |row| FitError::OutcomeNotBinary {
+                        row,
+                        column,
+                        text,
+                    }));
+                }
+            }
+        };
+        for (c, (index, categorical, log_term)) in plan.columns.iter().enumerate() {
+            if missing.is_some() {
+                break;
+            }
+            let cell = trim(&record[*index]);
+            if is_missing(cell) {
+                missing = Some(plan.names[c].clone());
+                break;
+            }
+            if *categorical {
+                let dictionary = &mut data.dictionaries[c];
+                let next = dictionary.len() as u32;
+                row_codes[c] = match dictionary.get(cell) {
+                    Some(&code) => code,
+                    None => {
+                        if std::str::from_utf8(cell).is_err() {
+                            let column = plan.names[c].clone();
+                            return Err(failure(local, move |row| FitError::LevelNotText {
+                                row,
+                                column,
+                            }));
+                        }
+                        dictionary.insert(cell.to_vec(), next);
+                        next
+                    }
+                };
+                continue;
+            }
+            let column = || plan.names[c].clone();
+            let x = match parse_number(cell) {
+                Some(x) if x.is_finite() => x,
+                Some(_) => {
+                    let (column, text) = (column(), text_of(cell));
+                    return Err(failure(local, move |row| FitError::NotFinite {
+                        row,
+                        column,
+                        text,
+                    }));
+                }
+                None => {
+                    let (column, text) = (column(), text_of(cell));
+                    return Err(failure(local, move |row| FitError::NotANumber {
+                        row,
+                        column,
+                        text,
+                    }));
+                }
+            };
+            if let Some(term) = log_term {
+                if x <= 0.0 {
+                    let (column, term) = (column(), term.clone());
+                    return Err(failure(local, move |row| FitError::LogOfNonPositive {
+                        row,
+                        term,
+                        column,
+                        value: x,
+                    }));
+                }
+            }
+            row_numbers[c] = x;
+        }
+        if let Some(column) = missing {
+            if plan.drop_missing {
+                data.dropped += 1;
+                continue;
+            }
+            return Err(failure(local, move |row| FitError::Missing { row, column }));
+        }
+        data.outcome.push(outcome);
+        for (c, (_, categorical, _)) in plan.columns.iter().enumerate() {
+            if *categorical {
+                data.codes[c].push(row_codes[c]);
+            } else {
+                data.numeric[c].push(row_numbers[c]);
+            }
+        }
+    }
+    Ok(data)
+}
+
+/// The header's fields, without a UTF-8 byte-order mark.
+fn parse_header(bytes: &[u8]) -> Result<Vec<String>, FitError> {
+    let bytes = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
+    let mut reader = csv_reader(bytes);
+    let mut record = csv::ByteRecord::new();
+    match reader.read_byte_record(&mut record) {
+        Ok(true) => {}
+        Ok(false) => return Err(FitError::NoHeader),
+        Err(e) => {
+            return Err(FitError::Csv {
+                row: 0,
+                message: e.to_string(),
+            })
+        }
+    }
+    record
+        .iter()
+        .enumerate()
+        .map(|(i, f)| {
+            std::str::from_utf8(f)
+                .map(|s| s.trim().to_string())
+                .map_err(|_| FitError::HeaderNotText(i + 1))
+        })
+        .collect()
+}
+
+/// Decide text or number for columns not named categorical, from the first block.
+fn infer_text_columns(plan: &mut Plan, first_block: &[u8]) {
+    let undecided: Vec<usize> = (0..plan.columns.len())
+        .filter(|&c| !plan.columns[c].1)
+        .collect();
+    let mut decided = vec![false; plan.columns.len()];
+    let mut reader = csv_reader(first_block);
+    let mut record = csv::ByteRecord::new();
+    while let Ok(true) = reader.read_byte_record(&mut record) {
+        for &c in &undecided {
+            let index = plan.columns[c].0;
+            if decided[c] {
+                continue;
+            }
+            let Some(cell) = record.get(index).map(trim) else {
+                continue;
+            };
+            if is_missing(cell) {
+                continue;
+            }
+            decided[c] = true;
+            if parse_number(cell).is_none() {
+                plan.columns[c].1 = true;
+            }
+        }
+        if undecided.iter().all(|&c| decided[c]) {
+            break;
+        }
+    }
+}
+
+fn find_column(header: &[String], name: &str) -> Result<usize, FitError> {
+    let mut found = header.iter().enumerate().filter(|(_, h)| *h == name);
+    match (found.next(), found.next()) {
+        (Some((i, _)), None) => Ok(i),
+        (Some(_), Some(_)) => Err(FitError::DuplicateColumn(name.to_string())),
+        (None, _) => Err(FitError::MissingColumn {
+            column: name.to_string(),
+            available: header.join(", "),
+        }),
+    }
+}
+
+type Joiner = BlockData;
+
+impl BlockData {
+    fn new(width: usize) -> BlockData {
+        BlockData {
+            numeric: vec![Vec::new(); width],
+            codes: vec![Vec::new(); width],
+            dictionaries: vec![HashMap::new(); width],
+            ..BlockData::default()
+        }
+    }
+
+    /// Append the next block in file order, recoding its levels into this dictionary.
+    fn append(&mut self, block: BlockData) {
+        self.outcome.extend_from_slice(&block.outcome);
+        for (c, numbers) in block.numeric.into_iter().enumerate() {
+            self.numeric[c].extend_from_slice(&numbers);
+        }
+        for (c, (codes, local)) in block.codes.into_iter().zip(block.dictionaries).enumerate() {
+            if codes.is_empty() {
+                continue;
+            }
+            let global = &mut self.dictionaries[c];
+            let mut map = vec![0u32; local.len()];
+            for (text, code) in local {
+                let next = global.len() as u32;
+                map[code as usize] = *global.entry(text).or_insert(next);
+            }
+            self.codes[c].extend(codes.iter().map(|&code| map[code as usize]));
+        }
+        self.records += block.records;
+        self.dropped += block.dropped;
+    }
+
+    fn finish(mut self, plan: &Plan) -> Table {
+        let columns = plan
+            .columns
+            .iter()
+            .enumerate()
+            .map(|(c, (_, categorical, _))| {
+                if !*categorical {
+                    return ColumnData::Numeric(std::mem::take(&mut self.numeric[c]));
+                }
+                let mut levels: Vec<(String, u32)> = self.dictionaries[c]
+                    .iter()
+                    .map(|(text, &code)| (text_of(text), code))
+                    .collect();
+                levels.sort();
+                let mut recode = vec![0u32; levels.len()];
+                for (sorted, (_, code)) in levels.iter().enumerate() {
+                    recode[*code as usize] = sorted as u32;
+                }
+                ColumnData::Categorical {
+                    codes: self.codes[c].iter().map(|&k| recode[k as usize]).collect(),
+                    levels: levels.into_iter().map(|(text, _)| text).collect(),
+                }
+            })
+            .collect();
+        Table {
+            outcome: self.outcome,
+            columns,
+            dropped: self.dropped,
+            rows_in_file: self.records,
+        }
+    }
+}
+
+fn read_error(path: &Path) -> impl Fn(std::io::Error) -> FitError + '_ {
+    move |source| FitError::Read {
+        path: path.to_path_buf(),
+        source,
+    }
+}
+
+/// Fill `buffer` from `file` until it holds at least `BLOCK_BYTES` or the file ends.
+fn fill(file: &mut File, buffer: &mut Vec<u8>) -> std::io::Result<bool> {
+    let start = buffer.len();
+    buffer.resize(start + BLOCK_BYTES, 0);
+    let mut filled = start;
+    while filled < buffer.len() {
+        let n = file.read(&mut buffer[filled..])?;
+        if n == 0 {
+            buffer.truncate(filled);
+            return Ok(false);
+        }
+        filled += n;
+    }
+    Ok(true)
+}
+
+/// Read the requested columns of a CSV file.
+pub fn read_table(request: &ReadRequest, progress: &dyn Progress) -> Result<Table, FitError> {
+    let path = &request.path;
+    let mut file = File::open(path).map_err(read_error(path))?;
+    let total_bytes = file.metadata().map(|m| m.len()).unwrap_or(0);
+    progress.start_reading(total_bytes);
+
+    // The header and the first block.
+    let mut pending = Vec::with_capacity(BLOCK_BYTES * 2);
+    let mut more = fill(&mut file, &mut pending).map_err(read_error(path))?;
+    while more && first_record_end(&pending).is_none() {
+        more = fill(&mut file, &mut pending).map_err(read_error(path))?;
+    }
+    let header_end = first_record_end(&pending).unwrap_or(pending.len());
+    let header = parse_header(&pending[..header_end])?;
+    let outcome_index = find_column(&header, &request.outcome)?;
+    let mut columns = Vec::with_capacity(request.columns.len());
+    for column in &request.columns {
+        let index = find_column(&header, &column.name)?;
+        columns.push((index, column.categorical, column.log_term.clone()));
+    }
+    pending.drain(..header_end);
+    let mut plan = Plan {
+        outcome_index,
+        outcome_name: request.outcome.clone(),
+        columns,
+        names: request.columns.iter().map(|c| c.name.clone()).collect(),
+        header_len: header.len(),
+        drop_missing: request.drop_missing,
+    };
+    while more && pending.len() < BLOCK_BYTES {
+        more = fill(&mut file, &mut pending).map_err(read_error(path))?;
+    }
+    infer_text_columns(&mut plan, &pending);
+
+    let width = plan.columns.len();
+    let mut joiner = Joiner::new(width);
+    let threads = std::thread::available_parallelism()
+        .map(|n| n.get())
+        .unwrap_or(1)
+        .clamp(1, 8);
+    let stop = AtomicBool::new(false);
+    let (block_sender, block_receiver) = mpsc::sync_channel::<(usize, Vec<u8>)>(threads * 2);
+    let block_receiver = Mutex::new(block_receiver);
+    let (result_sender, result_receiver) =
+        mpsc::channel::<(usize, Result<BlockData, BlockFailure>)>();
+    let plan_ref = &plan;
+
+    let outcome: Result<Joiner, FitError> = std::thread::scope(|scope| {
+        for _ in 0..threads {
+            let results = result_sender.clone();
+            let blocks = &block_receiver;
+            let stop = &stop;
+            scope.spawn(move || loop {
+                let next = blocks.lock().map(|r| r.recv());
+                let Ok(Ok((index, bytes))) = next else { break };
+                if stop.load(Ordering::Relaxed) {
+                    continue;
+                }
+                // Keep draining after the joiner has stopped, so the reader never blocks.
+                if results
+                    .send((index, parse_block(plan_ref, &bytes)))
+                    .is_err()
+                {
+                    stop.store(true, Ordering::Relaxed);
+                }
+            });
+        }
+        drop(result_sender);
+
+        // The joiner runs on its own thread so that reading never waits for joining.
+        let stop_ref = &stop;
+        let joined = scope.spawn(move || -> Result<Joiner, FitError> {
+            let mut waiting: std::collections::BTreeMap<usize, Result<BlockData, BlockFailure>> =
+                Default::default();
+            let mut next = 0usize;
+            for (index, result) in result_receiver {
+                waiting.insert(index, result);
+                while let Some(result) = waiting.remove(&next) {
+                    match result {
+                        Ok(block) => {
+                            joiner.append(block);
+                            progress.rows_read(joiner.records);
+                        }
+                        Err(f) => {
+                            stop_ref.store(true, Ordering::Relaxed);
+                            return Err((f.make)(joiner.records + f.local_row));
+                        }
+                    }
+                    next += 1;
+                }
+            }
+            Ok(joiner)
+        });
+
+        let mut index = 0usize;
+        let mut read_bytes = header_end as u64;
+        let mut io_failure = None;
+        loop {
+            if stop.load(Ordering::Relaxed) {
+                break;
+            }
+            if more {
+                while more && pending.len() < BLOCK_BYTES {
+                    match fill(&mut file, &mut pending) {
+                        Ok(m) => more = m,
+                        Err(e) => {
+                            io_failure = Some(e);
+                            more = false;
+                        }
+                    }
+                }
+            }
+            if io_failure.is_some() {
+                break;
+            }
+            let cut = if more {
+                record_boundary(&pending).unwrap_or(0)
+            } else {
+                pending.len()
+            };
+            if cut == 0 {
+                if more {
+                    // One record longer than a block: keep reading.
+                    match fill(&mut file, &mut pending) {
+                        Ok(m) => more = m,
+                        Err(e) => io_failure = Some(e),
+                    }
+                    continue;
+                }
+                break;
+            }
+            let rest = pending.split_off(cut);
+            let block = std::mem::replace(&mut pending, rest);
+            read_bytes += block.len() as u64;
+            progress.bytes_read(read_bytes);
+            if block_sender.send((index, block)).is_err() {
+                break;
+            }
+            index += 1;
+            if !more && pending.is_empty() {
+                break;
+            }
+        }
+        drop(block_sender);
+        let joined = joined.join().unwrap_or(Err(FitError::NoRows(
+            " (a reading thread failed)".to_string(),
+        )));
+        if let Some(source) = io_failure {
+            return Err(FitError::Read {
+                path: path.clone(),
+                source,
+            });
+        }
+        joined
+    });
+    let table = outcome?.finish(&plan);
+    progress.rows_read(table.rows_in_file);
+    Ok(table)
+}

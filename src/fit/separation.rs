@@ -1,0 +1,217 @@
+//! Separation: when the outcome is perfectly (complete) or perfectly-but-for-ties
+//! (quasi-complete) predicted by the terms, the likelihood keeps rising as a coefficient runs to
+//! infinity and no maximum-likelihood estimate exists.
+//!
+//! Two checks, both naming a term and a direction:
+//!
+//! - **Before the fit, exactly, one term at a time.** With an intercept, term j separates when
+//!   a threshold c puts every outcome-0 observation on one side and every outcome-1 on the
+//!   other: `max(xⱼ | y=0) ≤ min(xⱼ | y=1)` (larger values predict 1) or the mirror image;
+//!   strict inequality is complete separation, equality quasi-complete. Without an intercept
+//!   the threshold must be 0. One separating term is enough for the whole model to separate
+//!   (move along that coefficient and the intercept alone), so this check has no false alarms.
+//! - **After a failed fit, for combinations of terms.** If observations are fitted within
+//!   1e-10 of their outcome, the fit is reported as separated, naming the term with the
+//!   largest scaled coefficient |βⱼ|·sd(xⱼ) and its sign.
+
+use crate::link::Link;
+
+use super::design::{reduce_rows, Design};
+use super::error::FitError;
+use super::likelihood::index;
+
+/// Fitted probabilities closer than this to the outcome count as perfectly predicted.
+pub const PERFECT_FIT: f64 = 1e-10;
+
+#[derive(Debug, Clone, Copy)]
+struct Extremes {
+    min0: f64,
+    max0: f64,
+    min1: f64,
+    max1: f64,
+}
+
+impl Extremes {
+    fn new() -> Extremes {
+        Extremes {
+            min0: f64::INFINITY,
+            max0: f64::NEG_INFINITY,
+            min1: f64::INFINITY,
+            max1: f64::NEG_INFINITY,
+        }
+    }
+    fn merge(&mut self, o: Extremes) {
+        self.min0 = self.min0.min(o.min0);
+        self.max0 = self.max0.max(o.max0);
+        self.min1 = self.min1.min(o.min1);
+        self.max1 = self.max1.max(o.max1);
+    }
+}
+
+fn format_value(x: f64) -> String {
+    format!("{}", (x * 1e9).round() / 1e9)
+}
+
+/// Describe a single term's separation, if any. `larger_predicts_one` tells the direction.
+fn describe(label: &str, e: &Extremes, intercept: bool) -> Option<(&'static str, String)> {
+    let overall_min = e.min0.min(e.min1);
+    let overall_max = e.max0.max(e.max1);
+    let candidates = [(e.max0, e.min1, 1u8, "+∞"), (e.max1, e.min0, 0u8, "−∞")];
+    for (below, above, outcome_above, infinity) in candidates {
+        let threshold = if below < above {
+            Some(0.5 * (below + above))
+        } else if below == above {
+            Some(below)
+        } else {
+            None
+        };
+        let Some(threshold) = threshold else { continue };
+        let zero_separates = below <= 0.0 && 0.0 <= above;
+        if !intercept && !zero_separates {
+            continue;
+        }
+        let outcome_below = 1 - outcome_above;
+        let kind = if below < above {
+            "complete"
+        } else {
+            "quasi-complete"
+        };
+        let mut sides = Vec::new();
+        if below < above {
+            sides.push(format!(
+                "every observation with {label} ≤ {} has outcome {outcome_below} and every one with {label} ≥ {} has outcome {outcome_above}",
+                format_value(below),
+                format_value(above)
+            ));
+        } else {
+            if overall_max > threshold {
+                sides.push(format!(
+                    "every observation with {label} > {} has outcome {outcome_above}",
+                    format_value(threshold)
+                ));
+            }
+            if overall_min < threshold {
+                sides.push(format!(
+                    "every observation with {label} < {} has outcome {outcome_below}",
+                    format_value(threshold)
+                ));
+            }
+        }
+        return Some((
+            kind,
+            format!(
+                "term '{label}' predicts the outcome: {} (its coefficient runs to {infinity})",
+                sides.join(" and ")
+            ),
+        ));
+    }
+    None
+}
+
+/// The exact one-term check, run before the fit. `labels[j] == "intercept"` marks the
+/// intercept column.
+pub fn check_single_terms(
+    design: &Design,
+    outcome: &[f64],
+    labels: &[String],
+) -> Result<(), FitError> {
+    let k = design.columns();
+    let intercept = labels.iter().any(|l| l == "intercept");
+    let extremes = reduce_rows(
+        design.rows(),
+        || vec![Extremes::new(); k],
+        |acc, range| {
+            for i in range {
+                let one = outcome[i] > 0.5;
+                for (e, &x) in acc.iter_mut().zip(design.row(i)) {
+                    if one {
+                        e.min1 = e.min1.min(x);
+                        e.max1 = e.max1.max(x);
+                    } else {
+                        e.min0 = e.min0.min(x);
+                        e.max0 = e.max0.max(x);
+                    }
+                }
+            }
+        },
+        |total, part| total.iter_mut().zip(part).for_each(|(t, p)| t.merge(p)),
+    );
+    for (j, e) in extremes.iter().enumerate() {
+        if labels[j] == "intercept" {
+            continue;
+        }
+        if let Some((kind, detail)) = describe(&labels[j], e, intercept) {
+            return Err(FitError::Separation { kind, detail });
+        }
+    }
+    Ok(())
+}
+
+/// After a fit that stopped without converging: is it separation? Returns the error to report
+/// if observations are fitted (within [`PERFECT_FIT`]) exactly at their outcome.
+pub fn diagnose(
+    design: &Design,
+    outcome: &[f64],
+    link: Link,
+    beta: &[f64],
+    labels: &[String],
+) -> Option<FitError> {
+    let n = design.rows();
+    let k = design.columns();
+    let (perfect, sums, squares) = reduce_rows(
+        n,
+        || (0u64, vec![0.0; k], vec![0.0; k]),
+        |acc, range| {
+            for i in range {
+                let x = design.row(i);
+                let z = index(x, beta);
+                let miss = if outcome[i] > 0.5 {
+                    link.complement(z)
+                } else {
+                    link.probability(z)
+                };
+                if miss < PERFECT_FIT {
+                    acc.0 += 1;
+                }
+                for ((sum, square), &xj) in acc.1.iter_mut().zip(acc.2.iter_mut()).zip(x) {
+                    *sum += xj;
+                    *square += xj * xj;
+                }
+            }
+        },
+        |total, part| {
+            total.0 += part.0;
+            total.1.iter_mut().zip(part.1).for_each(|(t, p)| *t += p);
+            total.2.iter_mut().zip(part.2).for_each(|(t, p)| *t += p);
+        },
+    );
+    if perfect == 0 {
+        return None;
+    }
+    let nf = n as f64;
+    let (term, scaled) = (0..k)
+        .filter(|&j| labels[j] != "intercept")
+        .map(|j| {
+            let mean = sums[j] / nf;
+            let sd = (squares[j] / nf - mean * mean).max(0.0).sqrt();
+            (j, beta[j] * sd)
+        })
+        .max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))?;
+    let kind = if perfect as usize == n {
+        "complete"
+    } else {
+        "quasi-complete"
+    };
+    let (direction, outcome) = if scaled > 0.0 {
+        ("+∞", 1)
+    } else {
+        ("−∞", 0)
+    };
+    Some(FitError::Separation {
+        kind,
+        detail: format!(
+            "{perfect} of {n} observations are fitted within {PERFECT_FIT:e} of their outcome; the coefficient of term '{}' is {:.4} and still running to {direction} (larger values of it predict outcome {outcome})",
+            labels[term], beta[term]
+        ),
+    })
+}
