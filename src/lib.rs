@@ -12,6 +12,7 @@
 
 pub mod cli;
 pub mod engine;
+pub mod fit;
 pub mod link;
 pub mod model;
 pub mod registry;
