@@ -6,6 +6,8 @@
 //! model     the model file, its validation, covariates and terms
 //! engine    probability, effects, intervals, warnings, contributions, averages
 //! registry  the model directory, live versions, promotion, hot swap
+//! service   the HTTP listener: routes, problem details, limits, shutdown
+//! metrics   the Prometheus registry and the request and scoring metrics
 //! cli       the subcommands of the binary, one file each
 //! ```
 #![warn(missing_docs)]
@@ -14,5 +16,7 @@ pub mod cli;
 pub mod engine;
 pub mod fit;
 pub mod link;
+pub mod metrics;
 pub mod model;
 pub mod registry;
+pub mod service;

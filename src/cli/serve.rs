@@ -1,9 +1,173 @@
-//! `ogive serve`: in progress (issue 4).
+//! `ogive serve`: load the model directory, start the public listener, print its address and an
+//! example request, and serve until SIGTERM or SIGINT (then drain and stop).
+//!
+//! Every flag can also be set from the `OGIVE_…` variable named in its help. The admin flags are
+//! read here so that deployments can set them now; the admin listener mounts on them.
+
+use std::net::SocketAddr;
+use std::path::PathBuf;
 use std::process::ExitCode;
+use std::sync::Arc;
+
+use anyhow::Context;
+
+use crate::metrics::Metrics;
+use crate::registry::load::load_directory;
+use crate::registry::Registry;
+use crate::service::example::example_curl;
+use crate::service::{bind, serve, shutdown, AppState, Limits, Settings};
+
 /// Arguments of `ogive serve`.
 #[derive(Debug, clap::Args)]
-pub struct ServeArgs {}
+pub struct ServeArgs {
+    /// The model directory: NAME/live and NAME/versions/VERSION.json per model.
+    #[arg(
+        long,
+        env = "OGIVE_MODELS",
+        default_value = "model-files",
+        value_name = "DIR"
+    )]
+    pub models: PathBuf,
+    /// Address of the public listener.
+    #[arg(
+        long,
+        env = "OGIVE_LISTEN",
+        default_value = "127.0.0.1:8080",
+        value_name = "ADDR"
+    )]
+    pub listen: SocketAddr,
+    /// Address of the admin listener (loopback by default).
+    #[arg(
+        long,
+        env = "OGIVE_ADMIN_LISTEN",
+        default_value = "127.0.0.1:8081",
+        value_name = "ADDR"
+    )]
+    pub admin_listen: SocketAddr,
+    /// File holding the admin bearer token.
+    #[arg(long, env = "OGIVE_ADMIN_TOKEN_FILE", value_name = "FILE")]
+    pub admin_token_file: Option<PathBuf>,
+    /// Worker threads (0: one per CPU core).
+    #[arg(long, env = "OGIVE_WORKERS", default_value_t = 0)]
+    pub workers: usize,
+    /// Most observations in one batch.
+    #[arg(long, env = "OGIVE_MAX_BATCH", default_value_t = Limits::default().max_batch)]
+    pub max_batch: usize,
+    /// Largest request body, in bytes.
+    #[arg(long, env = "OGIVE_MAX_BODY_BYTES", default_value_t = Limits::default().max_body_bytes)]
+    pub max_body_bytes: usize,
+    /// Largest total size of request headers, in bytes.
+    #[arg(long, env = "OGIVE_MAX_HEADER_BYTES", default_value_t = Limits::default().max_header_bytes)]
+    pub max_header_bytes: usize,
+    /// Most points on one curve.
+    #[arg(long, env = "OGIVE_MAX_CURVE_POINTS", default_value_t = Limits::default().max_curve_points)]
+    pub max_curve_points: usize,
+    /// Time a client has to send the request head, in milliseconds.
+    #[arg(long, env = "OGIVE_CLIENT_REQUEST_TIMEOUT_MS", default_value_t = Limits::default().client_request_timeout_ms)]
+    pub client_request_timeout_ms: u64,
+    /// Time an idle keep-alive connection stays open, in milliseconds.
+    #[arg(long, env = "OGIVE_KEEP_ALIVE_MS", default_value_t = Limits::default().keep_alive_ms)]
+    pub keep_alive_ms: u64,
+    /// Time a client has to acknowledge a closed connection, in milliseconds.
+    #[arg(long, env = "OGIVE_CLIENT_DISCONNECT_TIMEOUT_MS", default_value_t = Limits::default().client_disconnect_timeout_ms)]
+    pub client_disconnect_timeout_ms: u64,
+    /// After SIGTERM, how long to keep accepting while readiness is 503, in milliseconds.
+    #[arg(long, env = "OGIVE_DRAIN_DELAY_MS", default_value_t = Settings::default().drain_delay_ms)]
+    pub drain_delay_ms: u64,
+    /// After SIGTERM, the longest wait for in-flight requests before exiting, in milliseconds.
+    #[arg(long, env = "OGIVE_SHUTDOWN_TIMEOUT_MS", default_value_t = Settings::default().shutdown_timeout_ms)]
+    pub shutdown_timeout_ms: u64,
+    /// Log each request's covariate values (they may be personal data; off by default).
+    #[arg(long, env = "OGIVE_LOG_OBSERVATIONS")]
+    pub log_observations: bool,
+}
+
+impl ServeArgs {
+    /// The listener settings these arguments describe.
+    pub fn settings(&self) -> Settings {
+        Settings {
+            listen: self.listen,
+            workers: self.workers,
+            limits: Limits {
+                max_batch: self.max_batch,
+                max_body_bytes: self.max_body_bytes,
+                max_header_bytes: self.max_header_bytes,
+                max_curve_points: self.max_curve_points.max(2),
+                client_request_timeout_ms: self.client_request_timeout_ms,
+                keep_alive_ms: self.keep_alive_ms,
+                client_disconnect_timeout_ms: self.client_disconnect_timeout_ms,
+                ..Limits::default()
+            },
+            drain_delay_ms: self.drain_delay_ms,
+            shutdown_timeout_ms: self.shutdown_timeout_ms,
+            log_observations: self.log_observations,
+        }
+    }
+}
+
+fn log_panics() {
+    std::panic::set_hook(Box::new(|info| {
+        let location = info
+            .location()
+            .map(|l| format!("{}:{}", l.file(), l.line()))
+            .unwrap_or_default();
+        let message = info
+            .payload()
+            .downcast_ref::<&str>()
+            .map(|s| s.to_string())
+            .or_else(|| info.payload().downcast_ref::<String>().cloned())
+            .unwrap_or_default();
+        tracing::error!(panic = %message, location = %location, "panic");
+    }));
+}
+
 /// Run `ogive serve`.
-pub fn run(_args: ServeArgs) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("`ogive serve` is not built yet")
+pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
+    log_panics();
+    let settings = args.settings();
+    let report = load_directory(&args.models)
+        .with_context(|| format!("loading the model directory {}", args.models.display()))?;
+    let metrics = Metrics::new()?;
+    for (name, error) in &report.failures {
+        tracing::error!(model = %name, error = %error, "model not loaded");
+        metrics.model_load_errors.with_label_values(&[name]).inc();
+    }
+    for entry in report.snapshot.models.values() {
+        let m = &entry.live;
+        tracing::info!(
+            model = m.name(),
+            version = m.version(),
+            link = m.link.name(),
+            "model loaded"
+        );
+    }
+    if report.snapshot.models.is_empty() {
+        tracing::warn!(dir = %args.models.display(), "no models loaded");
+    }
+    if let Some(file) = &args.admin_token_file {
+        tracing::info!(admin_listen = %args.admin_listen, token_file = %file.display(), "admin settings read");
+    }
+    let all_loaded = report.failures.is_empty();
+    let registry = Arc::new(Registry::default());
+    let example = report
+        .snapshot
+        .models
+        .values()
+        .next()
+        .map(|e| e.live.clone());
+    registry.replace(report.snapshot);
+    let state = AppState::new(registry, metrics, settings.clone(), all_loaded);
+    let listener = bind(&settings).with_context(|| format!("listening on {}", settings.listen))?;
+    let addr = listener.local_addr()?;
+    let base_url = format!("http://{addr}");
+    println!("ogive serving on {base_url}");
+    if let Some(model) = example {
+        println!("try:\n  {}", example_curl(&model, &base_url));
+    }
+    actix_web::rt::System::new().block_on(serve(state, listener, None, async {
+        if let Err(e) = shutdown::termination_signal().await {
+            tracing::error!(error = %e, "cannot wait for signals; stopping");
+        }
+    }))?;
+    Ok(ExitCode::SUCCESS)
 }

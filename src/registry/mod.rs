@@ -12,6 +12,8 @@ use arc_swap::ArcSwap;
 
 use crate::model::Model;
 
+pub mod load;
+
 /// One model as served: its live version and an optional shadow candidate.
 #[derive(Debug, Clone)]
 pub struct Entry {

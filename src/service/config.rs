@@ -1,0 +1,96 @@
+//! The settings of the public listener: where it listens, its limits and timeouts, its drain
+//! and shutdown times, and what it logs. Plain data with defaults that run out of the box; the
+//! command line (`ogive serve`) fills it from flags and `OGIVE_…` variables.
+//!
+//! This module does not read files or parse flags.
+
+use std::net::SocketAddr;
+use std::time::Duration;
+
+/// Limits on what one request may carry and how long a client may take.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Limits {
+    /// Most observations in one batch.
+    pub max_batch: usize,
+    /// Largest request body, in bytes.
+    pub max_body_bytes: usize,
+    /// Largest total size of the request headers, in bytes (names, values and separators).
+    pub max_header_bytes: usize,
+    /// Most points on one curve.
+    pub max_curve_points: usize,
+    /// Time a client has to send the request head after connecting.
+    pub client_request_timeout_ms: u64,
+    /// Time an idle keep-alive connection stays open.
+    pub keep_alive_ms: u64,
+    /// Time a client has to acknowledge a closed connection.
+    pub client_disconnect_timeout_ms: u64,
+    /// Most concurrent connections per worker.
+    pub max_connections_per_worker: usize,
+}
+
+impl Default for Limits {
+    fn default() -> Limits {
+        Limits {
+            max_batch: 10_000,
+            max_body_bytes: 8 * 1024 * 1024,
+            max_header_bytes: 16 * 1024,
+            max_curve_points: 500,
+            client_request_timeout_ms: 5_000,
+            keep_alive_ms: 5_000,
+            client_disconnect_timeout_ms: 1_000,
+            max_connections_per_worker: 25_000,
+        }
+    }
+}
+
+/// Everything the public listener needs to start.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Settings {
+    /// The address to listen on; port 0 picks a free port.
+    pub listen: SocketAddr,
+    /// Worker threads; 0 means one per CPU core.
+    pub workers: usize,
+    /// Request limits and timeouts.
+    pub limits: Limits,
+    /// After SIGTERM, how long to keep accepting (readiness already 503) so that load balancers
+    /// notice before connections are refused.
+    pub drain_delay_ms: u64,
+    /// After SIGTERM, the longest the process waits for in-flight requests before exiting.
+    pub shutdown_timeout_ms: u64,
+    /// Log the covariate values of each observation (off by default: they may be personal data).
+    pub log_observations: bool,
+}
+
+impl Default for Settings {
+    fn default() -> Settings {
+        Settings {
+            listen: SocketAddr::from(([127, 0, 0, 1], 8080)),
+            workers: 0,
+            limits: Limits::default(),
+            drain_delay_ms: 5_000,
+            shutdown_timeout_ms: 30_000,
+            log_observations: false,
+        }
+    }
+}
+
+impl Settings {
+    /// The drain delay as a duration.
+    pub fn drain_delay(&self) -> Duration {
+        Duration::from_millis(self.drain_delay_ms)
+    }
+
+    /// The shutdown timeout as a duration.
+    pub fn shutdown_timeout(&self) -> Duration {
+        Duration::from_millis(self.shutdown_timeout_ms)
+    }
+
+    /// Worker threads to start: the configured count, or one per available core.
+    pub fn worker_count(&self) -> usize {
+        if self.workers > 0 {
+            self.workers
+        } else {
+            std::thread::available_parallelism().map_or(1, |n| n.get())
+        }
+    }
+}

@@ -1,0 +1,212 @@
+//! The one middleware around every route: it assigns the request id, refuses oversized headers,
+//! records the request metrics and writes the request's single JSON log line. Beside it,
+//! [`Guarded`] wraps every handler so that a panic answers that one request with a 500 instead
+//! of taking down a worker and the connections it carries.
+//!
+//! ```text
+//! log line fields: request_id route method status latency_ms [model version] [observations]
+//! ```
+//!
+//! `model` and `version` come from the handler through [`Scored`] in the request extensions;
+//! `observations` (the covariate values as sent) only when `--log-observations` is on.
+
+use std::future::Future;
+use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::task::Poll;
+use std::time::Instant;
+
+use actix_web::body::{BoxBody, MessageBody};
+use actix_web::dev::{ServiceRequest, ServiceResponse};
+use actix_web::http::header::{HeaderName, HeaderValue};
+use actix_web::middleware::Next;
+use actix_web::{web, Error, HttpMessage, ResponseError};
+
+use super::problem::{Kind, Problem};
+use super::request_id::{RequestId, HEADER};
+use super::state::AppState;
+
+/// Which model version answered, for the log line (set by scoring handlers).
+#[derive(Debug, Clone)]
+pub struct Scored {
+    /// The model's name.
+    pub model: String,
+    /// The version that answered.
+    pub version: String,
+    /// The observations as sent, when observation logging is on.
+    pub observations: Option<String>,
+}
+
+/// The route label for requests that matched no route.
+pub const UNMATCHED_ROUTE: &str = "unmatched";
+
+/// Methods get their own metric label; anything else is counted as `OTHER`, so a client
+/// cannot grow the label set.
+fn method_label(method: &actix_web::http::Method) -> &'static str {
+    match method.as_str() {
+        "GET" => "GET",
+        "POST" => "POST",
+        "PUT" => "PUT",
+        "DELETE" => "DELETE",
+        "HEAD" => "HEAD",
+        "OPTIONS" => "OPTIONS",
+        "PATCH" => "PATCH",
+        _ => "OTHER",
+    }
+}
+
+fn header_bytes(req: &ServiceRequest) -> usize {
+    req.headers()
+        .iter()
+        .map(|(name, value)| name.as_str().len() + value.len() + 4)
+        .sum()
+}
+
+fn panic_message(payload: &(dyn std::any::Any + Send)) -> String {
+    if let Some(s) = payload.downcast_ref::<&str>() {
+        (*s).to_string()
+    } else if let Some(s) = payload.downcast_ref::<String>() {
+        s.clone()
+    } else {
+        "a panic without a message".to_string()
+    }
+}
+
+/// Poll `future`, turning a panic during any poll into an error value.
+async fn catching_panics<F: Future>(future: F) -> Result<F::Output, String> {
+    let mut future = Box::pin(future);
+    std::future::poll_fn(move |cx| {
+        match catch_unwind(AssertUnwindSafe(|| future.as_mut().poll(cx))) {
+            Ok(Poll::Pending) => Poll::Pending,
+            Ok(Poll::Ready(output)) => Poll::Ready(Ok(output)),
+            Err(payload) => Poll::Ready(Err(panic_message(payload.as_ref()))),
+        }
+    })
+    .await
+}
+
+/// A handler wrapper that turns a panic while handling a request into a logged 500 problem, so a
+/// bug answers one request instead of unwinding through the worker and the connections it
+/// carries. Every route is mounted through it (see `routes::configure`).
+#[derive(Clone)]
+pub struct Guarded<H>(pub H);
+
+impl<H, Args> actix_web::Handler<Args> for Guarded<H>
+where
+    H: actix_web::Handler<Args>,
+    Args: 'static,
+    H::Future: 'static,
+    H::Output: 'static,
+{
+    type Output = Result<H::Output, Problem>;
+    type Future = std::pin::Pin<Box<dyn Future<Output = Self::Output>>>;
+
+    fn call(&self, args: Args) -> Self::Future {
+        let handler = AssertUnwindSafe(&self.0);
+        let started = catch_unwind(AssertUnwindSafe(move || handler.0.call(args)));
+        Box::pin(async move {
+            let outcome = match started {
+                Ok(future) => catching_panics(future).await,
+                Err(payload) => Err(panic_message(payload.as_ref())),
+            };
+            outcome.map_err(|message| {
+                tracing::error!(panic = %message, "handler panicked; answered 500");
+                Problem::new(
+                    Kind::Internal,
+                    "the service could not answer this request; the cause has been logged",
+                )
+            })
+        })
+    }
+}
+
+/// The middleware function (mounted with `actix_web::middleware::from_fn`).
+pub async fn observe(
+    req: ServiceRequest,
+    next: Next<impl MessageBody + 'static>,
+) -> Result<ServiceResponse<BoxBody>, Error> {
+    let started = Instant::now();
+    let state = req.app_data::<web::Data<AppState>>().cloned();
+    let request_id = RequestId::from_header(req.headers().get(HEADER));
+    req.extensions_mut().insert(request_id.clone());
+    let route = req.match_pattern();
+    let route = route.as_deref().unwrap_or(UNMATCHED_ROUTE).to_string();
+    let method = method_label(req.method());
+    let max_header_bytes = state
+        .as_ref()
+        .map_or(usize::MAX, |s| s.settings.limits.max_header_bytes);
+
+    let size = header_bytes(&req);
+    let result = if size > max_header_bytes {
+        let problem = Problem::new(
+            Kind::HeadersTooLarge,
+            format!("the request headers take {size} bytes; the limit is {max_header_bytes}"),
+        )
+        .limit(max_header_bytes as u64);
+        Ok(req.into_response(problem.error_response()))
+    } else {
+        next.call(req)
+            .await
+            .map(ServiceResponse::map_into_boxed_body)
+    };
+    let seconds = started.elapsed().as_secs_f64();
+    let mut response = match result {
+        Ok(response) => response,
+        Err(error) => {
+            let status = error.as_response_error().status_code().as_u16();
+            record(
+                state.as_ref(),
+                &request_id,
+                &route,
+                method,
+                status,
+                seconds,
+                None,
+            );
+            return Err(error);
+        }
+    };
+
+    if let Ok(value) = HeaderValue::from_str(request_id.as_str()) {
+        response
+            .headers_mut()
+            .insert(HeaderName::from_static(HEADER), value);
+    }
+    let status = response.status().as_u16();
+    let scored = response.request().extensions().get::<Scored>().cloned();
+    record(
+        state.as_ref(),
+        &request_id,
+        &route,
+        method,
+        status,
+        seconds,
+        scored.as_ref(),
+    );
+    Ok(response)
+}
+
+/// Count the request and write its log line.
+fn record(
+    state: Option<&web::Data<AppState>>,
+    request_id: &RequestId,
+    route: &str,
+    method: &str,
+    status: u16,
+    seconds: f64,
+    scored: Option<&Scored>,
+) {
+    if let Some(state) = state {
+        state.metrics.record_request(route, method, status, seconds);
+    }
+    tracing::info!(
+        request_id = request_id.as_str(),
+        route,
+        method,
+        status,
+        latency_ms = seconds * 1e3,
+        model = scored.map(|s| s.model.as_str()),
+        version = scored.map(|s| s.version.as_str()),
+        observations = scored.and_then(|s| s.observations.as_deref()),
+        "request"
+    );
+}

@@ -1,0 +1,177 @@
+//! The HTTP service: the public listener's routes, their request and response types, the one
+//! error type, the middleware, and starting and stopping the server.
+//!
+//! ```text
+//! mod.rs          the app factory and server start (this file)
+//! config.rs       settings: address, limits, timeouts, drain, logging
+//! state.rs        what handlers share: registry, metrics, health, settings
+//! routes/         one file per route family; routes/mod.rs mounts them
+//! problem.rs      RFC 9457 problem details, the one error type
+//! body.rs         JSON bodies: content type, size limit, parse errors with pointers
+//! dto.rs          request parsing and response views
+//! observations.rs observations → engine values, service bounds
+//! scoring.rs      driving the engine for a probability request
+//! curve.rs        the curve of one covariate, its ETag
+//! openapi.rs      the OpenAPI 3.1 document (openapi.json + per-model paths)
+//! middleware.rs   request id, header limit, panic catching, metrics, the log line
+//! request_id.rs   X-Request-Id validation and generation
+//! example.rs      an example observation and curl command for a model
+//! shutdown.rs     signals, draining, graceful stop
+//! ```
+//!
+//! The service contains no statistics: it parses, calls the engine, and writes what the engine
+//! computed.
+
+pub mod body;
+pub mod config;
+pub mod curve;
+pub mod dto;
+pub mod example;
+pub mod middleware;
+pub mod observations;
+pub mod openapi;
+pub mod problem;
+pub mod request_id;
+pub mod routes;
+pub mod scoring;
+pub mod shutdown;
+pub mod state;
+
+use std::io;
+use std::net::{SocketAddr, TcpListener};
+use std::sync::Arc;
+use std::time::Duration;
+
+use actix_web::{middleware::from_fn, web, App, HttpServer};
+
+pub use config::{Limits, Settings};
+pub use state::{AppState, Health};
+
+/// Extra routes to mount beside the public ones (for embedding and tests).
+pub type Configure = Arc<dyn Fn(&mut web::ServiceConfig) + Send + Sync>;
+
+/// Build the public listener's server on an already-bound listener (not yet running).
+pub fn public_server(
+    state: AppState,
+    listener: TcpListener,
+    extra: Option<Configure>,
+) -> io::Result<actix_web::dev::Server> {
+    let settings = state.settings.clone();
+    let limits = &settings.limits;
+    let data = web::Data::new(state);
+    let grace_seconds = settings
+        .shutdown_timeout_ms
+        .saturating_sub(settings.drain_delay_ms)
+        .div_ceil(1000)
+        .max(1);
+    let server = HttpServer::new(move || {
+        let extra = extra.clone();
+        App::new()
+            .app_data(data.clone())
+            .wrap(from_fn(middleware::observe))
+            .configure(routes::configure)
+            .configure(move |cfg| {
+                if let Some(extra) = &extra {
+                    extra(cfg);
+                }
+            })
+            .default_service(web::to(routes::not_found))
+    })
+    .workers(settings.worker_count())
+    .disable_signals()
+    .shutdown_timeout(grace_seconds)
+    .client_request_timeout(Duration::from_millis(limits.client_request_timeout_ms))
+    .client_disconnect_timeout(Duration::from_millis(limits.client_disconnect_timeout_ms))
+    .keep_alive(Duration::from_millis(limits.keep_alive_ms))
+    .max_connections(limits.max_connections_per_worker)
+    .listen(listener)?
+    .run();
+    Ok(server)
+}
+
+/// Bind the configured address.
+pub fn bind(settings: &Settings) -> io::Result<TcpListener> {
+    let listener = TcpListener::bind(settings.listen)?;
+    listener.set_nonblocking(true)?;
+    Ok(listener)
+}
+
+/// Serve `state` on `listener` until `signal` resolves, then drain and stop (see
+/// [`shutdown`]). Must run inside an actix system.
+pub async fn serve(
+    state: AppState,
+    listener: TcpListener,
+    extra: Option<Configure>,
+    signal: impl std::future::Future<Output = ()>,
+) -> io::Result<()> {
+    let settings = state.settings.clone();
+    let health = state.health.clone();
+    let server = public_server(state, listener, extra)?;
+    shutdown::run_until(
+        server,
+        health,
+        settings.drain_delay(),
+        settings.shutdown_timeout(),
+        signal,
+    )
+    .await
+}
+
+/// A public listener running on its own thread (for tests and embedding).
+pub struct Background {
+    /// The address it listens on.
+    pub addr: SocketAddr,
+    /// The state it serves.
+    pub state: AppState,
+    stop: Option<tokio::sync::oneshot::Sender<()>>,
+    thread: Option<std::thread::JoinHandle<io::Result<()>>>,
+}
+
+impl Background {
+    /// Start serving `state` on `settings.listen` in a new thread with its own runtime.
+    pub fn start(state: AppState, extra: Option<Configure>) -> io::Result<Background> {
+        let listener = bind(&state.settings)?;
+        let addr = listener.local_addr()?;
+        let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
+        let thread_state = state.clone();
+        let thread = std::thread::Builder::new()
+            .name("ogive-public".into())
+            .spawn(move || {
+                actix_web::rt::System::new().block_on(serve(thread_state, listener, extra, async {
+                    let _ = stopped.await;
+                }))
+            })?;
+        Ok(Background {
+            addr,
+            state,
+            stop: Some(stop),
+            thread: Some(thread),
+        })
+    }
+
+    /// Begin the graceful shutdown (as SIGTERM would) without waiting for it.
+    pub fn begin_shutdown(&mut self) {
+        if let Some(stop) = self.stop.take() {
+            let _ = stop.send(());
+        }
+    }
+
+    /// Shut down gracefully and wait for the thread.
+    pub fn stop(mut self) -> io::Result<()> {
+        self.begin_shutdown();
+        match self.thread.take().map(|t| t.join()) {
+            Some(Ok(result)) => result,
+            Some(Err(_)) => Err(io::Error::other("the server thread panicked")),
+            None => Ok(()),
+        }
+    }
+}
+
+impl Drop for Background {
+    fn drop(&mut self) {
+        self.begin_shutdown();
+        if let Some(thread) = self.thread.take() {
+            let _ = thread.join();
+        }
+    }
+}

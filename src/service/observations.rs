@@ -1,0 +1,153 @@
+//! Turning a request's observations into engine values, with the service's numeric bounds on
+//! top of the model's own checks, and every fault located by JSON Pointer.
+//!
+//! The bounds exist so that any value a caller may send gives a finite answer:
+//!
+//! ```text
+//! every numeric covariate      |x| ≤ 1e12
+//! a covariate in a log term    x ≥ 1e-12      (so 1/x, the derivative of log x, stays modest)
+//! ```
+//!
+//! A batch is checked in full before anything is scored: the first fault is the problem's
+//! pointer, and up to [`MAX_LISTED_ERRORS`] faults are listed in its `errors` member.
+
+use serde_json::Value as Json;
+
+use super::dto::{json_kind, Observations};
+use super::problem::{escape_pointer_token, FieldError, Kind, Problem};
+use crate::model::{Model, ObservationError, Value};
+
+/// The largest magnitude of a numeric covariate.
+pub const MAX_MAGNITUDE: f64 = 1e12;
+/// The smallest value of a covariate that enters a log term.
+pub const MIN_LOG_ARGUMENT: f64 = 1e-12;
+/// The most faults listed in one problem.
+pub const MAX_LISTED_ERRORS: usize = 100;
+
+/// A fault in one observation: its problem, relative to the observation.
+fn bound_error(model: &Model, values: &[Value]) -> Option<(Kind, String, usize)> {
+    for (j, (covariate, value)) in model.covariates.iter().zip(values).enumerate() {
+        if let Value::Number(x) = *value {
+            if x.abs() > MAX_MAGNITUDE {
+                return Some((
+                    Kind::OutsideDomain,
+                    format!(
+                        "covariate '{}' is {x}; the service takes numbers within ±{MAX_MAGNITUDE:e}",
+                        covariate.name
+                    ),
+                    j,
+                ));
+            }
+        }
+    }
+    for &(term, j) in &model.log_terms {
+        let x = values[j].number();
+        if x < MIN_LOG_ARGUMENT {
+            return Some((
+                Kind::OutsideDomain,
+                format!(
+                    "term '{}' needs {} ≥ {MIN_LOG_ARGUMENT:e}, got {x}",
+                    model.term_labels[term], model.covariates[j].name
+                ),
+                j,
+            ));
+        }
+    }
+    None
+}
+
+/// Parse one observation object into `values`; the problem's pointer is under `base`.
+pub fn parse_one(
+    model: &Model,
+    observation: &Json,
+    base: &str,
+    values: &mut Vec<Value>,
+) -> Result<(), Problem> {
+    let Json::Object(object) = observation else {
+        return Err(Problem::new(
+            Kind::InvalidBody,
+            format!(
+                "an observation must be an object of covariate values, got {}",
+                json_kind(observation)
+            ),
+        )
+        .at(base));
+    };
+    model
+        .parse_observation(object, values)
+        .map_err(|e: ObservationError| Problem::observation(&e, base))?;
+    if let Some((kind, detail, j)) = bound_error(model, values) {
+        return Err(Problem::new(kind, detail).at(format!(
+            "{base}/{}",
+            escape_pointer_token(&model.covariates[j].name)
+        )));
+    }
+    Ok(())
+}
+
+/// Check a whole value vector against the service bounds (for values that did not come from
+/// JSON, such as curve query parameters). Returns the covariate index at fault.
+pub fn check_bounds(model: &Model, values: &[Value]) -> Result<(), (usize, Problem)> {
+    match bound_error(model, values) {
+        Some((kind, detail, j)) => Err((j, Problem::new(kind, detail))),
+        None => Ok(()),
+    }
+}
+
+/// Parse every observation of a request into one flat vector (`n × covariates`).
+pub fn parse_all(model: &Model, observations: Observations<'_>) -> Result<Vec<Value>, Problem> {
+    let width = model.covariates.len();
+    let mut values = Vec::with_capacity(width * observations.len());
+    let mut one = Vec::with_capacity(width);
+    match observations {
+        Observations::One(object) => {
+            model
+                .parse_observation(object, &mut one)
+                .map_err(|e| Problem::observation(&e, "/observation"))?;
+            if let Some((kind, detail, j)) = bound_error(model, &one) {
+                return Err(Problem::new(kind, detail).at(format!(
+                    "/observation/{}",
+                    escape_pointer_token(&model.covariates[j].name)
+                )));
+            }
+            values.extend_from_slice(&one);
+        }
+        Observations::Many(list) => {
+            let mut first: Option<Problem> = None;
+            let mut errors = Vec::new();
+            for (i, observation) in list.iter().enumerate() {
+                let base = format!("/observations/{i}");
+                match parse_one(model, observation, &base, &mut one) {
+                    Ok(()) if first.is_none() => values.extend_from_slice(&one),
+                    Ok(()) => {}
+                    Err(problem) => {
+                        if errors.len() < MAX_LISTED_ERRORS {
+                            errors.push(FieldError {
+                                type_uri: problem.kind.type_uri(),
+                                detail: problem.detail.clone(),
+                                pointer: problem.pointer.clone().unwrap_or_default(),
+                                index: i,
+                            });
+                        }
+                        if first.is_none() {
+                            first = Some(problem.index(i));
+                        }
+                    }
+                }
+            }
+            if let Some(mut problem) = first {
+                if errors.len() > 1 {
+                    problem.detail = format!(
+                        "{} (and {} more faulty observation{}; see 'errors')",
+                        problem.detail,
+                        errors.len() - 1,
+                        if errors.len() == 2 { "" } else { "s" }
+                    );
+                }
+                problem.errors = errors;
+                return Err(problem);
+            }
+        }
+    }
+    Ok(values)
+}

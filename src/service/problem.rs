@@ -1,0 +1,321 @@
+//! The one HTTP error type of the service: every failure a handler or the middleware can answer
+//! with becomes a [`Problem`], rendered as RFC 9457 problem details
+//! (`application/problem+json`).
+//!
+//! Problem types are URNs of our own, `urn:ogive:problem:SLUG`, one per kind of mistake
+//! ([`Kind`]); a URN says "this is an identifier, not a page" (RFC 9457 §3.1.1 allows any URI).
+//! The slugs are stable: clients may branch on them. Members:
+//!
+//! ```text
+//! type      urn:ogive:problem:SLUG                    always
+//! title     a fixed sentence per kind                 always
+//! status    the HTTP status code                      always
+//! detail    what exactly is wrong, naming the value   always
+//! pointer   RFC 6901 JSON Pointer into the request body, e.g. /observations/3/annual_revenue
+//! index     the observation's position in a batch
+//! parameter the query parameter at fault (curve route)
+//! errors    in a batch, every faulty observation (up to 100), each {pointer, index, type, detail}
+//! ```
+//!
+//! Client mistakes map to 4xx; anything unexpected is [`Kind::Internal`] (500) whose cause is
+//! logged, never sent. This module does not decide what is a mistake: the routes do.
+
+use actix_web::http::{header, StatusCode};
+use actix_web::{HttpResponse, ResponseError};
+use serde::Serialize;
+
+use crate::model::ObservationError;
+
+/// The prefix of every problem type.
+pub const TYPE_PREFIX: &str = "urn:ogive:problem:";
+/// The content type of problem details.
+pub const PROBLEM_CONTENT_TYPE: &str = "application/problem+json";
+
+macro_rules! kinds {
+    ($($variant:ident => $slug:literal, $status:literal, $title:literal;)*) => {
+        /// Every kind of problem the service reports, with its stable slug and status.
+        #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+        pub enum Kind {
+            $(
+                #[doc = $title]
+                $variant,
+            )*
+        }
+
+        impl Kind {
+            /// Every kind, for documentation and tests.
+            pub const ALL: &'static [Kind] = &[$(Kind::$variant),*];
+
+            /// The stable slug, the last part of the type URN.
+            pub fn slug(self) -> &'static str {
+                match self { $(Kind::$variant => $slug,)* }
+            }
+
+            /// The HTTP status code.
+            pub fn status(self) -> u16 {
+                match self { $(Kind::$variant => $status,)* }
+            }
+
+            /// The fixed title.
+            pub fn title(self) -> &'static str {
+                match self { $(Kind::$variant => $title,)* }
+            }
+        }
+    };
+}
+
+kinds! {
+    MalformedJson => "malformed-json", 400, "The body is not well-formed JSON";
+    InvalidQuery => "invalid-query", 400, "A query parameter cannot be read";
+    NotFound => "not-found", 404, "There is no such route";
+    UnknownModel => "unknown-model", 404, "There is no such model";
+    MethodNotAllowed => "method-not-allowed", 405, "The route does not take this method";
+    BodyTooLarge => "body-too-large", 413, "The body is larger than the configured limit";
+    UnsupportedMediaType => "unsupported-media-type", 415, "The body must be sent as application/json";
+    HeadersTooLarge => "headers-too-large", 431, "The request headers are larger than the configured limit";
+    InvalidBody => "invalid-body", 422, "The body does not have the expected shape";
+    MissingObservation => "missing-observation", 422, "Send either observation or observations";
+    ConflictingFields => "conflicting-fields", 422, "Fields that cannot be sent together";
+    EmptyBatch => "empty-batch", 422, "The batch has no observations";
+    TooManyObservations => "too-many-observations", 422, "The batch has more observations than the configured limit";
+    UnknownField => "unknown-field", 422, "A field that the model or the route does not know";
+    InvalidOption => "invalid-option", 422, "An option has a value it cannot take";
+    MissingCovariate => "missing-covariate", 422, "A covariate the model needs is missing";
+    NotANumber => "not-a-number", 422, "A numeric covariate was not sent a number";
+    NonFinite => "non-finite", 422, "A number is not finite";
+    NotBinary => "not-binary", 422, "A binary covariate takes 0 or 1";
+    NotACount => "not-a-count", 422, "A count covariate takes a whole number at least 0";
+    NotALevel => "not-a-level", 422, "A categorical covariate takes one of its levels as text";
+    UnseenLevel => "unseen-level", 422, "A level the model never saw in training cannot be scored";
+    OutsideDomain => "outside-domain", 422, "A value outside the domain of a term or the service's numeric bounds";
+    NotComputable => "not-computable", 422, "The answer at these values is not a finite number";
+    Internal => "internal", 500, "An unexpected error; it has been logged";
+    Unavailable => "unavailable", 503, "The service is not ready";
+}
+
+impl Kind {
+    /// The full type URN.
+    pub fn type_uri(self) -> String {
+        format!("{TYPE_PREFIX}{}", self.slug())
+    }
+
+    /// The kind for an observation error.
+    pub fn of_observation(error: &ObservationError) -> Kind {
+        match error {
+            ObservationError::Missing(_) => Kind::MissingCovariate,
+            ObservationError::UnknownField(_) => Kind::UnknownField,
+            ObservationError::NotANumber { .. } => Kind::NotANumber,
+            ObservationError::NonFinite { .. } => Kind::NonFinite,
+            ObservationError::NotBinary { .. } => Kind::NotBinary,
+            ObservationError::NotCount { .. } => Kind::NotACount,
+            ObservationError::NotALevel { .. } => Kind::NotALevel,
+            ObservationError::UnknownLevel { .. } => Kind::UnseenLevel,
+            ObservationError::LogOfNonPositive { .. } => Kind::OutsideDomain,
+        }
+    }
+}
+
+/// One faulty observation of a batch, listed in [`Problem::errors`].
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct FieldError {
+    /// The problem type of this observation's fault.
+    #[serde(rename = "type")]
+    pub type_uri: String,
+    /// What is wrong.
+    pub detail: String,
+    /// The JSON Pointer of the field at fault.
+    pub pointer: String,
+    /// The observation's index in the batch.
+    pub index: usize,
+}
+
+/// An RFC 9457 problem, ready to send. Boxed, so that `Result<_, Problem>` stays one pointer
+/// wide on the success path; its members are read through [`Details`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct Problem(Box<Details>);
+
+/// The members of a [`Problem`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct Details {
+    /// The kind, which fixes type, title and status.
+    pub kind: Kind,
+    /// What exactly is wrong.
+    pub detail: String,
+    /// The JSON Pointer into the body of the field at fault.
+    pub pointer: Option<String>,
+    /// The observation's index in a batch.
+    pub index: Option<usize>,
+    /// The query parameter at fault.
+    pub parameter: Option<String>,
+    /// Every faulty observation of a batch.
+    pub errors: Vec<FieldError>,
+    /// Line and column of a JSON syntax error.
+    pub position: Option<(usize, usize)>,
+    /// The methods a route does take (for 405).
+    pub allow: Option<&'static str>,
+    /// A configured limit that was exceeded.
+    pub limit: Option<u64>,
+}
+
+#[derive(Serialize)]
+struct Body<'a> {
+    #[serde(rename = "type")]
+    type_uri: String,
+    title: &'static str,
+    status: u16,
+    detail: &'a str,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pointer: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    index: Option<usize>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    parameter: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    line: Option<usize>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    column: Option<usize>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    limit: Option<u64>,
+    #[serde(skip_serializing_if = "<[_]>::is_empty")]
+    errors: &'a [FieldError],
+}
+
+impl Problem {
+    /// A problem of this kind with this detail.
+    pub fn new(kind: Kind, detail: impl Into<String>) -> Problem {
+        Problem(Box::new(Details {
+            kind,
+            detail: detail.into(),
+            pointer: None,
+            index: None,
+            parameter: None,
+            errors: Vec::new(),
+            position: None,
+            allow: None,
+            limit: None,
+        }))
+    }
+
+    /// Name the field at fault by its JSON Pointer.
+    pub fn at(mut self, pointer: impl Into<String>) -> Problem {
+        self.pointer = Some(pointer.into());
+        self
+    }
+
+    /// Name the observation's index in a batch.
+    pub fn index(mut self, index: usize) -> Problem {
+        self.index = Some(index);
+        self
+    }
+
+    /// Name the query parameter at fault.
+    pub fn parameter(mut self, name: impl Into<String>) -> Problem {
+        self.parameter = Some(name.into());
+        self
+    }
+
+    /// State the limit that was exceeded.
+    pub fn limit(mut self, limit: u64) -> Problem {
+        self.limit = Some(limit);
+        self
+    }
+
+    /// The problem for an observation error at `base` (the observation's own pointer, such as
+    /// `/observation` or `/observations/3`).
+    pub fn observation(error: &ObservationError, base: &str) -> Problem {
+        Problem::new(Kind::of_observation(error), error.to_string())
+            .at(format!("{base}/{}", escape_pointer_token(error.field())))
+    }
+
+    /// A 500 for something that should not happen; the cause goes to the log, not the client.
+    pub fn internal(cause: &dyn std::fmt::Display) -> Problem {
+        tracing::error!(cause = %cause, "internal error");
+        Problem::new(
+            Kind::Internal,
+            "the service could not answer this request; the cause has been logged",
+        )
+    }
+
+    /// The problem's JSON body.
+    pub fn to_json(&self) -> Vec<u8> {
+        let body = Body {
+            type_uri: self.kind.type_uri(),
+            title: self.kind.title(),
+            status: self.kind.status(),
+            detail: &self.detail,
+            pointer: self.pointer.as_deref(),
+            index: self.index,
+            parameter: self.parameter.as_deref(),
+            line: self.position.map(|p| p.0),
+            column: self.position.map(|p| p.1),
+            limit: self.limit,
+            errors: &self.errors,
+        };
+        serde_json::to_vec(&body).unwrap_or_else(|_| b"{}".to_vec())
+    }
+}
+
+/// Escape one reference token of a JSON Pointer (RFC 6901 §3: `~` → `~0`, `/` → `~1`).
+pub fn escape_pointer_token(token: &str) -> String {
+    if token.contains(['~', '/']) {
+        token.replace('~', "~0").replace('/', "~1")
+    } else {
+        token.to_string()
+    }
+}
+
+impl std::ops::Deref for Problem {
+    type Target = Details;
+
+    fn deref(&self) -> &Details {
+        &self.0
+    }
+}
+
+impl std::ops::DerefMut for Problem {
+    fn deref_mut(&mut self) -> &mut Details {
+        &mut self.0
+    }
+}
+
+impl std::fmt::Display for Problem {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{}: {}", self.kind.slug(), self.detail)
+    }
+}
+
+impl ResponseError for Problem {
+    fn status_code(&self) -> StatusCode {
+        StatusCode::from_u16(self.kind.status()).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR)
+    }
+
+    fn error_response(&self) -> HttpResponse {
+        let mut response = HttpResponse::build(self.status_code());
+        response.insert_header((header::CONTENT_TYPE, PROBLEM_CONTENT_TYPE));
+        if let Some(allow) = self.allow {
+            response.insert_header((header::ALLOW, allow));
+        }
+        response.body(self.to_json())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn slugs_are_unique_and_statuses_are_errors() {
+        let mut slugs: Vec<&str> = Kind::ALL.iter().map(|k| k.slug()).collect();
+        slugs.sort_unstable();
+        let n = slugs.len();
+        slugs.dedup();
+        assert_eq!(slugs.len(), n);
+        assert!(Kind::ALL.iter().all(|k| k.status() >= 400));
+    }
+
+    #[test]
+    fn pointer_tokens_are_escaped_per_rfc_6901() {
+        assert_eq!(escape_pointer_token("a/b~c"), "a~1b~0c");
+        assert_eq!(escape_pointer_token("plain"), "plain");
+    }
+}

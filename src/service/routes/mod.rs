@@ -1,0 +1,60 @@
+//! The public routes, one file per route family, and the one place that mounts them
+//! ([`configure`]). Each resource answers a method it does not take with 405 and an `Allow`
+//! header; a path that matches no route gets 404, both as problem details.
+
+pub mod curve;
+pub mod health;
+pub mod models;
+pub mod openapi;
+pub mod probability;
+
+use actix_web::{web, HttpResponse};
+
+use super::middleware::Guarded;
+use super::problem::{Kind, Problem};
+
+fn method_not_allowed(
+    allow: &'static str,
+) -> impl Fn() -> std::future::Ready<Result<HttpResponse, Problem>> + Clone {
+    move || {
+        let mut problem = Problem::new(Kind::MethodNotAllowed, format!("this route takes {allow}"));
+        problem.allow = Some(allow);
+        std::future::ready(Err(problem))
+    }
+}
+
+/// The answer to a path that matches no route.
+pub async fn not_found(req: actix_web::HttpRequest) -> Result<HttpResponse, Problem> {
+    let path: String = req.path().chars().take(200).collect();
+    Err(Problem::new(
+        Kind::NotFound,
+        format!("there is no route {path}"),
+    ))
+}
+
+fn get<F, Args>(path: &str, handler: F) -> actix_web::Resource
+where
+    F: actix_web::Handler<Args>,
+    Args: actix_web::FromRequest + 'static,
+    F::Output: actix_web::Responder + 'static,
+{
+    web::resource(path)
+        .route(web::get().to(Guarded(handler)))
+        .default_service(web::to(method_not_allowed("GET")))
+}
+
+/// Mount every public route.
+pub fn configure(cfg: &mut web::ServiceConfig) {
+    cfg.service(get("/livez", health::livez))
+        .service(get("/readyz", health::readyz))
+        .service(get("/metrics", health::metrics))
+        .service(get("/openapi.json", openapi::document_route))
+        .service(get("/models", models::list))
+        .service(get("/models/{name}", models::describe))
+        .service(
+            web::resource("/models/{name}/probability")
+                .route(web::post().to(Guarded(probability::probability)))
+                .default_service(web::to(method_not_allowed("POST"))),
+        )
+        .service(get("/models/{name}/curve", curve::curve));
+}

@@ -1,0 +1,153 @@
+//! `GET /models` (what is loaded) and `GET /models/{name}` (one model's live version, link,
+//! covariates with their training ranges, and terms).
+
+use std::sync::Arc;
+
+use actix_web::{web, HttpResponse};
+use serde_json::{json, Value as Json};
+
+use crate::model::{CovariateKind, Model};
+use crate::registry::Entry;
+use crate::service::problem::{Kind, Problem};
+use crate::service::state::AppState;
+
+/// The entry serving `name`, or 404 `unknown-model`.
+pub fn find(state: &AppState, name: &str) -> Result<Arc<Entry>, Problem> {
+    state
+        .registry
+        .snapshot()
+        .models
+        .get(name)
+        .cloned()
+        .ok_or_else(|| {
+            let shown: String = name.chars().take(100).collect();
+            Problem::new(
+                Kind::UnknownModel,
+                format!("no model called '{shown}' is being served"),
+            )
+        })
+}
+
+fn summary(entry: &Entry) -> Json {
+    let model = &entry.live;
+    let f = &model.file;
+    json!({
+        "name": f.name,
+        "version": f.version,
+        "link": model.link.name(),
+        "description": f.description,
+        "outcome": {"name": f.outcome.name, "meaning": f.outcome.meaning},
+        "covariates": model.covariates.len(),
+        "has_covariance": model.covariance.is_some(),
+    })
+}
+
+fn covariate(model: &Model, j: usize) -> Json {
+    let c = &model.covariates[j];
+    let spec = &model.file.covariates[j];
+    let mut out = json!({"name": c.name, "kind": c.kind.name()});
+    let map = out.as_object_mut().expect("built as an object");
+    if let Some(unit) = &c.unit {
+        map.insert("unit".into(), json!(unit));
+    }
+    if let Some(description) = &spec.description {
+        map.insert("description".into(), json!(description));
+    }
+    if c.kind == CovariateKind::Categorical {
+        map.insert("levels".into(), json!(c.levels));
+        map.insert("reference".into(), json!(c.levels[c.reference]));
+        map.insert(
+            "training_shares".into(),
+            Json::Object(
+                c.levels
+                    .iter()
+                    .zip(&model.level_shares[j])
+                    .map(|(l, s)| (l.clone(), json!(s)))
+                    .collect(),
+            ),
+        );
+    } else {
+        map.insert(
+            "training".into(),
+            json!({"min": c.training_min, "max": c.training_max, "mean": c.training_mean}),
+        );
+    }
+    if model.log_terms.iter().any(|&(_, k)| k == j) {
+        map.insert("log_term".into(), json!(true));
+    }
+    out
+}
+
+/// `GET /models`.
+pub async fn list(state: web::Data<AppState>) -> HttpResponse {
+    let snapshot = state.registry.snapshot();
+    let models: Vec<Json> = snapshot.models.values().map(|e| summary(e)).collect();
+    HttpResponse::Ok().json(json!({ "models": models }))
+}
+
+/// `GET /models/{name}`.
+pub async fn describe(
+    state: web::Data<AppState>,
+    name: web::Path<String>,
+) -> Result<HttpResponse, Problem> {
+    let entry = find(&state, &name)?;
+    let model = &entry.live;
+    let f = &model.file;
+    let mut body = summary(&entry);
+    let map = body.as_object_mut().expect("built as an object");
+    map.insert(
+        "covariates".into(),
+        Json::Array(
+            (0..model.covariates.len())
+                .map(|j| covariate(model, j))
+                .collect(),
+        ),
+    );
+    map.insert(
+        "terms".into(),
+        Json::Array(
+            model
+                .term_labels
+                .iter()
+                .zip(&model.coefficients)
+                .map(|(t, b)| json!({"term": t, "coefficient": b}))
+                .collect(),
+        ),
+    );
+    if let Some(kind) = &f.covariance_type {
+        map.insert("covariance_type".into(), json!(kind));
+    }
+    map.insert("has_joint_check".into(), json!(model.joint.is_some()));
+    if let Some(d) = &f.decision {
+        let mut decision = serde_json::Map::new();
+        if let Some(t) = d.threshold {
+            decision.insert("threshold".into(), json!(t));
+        }
+        decision.insert(
+            "bands".into(),
+            Json::Array(
+                d.bands
+                    .iter()
+                    .map(|b| json!({"name": b.name, "below": b.below}))
+                    .collect(),
+            ),
+        );
+        map.insert("decision".into(), Json::Object(decision));
+    }
+    map.insert(
+        "provenance".into(),
+        json!({
+            "fitted_by": f.provenance.fitted_by,
+            "fitted_at": f.provenance.fitted_at,
+            "observations": f.provenance.observations,
+        }),
+    );
+    if let Some(shadow) = &entry.shadow {
+        map.insert("shadow_version".into(), json!(shadow.version()));
+    }
+    map.insert(
+        "example".into(),
+        Json::Object(crate::service::example::example_observation(model)),
+    );
+    Ok(HttpResponse::Ok().json(body))
+}

@@ -1,0 +1,53 @@
+//! `POST /models/{name}/probability`: one observation or a batch, scored by the live version.
+
+use actix_web::http::header;
+use actix_web::{web, HttpMessage, HttpRequest, HttpResponse};
+
+use super::models::find;
+use crate::service::body::{parse_json, read_json_body};
+use crate::service::dto::{parse_probability_request, Observations};
+use crate::service::middleware::Scored;
+use crate::service::observations::parse_all;
+use crate::service::problem::Problem;
+use crate::service::request_id::RequestId;
+use crate::service::scoring::score;
+use crate::service::state::AppState;
+
+/// Score the request's observations with the model's live version.
+pub async fn probability(
+    req: HttpRequest,
+    name: web::Path<String>,
+    payload: web::Payload,
+    state: web::Data<AppState>,
+) -> Result<HttpResponse, Problem> {
+    let entry = find(&state, &name)?;
+    let model = &entry.live;
+    let limits = &state.settings.limits;
+    let bytes = read_json_body(&req, payload, limits.max_body_bytes).await?;
+    let body = parse_json(&bytes)?;
+    let request = parse_probability_request(&body, limits.max_batch)?;
+    let observations = state
+        .settings
+        .log_observations
+        .then(|| match request.observations {
+            Observations::One(o) => serde_json::to_string(o).unwrap_or_default(),
+            Observations::Many(list) => serde_json::to_string(list).unwrap_or_default(),
+        });
+    req.extensions_mut().insert(Scored {
+        model: model.name().to_string(),
+        version: model.version().to_string(),
+        observations,
+    });
+    let values = parse_all(model, request.observations)?;
+    let request_id = req
+        .extensions()
+        .get::<RequestId>()
+        .cloned()
+        .unwrap_or_else(RequestId::generate);
+    let metrics = state.metrics.scoring(model);
+    let scored = score(model, &request, &values, request_id.as_str(), &metrics)?;
+    let json = scored.to_json()?;
+    Ok(HttpResponse::Ok()
+        .insert_header((header::CONTENT_TYPE, "application/json"))
+        .body(json))
+}

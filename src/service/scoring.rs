@@ -1,0 +1,309 @@
+//! Scoring a checked probability request with the engine and writing the answer's JSON.
+//!
+//! The statistics are the engine's; this module only drives a [`Scorer`] over the
+//! observations, records the scoring metrics once per request, refuses an answer that is not
+//! finite (422 `not-computable`, never a `null` where a number is promised), and serializes.
+//!
+//! ```text
+//! one observation:  {request_id, model, version, link, level, <answer fields>, notes, [average_effects], [at_means]}
+//! a batch:          {request_id, model, version, link, level, count, results: [{index, <answer fields>}], notes, [average_effects], [at_means]}
+//! ```
+
+use serde::ser::{SerializeMap, SerializeSeq};
+use serde::{Serialize, Serializer};
+
+use super::dto::{
+    put_answer, AnswerView, AverageView, ListView, Note, Observations, ProbabilityRequest, Shown,
+    AT_MEANS, NO_COVARIANCE,
+};
+use super::problem::{Kind, Problem};
+use crate::engine::{effect_slots, Answer, Average, Averager, Scorer, Warning};
+use crate::metrics::ScoringMetrics;
+use crate::model::{Model, Value};
+
+/// Whether every number in an answer is finite.
+pub fn is_finite(answer: &Answer) -> bool {
+    let interval_ok = |i: &Option<crate::engine::Interval>| {
+        i.is_none_or(|i| i.lower.is_finite() && i.upper.is_finite())
+    };
+    answer.probability.is_finite()
+        && answer.linear_index.is_finite()
+        && answer.std_error.is_none_or(f64::is_finite)
+        && interval_ok(&answer.interval)
+        && answer.effects.iter().all(|e| {
+            e.effect.is_finite()
+                && e.std_error.is_none_or(f64::is_finite)
+                && interval_ok(&e.interval)
+                && e.elasticity.is_none_or(f64::is_finite)
+        })
+        && answer
+            .contributions
+            .iter()
+            .all(|c| c.contribution.is_finite())
+}
+
+fn average_is_finite(a: &Average) -> bool {
+    a.value.is_finite()
+        && a.std_error.is_none_or(f64::is_finite)
+        && a.interval
+            .is_none_or(|i| i.lower.is_finite() && i.upper.is_finite())
+}
+
+/// Everything computed for one request, ready to serialize.
+pub struct Scored<'a> {
+    model: &'a Model,
+    request: &'a ProbabilityRequest<'a>,
+    request_id: &'a str,
+    answers: Vec<Answer>,
+    averages: Option<(Average, Vec<Average>)>,
+    at_means: Option<Answer>,
+}
+
+/// Score every observation (`values` is `n × covariates`, already checked).
+pub fn score<'a>(
+    model: &'a Model,
+    request: &'a ProbabilityRequest<'a>,
+    values: &[Value],
+    request_id: &'a str,
+    metrics: &ScoringMetrics,
+) -> Result<Scored<'a>, Problem> {
+    let width = model.covariates.len().max(1);
+    let n = values.len() / width;
+    let mut scorer = Scorer::new(model);
+    let mut averager = request
+        .average_effects
+        .then(|| Averager::new(model, scorer.slots().len()));
+    let mut answers = Vec::with_capacity(n);
+    let mut out_of_range = vec![0u64; model.covariates.len()];
+    let mut unusual = 0u64;
+    for (i, observation) in values.chunks(width).enumerate() {
+        let answer = match averager.as_mut() {
+            Some(a) => scorer.score_and_average(model, observation, &request.options, a),
+            None => scorer.score(model, observation, &request.options),
+        };
+        if !is_finite(answer) {
+            let base = match request.observations {
+                Observations::One(_) => "/observation".to_string(),
+                Observations::Many(_) => format!("/observations/{i}"),
+            };
+            let problem = Problem::new(
+                Kind::NotComputable,
+                "at these covariate values the answer overflows to a non-finite number",
+            )
+            .at(base);
+            return Err(match request.observations {
+                Observations::One(_) => problem,
+                Observations::Many(_) => problem.index(i),
+            });
+        }
+        metrics.probability.observe(answer.probability);
+        for w in &answer.warnings {
+            match w {
+                Warning::OutOfRange { covariate, .. } => out_of_range[*covariate] += 1,
+                Warning::UnusualCombination { .. } => unusual += 1,
+            }
+        }
+        answers.push(answer.clone());
+    }
+    metrics.scored.inc_by(n as u64);
+    for (counter, count) in metrics.out_of_range.iter().zip(&out_of_range) {
+        if *count > 0 {
+            counter.inc_by(*count);
+        }
+    }
+    if unusual > 0 {
+        metrics.unusual.inc_by(unusual);
+    }
+    let averages = averager.map(|a| {
+        let slots = effect_slots(model);
+        a.finish(model, &slots, &request.options)
+    });
+    if let Some((p, effects)) = &averages {
+        if !average_is_finite(p) || !effects.iter().all(average_is_finite) {
+            return Err(Problem::new(
+                Kind::NotComputable,
+                "the average effects overflow to a non-finite number",
+            )
+            .at("/average_effects"));
+        }
+    }
+    let at_means = request.at_means.then(|| {
+        let mut options = request.options;
+        options.effects = true;
+        options.contributions = false;
+        scorer.score_at_means(model, &options).clone()
+    });
+    if at_means.as_ref().is_some_and(|a| !is_finite(a)) {
+        return Err(Problem::new(
+            Kind::NotComputable,
+            "the effects at the training means overflow to a non-finite number",
+        )
+        .at("/at_means"));
+    }
+    Ok(Scored {
+        model,
+        request,
+        request_id,
+        answers,
+        averages,
+        at_means,
+    })
+}
+
+struct Averages<'a> {
+    model: &'a Model,
+    count: usize,
+    probability: &'a Average,
+    effects: &'a [Average],
+    level: f64,
+}
+
+impl Serialize for Averages<'_> {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        let mut map = serializer.serialize_map(None)?;
+        map.serialize_entry("count", &self.count)?;
+        map.serialize_entry(
+            "probability",
+            &AverageView {
+                model: self.model,
+                average: self.probability,
+                level: self.level,
+            },
+        )?;
+        map.serialize_entry(
+            "effects",
+            &ListView {
+                items: self.effects,
+                view: |average| AverageView {
+                    model: self.model,
+                    average,
+                    level: self.level,
+                },
+            },
+        )?;
+        map.end()
+    }
+}
+
+struct Results<'a> {
+    model: &'a Model,
+    answers: &'a [Answer],
+    level: f64,
+    shown: Shown,
+}
+
+impl Serialize for Results<'_> {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        let mut seq = serializer.serialize_seq(Some(self.answers.len()))?;
+        for (i, answer) in self.answers.iter().enumerate() {
+            seq.serialize_element(&AnswerView {
+                model: self.model,
+                answer,
+                level: self.level,
+                shown: self.shown,
+                index: Some(i),
+            })?;
+        }
+        seq.end()
+    }
+}
+
+struct AtMeans<'a> {
+    model: &'a Model,
+    answer: &'a Answer,
+    level: f64,
+}
+
+impl Serialize for AtMeans<'_> {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        let mut map = serializer.serialize_map(None)?;
+        put_answer(
+            &mut map,
+            self.model,
+            self.answer,
+            self.level,
+            Shown {
+                effects: true,
+                contributions: false,
+                observation: false,
+            },
+        )?;
+        map.serialize_entry("note", AT_MEANS.message)?;
+        map.end()
+    }
+}
+
+impl Serialize for Scored<'_> {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        let model = self.model;
+        let options = &self.request.options;
+        let level = options.level();
+        let shown = Shown {
+            effects: options.effects,
+            contributions: options.contributions,
+            observation: true,
+        };
+        let mut map = serializer.serialize_map(None)?;
+        map.serialize_entry("request_id", self.request_id)?;
+        map.serialize_entry("model", model.name())?;
+        map.serialize_entry("version", model.version())?;
+        map.serialize_entry("link", model.link.name())?;
+        map.serialize_entry("level", &level)?;
+        match self.request.observations {
+            Observations::One(_) => {
+                if let Some(answer) = self.answers.first() {
+                    put_answer(&mut map, model, answer, level, shown)?;
+                }
+            }
+            Observations::Many(_) => {
+                map.serialize_entry("count", &self.answers.len())?;
+                map.serialize_entry(
+                    "results",
+                    &Results {
+                        model,
+                        answers: &self.answers,
+                        level,
+                        shown,
+                    },
+                )?;
+            }
+        }
+        let mut notes: Vec<Note> = Vec::new();
+        if model.covariance.is_none() && options.intervals {
+            notes.push(NO_COVARIANCE);
+        }
+        map.serialize_entry("notes", &notes)?;
+        if let Some((probability, effects)) = &self.averages {
+            map.serialize_entry(
+                "average_effects",
+                &Averages {
+                    model,
+                    count: self.answers.len(),
+                    probability,
+                    effects,
+                    level,
+                },
+            )?;
+        }
+        if let Some(answer) = &self.at_means {
+            map.serialize_entry(
+                "at_means",
+                &AtMeans {
+                    model,
+                    answer,
+                    level,
+                },
+            )?;
+        }
+        map.end()
+    }
+}
+
+impl Scored<'_> {
+    /// The answer's JSON bytes.
+    pub fn to_json(&self) -> Result<Vec<u8>, Problem> {
+        let mut out = Vec::with_capacity(512 + 768 * self.answers.len());
+        serde_json::to_writer(&mut out, self).map_err(|e| Problem::internal(&e))?;
+        Ok(out)
+    }
+}

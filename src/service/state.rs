@@ -1,0 +1,84 @@
+//! What every handler shares: the registry of live models, the metrics, the settings and the
+//! health flags. Cloning an [`AppState`] clones `Arc`s only.
+
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Arc;
+
+use super::config::Settings;
+use crate::metrics::Metrics;
+use crate::registry::Registry;
+
+/// Readiness inputs: whether every model directory entry has a valid live version, and whether
+/// the process is draining for shutdown. Liveness needs no flag: answering is the proof.
+#[derive(Debug)]
+pub struct Health {
+    models_loaded: AtomicBool,
+    draining: AtomicBool,
+}
+
+impl Health {
+    /// Health with the given load state, not draining.
+    pub fn new(models_loaded: bool) -> Health {
+        Health {
+            models_loaded: AtomicBool::new(models_loaded),
+            draining: AtomicBool::new(false),
+        }
+    }
+
+    /// Record whether every model directory entry now has a valid live version (the loader and,
+    /// later, the directory watcher call this).
+    pub fn set_models_loaded(&self, loaded: bool) {
+        self.models_loaded.store(loaded, Ordering::SeqCst);
+    }
+
+    /// Whether every model directory entry has a valid live version.
+    pub fn models_loaded(&self) -> bool {
+        self.models_loaded.load(Ordering::SeqCst)
+    }
+
+    /// Start draining: readiness turns false at once and stays false.
+    pub fn start_draining(&self) {
+        self.draining.store(true, Ordering::SeqCst);
+    }
+
+    /// Whether the process is draining.
+    pub fn draining(&self) -> bool {
+        self.draining.load(Ordering::SeqCst)
+    }
+
+    /// Ready: every model loaded and not draining.
+    pub fn ready(&self) -> bool {
+        self.models_loaded() && !self.draining()
+    }
+}
+
+/// The state shared by every handler of the public listener.
+#[derive(Debug, Clone)]
+pub struct AppState {
+    /// The live models.
+    pub registry: Arc<Registry>,
+    /// The metrics.
+    pub metrics: Metrics,
+    /// Readiness flags.
+    pub health: Arc<Health>,
+    /// Limits, timeouts and logging choices.
+    pub settings: Arc<Settings>,
+}
+
+impl AppState {
+    /// State for a registry whose load went as `models_loaded` says.
+    pub fn new(
+        registry: Arc<Registry>,
+        metrics: Metrics,
+        settings: Settings,
+        models_loaded: bool,
+    ) -> AppState {
+        metrics.prepare(&registry.snapshot());
+        AppState {
+            registry,
+            metrics,
+            health: Arc::new(Health::new(models_loaded)),
+            settings: Arc::new(settings),
+        }
+    }
+}
