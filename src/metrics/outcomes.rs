@@ -1,0 +1,539 @@
+//! Recent answers by id, so that an observed outcome reported later can be matched to the
+//! prediction it judges, and the matching itself: an outcome for a known answer goes into its
+//! version's calibration window.
+//!
+//! Answer ids: a request scoring one observation (`"observation": {...}`) gives one answer whose
+//! id is the request id, `ID`; a request scoring a batch (`"observations": [...]`) gives answers
+//! `ID/0`, `ID/1`, … in batch order, so the 4th observation of a batch is `ID/3` (a batch of
+//! one is `ID/0`). An id is looked up first as a whole, then split at its last `/`, so request
+//! ids that themselves contain `/` still resolve.
+//!
+//! Memory is bounded: the store holds at most `capacity` answers (default 50,000). Each answer
+//! keeps its probability, its linear index and its outcome once reported (24 bytes); each
+//! request keeps its id (inline up to 38 bytes, so a UUID needs no allocation) and a reference
+//! to the model version that answered. Measured, a single-observation request costs about
+//! 115 bytes, so the default store stays under 6 MB; the ring and the index are allocated at
+//! their full size once, so they never reallocate. When a new request would exceed the capacity, whole requests are
+//! evicted oldest first and their answers counted in `ogive_answers_evicted_total`; a single
+//! batch larger than the whole capacity keeps its first `capacity` answers and counts the rest
+//! as evicted at once. A request id seen again replaces the earlier request's answers (they
+//! count as evicted).
+//!
+//! Layout: requests sit in one ring, oldest first, numbered by arrival; an index maps the hash
+//! of each request id to its number, and a lookup checks the stored id, so a hash collision
+//! (odds about n²/2⁶⁵) can only make the older of two requests unfindable, never match the
+//! wrong one. A replaced request stays in the ring as an empty slot until it reaches the front;
+//! slots count toward the capacity too, so the ring never outgrows it.
+//!
+//! Concurrency: one std mutex guards the store; everything that allocates (the id, the answers)
+//! and the hashing are done before taking it, so the critical section is an index insert, a
+//! ring push and the occasional eviction. Unlike the drift windows, an answer is never dropped
+//! under contention: an outcome reported for it later must find it.
+//!
+//! This module does not score, know HTTP, or compute calibration figures
+//! ([`crate::metrics::calibration`] does).
+
+use std::collections::hash_map::RandomState;
+use std::collections::{HashMap, VecDeque};
+use std::hash::BuildHasher;
+use std::sync::{Arc, Mutex, PoisonError};
+
+use prometheus::{IntCounter, IntGauge, Opts, Registry};
+use schemars::JsonSchema;
+use serde::Serialize;
+
+use super::calibration::CalibrationMonitor;
+use crate::model::Model;
+
+/// Answers kept unless configured otherwise.
+pub const DEFAULT_CAPACITY: usize = 50_000;
+
+/// One answer as kept for a later outcome.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct StoredAnswer {
+    /// The predicted probability.
+    pub probability: f64,
+    /// The linear index.
+    pub linear_index: f64,
+    /// The outcome, once reported.
+    outcome: Option<bool>,
+}
+
+impl StoredAnswer {
+    /// An answer with no outcome yet.
+    pub fn new(probability: f64, linear_index: f64) -> StoredAnswer {
+        StoredAnswer {
+            probability,
+            linear_index,
+            outcome: None,
+        }
+    }
+}
+
+/// The answers of one request: one observation (id `ID`) or a batch (ids `ID/i`). A single
+/// answer is held inline, saving an allocation per request on the commonest path.
+#[derive(Debug)]
+enum Answers {
+    Single(StoredAnswer),
+    Batch(Box<[StoredAnswer]>),
+}
+
+impl Answers {
+    fn len(&self) -> usize {
+        match self {
+            Answers::Single(_) => 1,
+            Answers::Batch(b) => b.len(),
+        }
+    }
+}
+
+/// Ids up to this many bytes (a UUID has 36) are kept inline, without an allocation.
+const INLINE_ID: usize = 38;
+
+/// A request id as the store keeps it.
+#[derive(Debug)]
+enum StoredId {
+    Inline(u8, [u8; INLINE_ID]),
+    Heap(Box<[u8]>),
+}
+
+impl StoredId {
+    fn new(id: &str) -> StoredId {
+        let bytes = id.as_bytes();
+        match u8::try_from(bytes.len()) {
+            Ok(len) if bytes.len() <= INLINE_ID => {
+                let mut inline = [0; INLINE_ID];
+                inline[..bytes.len()].copy_from_slice(bytes);
+                StoredId::Inline(len, inline)
+            }
+            _ => StoredId::Heap(Box::from(bytes)),
+        }
+    }
+
+    fn empty() -> StoredId {
+        StoredId::Inline(0, [0; INLINE_ID])
+    }
+
+    fn as_bytes(&self) -> &[u8] {
+        match self {
+            StoredId::Inline(len, bytes) => &bytes[..usize::from(*len)],
+            StoredId::Heap(bytes) => bytes,
+        }
+    }
+}
+
+/// The answers of one request, or an empty slot left by a request whose id was reused.
+#[derive(Debug)]
+struct Request {
+    /// The request id; empty for an empty slot.
+    id: StoredId,
+    model: Arc<Model>,
+    answers: Answers,
+}
+
+impl Request {
+    fn is_empty_slot(&self) -> bool {
+        self.id.as_bytes().is_empty()
+    }
+
+    /// Turn into an empty slot; returns how many answers it held.
+    fn vacate(&mut self) -> usize {
+        let held = if self.is_empty_slot() {
+            0
+        } else {
+            self.answers.len()
+        };
+        self.id = StoredId::empty();
+        self.answers = Answers::Batch(Box::new([]));
+        held
+    }
+}
+
+#[derive(Debug, Default)]
+struct Store {
+    /// Requests, oldest first; `ring[i]` arrived as number `front + i`.
+    ring: VecDeque<Request>,
+    front: u64,
+    /// Hash of a request id → its arrival number.
+    index: HashMap<u64, u64>,
+    /// Answers held (empty slots hold none).
+    held: usize,
+}
+
+impl Store {
+    /// The ring position of the request with this id and hash.
+    fn position(&self, id: &str, hash: u64) -> Option<usize> {
+        let number = *self.index.get(&hash)?;
+        let position = usize::try_from(number.checked_sub(self.front)?).ok()?;
+        let request = self.ring.get(position)?;
+        (request.id.as_bytes() == id.as_bytes()).then_some(position)
+    }
+
+    /// Remove the oldest slot; returns how many answers it held.
+    fn pop_oldest(&mut self, hasher: &RandomState) -> usize {
+        let Some(oldest) = self.ring.pop_front() else {
+            return 0;
+        };
+        let number = self.front;
+        self.front += 1;
+        if oldest.is_empty_slot() {
+            return 0;
+        }
+        let hash = hasher.hash_one(oldest.id.as_bytes());
+        if self.index.get(&hash) == Some(&number) {
+            self.index.remove(&hash);
+        }
+        self.held -= oldest.answers.len();
+        oldest.answers.len()
+    }
+}
+
+/// An outcome could not be matched.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum OutcomeError {
+    /// No answer of this model has this id: it was never given, or has been evicted.
+    #[error("model '{model}' has no answer with id '{answer_id}' (never given, or evicted since)")]
+    NotFound {
+        /// The model named in the report.
+        model: String,
+        /// The id reported.
+        answer_id: String,
+    },
+    /// The answer already has an outcome.
+    #[error("answer '{answer_id}' already has outcome {outcome}")]
+    AlreadyReported {
+        /// The id reported.
+        answer_id: String,
+        /// The outcome recorded first.
+        outcome: u8,
+    },
+}
+
+/// An answer matched to its outcome.
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct MatchedAnswer {
+    /// The answer's id.
+    pub answer_id: String,
+    /// The model that answered.
+    pub model: String,
+    /// The version that answered.
+    pub version: String,
+    /// The probability it predicted.
+    pub probability: f64,
+    /// The linear index it computed.
+    pub linear_index: f64,
+    /// The observed outcome, 0 or 1.
+    pub outcome: u8,
+}
+
+/// The store's size, for the monitoring report.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, JsonSchema)]
+pub struct StoreSummary {
+    /// Answers held now.
+    pub held: usize,
+    /// The most answers held.
+    pub capacity: usize,
+    /// Answers evicted since the process started.
+    pub evicted_total: u64,
+}
+
+/// Recent answers by id, bounded in memory.
+#[derive(Debug)]
+pub struct AnswerStore {
+    capacity: usize,
+    hasher: RandomState,
+    store: Mutex<Store>,
+    evicted: IntCounter,
+    held: IntGauge,
+}
+
+/// Why the answer store could not be set up.
+#[derive(Debug, thiserror::Error)]
+pub enum StoreSetupError {
+    /// The capacity is zero.
+    #[error("the answer store must hold at least one answer, got {0}")]
+    EmptyStore(usize),
+    /// The metrics could not be registered (a name already taken in the registry).
+    #[error("registering the answer-store metrics: {0}")]
+    Metrics(#[from] prometheus::Error),
+}
+
+impl AnswerStore {
+    /// A store of at most `capacity` answers, its series registered in `registry`:
+    ///
+    /// ```text
+    /// ogive_answers_evicted_total   counter
+    /// ogive_answers_held            gauge
+    /// ```
+    pub fn new(capacity: usize, registry: &Registry) -> Result<Arc<AnswerStore>, StoreSetupError> {
+        if capacity == 0 {
+            return Err(StoreSetupError::EmptyStore(capacity));
+        }
+        let evicted = IntCounter::with_opts(Opts::new(
+            "ogive_answers_evicted_total",
+            "Answers evicted from the answer store before an outcome could be reported for them.",
+        ))?;
+        let held = IntGauge::with_opts(Opts::new(
+            "ogive_answers_held",
+            "Answers held in the answer store, awaiting outcomes.",
+        ))?;
+        registry.register(Box::new(evicted.clone()))?;
+        registry.register(Box::new(held.clone()))?;
+        Ok(Arc::new(AnswerStore {
+            capacity,
+            hasher: RandomState::new(),
+            // Sized once: growing by doubling would leave the old blocks behind in the heap.
+            store: Mutex::new(Store {
+                ring: VecDeque::with_capacity(capacity),
+                index: HashMap::with_capacity(capacity + 1),
+                ..Store::default()
+            }),
+            evicted,
+            held,
+        }))
+    }
+
+    /// The most answers held.
+    pub fn capacity(&self) -> usize {
+        self.capacity
+    }
+
+    /// Keep the answer to a single-observation request: its id is `request_id`.
+    pub fn keep_single(&self, request_id: &str, model: &Arc<Model>, answer: StoredAnswer) {
+        self.keep(request_id, model, Answers::Single(answer), 0);
+    }
+
+    /// Keep the answers to a batch request, in batch order: their ids are `request_id/i`.
+    pub fn keep_batch(&self, request_id: &str, model: &Arc<Model>, mut answers: Vec<StoredAnswer>) {
+        let over = answers.len().saturating_sub(self.capacity);
+        answers.truncate(self.capacity);
+        if answers.is_empty() {
+            return;
+        }
+        self.keep(
+            request_id,
+            model,
+            Answers::Batch(answers.into_boxed_slice()),
+            over,
+        );
+    }
+
+    /// Store one request's answers, evicting the oldest requests while over capacity;
+    /// `evicted` answers were already cut from an oversized batch.
+    fn keep(&self, request_id: &str, model: &Arc<Model>, answers: Answers, mut evicted: usize) {
+        if request_id.is_empty() {
+            // An empty id could never be reported against; the service always sets one.
+            self.evicted.inc_by((answers.len() + evicted) as u64);
+            return;
+        }
+        let hash = self.hasher.hash_one(request_id.as_bytes());
+        let request = Request {
+            id: StoredId::new(request_id),
+            model: Arc::clone(model),
+            answers,
+        };
+        let mut store = self.store.lock().unwrap_or_else(PoisonError::into_inner);
+        let number = store.front + store.ring.len() as u64;
+        if let Some(earlier) = store.index.insert(hash, number) {
+            let position = earlier.checked_sub(store.front).map(|p| p as usize);
+            if let Some(replaced) = position.and_then(|p| store.ring.get_mut(p)) {
+                let gone = replaced.vacate();
+                store.held -= gone;
+                evicted += gone;
+            }
+        }
+        // Make room before pushing, so the ring and the index never outgrow the size they were
+        // allocated with. Popping keeps `front + ring.len()`, so `number` stays right.
+        let incoming = request.answers.len();
+        while !store.ring.is_empty()
+            && (store.held + incoming > self.capacity || store.ring.len() >= self.capacity)
+        {
+            evicted += store.pop_oldest(&self.hasher);
+        }
+        store.held += incoming;
+        store.ring.push_back(request);
+        self.held.set(i64::try_from(store.held).unwrap_or(i64::MAX));
+        drop(store);
+        if evicted > 0 {
+            self.evicted.inc_by(evicted as u64);
+        }
+    }
+
+    /// Mark answer `answer_id` of model `model_name` as having `outcome`, and return it.
+    pub fn claim(
+        &self,
+        model_name: &str,
+        answer_id: &str,
+        outcome: bool,
+    ) -> Result<MatchedAnswer, OutcomeError> {
+        let not_found = || OutcomeError::NotFound {
+            model: model_name.to_string(),
+            answer_id: answer_id.to_string(),
+        };
+        let whole_hash = self.hasher.hash_one(answer_id.as_bytes());
+        let split = split_answer_id(answer_id).map(|(request_id, index)| {
+            (
+                request_id,
+                index,
+                self.hasher.hash_one(request_id.as_bytes()),
+            )
+        });
+        let mut store = self.store.lock().unwrap_or_else(PoisonError::into_inner);
+        let single = store
+            .position(answer_id, whole_hash)
+            .filter(|&p| matches!(store.ring[p].answers, Answers::Single(_)));
+        let (position, index) = match (single, split) {
+            (Some(p), _) => (p, None),
+            (None, Some((request_id, index, hash))) => (
+                store.position(request_id, hash).ok_or_else(not_found)?,
+                Some(index),
+            ),
+            (None, None) => return Err(not_found()),
+        };
+        let request = &mut store.ring[position];
+        if request.model.name() != model_name {
+            return Err(not_found());
+        }
+        let answer = match (&mut request.answers, index) {
+            (Answers::Single(a), None) => a,
+            (Answers::Batch(b), Some(i)) => b.get_mut(i).ok_or_else(not_found)?,
+            _ => return Err(not_found()),
+        };
+        if let Some(earlier) = answer.outcome {
+            return Err(OutcomeError::AlreadyReported {
+                answer_id: answer_id.to_string(),
+                outcome: u8::from(earlier),
+            });
+        }
+        answer.outcome = Some(outcome);
+        Ok(MatchedAnswer {
+            answer_id: answer_id.to_string(),
+            model: model_name.to_string(),
+            version: request.model.version().to_string(),
+            probability: answer.probability,
+            linear_index: answer.linear_index,
+            outcome: u8::from(outcome),
+        })
+    }
+
+    /// The store's size now.
+    pub fn summary(&self) -> StoreSummary {
+        let held = self
+            .store
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner)
+            .held;
+        StoreSummary {
+            held,
+            capacity: self.capacity,
+            evicted_total: self.evicted.get(),
+        }
+    }
+}
+
+/// `ID/i` → (`ID`, i), with i written in plain decimal digits (no sign, no leading zeros).
+fn split_answer_id(answer_id: &str) -> Option<(&str, usize)> {
+    let (request_id, index) = answer_id.rsplit_once('/')?;
+    let canonical = !index.is_empty()
+        && index.bytes().all(|b| b.is_ascii_digit())
+        && (index == "0" || !index.starts_with('0'));
+    if !canonical || request_id.is_empty() {
+        return None;
+    }
+    Some((request_id, index.parse().ok()?))
+}
+
+/// Match an outcome to its answer and record it in the answering version's calibration window.
+pub fn report_outcome(
+    answers: &AnswerStore,
+    calibration: &CalibrationMonitor,
+    model_name: &str,
+    answer_id: &str,
+    outcome: bool,
+) -> Result<MatchedAnswer, OutcomeError> {
+    let matched = answers.claim(model_name, answer_id, outcome)?;
+    calibration.record(
+        &matched.model,
+        &matched.version,
+        matched.probability,
+        outcome,
+    );
+    Ok(matched)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn tiny_model() -> Arc<Model> {
+        let file = br#"{"format": "ogive-model", "format_version": 1, "name": "m", "version": "1",
+            "outcome": {"name": "y", "meaning": "a test outcome"}, "link": "logit",
+            "covariates": [{"name": "x", "kind": "continuous",
+                            "training": {"min": 0, "max": 1, "mean": 0.5}}],
+            "terms": [{"term": "intercept", "coefficient": 0.1}],
+            "provenance": {"fitted_by": "test", "fitted_at": "1970-01-01T00:00:00Z",
+                           "observations": 1}}"#;
+        Arc::new(Model::from_json(file).expect("a valid model"))
+    }
+
+    #[test]
+    fn the_ring_never_outgrows_its_first_allocation() {
+        let registry = Registry::new();
+        let store = AnswerStore::new(64, &registry).expect("store");
+        let model = tiny_model();
+        // (The index's own `capacity()` counts free buckets net of deleted ones, so it moves
+        // without reallocating; its bound is that it never holds more than the ring.)
+        let ring = store.store.lock().expect("lock").ring.capacity();
+        for i in 0..5_000_u32 {
+            // Fresh ids, reused ids and batches, interleaved.
+            let id = if i % 3 == 0 {
+                "reused".to_string()
+            } else {
+                format!("id-{i}")
+            };
+            if i % 7 == 0 {
+                store.keep_batch(&id, &model, vec![StoredAnswer::new(0.5, 0.0); 5]);
+            } else {
+                store.keep_single(&id, &model, StoredAnswer::new(0.5, 0.0));
+            }
+            let s = store.store.lock().expect("lock");
+            assert!(s.ring.len() <= 64 && s.held <= 64 && s.index.len() <= 64);
+        }
+        let s = store.store.lock().expect("lock");
+        assert_eq!(s.ring.capacity(), ring);
+        let held: usize = s
+            .ring
+            .iter()
+            .filter(|r| !r.is_empty_slot())
+            .map(|r| r.answers.len())
+            .sum();
+        assert_eq!(held, s.held);
+    }
+
+    #[test]
+    fn long_ids_are_kept_whole() {
+        let long = "x".repeat(128);
+        assert_eq!(StoredId::new(&long).as_bytes(), long.as_bytes());
+        assert_eq!(StoredId::new("abc").as_bytes(), b"abc");
+        let registry = Registry::new();
+        let store = AnswerStore::new(4, &registry).expect("store");
+        store.keep_single(&long, &tiny_model(), StoredAnswer::new(0.25, 1.0));
+        assert_eq!(
+            store.claim("m", &long, true).map(|m| m.probability),
+            Ok(0.25)
+        );
+    }
+
+    #[test]
+    fn answer_ids_split_at_the_last_slash_into_canonical_indices() {
+        assert_eq!(split_answer_id("abc/3"), Some(("abc", 3)));
+        assert_eq!(split_answer_id("a/b/12"), Some(("a/b", 12)));
+        assert_eq!(split_answer_id("abc/0"), Some(("abc", 0)));
+        assert_eq!(split_answer_id("abc/03"), None);
+        assert_eq!(split_answer_id("abc/+3"), None);
+        assert_eq!(split_answer_id("abc/"), None);
+        assert_eq!(split_answer_id("/3"), None);
+        assert_eq!(split_answer_id("abc"), None);
+        assert_eq!(split_answer_id("abc/99999999999999999999999"), None);
+    }
+}

@@ -1,0 +1,812 @@
+//! Monitoring with known answers: drift (the PSI of known shifts, computed by hand here), the
+//! answer store (ids, eviction, repeated outcomes), and live calibration against scikit-learn
+//! and statsmodels fixtures made by `tests/reference/monitoring/make_fixtures.py`. Values are
+//! read back through the Prometheus text exposition, as a scraper would see them.
+
+use std::collections::BTreeMap;
+use std::sync::Arc;
+
+use ogive::metrics::calibration::{self, CalibrationMonitor, Figures};
+use ogive::metrics::drift::{DriftBand, DriftMonitor, SHARE_FLOOR};
+use ogive::metrics::outcomes::{report_outcome, AnswerStore, OutcomeError, StoredAnswer};
+use ogive::model::{Model, Value};
+use prometheus::{Encoder, Registry, TextEncoder};
+use serde_json::{json, Value as Json};
+
+/// Tolerances of this file, each with its reason.
+mod tolerance {
+    /// Brier score, log loss and AUC against scikit-learn 1.9: relative. Both sides sum the
+    /// same n ≤ 600 terms in a different order (numpy uses pairwise summation), so they agree
+    /// to a few ulps per term.
+    pub const SKLEARN: f64 = 1e-12;
+    /// Calibration-in-the-large against numpy: absolute (the value is a difference of means
+    /// and may be near 0).
+    pub const NUMPY_ABSOLUTE: f64 = 1e-13;
+    /// Calibration slope and intercept against statsmodels 0.15 Logit (Newton, tol 1e-14):
+    /// relative. Two Newton–Raphson runs to the same maximum agree to the precision of the
+    /// score equations, about 1e-12 of the parameters here; 1e-9 leaves room for summation order.
+    pub const STATSMODELS: f64 = 1e-9;
+    /// PSI against the hand computation of the same formula: relative.
+    pub const HAND: f64 = 1e-12;
+}
+
+#[track_caller]
+fn assert_close(actual: f64, expected: f64, relative: f64, what: &str) {
+    let scale = expected.abs().max(1e-300);
+    assert!(
+        (actual - expected).abs() <= relative * scale,
+        "{what}: got {actual:e}, expected {expected:e} (relative tolerance {relative:e})"
+    );
+}
+
+/// The model the drift tests watch. Its training summaries are test input, chosen so that the
+/// training shares are round numbers:
+///
+/// ```text
+/// amount     continuous, histogram [0,10) [10,20) [20,30) [30,40]: 100 200 300 400 → .1 .2 .3 .4
+/// sector     categorical: retail 500, farming 300, transport 200               → .5 .3 .2
+/// guarantor  binary, no histogram, mean 0.25                                    → .75 .25
+/// visits     count, no histogram                                                → untracked
+/// probability  fitted_probabilities [0,.25) [.25,.5) [.5,.75) [.75,1]: 400 300 200 100
+/// ```
+fn drift_model(version: &str) -> Arc<Model> {
+    let file = json!({
+        "format": "ogive-model",
+        "format_version": 1,
+        "name": "lease-test",
+        "version": version,
+        "outcome": { "name": "arrears", "meaning": "a test outcome" },
+        "link": "logit",
+        "covariates": [
+            { "name": "amount", "kind": "continuous",
+              "training": { "min": 0.0, "max": 40.0, "mean": 25.0,
+                            "histogram": { "edges": [0.0, 10.0, 20.0, 30.0, 40.0],
+                                           "counts": [100, 200, 300, 400] } } },
+            { "name": "sector", "kind": "categorical",
+              "levels": ["retail", "farming", "transport"], "reference": "retail",
+              "training": { "level_counts": { "retail": 500, "farming": 300, "transport": 200 } } },
+            { "name": "guarantor", "kind": "binary",
+              "training": { "min": 0.0, "max": 1.0, "mean": 0.25 } },
+            { "name": "visits", "kind": "count",
+              "training": { "min": 0.0, "max": 9.0, "mean": 2.0 } }
+        ],
+        "terms": [
+            { "term": "intercept", "coefficient": -1.0 },
+            { "term": "amount", "coefficient": 0.05 },
+            { "term": "sector[farming]", "coefficient": 0.4 },
+            { "term": "sector[transport]", "coefficient": -0.3 },
+            { "term": "guarantor", "coefficient": -0.5 },
+            { "term": "visits", "coefficient": 0.1 }
+        ],
+        "fitted_probabilities": { "edges": [0.0, 0.25, 0.5, 0.75, 1.0],
+                                  "counts": [400, 300, 200, 100] },
+        "provenance": { "fitted_by": "tests/monitoring.rs", "fitted_at": "1970-01-01T00:00:00Z",
+                        "observations": 1000 }
+    });
+    let bytes = serde_json::to_vec(&file).expect("json");
+    Arc::new(Model::from_json(&bytes).expect("the drift test model is valid"))
+}
+
+fn values(model: &Model, amount: f64, sector: &str, guarantor: u8) -> Vec<Value> {
+    let observation =
+        json!({ "amount": amount, "sector": sector, "guarantor": guarantor, "visits": 1 });
+    let mut values = Vec::new();
+    model
+        .parse_observation(observation.as_object().expect("object"), &mut values)
+        .expect("a valid observation");
+    values
+}
+
+/// One sample of the text exposition: its metric name, labels and value.
+#[derive(Debug)]
+struct Sample {
+    name: String,
+    labels: BTreeMap<String, String>,
+    value: f64,
+}
+
+/// Scrape `registry` as Prometheus would and parse the text format.
+fn scrape(registry: &Registry) -> Vec<Sample> {
+    let mut out = Vec::new();
+    TextEncoder::new()
+        .encode(&registry.gather(), &mut out)
+        .expect("encode");
+    let text = String::from_utf8(out).expect("utf-8");
+    text.lines()
+        .filter(|l| !l.starts_with('#') && !l.is_empty())
+        .map(|line| {
+            let (series, value) = line.rsplit_once(' ').expect("a sample line");
+            let (name, labels) = match series.split_once('{') {
+                Some((name, rest)) => (name, rest.trim_end_matches('}')),
+                None => (series, ""),
+            };
+            let labels = labels
+                .split("\",")
+                .filter(|p| !p.is_empty())
+                .map(|pair| {
+                    let (k, v) = pair.split_once('=').expect("label pair");
+                    (k.to_string(), v.trim_matches('"').to_string())
+                })
+                .collect();
+            Sample {
+                name: name.to_string(),
+                labels,
+                value: value.parse().expect("a number"),
+            }
+        })
+        .collect()
+}
+
+/// The value of the series `name` whose labels include `labels`, if exported.
+fn series(samples: &[Sample], name: &str, labels: &[(&str, &str)]) -> Option<f64> {
+    samples
+        .iter()
+        .find(|s| {
+            s.name == name
+                && labels
+                    .iter()
+                    .all(|(k, v)| s.labels.get(*k).map(String::as_str) == Some(*v))
+        })
+        .map(|s| s.value)
+}
+
+/// ((a − e) · ln(a / e)) for one bin, written out for the hand computations.
+fn term(a: f64, e: f64) -> f64 {
+    (a - e) * (a / e).ln()
+}
+
+// ---------------------------------------------------------------------------------------------
+// Drift
+// ---------------------------------------------------------------------------------------------
+
+#[test]
+fn input_psi_of_a_known_shift_matches_the_hand_computation() {
+    let registry = Registry::new();
+    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    let model = drift_model("1");
+    // Window shares .4 .3 .2 .1 against training .1 .2 .3 .4. Values outside the training range
+    // (-5 below, 55 above) count in the first and last bins; 40, the last edge, is in the last.
+    let amounts = [
+        (-5.0, 5),
+        (3.0, 35),
+        (10.0, 10),
+        (15.0, 20),
+        (25.0, 20),
+        (40.0, 3),
+        (55.0, 2),
+        (35.0, 5),
+    ];
+    for (amount, n) in amounts {
+        for _ in 0..n {
+            drift.record(&model, &values(&model, amount, "retail", 0), 0.1);
+        }
+    }
+    // Hand: 2 · 0.3 · ln 4 + 2 · 0.1 · ln 1.5 (the terms pair up symmetrically).
+    let hand = 2.0 * 0.3 * 4.0_f64.ln() + 2.0 * 0.1 * 1.5_f64.ln();
+    let report = drift.report("lease-test");
+    assert_eq!(report.len(), 1);
+    assert_eq!(report[0].window_observations, 100);
+    let amount = &report[0].covariates[0];
+    assert_eq!(amount.covariate.as_deref(), Some("amount"));
+    assert_close(
+        amount.psi.expect("psi"),
+        hand,
+        tolerance::HAND,
+        "PSI of amount (hand)",
+    );
+    assert_eq!(
+        amount.band,
+        Some(DriftBand::Major),
+        "0.91 is past the common-practice 0.25"
+    );
+    let shares: Vec<f64> = amount.bins.iter().map(|b| b.window_share).collect();
+    assert_eq!(shares, [0.4, 0.3, 0.2, 0.1]);
+
+    let samples = scrape(&registry);
+    let gauge = series(
+        &samples,
+        "ogive_input_psi",
+        &[
+            ("model", "lease-test"),
+            ("version", "1"),
+            ("covariate", "amount"),
+        ],
+    )
+    .expect("ogive_input_psi for amount");
+    assert_close(
+        gauge,
+        hand,
+        tolerance::HAND,
+        "ogive_input_psi{covariate=amount} (hand)",
+    );
+    assert_eq!(
+        series(
+            &samples,
+            "ogive_drift_window_observations",
+            &[("version", "1")]
+        ),
+        Some(100.0)
+    );
+}
+
+#[test]
+fn an_empty_bin_is_floored_at_the_documented_share() {
+    let registry = Registry::new();
+    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    let model = drift_model("1");
+    // Every observation is retail: window shares 1, 0, 0 against training .5 .3 .2; the empty
+    // bins count as 1e-4.
+    for _ in 0..50 {
+        drift.record(&model, &values(&model, 25.0, "retail", 0), 0.1);
+    }
+    assert_eq!(SHARE_FLOOR, 1e-4);
+    let hand = term(1.0, 0.5) + term(1e-4, 0.3) + term(1e-4, 0.2);
+    let report = drift.report("lease-test");
+    let sector = &report[0].covariates[1];
+    assert_eq!(sector.covariate.as_deref(), Some("sector"));
+    assert_close(
+        sector.psi.expect("psi"),
+        hand,
+        tolerance::HAND,
+        "PSI of sector (hand, floored)",
+    );
+    let samples = scrape(&registry);
+    let gauge = series(&samples, "ogive_input_psi", &[("covariate", "sector")]).expect("sector");
+    assert_close(
+        gauge,
+        hand,
+        tolerance::HAND,
+        "ogive_input_psi{covariate=sector} (hand)",
+    );
+}
+
+#[test]
+fn a_binary_covariate_without_histogram_uses_its_training_share() {
+    let registry = Registry::new();
+    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    let model = drift_model("1");
+    for i in 0..80 {
+        drift.record(
+            &model,
+            &values(&model, 25.0, "farming", u8::from(i % 5 < 2)),
+            0.1,
+        );
+    }
+    // Window .6 .4 against training .75 .25.
+    let hand = term(0.6, 0.75) + term(0.4, 0.25);
+    let report = drift.report("lease-test");
+    let guarantor = &report[0].covariates[2];
+    assert_eq!(guarantor.covariate.as_deref(), Some("guarantor"));
+    assert_close(
+        guarantor.psi.expect("psi"),
+        hand,
+        tolerance::HAND,
+        "PSI of guarantor (hand)",
+    );
+    assert_eq!(
+        guarantor.band,
+        Some(DriftBand::Moderate),
+        "0.104 lies between 0.1 and 0.25"
+    );
+    assert_eq!(report[0].untracked.len(), 1);
+    assert_eq!(report[0].untracked[0].covariate, "visits");
+    assert!(report[0].untracked[0]
+        .reason
+        .contains("no training histogram"));
+}
+
+#[test]
+fn prediction_psi_bins_probabilities_by_the_fitted_histogram() {
+    let registry = Registry::new();
+    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    let model = drift_model("1");
+    // Window .1 .2 .3 .4 against training .4 .3 .2 .1; p = 1 falls in the closed last bin.
+    for (p, n) in [(0.1, 10), (0.3, 20), (0.6, 30), (0.8, 20), (1.0, 20)] {
+        for _ in 0..n {
+            drift.record(&model, &values(&model, 25.0, "retail", 0), p);
+        }
+    }
+    let hand = 2.0 * 0.3 * 4.0_f64.ln() + 2.0 * 0.1 * 1.5_f64.ln();
+    let report = drift.report("lease-test");
+    let prediction = report[0].prediction.as_ref().expect("prediction drift");
+    assert_close(
+        prediction.psi.expect("psi"),
+        hand,
+        tolerance::HAND,
+        "prediction PSI (hand)",
+    );
+    let samples = scrape(&registry);
+    let gauge = series(
+        &samples,
+        "ogive_prediction_psi",
+        &[("model", "lease-test"), ("version", "1")],
+    )
+    .expect("ogive_prediction_psi");
+    assert_close(gauge, hand, tolerance::HAND, "ogive_prediction_psi (hand)");
+}
+
+#[test]
+fn the_window_forgets_the_oldest_observations() {
+    let registry = Registry::new();
+    let drift = DriftMonitor::new(100, &registry).expect("monitor");
+    let model = drift_model("1");
+    // 100 shifted observations, then 100 in exactly the training shares: the shifted ones must
+    // all have left the window, leaving a PSI of exactly 0.
+    for _ in 0..100 {
+        drift.record(&model, &values(&model, 5.0, "transport", 1), 0.9);
+    }
+    for (amount, n) in [(5.0, 10), (15.0, 20), (25.0, 30), (35.0, 40)] {
+        for _ in 0..n {
+            drift.record(&model, &values(&model, amount, "retail", 0), 0.1);
+        }
+    }
+    let report = drift.report("lease-test");
+    assert_eq!(report[0].window_observations, 100);
+    assert_eq!(report[0].covariates[0].psi, Some(0.0));
+    assert_eq!(report[0].covariates[0].band, Some(DriftBand::Stable));
+}
+
+#[test]
+fn versions_keep_separate_windows_and_empty_windows_export_no_psi() {
+    let registry = Registry::new();
+    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    assert!(series(&scrape(&registry), "ogive_input_psi", &[]).is_none());
+    let (one, two) = (drift_model("1"), drift_model("2"));
+    for _ in 0..10 {
+        drift.record(&one, &values(&one, 5.0, "retail", 0), 0.1);
+    }
+    for _ in 0..30 {
+        drift.record(&two, &values(&two, 35.0, "retail", 0), 0.1);
+    }
+    let report = drift.report("lease-test");
+    let counts: Vec<(String, usize)> = report
+        .iter()
+        .map(|r| (r.version.clone(), r.window_observations))
+        .collect();
+    assert_eq!(counts, [("1".to_string(), 10), ("2".to_string(), 30)]);
+    // All in the first bin against .1, and all in the last against .4: the floor decides the rest.
+    let hand_one = term(1.0, 0.1) + term(1e-4, 0.2) + term(1e-4, 0.3) + term(1e-4, 0.4);
+    let hand_two = term(1e-4, 0.1) + term(1e-4, 0.2) + term(1e-4, 0.3) + term(1.0, 0.4);
+    let samples = scrape(&registry);
+    for (version, hand) in [("1", hand_one), ("2", hand_two)] {
+        let gauge = series(
+            &samples,
+            "ogive_input_psi",
+            &[("version", version), ("covariate", "amount")],
+        )
+        .expect("amount PSI per version");
+        assert_close(
+            gauge,
+            hand,
+            tolerance::HAND,
+            "ogive_input_psi per version (hand)",
+        );
+    }
+    assert!(drift.report("no-such-model").is_empty());
+}
+
+#[test]
+fn concurrent_recorders_lose_no_sample_without_counting_it() {
+    let registry = Registry::new();
+    let drift = DriftMonitor::new(100_000, &registry).expect("monitor");
+    let model = drift_model("1");
+    let threads = 4;
+    let per_thread = 5_000;
+    std::thread::scope(|scope| {
+        for t in 0..threads {
+            let (drift, model) = (&drift, &model);
+            scope.spawn(move || {
+                let v = values(model, 10.0 * t as f64 + 1.0, "farming", 1);
+                for _ in 0..per_thread {
+                    drift.record(model, &v, 0.4);
+                }
+            });
+        }
+    });
+    let report = drift.report("lease-test");
+    let r = &report[0];
+    assert_eq!(
+        r.window_observations as u64 + r.dropped_samples,
+        (threads * per_thread) as u64,
+        "every sample is either in the window or counted as dropped"
+    );
+    for d in r.covariates.iter().chain(&r.prediction) {
+        let total: f64 = d.bins.iter().map(|b| b.window_share).sum();
+        assert!(
+            (total - 1.0).abs() < 1e-12,
+            "window shares of {:?} sum to {total}",
+            d.covariate
+        );
+    }
+    let samples = scrape(&registry);
+    let dropped = series(
+        &samples,
+        "ogive_drift_samples_dropped_total",
+        &[("version", "1")],
+    );
+    assert_eq!(dropped.unwrap_or(0.0), r.dropped_samples as f64);
+}
+
+// ---------------------------------------------------------------------------------------------
+// Calibration
+// ---------------------------------------------------------------------------------------------
+
+struct Case {
+    name: String,
+    predictions: Vec<f64>,
+    outcomes: Vec<bool>,
+    reference: Json,
+}
+
+fn calibration_cases() -> Vec<Case> {
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/monitoring/calibration.json"
+    );
+    let text =
+        std::fs::read_to_string(path).expect("run tests/reference/monitoring/make_fixtures.py");
+    let fixture: Json = serde_json::from_str(&text).expect("fixture JSON");
+    fixture["cases"]
+        .as_array()
+        .expect("cases")
+        .iter()
+        .map(|c| Case {
+            name: c["name"].as_str().expect("name").to_string(),
+            predictions: c["predictions"]
+                .as_array()
+                .expect("predictions")
+                .iter()
+                .map(|p| p.as_f64().expect("a prediction"))
+                .collect(),
+            outcomes: c["outcomes"]
+                .as_array()
+                .expect("outcomes")
+                .iter()
+                .map(|y| y.as_u64() == Some(1))
+                .collect(),
+            reference: c.clone(),
+        })
+        .collect()
+}
+
+fn reference(case: &Case, key: &str) -> f64 {
+    case.reference[key]
+        .as_f64()
+        .unwrap_or_else(|| panic!("{key} in {}", case.name))
+}
+
+#[test]
+fn figures_match_scikit_learn_numpy_and_statsmodels() {
+    let cases = calibration_cases();
+    assert_eq!(cases.len(), 4);
+    for case in &cases {
+        let f = Figures::compute(&case.predictions, &case.outcomes).expect("figures");
+        let what = |m: &str| format!("{m}, case '{}'", case.name);
+        assert_eq!(f.count, case.predictions.len());
+        // scikit-learn 1.9 brier_score_loss; relative 1e-12.
+        assert_close(
+            f.brier_score,
+            reference(case, "brier_score"),
+            tolerance::SKLEARN,
+            &what("Brier score vs sklearn brier_score_loss"),
+        );
+        // scikit-learn 1.9 log_loss; relative 1e-12 (no prediction within 1e-15 of 0 or 1).
+        assert_close(
+            f.log_loss,
+            reference(case, "log_loss"),
+            tolerance::SKLEARN,
+            &what("log loss vs sklearn log_loss"),
+        );
+        // scikit-learn 1.9 roc_auc_score; relative 1e-12.
+        assert_close(
+            f.roc_auc.expect("auc"),
+            reference(case, "roc_auc"),
+            tolerance::SKLEARN,
+            &what("AUC vs sklearn roc_auc_score"),
+        );
+        // numpy mean(y) − mean(p); absolute 1e-13.
+        let itl = reference(case, "in_the_large");
+        assert!(
+            (f.calibration_in_the_large - itl).abs() <= tolerance::NUMPY_ABSOLUTE,
+            "{}: got {}, numpy {itl}",
+            what("calibration-in-the-large"),
+            f.calibration_in_the_large
+        );
+        // statsmodels 0.15 Logit(y, add_constant(logit(p))).fit(method="newton"); relative 1e-9.
+        assert_close(
+            f.calibration_slope.expect("slope"),
+            reference(case, "calibration_slope"),
+            tolerance::STATSMODELS,
+            &what("slope vs statsmodels Logit"),
+        );
+        assert_close(
+            f.calibration_intercept.expect("intercept"),
+            reference(case, "calibration_intercept"),
+            tolerance::STATSMODELS,
+            &what("intercept vs statsmodels Logit"),
+        );
+    }
+}
+
+#[test]
+fn log_loss_clips_predictions_at_1e_15() {
+    // By hand: a prediction of 0 for an outcome of 1 costs −ln(1e-15) = 15 ln 10.
+    assert_eq!(calibration::PROBABILITY_CLIP, 1e-15);
+    assert_close(
+        calibration::log_loss(&[0.0], &[true]),
+        15.0 * 10.0_f64.ln(),
+        1e-15,
+        "log loss at p = 0, y = 1 (hand)",
+    );
+    assert_close(
+        calibration::log_loss(&[1.0], &[false]),
+        15.0 * 10.0_f64.ln(),
+        1e-3,
+        "log loss at p = 1, y = 0 (hand; 1 − 1e-15 is not exact in binary)",
+    );
+    assert!(calibration::log_loss(&[1.0], &[true]) < 2e-15);
+}
+
+#[test]
+fn one_outcome_class_leaves_slope_and_auc_undefined() {
+    let f = Figures::compute(&[0.2, 0.4, 0.9], &[true, true, true]).expect("figures");
+    assert_eq!(f.roc_auc, None);
+    assert_eq!(f.calibration_slope, None);
+    // By hand: ((0.8)² + (0.6)² + (0.1)²)/3 and 1 − 0.5.
+    assert_close(
+        f.brier_score,
+        (0.64 + 0.36 + 0.01) / 3.0,
+        1e-15,
+        "Brier (hand)",
+    );
+    assert_close(
+        f.calibration_in_the_large,
+        0.5,
+        1e-15,
+        "in the large (hand)",
+    );
+    assert!(Figures::compute(&[], &[]).is_none());
+
+    let registry = Registry::new();
+    let monitor = CalibrationMonitor::new(100, &registry).expect("monitor");
+    monitor.record("lease-test", "1", 0.2, true);
+    let samples = scrape(&registry);
+    assert!(series(&samples, "ogive_brier_score", &[("version", "1")]).is_some());
+    assert!(series(&samples, "ogive_roc_auc", &[("version", "1")]).is_none());
+    assert!(series(&samples, "ogive_calibration_slope", &[("version", "1")]).is_none());
+}
+
+#[test]
+fn the_calibration_window_keeps_the_most_recent_outcomes() {
+    let cases = calibration_cases();
+    let (older, newer) = (&cases[1], &cases[0]);
+    let registry = Registry::new();
+    let monitor = CalibrationMonitor::new(newer.predictions.len(), &registry).expect("monitor");
+    for (p, y) in older.predictions.iter().zip(&older.outcomes) {
+        monitor.record("lease-test", "1", *p, *y);
+    }
+    for (p, y) in newer.predictions.iter().zip(&newer.outcomes) {
+        monitor.record("lease-test", "1", *p, *y);
+    }
+    let report = monitor.report("lease-test");
+    assert_eq!(report.len(), 1);
+    assert_eq!(
+        report[0].outcomes_total,
+        (older.predictions.len() + newer.predictions.len()) as u64
+    );
+    let f = report[0].figures.expect("figures");
+    assert_eq!(f.count, newer.predictions.len());
+    // scikit-learn 1.9 on the newer case alone; relative 1e-12.
+    assert_close(
+        f.brier_score,
+        reference(newer, "brier_score"),
+        tolerance::SKLEARN,
+        "windowed Brier vs sklearn",
+    );
+    assert_close(
+        f.roc_auc.expect("auc"),
+        reference(newer, "roc_auc"),
+        tolerance::SKLEARN,
+        "windowed AUC vs sklearn",
+    );
+}
+
+// ---------------------------------------------------------------------------------------------
+// Answers and outcomes
+// ---------------------------------------------------------------------------------------------
+
+#[test]
+fn outcomes_find_single_and_batch_answers_by_id() {
+    let registry = Registry::new();
+    let store = AnswerStore::new(100, &registry).expect("store");
+    let model = drift_model("1");
+    store.keep_single("req-a", &model, StoredAnswer::new(0.3, -0.85));
+    store.keep_batch(
+        "req-b",
+        &model,
+        (0..5)
+            .map(|i| StoredAnswer::new(0.1 * f64::from(i), f64::from(i)))
+            .collect(),
+    );
+    let a = store
+        .claim("lease-test", "req-a", true)
+        .expect("single answer");
+    assert_eq!(
+        (a.version.as_str(), a.probability, a.linear_index, a.outcome),
+        ("1", 0.3, -0.85, 1)
+    );
+    let b3 = store
+        .claim("lease-test", "req-b/3", false)
+        .expect("4th of the batch");
+    assert_eq!(
+        (b3.probability, b3.linear_index, b3.outcome),
+        (0.1 * 3.0, 3.0, 0)
+    );
+
+    let second = store.claim("lease-test", "req-b/3", true);
+    assert_eq!(
+        second,
+        Err(OutcomeError::AlreadyReported {
+            answer_id: "req-b/3".into(),
+            outcome: 0
+        })
+    );
+    for (model, id) in [
+        ("lease-test", "req-b/5"),  // past the batch
+        ("lease-test", "req-b"),    // a batch answer needs its index
+        ("lease-test", "req-a/0"),  // a single answer has none
+        ("lease-test", "req-b/03"), // not a canonical index
+        ("lease-test", "never-given"),
+        ("other-model", "req-b/1"), // another model's answer
+    ] {
+        assert!(
+            matches!(
+                store.claim(model, id, true),
+                Err(OutcomeError::NotFound { .. })
+            ),
+            "{model} {id} must be NotFound"
+        );
+    }
+    // A request id containing '/' still resolves whole.
+    store.keep_single("tenant/7", &model, StoredAnswer::new(0.5, 0.0));
+    assert!(store.claim("lease-test", "tenant/7", true).is_ok());
+}
+
+#[test]
+fn the_oldest_requests_are_evicted_and_counted() {
+    let registry = Registry::new();
+    let store = AnswerStore::new(5, &registry).expect("store");
+    let model = drift_model("1");
+    for id in ["r1", "r2", "r3"] {
+        store.keep_single(id, &model, StoredAnswer::new(0.2, 0.0));
+    }
+    // 3 + 3 = 6 > 5: r1 goes.
+    store.keep_batch("r4", &model, vec![StoredAnswer::new(0.2, 0.0); 3]);
+    assert!(matches!(
+        store.claim("lease-test", "r1", true),
+        Err(OutcomeError::NotFound { .. })
+    ));
+    assert!(store.claim("lease-test", "r2", true).is_ok());
+    assert!(store.claim("lease-test", "r4/2", true).is_ok());
+    // A batch larger than the store keeps its first 5 answers and evicts everything else.
+    store.keep_batch("r5", &model, vec![StoredAnswer::new(0.2, 0.0); 7]);
+    assert!(store.claim("lease-test", "r5/4", true).is_ok());
+    assert!(matches!(
+        store.claim("lease-test", "r5/5", true),
+        Err(OutcomeError::NotFound { .. })
+    ));
+    let summary = store.summary();
+    // Evicted: r1 (1), then r2, r3, r4 (1 + 1 + 3) to make room, and r5's last 2.
+    assert_eq!((summary.held, summary.evicted_total), (5, 8));
+    let samples = scrape(&registry);
+    assert_eq!(
+        series(&samples, "ogive_answers_evicted_total", &[]),
+        Some(8.0)
+    );
+    assert_eq!(series(&samples, "ogive_answers_held", &[]), Some(5.0));
+}
+
+#[test]
+fn a_reused_request_id_replaces_the_earlier_answers() {
+    let registry = Registry::new();
+    let store = AnswerStore::new(10, &registry).expect("store");
+    let model = drift_model("1");
+    store.keep_batch("same", &model, vec![StoredAnswer::new(0.2, 0.0); 4]);
+    store.keep_single("same", &model, StoredAnswer::new(0.7, 1.0));
+    let matched = store
+        .claim("lease-test", "same", true)
+        .expect("the newer answer");
+    assert_eq!(matched.probability, 0.7);
+    assert!(matches!(
+        store.claim("lease-test", "same/0", true),
+        Err(OutcomeError::NotFound { .. })
+    ));
+    assert_eq!(
+        (store.summary().held, store.summary().evicted_total),
+        (1, 4)
+    );
+    // Each reuse leaves an empty slot, and slots count toward the capacity, so reusing one id
+    // a thousand times pushes "same" out of a store of 10 but keeps only the last "again".
+    for i in 0..1_000 {
+        store.keep_single("again", &model, StoredAnswer::new(0.1, f64::from(i)));
+    }
+    assert_eq!(store.summary().held, 1);
+    assert!(matches!(
+        store.claim("lease-test", "same", true),
+        Err(OutcomeError::NotFound { .. })
+    ));
+    assert_eq!(
+        store
+            .claim("lease-test", "again", false)
+            .expect("last")
+            .linear_index,
+        999.0
+    );
+}
+
+#[test]
+fn reported_outcomes_reach_the_calibration_gauges() {
+    let cases = calibration_cases();
+    let case = &cases[2];
+    let registry = Registry::new();
+    let store = AnswerStore::new(10_000, &registry).expect("store");
+    let monitor = CalibrationMonitor::new(10_000, &registry).expect("monitor");
+    let model = drift_model("7");
+    store.keep_batch(
+        "batch-1",
+        &model,
+        case.predictions
+            .iter()
+            .map(|&p| StoredAnswer::new(p, 0.0))
+            .collect(),
+    );
+    for (i, y) in case.outcomes.iter().enumerate() {
+        let id = format!("batch-1/{i}");
+        report_outcome(&store, &monitor, "lease-test", &id, *y).expect("a stored answer");
+    }
+    assert!(matches!(
+        report_outcome(&store, &monitor, "lease-test", "batch-1/0", true),
+        Err(OutcomeError::AlreadyReported { .. })
+    ));
+    let samples = scrape(&registry);
+    let labels = [("model", "lease-test"), ("version", "7")];
+    assert_eq!(
+        series(&samples, "ogive_outcomes_total", &labels),
+        Some(case.outcomes.len() as f64)
+    );
+    let gauge = |name: &str| series(&samples, name, &labels).unwrap_or_else(|| panic!("{name}"));
+    // Prometheus prints values with enough digits to round-trip, so the tolerances hold.
+    assert_close(
+        gauge("ogive_brier_score"),
+        reference(case, "brier_score"),
+        tolerance::SKLEARN,
+        "ogive_brier_score vs sklearn brier_score_loss",
+    );
+    assert_close(
+        gauge("ogive_log_loss"),
+        reference(case, "log_loss"),
+        tolerance::SKLEARN,
+        "ogive_log_loss vs sklearn log_loss",
+    );
+    assert_close(
+        gauge("ogive_roc_auc"),
+        reference(case, "roc_auc"),
+        tolerance::SKLEARN,
+        "ogive_roc_auc vs sklearn roc_auc_score",
+    );
+    assert_close(
+        gauge("ogive_calibration_slope"),
+        reference(case, "calibration_slope"),
+        tolerance::STATSMODELS,
+        "ogive_calibration_slope vs statsmodels Logit",
+    );
+    assert!(
+        (gauge("ogive_calibration_in_the_large") - reference(case, "in_the_large")).abs()
+            <= tolerance::NUMPY_ABSOLUTE,
+        "ogive_calibration_in_the_large vs numpy"
+    );
+    assert_eq!(
+        series(&samples, "ogive_calibration_window_outcomes", &labels),
+        Some(case.outcomes.len() as f64)
+    );
+}
