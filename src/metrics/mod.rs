@@ -23,6 +23,10 @@
 //! ogive_ready                                         gauge, 1 when ready
 //! ```
 
+pub mod calibration;
+pub mod drift;
+pub mod monitor;
+pub mod outcomes;
 
 use prometheus::{
     Encoder, Histogram, HistogramOpts, HistogramVec, IntCounter, IntCounterVec, IntGauge,
