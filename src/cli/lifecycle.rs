@@ -1,23 +1,199 @@
-//! `ogive promote`, `ogive rollback`, `ogive history`: in progress (issue 5).
+//! `ogive promote`, `ogive rollback` and `ogive history`: the model lifecycle on the model
+//! directory itself, through [`crate::registry::lifecycle`] (which holds all the rules). A
+//! serving process sharing the directory picks the change up within a second.
+
+use std::path::PathBuf;
 use std::process::ExitCode;
+
+use anyhow::Context;
+
+use crate::registry::lifecycle::{self, HistoryView, Moved};
+use crate::registry::store::{Action, HistoryRecord};
+
+/// Where the model directory is and who is acting: shared by the three commands.
+#[derive(Debug, clap::Args)]
+pub struct Directory {
+    /// The model directory.
+    #[arg(
+        long,
+        env = "OGIVE_MODELS",
+        value_name = "DIR",
+        default_value = "model-files"
+    )]
+    pub models: PathBuf,
+}
+
+/// Who made a change, and why.
+#[derive(Debug, clap::Args)]
+pub struct Actor {
+    /// Who is making the change, as recorded in the history (default `cli:$USER`).
+    #[arg(long, env = "OGIVE_WHO", value_name = "LABEL")]
+    pub who: Option<String>,
+    /// Why, as recorded in the history.
+    #[arg(long, value_name = "TEXT")]
+    pub reason: Option<String>,
+}
+
+impl Actor {
+    fn who(&self) -> String {
+        self.who.clone().unwrap_or_else(|| {
+            let user = std::env::var("USER").unwrap_or_else(|_| "unknown".into());
+            format!("cli:{user}")
+        })
+    }
+}
+
 /// Arguments of `ogive promote`.
 #[derive(Debug, clap::Args)]
-pub struct PromoteArgs {}
+pub struct PromoteArgs {
+    #[command(flatten)]
+    directory: Directory,
+    /// The model.
+    pub name: String,
+    /// The stored version to make live.
+    pub version: String,
+    /// Promote even if the covariates differ from the live version's (callers must change
+    /// what they send). Deliberately not readable from the environment: it is a decision
+    /// about one promotion.
+    #[arg(long)]
+    pub allow_breaking: bool,
+    #[command(flatten)]
+    actor: Actor,
+}
+
 /// Arguments of `ogive rollback`.
 #[derive(Debug, clap::Args)]
-pub struct RollbackArgs {}
+pub struct RollbackArgs {
+    #[command(flatten)]
+    directory: Directory,
+    /// The model.
+    pub name: String,
+    #[command(flatten)]
+    actor: Actor,
+}
+
+/// How `ogive history` prints.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum HistoryFormat {
+    /// One line per record, for people.
+    Text,
+    /// One JSON document: live version, rollback target, records and warnings.
+    Json,
+}
+
 /// Arguments of `ogive history`.
 #[derive(Debug, clap::Args)]
-pub struct HistoryArgs {}
+pub struct HistoryArgs {
+    #[command(flatten)]
+    directory: Directory,
+    /// The model.
+    pub name: String,
+    /// Output format.
+    #[arg(long, env = "OGIVE_FORMAT", value_enum, default_value_t = HistoryFormat::Text)]
+    pub format: HistoryFormat,
+}
+
 /// Run `ogive promote`.
-pub fn promote(_args: PromoteArgs) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("`ogive promote` is not built yet")
+pub fn promote(args: PromoteArgs) -> anyhow::Result<ExitCode> {
+    let moved = lifecycle::promote(
+        &args.directory.models,
+        &args.name,
+        &args.version,
+        args.allow_breaking,
+        &args.actor.who(),
+        args.actor.reason.as_deref(),
+    )
+    .with_context(|| format!("promoting {} version {}", args.name, args.version))?;
+    if moved.changed {
+        tracing::info!(model = %moved.name, from = ?moved.from, to = %moved.to, "promoted");
+    }
+    print_moved(&moved);
+    Ok(ExitCode::SUCCESS)
 }
+
 /// Run `ogive rollback`.
-pub fn rollback(_args: RollbackArgs) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("`ogive rollback` is not built yet")
+pub fn rollback(args: RollbackArgs) -> anyhow::Result<ExitCode> {
+    let moved = lifecycle::rollback(
+        &args.directory.models,
+        &args.name,
+        &args.actor.who(),
+        args.actor.reason.as_deref(),
+    )
+    .with_context(|| format!("rolling back {}", args.name))?;
+    tracing::info!(model = %moved.name, from = ?moved.from, to = %moved.to, "rolled back");
+    print_moved(&moved);
+    Ok(ExitCode::SUCCESS)
 }
-/// Run `ogive history`.
-pub fn history(_args: HistoryArgs) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("`ogive history` is not built yet")
+
+/// Run `ogive history`. Skipped lines are reported on standard error; they do not fail it.
+pub fn history(args: HistoryArgs) -> anyhow::Result<ExitCode> {
+    let view = lifecycle::history(&args.directory.models, &args.name)
+        .with_context(|| format!("reading the history of {}", args.name))?;
+    match args.format {
+        HistoryFormat::Json => {
+            let text = serde_json::to_string_pretty(&view).context("encoding the history")?;
+            println!("{text}");
+        }
+        HistoryFormat::Text => print!("{}", history_text(&view)),
+    }
+    for warning in &view.warnings {
+        eprintln!("warning: {warning}");
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn print_moved(moved: &Moved) {
+    let from = moved.from.as_deref().unwrap_or("nothing");
+    if !moved.changed {
+        println!(
+            "{}: {} is already live; nothing changed",
+            moved.name, moved.to
+        );
+        return;
+    }
+    let verb = match moved.action {
+        Action::Rollback => "rolled back",
+        _ => "promoted",
+    };
+    println!("{}: {verb} {from} → {}", moved.name, moved.to);
+    if !moved.changes.is_empty() {
+        println!("callers must now:");
+        for change in &moved.changes {
+            println!("  - {change}");
+        }
+    }
+}
+
+fn record_line(record: &HistoryRecord) -> String {
+    let change = match (record.action, &record.from) {
+        (Action::Upload, _) => format!("stored {}", record.to),
+        (_, Some(from)) => format!("{from} → {}", record.to),
+        (_, None) => format!("nothing → {}", record.to),
+    };
+    let mut line = format!(
+        "{:<24}  {:<8}  {change}  by {}",
+        record.when,
+        record.action.name(),
+        record.who
+    );
+    if let Some(reason) = &record.reason {
+        line.push_str(&format!("  ({reason})"));
+    }
+    line
+}
+
+fn history_text(view: &HistoryView) -> String {
+    let mut out = match (&view.live, &view.rollback_to) {
+        (Some(live), Some(target)) => format!(
+            "{}: live {live}; a rollback would return to {target}\n",
+            view.name
+        ),
+        (Some(live), None) => format!("{}: live {live}; nothing to roll back to\n", view.name),
+        (None, _) => format!("{}: no live version\n", view.name),
+    };
+    for record in &view.records {
+        out.push_str(&record_line(record));
+        out.push('\n');
+    }
+    out
 }

@@ -12,7 +12,11 @@ use arc_swap::ArcSwap;
 
 use crate::model::Model;
 
+pub mod gate;
+pub mod lifecycle;
 pub mod load;
+pub mod store;
+pub mod watch;
 
 /// One model as served: its live version and an optional shadow candidate.
 #[derive(Debug, Clone)]
@@ -65,5 +69,25 @@ impl Registry {
     /// Replace the whole snapshot in one atomic swap.
     pub fn replace(&self, snapshot: Snapshot) {
         self.current.store(Arc::new(snapshot));
+    }
+
+    /// Make `model` the live version of its model in one atomic swap, keeping the entry's
+    /// shadow and every other entry; returns the live version it replaced. Concurrent callers
+    /// never lose each other's changes (read-copy-update).
+    pub fn set_live(&self, model: Arc<Model>) -> Option<Arc<Model>> {
+        let name = model.name().to_string();
+        let before = self.current.rcu(|current| {
+            let mut next = Snapshot::clone(current);
+            let shadow = next.models.get(&name).and_then(|e| e.shadow.clone());
+            next.models.insert(
+                name.clone(),
+                Arc::new(Entry {
+                    live: Arc::clone(&model),
+                    shadow,
+                }),
+            );
+            next
+        });
+        before.models.get(&name).map(|e| Arc::clone(&e.live))
     }
 }

@@ -1,0 +1,369 @@
+//! The validation gate that every upload and promotion passes, and that the watcher applies
+//! before serving a file.
+//!
+//! A candidate passes when
+//!
+//! 1. its name and version label are valid and match the route (or the directory and the file
+//!    name) it arrived under: a file that says it is another model or version is refused, so
+//!    it can never displace that other entry;
+//! 2. its bytes parse and validate as a model file, check cases included
+//!    ([`Model::from_json`]);
+//! 3. it does not overwrite a stored version with different bytes ([`check_new_version`]);
+//!    identical bytes are accepted as a repeat of the same upload;
+//! 4. its covariates are those of the live version ([`check_compatible`]), unless the caller
+//!    allows breaking changes.
+//!
+//! A covariate *change* is anything that makes a caller's observation or its reading of the
+//! answer wrong: a covariate added (callers must send it), removed (the old field is now
+//! refused as unknown), changed in kind (the accepted values change), in levels (a removed
+//! level is refused; an added one appears in effects), in reference level (every level effect
+//! is measured from a different level), or in unit (the same field now means a different
+//! number). Training ranges, terms, coefficients and the link may change freely: callers send
+//! the same observations and read the same fields.
+//!
+//! This module is pure: bytes and models in, verdicts out. It does no I/O.
+
+use std::fmt;
+
+use serde::Serialize;
+
+use crate::model::{is_model_name, is_version_label, CovariateKind, Model, ModelError};
+
+/// Why a candidate was refused.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum GateError {
+    /// The model name of the route (or directory) is not a model name.
+    #[error("'{0}' is not a valid model name (lower-case letters, digits and '-', starting with a letter, at most 64)")]
+    BadModelName(String),
+    /// The version label of the route (or file name) is not a version label.
+    #[error("'{0}' is not a valid version label (letters, digits, '.', '_' and '-', starting with a letter or digit, at most 64)")]
+    BadVersionLabel(String),
+    /// The bytes are not a valid model file, or its check cases do not reproduce.
+    #[error("version '{version}' of '{name}' is not a valid model file: {error}")]
+    Invalid {
+        /// The model name it was offered as.
+        name: String,
+        /// The version label it was offered as.
+        version: String,
+        /// What is wrong, and in which field (boxed: it is large and refusals are rare).
+        error: Box<ModelError>,
+    },
+    /// The file's `name` is not the model it was offered as.
+    #[error("the file's name is '{in_file}' but it was offered as model '{expected}'")]
+    NameMismatch {
+        /// The name of the route or directory.
+        expected: String,
+        /// The `name` field of the file.
+        in_file: String,
+    },
+    /// The file's `version` is not the version it was offered as.
+    #[error("the file's version is '{in_file}' but it was offered as version '{expected}'")]
+    VersionMismatch {
+        /// The label of the route or file name.
+        expected: String,
+        /// The `version` field of the file.
+        in_file: String,
+    },
+    /// A different file is already stored under this version label.
+    #[error("version '{version}' of '{name}' is already stored with different content; versions are immutable, so upload this file under a new version label")]
+    VersionExists {
+        /// The model.
+        name: String,
+        /// The label.
+        version: String,
+    },
+    /// The candidate's covariates differ from the live version's.
+    #[error("version '{candidate}' of '{name}' changes what callers send compared with live version '{live}', so it is refused unless breaking changes are allowed; callers must:{}", bullet_list(.changes))]
+    Breaking {
+        /// The model.
+        name: String,
+        /// The live version's label.
+        live: String,
+        /// The candidate's label.
+        candidate: String,
+        /// Every difference, in covariate order of the live version, then the candidate's
+        /// new covariates.
+        changes: Vec<CovariateChange>,
+    },
+}
+
+fn bullet_list(changes: &[CovariateChange]) -> String {
+    changes.iter().map(|c| format!("\n  - {c}")).collect()
+}
+
+/// One difference between the covariates of the live version and a candidate. Its `Display`
+/// says what callers must change.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+#[serde(tag = "change", rename_all = "snake_case")]
+pub enum CovariateChange {
+    /// The candidate has a covariate the live version lacks.
+    Added {
+        /// The covariate.
+        covariate: String,
+        /// Its kind.
+        kind: CovariateKind,
+    },
+    /// The live version has a covariate the candidate lacks.
+    Removed {
+        /// The covariate.
+        covariate: String,
+        /// Its kind in the live version.
+        kind: CovariateKind,
+    },
+    /// The covariate's kind differs.
+    KindChanged {
+        /// The covariate.
+        covariate: String,
+        /// Its kind in the live version.
+        from: CovariateKind,
+        /// Its kind in the candidate.
+        to: CovariateKind,
+    },
+    /// Levels of a categorical covariate that only the candidate has.
+    LevelsAdded {
+        /// The covariate.
+        covariate: String,
+        /// The new levels.
+        levels: Vec<String>,
+    },
+    /// Levels of a categorical covariate that the candidate no longer has.
+    LevelsRemoved {
+        /// The covariate.
+        covariate: String,
+        /// The dropped levels.
+        levels: Vec<String>,
+    },
+    /// The reference level of a categorical covariate differs.
+    ReferenceChanged {
+        /// The covariate.
+        covariate: String,
+        /// The live version's reference level.
+        from: String,
+        /// The candidate's reference level.
+        to: String,
+    },
+    /// The unit of a numeric covariate differs.
+    UnitChanged {
+        /// The covariate.
+        covariate: String,
+        /// The live version's unit.
+        from: Option<String>,
+        /// The candidate's unit.
+        to: Option<String>,
+    },
+}
+
+fn unit_text(unit: &Option<String>) -> String {
+    match unit {
+        Some(u) => format!("'{u}'"),
+        None => "no stated unit".into(),
+    }
+}
+
+fn quoted(levels: &[String]) -> String {
+    levels
+        .iter()
+        .map(|l| format!("'{l}'"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+impl fmt::Display for CovariateChange {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            CovariateChange::Added { covariate, kind } => write!(
+                f,
+                "send the new {} covariate '{covariate}' in every observation",
+                kind.name()
+            ),
+            CovariateChange::Removed { covariate, .. } => write!(
+                f,
+                "stop sending '{covariate}': the candidate has no such covariate and refuses the field"
+            ),
+            CovariateChange::KindChanged { covariate, from, to } => write!(
+                f,
+                "send '{covariate}' as a {} value instead of a {} one",
+                to.name(),
+                from.name()
+            ),
+            CovariateChange::LevelsAdded { covariate, levels } => write!(
+                f,
+                "expect new level(s) {} of '{covariate}' in answers (and send them where they apply)",
+                quoted(levels)
+            ),
+            CovariateChange::LevelsRemoved { covariate, levels } => write!(
+                f,
+                "stop sending level(s) {} of '{covariate}': the candidate refuses them",
+                quoted(levels)
+            ),
+            CovariateChange::ReferenceChanged { covariate, from, to } => write!(
+                f,
+                "read the effects of '{covariate}' as changes from level '{to}' instead of '{from}'"
+            ),
+            CovariateChange::UnitChanged { covariate, from, to } => write!(
+                f,
+                "send '{covariate}' in {} instead of {}",
+                unit_text(to),
+                unit_text(from)
+            ),
+        }
+    }
+}
+
+/// Check a model name and version label (from a route or the directory) before anything is
+/// read or built from them.
+pub fn check_labels(name: &str, version: &str) -> Result<(), GateError> {
+    if !is_model_name(name) {
+        return Err(GateError::BadModelName(name.to_string()));
+    }
+    if !is_version_label(version) {
+        return Err(GateError::BadVersionLabel(version.to_string()));
+    }
+    Ok(())
+}
+
+/// Steps 1 and 2 of the gate: the labels are valid, the bytes validate as a model file (check
+/// cases reproduce), and the file names itself `name`, version `version`.
+pub fn check_file(name: &str, version: &str, bytes: &[u8]) -> Result<Model, GateError> {
+    check_labels(name, version)?;
+    let model = Model::from_json(bytes).map_err(|error| GateError::Invalid {
+        name: name.to_string(),
+        version: version.to_string(),
+        error: Box::new(error),
+    })?;
+    if model.name() != name {
+        return Err(GateError::NameMismatch {
+            expected: name.to_string(),
+            in_file: model.name().to_string(),
+        });
+    }
+    if model.version() != version {
+        return Err(GateError::VersionMismatch {
+            expected: version.to_string(),
+            in_file: model.version().to_string(),
+        });
+    }
+    Ok(model)
+}
+
+/// Whether an upload adds a version or repeats one.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Novelty {
+    /// No file is stored under this label: store it.
+    New,
+    /// The identical bytes are already stored: nothing to write.
+    AlreadyStored,
+}
+
+/// Step 3 of the gate: a stored version is never overwritten. Identical bytes are a repeat of
+/// the same upload (a client retrying after a lost answer) and pass as [`Novelty::AlreadyStored`];
+/// any other difference, even one that only re-formats the JSON, is refused, because the stored
+/// bytes are what replicas and auditors read.
+pub fn check_new_version(
+    name: &str,
+    version: &str,
+    stored: Option<&[u8]>,
+    bytes: &[u8],
+) -> Result<Novelty, GateError> {
+    match stored {
+        None => Ok(Novelty::New),
+        Some(stored) if stored == bytes => Ok(Novelty::AlreadyStored),
+        Some(_) => Err(GateError::VersionExists {
+            name: name.to_string(),
+            version: version.to_string(),
+        }),
+    }
+}
+
+/// Every covariate difference between `live` and `candidate`: the live version's covariates in
+/// order (removed, or changed in kind, unit, levels or reference), then the candidate's new
+/// ones in order. Empty when callers need change nothing.
+pub fn covariate_changes(live: &Model, candidate: &Model) -> Vec<CovariateChange> {
+    let mut changes = Vec::new();
+    for old in &live.covariates {
+        let Some(new) = candidate.covariates.iter().find(|c| c.name == old.name) else {
+            changes.push(CovariateChange::Removed {
+                covariate: old.name.clone(),
+                kind: old.kind,
+            });
+            continue;
+        };
+        if old.kind != new.kind {
+            changes.push(CovariateChange::KindChanged {
+                covariate: old.name.clone(),
+                from: old.kind,
+                to: new.kind,
+            });
+            continue;
+        }
+        if old.kind == CovariateKind::Categorical {
+            let added: Vec<String> = new
+                .levels
+                .iter()
+                .filter(|l| !old.levels.contains(l))
+                .cloned()
+                .collect();
+            let removed: Vec<String> = old
+                .levels
+                .iter()
+                .filter(|l| !new.levels.contains(l))
+                .cloned()
+                .collect();
+            if !removed.is_empty() {
+                changes.push(CovariateChange::LevelsRemoved {
+                    covariate: old.name.clone(),
+                    levels: removed,
+                });
+            }
+            if !added.is_empty() {
+                changes.push(CovariateChange::LevelsAdded {
+                    covariate: old.name.clone(),
+                    levels: added,
+                });
+            }
+            let (from, to) = (&old.levels[old.reference], &new.levels[new.reference]);
+            if from != to {
+                changes.push(CovariateChange::ReferenceChanged {
+                    covariate: old.name.clone(),
+                    from: from.clone(),
+                    to: to.clone(),
+                });
+            }
+        } else if old.unit != new.unit {
+            changes.push(CovariateChange::UnitChanged {
+                covariate: old.name.clone(),
+                from: old.unit.clone(),
+                to: new.unit.clone(),
+            });
+        }
+    }
+    for new in &candidate.covariates {
+        if live.covariate_index(&new.name).is_none() {
+            changes.push(CovariateChange::Added {
+                covariate: new.name.clone(),
+                kind: new.kind,
+            });
+        }
+    }
+    changes
+}
+
+/// Step 4 of the gate. Returns the changes (empty, or allowed because `allow_breaking`), or
+/// [`GateError::Breaking`] listing every one of them.
+pub fn check_compatible(
+    live: &Model,
+    candidate: &Model,
+    allow_breaking: bool,
+) -> Result<Vec<CovariateChange>, GateError> {
+    let changes = covariate_changes(live, candidate);
+    if changes.is_empty() || allow_breaking {
+        return Ok(changes);
+    }
+    Err(GateError::Breaking {
+        name: candidate.name().to_string(),
+        live: live.version().to_string(),
+        candidate: candidate.version().to_string(),
+        changes,
+    })
+}

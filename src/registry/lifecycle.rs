@@ -1,0 +1,556 @@
+//! The lifecycle of a model's versions on disk: [`upload`], [`promote`], [`rollback`] and
+//! [`history`]. The admin routes and the `promote`, `rollback` and `history` subcommands are
+//! thin wrappers around these four functions.
+//!
+//! Each changing operation runs under the model's exclusive lock, passes the [`gate`], and
+//! writes in an order chosen for crashes: the version file or pointer first (atomically), the
+//! history record second. A crash between the two leaves a change the history does not
+//! mention, never a history that claims a change that did not happen; [`replay`] accounts for
+//! such a change, and [`history`] reports it.
+//!
+//! Rollback is a stack. Replaying the history in order, with `live` the version it leaves live
+//! and `previous` a stack of versions:
+//!
+//! ```text
+//! promote  from → to    push `from` (if any);  live = to
+//! rollback from → to    pop;                   live = to
+//! upload                nothing
+//! ```
+//!
+//! Before each promotion or rollback record, and finally against the `live` file itself, a
+//! pointer that differs from `live` counts as a promotion `live → pointer` (a history record
+//! lost to a crash, a hand edit, a redeployed ConfigMap). [`rollback`] goes to the top of the
+//! stack, skipping entries equal to the current live version; an empty stack means there is
+//! nothing to roll back to. So after promotions v1 → v2 → v3, rollbacks go to v2, then v1,
+//! then refuse; a rollback is not undone by another rollback, but by promoting again.
+//!
+//! A rollback does not apply the covariate check (it returns to a contract callers already
+//! met), but it does validate the target file, and reports the covariate changes it makes.
+//! Promoting the version that is already live changes nothing and records nothing.
+//!
+//! Uploads are recorded in the history too (`action: "upload"`), so that it says who stored
+//! each version; an upload repeated with identical bytes writes nothing.
+//!
+//! This module knows nothing of HTTP and nothing of the in-memory [`crate::registry::Registry`]:
+//! callers that serve models may swap in the [`Model`] an outcome carries at once, and the
+//! watcher ([`crate::registry::watch`]) brings every other replica along.
+
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+
+use serde::Serialize;
+
+use super::gate::{self, CovariateChange, GateError, Novelty};
+use super::store::{Action, HistoryRecord, HistoryWarning, ModelDir, ModelLock, StoreError};
+use crate::model::Model;
+
+/// How long an operation waits for another promoter to release the model's lock.
+pub const LOCK_WAIT: Duration = Duration::from_secs(30);
+
+/// Why a lifecycle operation did nothing.
+#[derive(Debug, thiserror::Error)]
+pub enum LifecycleError {
+    /// The candidate did not pass the gate.
+    #[error(transparent)]
+    Gate(#[from] GateError),
+    /// The directory could not be read or written.
+    #[error(transparent)]
+    Store(#[from] StoreError),
+    /// No directory for the model.
+    #[error("there is no model '{name}' in {}", root.display())]
+    UnknownModel {
+        /// The model.
+        name: String,
+        /// The model directory searched.
+        root: PathBuf,
+    },
+    /// No file for the version.
+    #[error("model '{name}' has no version '{version}' (stored: {})", listed(.stored))]
+    UnknownVersion {
+        /// The model.
+        name: String,
+        /// The missing version.
+        version: String,
+        /// The versions that are stored.
+        stored: Vec<String>,
+    },
+    /// A rollback of a model with no live version.
+    #[error("model '{name}' has no live version, so there is nothing to roll back")]
+    NoLiveVersion {
+        /// The model.
+        name: String,
+    },
+    /// A rollback with no earlier version in the history.
+    #[error("model '{name}' has no earlier live version to roll back to ('{live}' is live and the history holds no promotion still in effect)")]
+    NothingToRollBack {
+        /// The model.
+        name: String,
+        /// The live version.
+        live: String,
+    },
+    /// The live version could not be loaded, so the candidate cannot be compared with it.
+    #[error("the live version '{live}' of '{name}' cannot be loaded to compare covariates ({problem}); allow breaking changes to promote without the comparison")]
+    LiveUnreadable {
+        /// The model.
+        name: String,
+        /// The live version.
+        live: String,
+        /// Why it could not be loaded.
+        problem: String,
+    },
+    /// The version a rollback would return to does not pass the gate.
+    #[error("cannot roll '{name}' back to '{target}', so '{live}' stays live: {problem}")]
+    RollbackTargetInvalid {
+        /// The model.
+        name: String,
+        /// The live version, which keeps serving.
+        live: String,
+        /// The version the rollback would return to.
+        target: String,
+        /// Why it cannot go live.
+        problem: Box<LifecycleError>,
+    },
+}
+
+fn listed(versions: &[String]) -> String {
+    if versions.is_empty() {
+        "none".into()
+    } else {
+        versions.join(", ")
+    }
+}
+
+/// The result of [`upload`].
+#[derive(Debug, Clone, Serialize)]
+pub struct Uploaded {
+    /// The model.
+    pub name: String,
+    /// The version stored.
+    pub version: String,
+    /// `new` if written now, `already_stored` if the identical bytes were there.
+    pub novelty: Novelty,
+    /// The live version it was compared with, if any.
+    pub compared_with: Option<String>,
+    /// Covariate changes from the live version, allowed by `allow_breaking` (else empty).
+    pub changes: Vec<CovariateChange>,
+}
+
+/// The result of [`promote`] or [`rollback`].
+#[derive(Debug, Clone, Serialize)]
+pub struct Moved {
+    /// The model.
+    pub name: String,
+    /// `promote` or `rollback`.
+    pub action: Action,
+    /// The version live before, if any.
+    pub from: Option<String>,
+    /// The version live now.
+    pub to: String,
+    /// `false` when the version was already live and nothing was written.
+    pub changed: bool,
+    /// Covariate changes from the old live version (allowed, or made by a rollback).
+    pub changes: Vec<CovariateChange>,
+    /// The history record written, if any.
+    pub record: Option<HistoryRecord>,
+    /// The validated model now live, for a caller that serves it to swap in at once.
+    #[serde(skip)]
+    pub model: Model,
+}
+
+/// The result of [`history`].
+#[derive(Debug, Clone, Serialize)]
+pub struct HistoryView {
+    /// The model.
+    pub name: String,
+    /// What the `live` file names now.
+    pub live: Option<String>,
+    /// Where a rollback would go now.
+    pub rollback_to: Option<String>,
+    /// Every readable record, oldest first.
+    pub records: Vec<HistoryRecord>,
+    /// Skipped lines, and a live pointer the history does not account for.
+    #[serde(serialize_with = "as_messages")]
+    pub warnings: Vec<ViewWarning>,
+}
+
+/// A warning about a history.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+pub enum ViewWarning {
+    /// A line of the file was skipped.
+    #[error(transparent)]
+    Line(#[from] HistoryWarning),
+    /// The live pointer differs from where the history leaves it.
+    #[error("the live pointer names '{}' but the history leaves '{}' live: that change is not recorded (an interrupted promotion, or an edit made outside ogive)", .pointer.as_deref().unwrap_or("nothing"), .recorded.as_deref().unwrap_or("nothing"))]
+    Unrecorded {
+        /// Where the history leaves the model.
+        recorded: Option<String>,
+        /// What the `live` file names.
+        pointer: Option<String>,
+    },
+}
+
+fn as_messages<S: serde::Serializer>(warnings: &[ViewWarning], s: S) -> Result<S::Ok, S::Error> {
+    s.collect_seq(warnings.iter().map(|w| w.to_string()))
+}
+
+/// What the history and the pointer together say about a model (see the module docs).
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct Lineage {
+    /// The live version: what the pointer names.
+    pub live: Option<String>,
+    /// Where the history alone leaves the model.
+    pub recorded: Option<String>,
+    /// Versions to roll back to, the next one last.
+    pub previous: Vec<String>,
+}
+
+impl Lineage {
+    /// The version a rollback would go to now.
+    pub fn rollback_target(&self) -> Option<&str> {
+        self.previous
+            .iter()
+            .rev()
+            .find(|v| Some(v.as_str()) != self.live.as_deref())
+            .map(String::as_str)
+    }
+
+    /// Whether the history accounts for the live pointer.
+    pub fn is_recorded(&self) -> bool {
+        self.live == self.recorded
+    }
+}
+
+/// Move `live` to `to`, pushing the version it leaves: a promotion, recorded or not.
+fn move_live(live: &mut Option<String>, previous: &mut Vec<String>, to: Option<&str>) {
+    if live.as_deref() != to {
+        if let Some(old) = live.take() {
+            previous.push(old);
+        }
+        *live = to.map(str::to_string);
+    }
+}
+
+/// Replay promotion and rollback records, then reconcile with the `live` file's content
+/// (`pointer`, `None` when there is no `live` file).
+pub fn replay(records: &[HistoryRecord], pointer: Option<&str>) -> Lineage {
+    let mut live: Option<String> = None;
+    let mut previous: Vec<String> = Vec::new();
+    for record in records {
+        match record.action {
+            Action::Upload => {}
+            Action::Promote => {
+                move_live(&mut live, &mut previous, record.from.as_deref());
+                move_live(&mut live, &mut previous, Some(&record.to));
+            }
+            Action::Rollback => {
+                move_live(&mut live, &mut previous, record.from.as_deref());
+                previous.pop();
+                live = Some(record.to.clone());
+            }
+        }
+    }
+    let recorded = live.clone();
+    match pointer {
+        Some(p) => move_live(&mut live, &mut previous, Some(p)),
+        // No `live` file: nothing is live, but the stack is kept for when one is promoted.
+        None => live = None,
+    }
+    Lineage {
+        live,
+        recorded,
+        previous,
+    }
+}
+
+fn existing_dir(root: &Path, name: &str) -> Result<ModelDir, LifecycleError> {
+    let dir = ModelDir::new(root, name).map_err(|_| GateError::BadModelName(name.to_string()))?;
+    if !dir.exists() {
+        return Err(LifecycleError::UnknownModel {
+            name: name.to_string(),
+            root: root.to_path_buf(),
+        });
+    }
+    Ok(dir)
+}
+
+/// Read and gate a stored version (steps 1–2).
+fn load_stored(dir: &ModelDir, version: &str) -> Result<Model, LifecycleError> {
+    gate::check_labels(dir.name(), version)?;
+    let bytes = dir
+        .read_version(version)?
+        .ok_or_else(|| LifecycleError::UnknownVersion {
+            name: dir.name().to_string(),
+            version: version.to_string(),
+            stored: dir.list_versions().unwrap_or_default(),
+        })?;
+    Ok(gate::check_file(dir.name(), version, &bytes)?)
+}
+
+/// Step 4 against the live version, if there is one.
+fn compare_with_live(
+    dir: &ModelDir,
+    live: Option<&str>,
+    candidate: &Model,
+    allow_breaking: bool,
+) -> Result<Vec<CovariateChange>, LifecycleError> {
+    let Some(live) = live else {
+        return Ok(Vec::new());
+    };
+    match load_stored(dir, live) {
+        Ok(live_model) => Ok(gate::check_compatible(
+            &live_model,
+            candidate,
+            allow_breaking,
+        )?),
+        Err(_) if allow_breaking => Ok(Vec::new()),
+        Err(problem) => Err(LifecycleError::LiveUnreadable {
+            name: dir.name().to_string(),
+            live: live.to_string(),
+            problem: problem.to_string(),
+        }),
+    }
+}
+
+/// Store `bytes` as version `version` of model `name` under `root`, after the gate: valid,
+/// check cases reproduce, name and version match, no different file under the label, and the
+/// same covariates as the live version unless `allow_breaking`. Creates the model's directory
+/// for its first version. Identical bytes already stored are accepted without writing
+/// ([`Novelty::AlreadyStored`]) and without comparing covariates again: the promotion will.
+pub fn upload(
+    root: &Path,
+    name: &str,
+    version: &str,
+    bytes: &[u8],
+    allow_breaking: bool,
+    who: &str,
+    reason: Option<&str>,
+) -> Result<Uploaded, LifecycleError> {
+    let candidate = gate::check_file(name, version, bytes)?;
+    let dir = ModelDir::new(root, name)?;
+    dir.create()?;
+    let lock = dir.lock(LOCK_WAIT)?;
+    let novelty =
+        gate::check_new_version(name, version, dir.read_version(version)?.as_deref(), bytes)?;
+    let live = dir.read_live()?;
+    let mut uploaded = Uploaded {
+        name: name.to_string(),
+        version: version.to_string(),
+        novelty,
+        compared_with: live.clone(),
+        changes: Vec::new(),
+    };
+    if novelty == Novelty::AlreadyStored {
+        return Ok(uploaded);
+    }
+    uploaded.changes = compare_with_live(&dir, live.as_deref(), &candidate, allow_breaking)?;
+    lock.create_version(version, bytes)?;
+    lock.append_history(&HistoryRecord::now(
+        Action::Upload,
+        None,
+        version,
+        who,
+        reason,
+    ))?;
+    Ok(uploaded)
+}
+
+/// Make stored version `version` the live version of model `name`, after the gate (valid,
+/// check cases reproduce, same covariates as the live version unless `allow_breaking`).
+/// Promoting the live version again succeeds with `changed: false` and writes nothing.
+pub fn promote(
+    root: &Path,
+    name: &str,
+    version: &str,
+    allow_breaking: bool,
+    who: &str,
+    reason: Option<&str>,
+) -> Result<Moved, LifecycleError> {
+    gate::check_labels(name, version)?;
+    let dir = existing_dir(root, name)?;
+    let lock = dir.lock(LOCK_WAIT)?;
+    let candidate = load_stored(&dir, version)?;
+    let live = dir.read_live()?;
+    if live.as_deref() == Some(version) {
+        return Ok(Moved {
+            name: name.to_string(),
+            action: Action::Promote,
+            from: live.clone(),
+            to: version.to_string(),
+            changed: false,
+            changes: Vec::new(),
+            record: None,
+            model: candidate,
+        });
+    }
+    let changes = compare_with_live(&dir, live.as_deref(), &candidate, allow_breaking)?;
+    let record = HistoryRecord::now(Action::Promote, live.as_deref(), version, who, reason);
+    move_pointer(&lock, &record)?;
+    Ok(Moved {
+        name: name.to_string(),
+        action: Action::Promote,
+        from: live,
+        to: version.to_string(),
+        changed: true,
+        changes,
+        record: Some(record),
+        model: candidate,
+    })
+}
+
+/// Return model `name` to the version that was live before the latest promotion still in
+/// effect (see the module docs for the exact rule). The target must pass steps 1–2 of the
+/// gate; its covariate changes are reported, not refused.
+pub fn rollback(
+    root: &Path,
+    name: &str,
+    who: &str,
+    reason: Option<&str>,
+) -> Result<Moved, LifecycleError> {
+    let dir = existing_dir(root, name)?;
+    let lock = dir.lock(LOCK_WAIT)?;
+    let live = dir
+        .read_live()?
+        .ok_or_else(|| LifecycleError::NoLiveVersion {
+            name: name.to_string(),
+        })?;
+    let history = dir.read_history()?;
+    let lineage = replay(&history.records, Some(&live));
+    let target = lineage
+        .rollback_target()
+        .ok_or_else(|| LifecycleError::NothingToRollBack {
+            name: name.to_string(),
+            live: live.clone(),
+        })?
+        .to_string();
+    let invalid = |problem: LifecycleError| LifecycleError::RollbackTargetInvalid {
+        name: name.to_string(),
+        live: live.clone(),
+        target: target.clone(),
+        problem: Box::new(problem),
+    };
+    let model = load_stored(&dir, &target).map_err(invalid)?;
+    // For the report only: a live file that no longer loads does not block going back.
+    let changes = load_stored(&dir, &live)
+        .map(|live_model| gate::covariate_changes(&live_model, &model))
+        .unwrap_or_default();
+    let record = HistoryRecord::now(Action::Rollback, Some(&live), &target, who, reason);
+    move_pointer(&lock, &record)?;
+    Ok(Moved {
+        name: name.to_string(),
+        action: Action::Rollback,
+        from: Some(live),
+        to: target,
+        changed: true,
+        changes,
+        record: Some(record),
+        model,
+    })
+}
+
+/// Pointer first, history second: see the module docs for why.
+fn move_pointer(lock: &ModelLock, record: &HistoryRecord) -> Result<(), LifecycleError> {
+    lock.write_live(&record.to)?;
+    lock.append_history(record)?;
+    Ok(())
+}
+
+/// The history of model `name`: its records, where a rollback would go, and a warning per
+/// skipped line or unrecorded change. Reads without locking; never fails on the history's
+/// content.
+pub fn history(root: &Path, name: &str) -> Result<HistoryView, LifecycleError> {
+    let dir = existing_dir(root, name)?;
+    let live = dir.read_live()?;
+    let history = dir.read_history()?;
+    let lineage = replay(&history.records, live.as_deref());
+    let mut warnings: Vec<ViewWarning> = history.warnings.into_iter().map(Into::into).collect();
+    if !lineage.is_recorded() {
+        warnings.push(ViewWarning::Unrecorded {
+            recorded: lineage.recorded.clone(),
+            pointer: live.clone(),
+        });
+    }
+    Ok(HistoryView {
+        name: name.to_string(),
+        rollback_to: lineage.rollback_target().map(str::to_string),
+        live,
+        records: history.records,
+        warnings,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn record(action: Action, from: Option<&str>, to: &str) -> HistoryRecord {
+        HistoryRecord::now(action, from, to, "test", None)
+    }
+
+    fn promote_record(from: Option<&str>, to: &str) -> HistoryRecord {
+        record(Action::Promote, from, to)
+    }
+
+    #[test]
+    fn rollbacks_walk_back_down_the_stack_then_stop() {
+        let mut records = vec![
+            promote_record(None, "v1"),
+            promote_record(Some("v1"), "v2"),
+            promote_record(Some("v2"), "v3"),
+        ];
+        let lineage = replay(&records, Some("v3"));
+        assert_eq!(lineage.rollback_target(), Some("v2"));
+        assert!(lineage.is_recorded());
+        records.push(record(Action::Rollback, Some("v3"), "v2"));
+        assert_eq!(replay(&records, Some("v2")).rollback_target(), Some("v1"));
+        records.push(record(Action::Rollback, Some("v2"), "v1"));
+        assert_eq!(replay(&records, Some("v1")).rollback_target(), None);
+    }
+
+    #[test]
+    fn a_rollback_is_not_undone_by_another_rollback() {
+        let records = vec![
+            promote_record(Some("v1"), "v2"),
+            record(Action::Rollback, Some("v2"), "v1"),
+        ];
+        assert_eq!(replay(&records, Some("v1")).rollback_target(), None);
+    }
+
+    #[test]
+    fn uploads_do_not_move_the_stack() {
+        let records = vec![
+            record(Action::Upload, None, "v1"),
+            promote_record(None, "v1"),
+            record(Action::Upload, None, "v2"),
+            promote_record(Some("v1"), "v2"),
+            record(Action::Upload, None, "v3"),
+        ];
+        let lineage = replay(&records, Some("v2"));
+        assert_eq!(lineage.previous, vec!["v1"]);
+        assert_eq!(lineage.rollback_target(), Some("v1"));
+    }
+
+    #[test]
+    fn a_pointer_moved_without_a_record_counts_as_a_promotion() {
+        // The record of v2 → v3 was lost (a crash between the pointer and the history).
+        let records = vec![promote_record(Some("v1"), "v2")];
+        let lineage = replay(&records, Some("v3"));
+        assert!(!lineage.is_recorded());
+        assert_eq!(lineage.recorded.as_deref(), Some("v2"));
+        assert_eq!(lineage.rollback_target(), Some("v2"));
+        // A later promotion from v3 is then consistent with it.
+        let records = vec![
+            promote_record(Some("v1"), "v2"),
+            promote_record(Some("v3"), "v4"),
+        ];
+        let lineage = replay(&records, Some("v4"));
+        assert_eq!(lineage.previous, vec!["v1", "v2", "v3"]);
+        assert!(lineage.is_recorded());
+    }
+
+    #[test]
+    fn a_history_that_starts_from_a_hand_written_pointer_still_rolls_back() {
+        let records = vec![promote_record(Some("v0"), "v1")];
+        let lineage = replay(&records, Some("v1"));
+        assert_eq!(lineage.rollback_target(), Some("v0"));
+    }
+}

@@ -1,0 +1,253 @@
+//! `history.jsonl`: one JSON object per line, appended and never rewritten, recording every
+//! upload, promotion and rollback of one model.
+//!
+//! ```text
+//! {"when":"2026-05-04T09:12:45.120Z","action":"promote","from":"v1","to":"v2","who":"cli:ana","reason":"refit on May data"}
+//! ```
+//!
+//! `when` is RFC 3339 in UTC with milliseconds, `from` is `null` when nothing was live, and
+//! `reason` is left out when none was given. Readers ignore fields they do not know, so later
+//! builds may add some.
+//!
+//! Reading never fails on content: a last line cut short by a crash is skipped with
+//! [`HistoryWarning::TornLastLine`], any other unreadable line with
+//! [`HistoryWarning::Unreadable`], and the warnings are returned, not printed. This module
+//! does not decide what the records mean for rollback; that is [`crate::registry::lifecycle`].
+
+use std::fs::File;
+use std::io::{Read, Seek, SeekFrom};
+use std::time::{SystemTime, UNIX_EPOCH};
+
+use serde::{Deserialize, Serialize};
+
+/// What a history record records.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Action {
+    /// A version file was stored (`from` is `null`, `to` is the version).
+    Upload,
+    /// The live pointer moved from `from` to `to` by promotion.
+    Promote,
+    /// The live pointer moved back from `from` to `to` by rollback.
+    Rollback,
+}
+
+impl Action {
+    /// The name used in the file and in answers.
+    pub fn name(self) -> &'static str {
+        match self {
+            Action::Upload => "upload",
+            Action::Promote => "promote",
+            Action::Rollback => "rollback",
+        }
+    }
+}
+
+/// One line of `history.jsonl`.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct HistoryRecord {
+    /// When, as RFC 3339 in UTC.
+    pub when: String,
+    /// What happened.
+    pub action: Action,
+    /// The version live before (for promotions and rollbacks), if any.
+    #[serde(default)]
+    pub from: Option<String>,
+    /// The version live after (or, for an upload, the version stored).
+    pub to: String,
+    /// Who did it: a label such as `cli:ana` or an admin token's label.
+    pub who: String,
+    /// Why, if they said.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reason: Option<String>,
+}
+
+impl HistoryRecord {
+    /// A record stamped with the current time.
+    pub fn now(
+        action: Action,
+        from: Option<&str>,
+        to: &str,
+        who: &str,
+        reason: Option<&str>,
+    ) -> HistoryRecord {
+        HistoryRecord {
+            when: rfc3339_utc(SystemTime::now()),
+            action,
+            from: from.map(str::to_string),
+            to: to.to_string(),
+            who: who.to_string(),
+            reason: reason.map(str::to_string),
+        }
+    }
+}
+
+/// A line of the history that was skipped.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+pub enum HistoryWarning {
+    /// The last line has no newline and does not parse: an append was interrupted.
+    #[error("history line {line} skipped: the last record is incomplete ({bytes} bytes without an end), an append was interrupted")]
+    TornLastLine {
+        /// Its line number, from 1.
+        line: usize,
+        /// How many bytes the fragment has.
+        bytes: usize,
+    },
+    /// A line (not the last) that is not a record.
+    #[error("history line {line} skipped: {problem}")]
+    Unreadable {
+        /// Its line number, from 1.
+        line: usize,
+        /// What the parser said.
+        problem: String,
+    },
+}
+
+/// The readable records of a history, oldest first, and the lines that were skipped.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct History {
+    /// The records, in file order.
+    pub records: Vec<HistoryRecord>,
+    /// One warning per skipped line.
+    pub warnings: Vec<HistoryWarning>,
+}
+
+/// Parse the bytes of a `history.jsonl`. Blank lines are ignored. A last line without its
+/// newline is kept if it parses (a hand-written file may lack the final newline) and skipped
+/// with a warning if not.
+pub fn parse(bytes: &[u8]) -> History {
+    let mut history = History::default();
+    let complete = bytes.ends_with(b"\n");
+    let lines: Vec<&[u8]> = bytes.split(|&b| b == b'\n').collect();
+    // `split` yields an empty piece after a final newline; it is not a line.
+    let count = if complete {
+        lines.len() - 1
+    } else {
+        lines.len()
+    };
+    for (index, raw) in lines.iter().take(count).enumerate() {
+        let line = index + 1;
+        if raw.iter().all(u8::is_ascii_whitespace) {
+            continue;
+        }
+        match serde_json::from_slice::<HistoryRecord>(raw) {
+            Ok(record) => history.records.push(record),
+            Err(_) if !complete && line == count => {
+                history.warnings.push(HistoryWarning::TornLastLine {
+                    line,
+                    bytes: raw.len(),
+                });
+            }
+            Err(e) => history.warnings.push(HistoryWarning::Unreadable {
+                line,
+                problem: e.to_string(),
+            }),
+        }
+    }
+    history
+}
+
+/// Whether a non-empty file's last byte is something other than a newline.
+pub(super) fn ends_without_newline(file: &mut File) -> std::io::Result<bool> {
+    let length = file.seek(SeekFrom::End(0))?;
+    if length == 0 {
+        return Ok(false);
+    }
+    file.seek(SeekFrom::End(-1))?;
+    let mut last = [0u8; 1];
+    file.read_exact(&mut last)?;
+    Ok(last[0] != b'\n')
+}
+
+/// Format a time as RFC 3339 in UTC with milliseconds, `YYYY-MM-DDTHH:MM:SS.mmmZ`.
+///
+/// The calendar date comes from the day count since 1970-01-01 by the proleptic Gregorian
+/// civil-from-days conversion (eras of 400 years = 146 097 days, years starting in March so
+/// that the leap day falls last):
+///
+/// ```text
+/// z = days + 719468;  era = ⌊z / 146097⌋;  doe = z − 146097·era
+/// yoe = ⌊(doe − ⌊doe/1460⌋ + ⌊doe/36524⌋ − ⌊doe/146096⌋) / 365⌋
+/// doy = doe − (365·yoe + ⌊yoe/4⌋ − ⌊yoe/100⌋);  mp = ⌊(5·doy + 2) / 153⌋
+/// day = doy − ⌊(153·mp + 2) / 5⌋ + 1;  month = mp + 3 if mp < 10 else mp − 9
+/// year = yoe + 400·era + (1 if month ≤ 2)
+/// ```
+///
+/// Times before 1970 are written as 1970-01-01T00:00:00.000Z; the clock of a machine that
+/// promotes models is not expected to read earlier.
+pub fn rfc3339_utc(time: SystemTime) -> String {
+    let since_epoch = time.duration_since(UNIX_EPOCH).unwrap_or_default();
+    let seconds = since_epoch.as_secs() as i64;
+    let millis = since_epoch.subsec_millis();
+    let days = seconds.div_euclid(86_400);
+    let of_day = seconds.rem_euclid(86_400);
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let day = doy - (153 * mp + 2) / 5 + 1;
+    let month = if mp < 10 { mp + 3 } else { mp - 9 };
+    let year = yoe + era * 400 + i64::from(month <= 2);
+    format!(
+        "{year:04}-{month:02}-{day:02}T{:02}:{:02}:{:02}.{millis:03}Z",
+        of_day / 3600,
+        (of_day / 60) % 60,
+        of_day % 60
+    )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::time::Duration;
+
+    fn at(seconds: u64, millis: u64) -> String {
+        rfc3339_utc(UNIX_EPOCH + Duration::from_secs(seconds) + Duration::from_millis(millis))
+    }
+
+    #[test]
+    fn timestamps_match_an_independent_calendar() {
+        // Reference: Python 3 `datetime.fromtimestamp(s, timezone.utc).isoformat()`, exact.
+        assert_eq!(at(0, 0), "1970-01-01T00:00:00.000Z");
+        assert_eq!(at(951_782_400, 0), "2000-02-29T00:00:00.000Z");
+        assert_eq!(at(951_868_799, 999), "2000-02-29T23:59:59.999Z");
+        assert_eq!(at(1_709_251_199, 5), "2024-02-29T23:59:59.005Z");
+        assert_eq!(at(4_107_542_400, 0), "2100-03-01T00:00:00.000Z");
+        assert_eq!(at(1_735_689_599, 0), "2024-12-31T23:59:59.000Z");
+    }
+
+    #[test]
+    fn a_torn_last_line_is_skipped_with_a_warning_and_the_rest_kept() {
+        let good = r#"{"when":"t","action":"promote","from":null,"to":"v1","who":"a"}"#;
+        let bytes = format!("{good}\n{{\"when\":\"t\",\"act");
+        let history = parse(bytes.as_bytes());
+        assert_eq!(history.records.len(), 1);
+        assert_eq!(
+            history.warnings,
+            vec![HistoryWarning::TornLastLine { line: 2, bytes: 16 }]
+        );
+    }
+
+    #[test]
+    fn a_complete_last_line_without_newline_is_kept() {
+        let good = r#"{"when":"t","action":"rollback","from":"v2","to":"v1","who":"a"}"#;
+        let history = parse(good.as_bytes());
+        assert_eq!(history.records.len(), 1);
+        assert!(history.warnings.is_empty());
+    }
+
+    #[test]
+    fn bad_bytes_in_the_middle_are_skipped_not_fatal() {
+        let good = r#"{"when":"t","action":"upload","to":"v1","who":"a"}"#;
+        let bytes = [good.as_bytes(), b"\n\xff\xfe{\n\n", good.as_bytes(), b"\n"].concat();
+        let history = parse(&bytes);
+        assert_eq!(history.records.len(), 2);
+        assert_eq!(history.records[0].from, None);
+        assert!(matches!(
+            history.warnings.as_slice(),
+            [HistoryWarning::Unreadable { line: 2, .. }]
+        ));
+    }
+}

@@ -1,0 +1,332 @@
+//! Watching the model directory: notice a moved `live` pointer, a replaced version file or a
+//! new model directory, and swap a freshly validated model into the [`Registry`].
+//!
+//! The watcher polls (every [`DEFAULT_INTERVAL`], never slower than [`MAX_INTERVAL`]) rather
+//! than subscribing to file-system events. Event APIs such as inotify see only changes made
+//! through the local kernel, so they miss a promotion written by another replica on a shared
+//! network volume; and a Kubernetes ConfigMap update is a swap of a `..data` symlink, which a
+//! watch on the files' own paths does not report as a change to them. Reading each model's
+//! tiny `live` file and the size and time of the version it names costs a few system calls
+//! per model per poll and sees all of these.
+//!
+//! A model is loaded with the startup loader's [`load_live`], so a file is held to the same
+//! rules at startup and on every swap: it validates, its check cases reproduce, and its name
+//! and version match its place. A file that fails never replaces what is serving; the previous
+//! version keeps serving and the failure is reported once, as a [`WatchEvent::Refused`], to
+//! the caller's callback (the library never logs). The watcher does not apply the gate's
+//! covariate check: the promotion that moved the pointer did, or was told not to.
+//!
+//! This module knows nothing of HTTP. The service runs [`Watcher::spawn`] after its startup
+//! load (or calls [`Watcher::poll`] itself from a task of its own).
+
+use std::collections::BTreeMap;
+use std::fs;
+use std::io;
+use std::path::{Path, PathBuf};
+use std::sync::mpsc::{self, RecvTimeoutError};
+use std::sync::{Arc, Mutex};
+use std::thread::JoinHandle;
+use std::time::Duration;
+
+use super::load::{load_live, LoadError};
+use super::store::{model_names, FileStamp, ModelDir, StoreError};
+use super::Registry;
+
+/// How often [`Watcher::spawn`] polls unless told otherwise.
+pub const DEFAULT_INTERVAL: Duration = Duration::from_millis(500);
+/// The longest interval [`Watcher::spawn`] accepts; longer ones are shortened to it, so that a
+/// promotion reaches every replica within about a second.
+pub const MAX_INTERVAL: Duration = Duration::from_secs(1);
+
+/// Something the watcher did or refused to do.
+#[derive(Debug)]
+pub enum WatchEvent {
+    /// A version began serving: a model seen for the first time, or a swap.
+    Served {
+        /// The model.
+        name: String,
+        /// The version now serving.
+        version: String,
+        /// The version it replaced, if one was serving.
+        previous: Option<String>,
+    },
+    /// A model's live version could not be loaded; `serving`, if any, keeps serving.
+    Refused {
+        /// The model.
+        name: String,
+        /// The version still serving.
+        serving: Option<String>,
+        /// Why the live version could not be loaded.
+        error: LoadError,
+    },
+    /// A model directory that was watched disappeared; its version keeps serving (removing a
+    /// model from service takes a restart, so a half-synced volume never drops one).
+    Vanished {
+        /// The model.
+        name: String,
+        /// The version still serving, if any.
+        serving: Option<String>,
+    },
+    /// The model directory itself could not be listed; everything keeps serving.
+    DirectoryUnreadable {
+        /// Why.
+        error: StoreError,
+    },
+}
+
+/// What a poll compares to decide whether a model needs loading: the pointer's raw bytes and
+/// the stamp of the version file it names.
+#[derive(Debug, Clone, PartialEq, Eq)]
+struct Fingerprint {
+    pointer: Option<Vec<u8>>,
+    version_file: Option<FileStamp>,
+}
+
+#[derive(Debug, Default)]
+struct Watched {
+    /// The fingerprint of the last conclusive load (success, or a refusal that only a change
+    /// of content can cure). `None` forces a load at the next poll.
+    fingerprint: Option<Fingerprint>,
+    /// The last refusal reported, so an unchanged failure is reported once.
+    last_refusal: Option<String>,
+}
+
+/// Polls one model directory and keeps a [`Registry`] in step with it.
+#[derive(Debug)]
+pub struct Watcher {
+    root: PathBuf,
+    watched: BTreeMap<String, Watched>,
+    directory_error: Option<String>,
+    unserved: Vec<String>,
+}
+
+impl Watcher {
+    /// A watcher of the model directory `root`. It has seen nothing yet: the first
+    /// [`poll`](Watcher::poll) loads every model the registry does not already serve at the
+    /// version its pointer names.
+    pub fn new(root: impl Into<PathBuf>) -> Watcher {
+        Watcher {
+            root: root.into(),
+            watched: BTreeMap::new(),
+            directory_error: None,
+            unserved: Vec::new(),
+        }
+    }
+
+    /// The model directory watched.
+    pub fn root(&self) -> &Path {
+        &self.root
+    }
+
+    /// The models found by the last poll that have no version serving in the registry (for
+    /// readiness: ready when this is empty).
+    pub fn unserved(&self) -> &[String] {
+        &self.unserved
+    }
+
+    /// Look at the directory once, swap changed models into `registry`, and say what happened.
+    pub fn poll(&mut self, registry: &Registry) -> Vec<WatchEvent> {
+        let mut events = Vec::new();
+        let names = match model_names(&self.root) {
+            Ok(names) => {
+                self.directory_error = None;
+                names
+            }
+            Err(error) => {
+                let message = error.to_string();
+                if self.directory_error.as_ref() != Some(&message) {
+                    self.directory_error = Some(message);
+                    events.push(WatchEvent::DirectoryUnreadable { error });
+                }
+                return events;
+            }
+        };
+        let gone: Vec<String> = self
+            .watched
+            .keys()
+            .filter(|n| names.binary_search(n).is_err())
+            .cloned()
+            .collect();
+        for name in gone {
+            self.watched.remove(&name);
+            events.push(WatchEvent::Vanished {
+                serving: serving_version(registry, &name),
+                name,
+            });
+        }
+        for name in &names {
+            if let Some(event) = self.poll_model(registry, name) {
+                events.push(event);
+            }
+        }
+        let snapshot = registry.snapshot();
+        self.unserved = names
+            .into_iter()
+            .filter(|n| !snapshot.models.contains_key(n))
+            .collect();
+        events
+    }
+
+    fn poll_model(&mut self, registry: &Registry, name: &str) -> Option<WatchEvent> {
+        let dir = ModelDir::new(&self.root, name).ok()?;
+        // Taken before loading: if the pointer moves in between, the next poll sees a new
+        // fingerprint and loads again; taken after, a move could be missed for good.
+        let fingerprint = fingerprint(&dir);
+        let first_time = !self.watched.contains_key(name);
+        let watched = self.watched.entry(name.to_string()).or_default();
+        if let Some(fingerprint) = &fingerprint {
+            if watched.fingerprint.as_ref() == Some(fingerprint) {
+                return None;
+            }
+        }
+        let serving = serving_version(registry, name);
+        if first_time {
+            // Whatever loaded this version at startup already validated it: adopt it.
+            let pointed = fingerprint.as_ref().and_then(pointer_label);
+            if pointed.is_some() && pointed == serving {
+                watched.fingerprint = fingerprint;
+                return None;
+            }
+        }
+        match load_live(dir.path(), name) {
+            Ok(model) => {
+                let version = model.version().to_string();
+                registry.set_live(Arc::new(model));
+                watched.fingerprint = fingerprint;
+                watched.last_refusal = None;
+                Some(WatchEvent::Served {
+                    name: name.to_string(),
+                    version,
+                    previous: serving,
+                })
+            }
+            Err(error) => {
+                if !is_transient(&error) {
+                    watched.fingerprint = fingerprint;
+                }
+                let message = error.to_string();
+                if watched.last_refusal.as_ref() == Some(&message) {
+                    return None;
+                }
+                watched.last_refusal = Some(message);
+                Some(WatchEvent::Refused {
+                    name: name.to_string(),
+                    serving,
+                    error,
+                })
+            }
+        }
+    }
+
+    /// Poll every `interval` (at most [`MAX_INTERVAL`]) on a thread of its own, passing each
+    /// event to `on_event`, until the returned handle is stopped or dropped. A std thread,
+    /// not an async task, because every poll is blocking file I/O.
+    pub fn spawn(
+        mut self,
+        registry: Arc<Registry>,
+        interval: Duration,
+        mut on_event: impl FnMut(WatchEvent) + Send + 'static,
+    ) -> io::Result<WatchHandle> {
+        let interval = interval.min(MAX_INTERVAL);
+        let (stop, stopped) = mpsc::channel::<()>();
+        let unserved = Arc::new(Mutex::new(Vec::new()));
+        let shared = Arc::clone(&unserved);
+        let thread = std::thread::Builder::new()
+            .name("ogive-watch".into())
+            .spawn(move || loop {
+                for event in self.poll(&registry) {
+                    on_event(event);
+                }
+                if let Ok(mut list) = shared.lock() {
+                    list.clone_from(&self.unserved);
+                }
+                match stopped.recv_timeout(interval) {
+                    Err(RecvTimeoutError::Timeout) => {}
+                    Ok(()) | Err(RecvTimeoutError::Disconnected) => return,
+                }
+            })?;
+        Ok(WatchHandle {
+            stop: Some(stop),
+            thread: Some(thread),
+            unserved,
+        })
+    }
+}
+
+/// A running watcher thread; dropping it stops the thread (and waits for its current poll).
+#[derive(Debug)]
+pub struct WatchHandle {
+    stop: Option<mpsc::Sender<()>>,
+    thread: Option<JoinHandle<()>>,
+    unserved: Arc<Mutex<Vec<String>>>,
+}
+
+impl WatchHandle {
+    /// The models the last poll found with no version serving (see [`Watcher::unserved`]).
+    pub fn unserved(&self) -> Vec<String> {
+        self.unserved.lock().map(|l| l.clone()).unwrap_or_default()
+    }
+
+    /// Stop polling and wait for the thread to finish.
+    pub fn stop(mut self) {
+        self.shut_down();
+    }
+
+    fn shut_down(&mut self) {
+        if let Some(stop) = self.stop.take() {
+            let _ = stop.send(());
+        }
+        if let Some(thread) = self.thread.take() {
+            let _ = thread.join();
+        }
+    }
+}
+
+impl Drop for WatchHandle {
+    fn drop(&mut self) {
+        self.shut_down();
+    }
+}
+
+fn serving_version(registry: &Registry, name: &str) -> Option<String> {
+    registry
+        .snapshot()
+        .models
+        .get(name)
+        .map(|entry| entry.live.version().to_string())
+}
+
+/// The pointer's bytes and the stamp of the version they name; `None` when either could not be
+/// read for a reason other than absence (then the model is loaded, and the error reported, at
+/// every poll until it clears).
+fn fingerprint(dir: &ModelDir) -> Option<Fingerprint> {
+    let pointer = match fs::read(dir.live_path()) {
+        Ok(bytes) => Some(bytes),
+        Err(e) if e.kind() == io::ErrorKind::NotFound => None,
+        Err(_) => return None,
+    };
+    let mut fingerprint = Fingerprint {
+        pointer,
+        version_file: None,
+    };
+    if let Some(label) = pointer_label(&fingerprint) {
+        fingerprint.version_file = dir.version_stamp(&label).ok()?;
+    }
+    Some(fingerprint)
+}
+
+fn pointer_label(fingerprint: &Fingerprint) -> Option<String> {
+    let bytes = fingerprint.pointer.as_ref()?;
+    let label = std::str::from_utf8(bytes).ok()?.trim();
+    crate::model::is_version_label(label).then(|| label.to_string())
+}
+
+/// An I/O failure other than a missing file: worth retrying at every poll.
+fn is_transient(error: &LoadError) -> bool {
+    match error {
+        LoadError::LivePointer { source, .. } | LoadError::VersionFile { source, .. } => {
+            source.kind() != io::ErrorKind::NotFound
+        }
+        _ => false,
+    }
+}
