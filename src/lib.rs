@@ -8,10 +8,13 @@
 //! registry  the model directory, live versions, promotion, hot swap
 //! service   the HTTP listener: routes, problem details, limits, shutdown
 //! metrics   the Prometheus registry and the request and scoring metrics
+//! batch     streaming CSV scoring for `ogive score`: columns, shards, error policy
+//! report    the reviewer's report and plots of `ogive describe`
 //! cli       the subcommands of the binary, one file each
 //! ```
 #![warn(missing_docs)]
 
+pub mod batch;
 pub mod cli;
 pub mod engine;
 pub mod fit;
@@ -19,4 +22,5 @@ pub mod link;
 pub mod metrics;
 pub mod model;
 pub mod registry;
+pub mod report;
 pub mod service;

@@ -1,0 +1,153 @@
+//! Reading a CSV file row by row and turning the covariate columns into the engine's values.
+//!
+//! The header row maps each covariate of the model to its column (by exact name, ignoring
+//! surrounding spaces); every other column is carried along untouched. One
+//! [`csv::ByteRecord`] and one value vector are reused for every row, so reading allocates
+//! nothing per row once the first rows have sized the buffers. Only the covariate cells are
+//! decoded as UTF-8; other cells stay bytes.
+//!
+//! This module reads and parses; it does not score, write, or decide what to do with a bad row.
+
+use std::io::Read;
+
+use csv::ByteRecord;
+
+use super::{BatchError, RowError, RowProblem};
+use crate::model::{Model, Value};
+
+/// Bytes the CSV reader buffers at a time.
+const READ_BUFFER_BYTES: usize = 64 * 1024;
+
+/// A CSV input whose header has been matched against a model's covariates.
+#[derive(Debug)]
+pub struct RowStream<R: Read> {
+    reader: csv::Reader<R>,
+    header: ByteRecord,
+    columns: Vec<usize>,
+    record: ByteRecord,
+    values: Vec<Value>,
+    row: u64,
+}
+
+impl<R: Read> RowStream<R> {
+    /// Read the header of `input` and find each covariate's column.
+    pub fn new(model: &Model, input: R) -> Result<RowStream<R>, BatchError> {
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(true)
+            // Rows of the wrong length are reported per row (and can be skipped), not as a
+            // read failure that ends the file.
+            .flexible(true)
+            .buffer_capacity(READ_BUFFER_BYTES)
+            .from_reader(input);
+        let header = reader.byte_headers().map_err(BatchError::Read)?.clone();
+        if header.iter().all(<[u8]>::is_empty) {
+            return Err(BatchError::NoHeader);
+        }
+        let names: Vec<String> = header
+            .iter()
+            .map(|f| String::from_utf8_lossy(f).trim().to_string())
+            .collect();
+        let mut columns = Vec::with_capacity(model.covariates.len());
+        for covariate in &model.covariates {
+            let mut found = names
+                .iter()
+                .enumerate()
+                .filter(|(_, n)| **n == covariate.name)
+                .map(|(i, _)| i);
+            let first = found.next().ok_or_else(|| BatchError::MissingColumn {
+                covariate: covariate.name.clone(),
+                columns: names.join(", "),
+            })?;
+            if let Some(second) = found.next() {
+                return Err(BatchError::DuplicateColumn {
+                    covariate: covariate.name.clone(),
+                    first: first + 1,
+                    second: second + 1,
+                });
+            }
+            columns.push(first);
+        }
+        Ok(RowStream {
+            reader,
+            header,
+            columns,
+            record: ByteRecord::new(),
+            values: Vec::with_capacity(model.covariates.len()),
+            row: 0,
+        })
+    }
+
+    /// The header row as read.
+    pub fn header(&self) -> &ByteRecord {
+        &self.header
+    }
+
+    /// Read the next data row; `false` at the end of the input.
+    #[inline]
+    pub fn advance(&mut self) -> Result<bool, BatchError> {
+        let more = self
+            .reader
+            .read_byte_record(&mut self.record)
+            .map_err(BatchError::Read)?;
+        if more {
+            self.row += 1;
+        }
+        Ok(more)
+    }
+
+    /// The 1-based number of the current data row (the header is not counted).
+    pub fn row(&self) -> u64 {
+        self.row
+    }
+
+    /// The 1-based line on which the current row starts (the header is line 1).
+    pub fn line(&self) -> u64 {
+        self.record.position().map_or(0, |p| p.line())
+    }
+
+    /// The current row's fields, as read.
+    pub fn record(&self) -> &ByteRecord {
+        &self.record
+    }
+
+    /// Bytes of input consumed so far.
+    pub fn bytes_read(&self) -> u64 {
+        self.reader.position().byte()
+    }
+
+    /// Parse the current row's covariate cells into values the engine can score, with every
+    /// check the model asks for (finite numbers, whole counts, log domains, known levels).
+    #[inline]
+    pub fn parse(&mut self, model: &Model) -> Result<&[Value], RowError> {
+        let at = |problem| RowError {
+            row: self.row,
+            line: self.record.position().map_or(0, |p| p.line()),
+            problem,
+        };
+        if self.record.len() != self.header.len() {
+            return Err(at(RowProblem::FieldCount {
+                expected: self.header.len(),
+                found: self.record.len(),
+            }));
+        }
+        self.values.clear();
+        for (j, &column) in self.columns.iter().enumerate() {
+            let name = || model.covariates[j].name.clone();
+            let bytes = &self.record[column];
+            let text = std::str::from_utf8(bytes)
+                .map_err(|_| at(RowProblem::NotUtf8 { covariate: name() }))?
+                .trim();
+            if text.is_empty() {
+                return Err(at(RowProblem::Empty { covariate: name() }));
+            }
+            let value = model
+                .parse_text_value(j, text)
+                .map_err(|e| at(RowProblem::Value(e)))?;
+            self.values.push(value);
+        }
+        model
+            .check_values(&self.values)
+            .map_err(|e| at(RowProblem::Value(e)))?;
+        Ok(&self.values)
+    }
+}

@@ -1,0 +1,598 @@
+//! One SVG plot per continuous covariate: the probability and the marginal effect dP/dx against
+//! that covariate, the other covariates held at their training means (categorical ones at their
+//! training shares), written directly as SVG text — no script, no browser needed.
+//!
+//! The curve runs over the training range extended by a tenth of its width on each side (not
+//! below 0 for a covariate whose training values are all non-negative, and staying positive for
+//! one that is logged), so a reviewer sees where the model extrapolates. The training range is
+//! shaded in both panels, the training mean is marked, the interval band surrounds each curve,
+//! and the point where the effect is largest in magnitude is marked.
+//!
+//! Every value drawn comes from the engine ([`Scorer`]); this module only places it. Each panel
+//! is a `<g class="panel">` whose data attributes give its mapping from data to pixels, so a
+//! reader (or a test) can turn any path vertex back into numbers:
+//!
+//! ```text
+//! px = data-left + (x − data-x-min) / (data-x-max − data-x-min) · data-width
+//! py = data-top  + (data-y-max − y) / (data-y-max − data-y-min) · data-height
+//! ```
+//!
+//! Inside a panel, `<path class="curve">` is the curve (one vertex per grid point, in order of
+//! x) and `<path class="band">` the interval: the upper ends left to right, then the lower ends
+//! right to left. Coordinates are written to 1/1000 of a pixel.
+
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use super::axis::{format_number, nice_range, nice_step, tick_label, ticks};
+use super::text::percent;
+use crate::engine::{effect_slots, Options, Scorer};
+use crate::model::{CovariateKind, Model, Value};
+
+/// Points on each curve.
+pub const GRID_POINTS: usize = 161;
+/// The share of the training range's width added on each side of it.
+pub const EXTENSION: f64 = 0.1;
+
+const WIDTH: f64 = 760.0;
+const HEIGHT: f64 = 660.0;
+const LEFT: f64 = 90.0;
+const PLOT_WIDTH: f64 = 620.0;
+const PROBABILITY_TOP: f64 = 80.0;
+const PROBABILITY_HEIGHT: f64 = 240.0;
+const EFFECT_TOP: f64 = 380.0;
+const EFFECT_HEIGHT: f64 = 180.0;
+
+const CURVE_COLOUR: &str = "#1f4e8c";
+const BAND_COLOUR: &str = "#8fb3de";
+const RANGE_COLOUR: &str = "#ecebe4";
+const EFFECT_COLOUR: &str = "#a3470f";
+const EFFECT_BAND_COLOUR: &str = "#f0b98d";
+
+/// Why a plot could not be made or written.
+#[derive(Debug, thiserror::Error)]
+pub enum PlotError {
+    /// Only continuous covariates are plotted.
+    #[error("covariate '{0}' is not continuous, so it has no curve to plot")]
+    NotContinuous(String),
+    /// The plot file could not be written.
+    #[error("cannot write {path}: {source}")]
+    Write {
+        /// The file.
+        path: PathBuf,
+        /// The cause.
+        #[source]
+        source: std::io::Error,
+    },
+}
+
+/// One grid point of a covariate's curves.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CurvePoint {
+    /// The covariate's value.
+    pub x: f64,
+    /// The probability there.
+    pub probability: f64,
+    /// The interval for the probability, when the model has a covariance.
+    pub probability_interval: Option<(f64, f64)>,
+    /// dP/dx there.
+    pub effect: f64,
+    /// The interval for the effect, when the model has a covariance.
+    pub effect_interval: Option<(f64, f64)>,
+}
+
+/// The covariates that get a plot: the continuous ones, in model order.
+pub fn plotted_covariates(model: &Model) -> Vec<usize> {
+    (0..model.covariates.len())
+        .filter(|&j| model.covariates[j].kind == CovariateKind::Continuous)
+        .collect()
+}
+
+/// The x range of a covariate's plot: its training range extended by [`EXTENSION`] of its
+/// width on each side, not below 0 if the training minimum is ≥ 0, and above 0 (at least half
+/// the training minimum) if a term takes its log.
+pub fn plot_range(model: &Model, covariate: usize) -> (f64, f64) {
+    let c = &model.covariates[covariate];
+    let (min, max) = (c.training_min, c.training_max);
+    let span = if max > min {
+        max - min
+    } else {
+        min.abs().max(1.0)
+    };
+    let mut low = min - EXTENSION * span;
+    let high = max + EXTENSION * span;
+    if min >= 0.0 {
+        low = low.max(0.0);
+    }
+    if model.log_terms.iter().any(|&(_, c)| c == covariate) {
+        low = low.max(0.5 * min);
+    }
+    (low, high)
+}
+
+/// The engine's probability and effect at `points` evenly spaced values over the plot range,
+/// other covariates at the mean profile.
+pub fn curve(
+    model: &Model,
+    covariate: usize,
+    options: &Options,
+    points: usize,
+) -> Result<Vec<CurvePoint>, PlotError> {
+    let c = &model.covariates[covariate];
+    if c.kind != CovariateKind::Continuous {
+        return Err(PlotError::NotContinuous(c.name.clone()));
+    }
+    let slot = effect_slots(model)
+        .iter()
+        .position(|s| s.covariate == covariate)
+        .ok_or_else(|| PlotError::NotContinuous(c.name.clone()))?;
+    let (low, high) = plot_range(model, covariate);
+    let mut options = *options;
+    options.effects = true;
+    options.intervals = true;
+    options.contributions = false;
+    options.elasticities = false;
+    let mut scorer = Scorer::new(model);
+    let mut values: Vec<Value> = model.mean_profile.clone();
+    let n = points.max(2);
+    let mut out = Vec::with_capacity(n);
+    for i in 0..n {
+        let x = low + (high - low) * i as f64 / (n - 1) as f64;
+        values[covariate] = Value::Number(x);
+        let answer = scorer.score(model, &values, &options);
+        let effect = answer.effects[slot];
+        out.push(CurvePoint {
+            x,
+            probability: answer.probability,
+            probability_interval: answer.interval.map(|i| (i.lower, i.upper)),
+            effect: effect.effect,
+            effect_interval: effect.interval.map(|i| (i.lower, i.upper)),
+        });
+    }
+    Ok(out)
+}
+
+/// A rectangle of the picture and the data range it shows.
+struct Panel {
+    left: f64,
+    top: f64,
+    width: f64,
+    height: f64,
+    x: (f64, f64),
+    y: (f64, f64),
+}
+
+impl Panel {
+    fn px(&self, x: f64) -> f64 {
+        self.left + (x - self.x.0) / (self.x.1 - self.x.0) * self.width
+    }
+
+    fn py(&self, y: f64) -> f64 {
+        self.top + (self.y.1 - y) / (self.y.1 - self.y.0) * self.height
+    }
+
+    fn open(&self, svg: &mut String, id: &str) {
+        let _ = writeln!(
+            svg,
+            r#"<g class="panel" id="{id}" data-x-min="{}" data-x-max="{}" data-y-min="{}" data-y-max="{}" data-left="{}" data-top="{}" data-width="{}" data-height="{}">"#,
+            self.x.0, self.x.1, self.y.0, self.y.1, self.left, self.top, self.width, self.height
+        );
+    }
+
+    fn path(&self, points: impl Iterator<Item = (f64, f64)>, close: bool) -> String {
+        let mut d = String::new();
+        for (i, (x, y)) in points.enumerate() {
+            let _ = write!(
+                d,
+                "{}{:.3},{:.3}",
+                if i == 0 { "M" } else { " L" },
+                self.px(x),
+                self.py(y)
+            );
+        }
+        if close {
+            d.push_str(" Z");
+        }
+        d
+    }
+
+    /// The interval band (when every point has one: upper ends left to right, then lower ends
+    /// right to left) and the curve over it, tagged `data-quantity="NAME-interval"` and
+    /// `data-quantity="NAME"`.
+    fn curve_and_band(&self, svg: &mut String, points: &[CurvePoint], quantity: Quantity) {
+        let bands: Option<Vec<(f64, (f64, f64))>> = points
+            .iter()
+            .map(|p| (quantity.interval)(p).map(|i| (p.x, i)))
+            .collect();
+        if let Some(bands) = bands {
+            let upper = bands.iter().map(|&(x, (_, upper))| (x, upper));
+            let lower = bands.iter().rev().map(|&(x, (lower, _))| (x, lower));
+            let _ = writeln!(
+                svg,
+                r#"<path class="band" data-quantity="{}-interval" d="{}" fill="{}" fill-opacity="0.55" stroke="none"/>"#,
+                quantity.name,
+                self.path(upper.chain(lower), true),
+                quantity.band_colour
+            );
+        }
+        let d = self.path(points.iter().map(|p| (p.x, (quantity.value)(p))), false);
+        let _ = writeln!(
+            svg,
+            r#"<path class="curve" data-quantity="{}" d="{d}" fill="none" stroke="{}" stroke-width="2.2"/>"#,
+            quantity.name, quantity.colour
+        );
+    }
+
+    /// The training range, shaded, with dashed edges and a dotted line at the mean.
+    fn training_range(&self, svg: &mut String, min: f64, max: f64, mean: f64) {
+        let (a, b) = (self.px(min.max(self.x.0)), self.px(max.min(self.x.1)));
+        let _ = writeln!(
+            svg,
+            r#"<rect class="training-range" x="{a:.3}" y="{:.3}" width="{:.3}" height="{:.3}" fill="{RANGE_COLOUR}"/>"#,
+            self.top,
+            b - a,
+            self.height
+        );
+        for edge in [a, b] {
+            let _ = writeln!(
+                svg,
+                r##"<line x1="{edge:.3}" y1="{:.3}" x2="{edge:.3}" y2="{:.3}" stroke="#8a8778" stroke-dasharray="5 3"/>"##,
+                self.top,
+                self.top + self.height
+            );
+        }
+        let m = self.px(mean);
+        let _ = writeln!(
+            svg,
+            r##"<line class="training-mean" x1="{m:.3}" y1="{:.3}" x2="{m:.3}" y2="{:.3}" stroke="#8a8778" stroke-dasharray="1 3"/>"##,
+            self.top,
+            self.top + self.height
+        );
+    }
+
+    /// Grid lines, the frame, ticks and tick labels on both axes.
+    fn axes(&self, svg: &mut String, y_label: &str, x_labels: bool) {
+        let y_step = nice_step(self.y.1 - self.y.0, 5);
+        for t in ticks(self.y.0, self.y.1, 5) {
+            let y = self.py(t);
+            let _ = writeln!(
+                svg,
+                r##"<line x1="{:.3}" y1="{y:.3}" x2="{:.3}" y2="{y:.3}" stroke="#d9d9d9" stroke-width="0.6"/>"##,
+                self.left,
+                self.left + self.width
+            );
+            let _ = writeln!(
+                svg,
+                r##"<line x1="{:.3}" y1="{y:.3}" x2="{:.3}" y2="{y:.3}" stroke="#333"/>"##,
+                self.left - 5.0,
+                self.left
+            );
+            let _ = writeln!(
+                svg,
+                r#"<text x="{:.3}" y="{:.3}" text-anchor="end">{}</text>"#,
+                self.left - 8.0,
+                y + 4.0,
+                tick_label(t, y_step)
+            );
+        }
+        let x_step = nice_step(self.x.1 - self.x.0, 7);
+        for t in ticks(self.x.0, self.x.1, 7) {
+            let x = self.px(t);
+            let bottom = self.top + self.height;
+            let _ = writeln!(
+                svg,
+                r##"<line x1="{x:.3}" y1="{bottom:.3}" x2="{x:.3}" y2="{:.3}" stroke="#333"/>"##,
+                bottom + 5.0
+            );
+            if x_labels {
+                let _ = writeln!(
+                    svg,
+                    r#"<text x="{x:.3}" y="{:.3}" text-anchor="middle">{}</text>"#,
+                    bottom + 19.0,
+                    tick_label(t, x_step)
+                );
+            }
+        }
+        let _ = writeln!(
+            svg,
+            r##"<rect x="{}" y="{}" width="{}" height="{}" fill="none" stroke="#333"/>"##,
+            self.left, self.top, self.width, self.height
+        );
+        let (cx, cy) = (self.left - 62.0, self.top + self.height / 2.0);
+        let _ = writeln!(
+            svg,
+            r#"<text x="{cx:.3}" y="{cy:.3}" text-anchor="middle" transform="rotate(-90 {cx:.3} {cy:.3})">{}</text>"#,
+            escape(y_label)
+        );
+    }
+}
+
+/// Text made safe for SVG content and attribute values.
+fn escape(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    for ch in text.chars() {
+        match ch {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '"' => out.push_str("&quot;"),
+            '\'' => out.push_str("&apos;"),
+            _ => out.push(ch),
+        }
+    }
+    out
+}
+
+/// One plotted quantity: how to read it and its interval from a grid point, and its colours.
+struct Quantity {
+    name: &'static str,
+    value: fn(&CurvePoint) -> f64,
+    interval: fn(&CurvePoint) -> Option<(f64, f64)>,
+    colour: &'static str,
+    band_colour: &'static str,
+}
+
+/// The SVG plot for one continuous covariate.
+pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<String, PlotError> {
+    let points = curve(model, covariate, options, GRID_POINTS)?;
+    let c = &model.covariates[covariate];
+    let f = &model.file;
+    let (low, high) = plot_range(model, covariate);
+    let level = percent(options.level());
+
+    let top_probability = points
+        .iter()
+        .map(|p| p.probability_interval.map_or(p.probability, |i| i.1))
+        .fold(0.0_f64, f64::max);
+    let probability_max = if top_probability > 0.8 {
+        1.0
+    } else {
+        nice_range(0.0, top_probability, 5).1.min(1.0)
+    };
+    let probability_panel = Panel {
+        left: LEFT,
+        top: PROBABILITY_TOP,
+        width: PLOT_WIDTH,
+        height: PROBABILITY_HEIGHT,
+        x: (low, high),
+        y: (0.0, probability_max),
+    };
+    let (effect_low, effect_high) = points.iter().fold((0.0_f64, 0.0_f64), |(a, b), p| {
+        let (lower, upper) = p.effect_interval.unwrap_or((p.effect, p.effect));
+        (a.min(lower).min(p.effect), b.max(upper).max(p.effect))
+    });
+    let effect_panel = Panel {
+        left: LEFT,
+        top: EFFECT_TOP,
+        width: PLOT_WIDTH,
+        height: EFFECT_HEIGHT,
+        x: (low, high),
+        y: nice_range(effect_low, effect_high, 4),
+    };
+
+    let mut svg = String::with_capacity(64 * 1024);
+    let title = format!("P({} = 1) against {}", f.outcome.name, c.name);
+    let _ = writeln!(
+        svg,
+        r##"<svg xmlns="http://www.w3.org/2000/svg" width="{WIDTH}" height="{HEIGHT}" viewBox="0 0 {WIDTH} {HEIGHT}" font-family="Helvetica, Arial, sans-serif" font-size="12" fill="#222">"##
+    );
+    let _ = writeln!(svg, "<title>{}</title>", escape(&title));
+    let _ = writeln!(
+        svg,
+        "<desc>{} {} ({} link): the probability and the marginal effect of {} computed by ogive \
+         on {} points from {} to {}, the other covariates at their training means. Each panel \
+         maps data to pixels by px = data-left + (x - data-x-min) / (data-x-max - data-x-min) * \
+         data-width and py = data-top + (data-y-max - y) / (data-y-max - data-y-min) * \
+         data-height.</desc>",
+        escape(&f.name),
+        escape(&f.version),
+        f.link,
+        escape(&c.name),
+        points.len(),
+        low,
+        high
+    );
+    let _ = writeln!(
+        svg,
+        r#"<rect width="{WIDTH}" height="{HEIGHT}" fill="white"/>"#
+    );
+    let _ = writeln!(
+        svg,
+        r#"<text x="{}" y="28" text-anchor="middle" font-size="17" font-weight="bold">{}</text>"#,
+        WIDTH / 2.0,
+        escape(&title)
+    );
+    let _ = writeln!(
+        svg,
+        r##"<text x="{}" y="48" text-anchor="middle" fill="#555">{} {}, {} link; other covariates at their training means; bands: {level} intervals</text>"##,
+        WIDTH / 2.0,
+        escape(&f.name),
+        escape(&f.version),
+        f.link
+    );
+    let _ = writeln!(
+        svg,
+        r##"<text x="{}" y="66" text-anchor="middle" fill="#555">{} = 1 means: {}</text>"##,
+        WIDTH / 2.0,
+        escape(&f.outcome.name),
+        escape(&f.outcome.meaning)
+    );
+
+    // The probability panel.
+    probability_panel.open(&mut svg, "probability-panel");
+    probability_panel.training_range(&mut svg, c.training_min, c.training_max, c.training_mean);
+    probability_panel.curve_and_band(
+        &mut svg,
+        &points,
+        Quantity {
+            name: "probability",
+            value: |p| p.probability,
+            interval: |p| p.probability_interval,
+            colour: CURVE_COLOUR,
+            band_colour: BAND_COLOUR,
+        },
+    );
+    probability_panel.axes(&mut svg, &format!("P({} = 1)", f.outcome.name), true);
+    let range_label = format!(
+        "training range {} to {}, mean {}",
+        format_number(c.training_min),
+        format_number(c.training_max),
+        format_number(c.training_mean)
+    );
+    let _ = writeln!(
+        svg,
+        r##"<text x="{:.3}" y="{:.3}" text-anchor="middle" fill="#5d5a4c">{}</text>"##,
+        probability_panel.px(0.5 * (c.training_min + c.training_max)),
+        PROBABILITY_TOP + 16.0,
+        escape(&range_label)
+    );
+    let _ = writeln!(svg, "</g>");
+
+    // The marginal-effect panel.
+    effect_panel.open(&mut svg, "effect-panel");
+    effect_panel.training_range(&mut svg, c.training_min, c.training_max, c.training_mean);
+    if effect_panel.y.0 < 0.0 && effect_panel.y.1 > 0.0 {
+        let zero = effect_panel.py(0.0);
+        let _ = writeln!(
+            svg,
+            r##"<line class="zero" x1="{}" y1="{zero:.3}" x2="{}" y2="{zero:.3}" stroke="#555"/>"##,
+            LEFT,
+            LEFT + PLOT_WIDTH
+        );
+    }
+    effect_panel.curve_and_band(
+        &mut svg,
+        &points,
+        Quantity {
+            name: "effect",
+            value: |p| p.effect,
+            interval: |p| p.effect_interval,
+            colour: EFFECT_COLOUR,
+            band_colour: EFFECT_BAND_COLOUR,
+        },
+    );
+    if let Some(peak) = points
+        .iter()
+        .max_by(|a, b| a.effect.abs().total_cmp(&b.effect.abs()))
+    {
+        let (x, y) = (effect_panel.px(peak.x), effect_panel.py(peak.effect));
+        for panel in [&probability_panel, &effect_panel] {
+            let _ = writeln!(
+                svg,
+                r#"<line class="largest-effect" x1="{x:.3}" y1="{:.3}" x2="{x:.3}" y2="{:.3}" stroke="{EFFECT_COLOUR}" stroke-dasharray="2 2"/>"#,
+                panel.top,
+                panel.top + panel.height
+            );
+        }
+        let _ = writeln!(
+            svg,
+            r#"<circle class="largest-effect" cx="{x:.3}" cy="{y:.3}" r="4" fill="{EFFECT_COLOUR}" data-x="{}" data-effect="{}"/>"#,
+            peak.x, peak.effect
+        );
+        let label = format!(
+            "largest effect {} at {} = {}",
+            format_number(peak.effect),
+            c.name,
+            format_number(peak.x)
+        );
+        // Helvetica at 12 px averages about 6.5 px a character: put the label on whichever
+        // side of the marker it fits.
+        let fits_right = x + 8.0 + 6.5 * label.chars().count() as f64 <= LEFT + PLOT_WIDTH;
+        let (anchor, shift) = if fits_right {
+            ("start", 8.0)
+        } else {
+            ("end", -8.0)
+        };
+        let _ = writeln!(
+            svg,
+            r#"<text x="{:.3}" y="{:.3}" text-anchor="{anchor}" fill="{EFFECT_COLOUR}">{}</text>"#,
+            x + shift,
+            EFFECT_TOP + 16.0,
+            escape(&label)
+        );
+    }
+    effect_panel.axes(&mut svg, &format!("dP/d{}", c.name), true);
+    let _ = writeln!(svg, "</g>");
+
+    let x_label = match &c.unit {
+        Some(unit) => format!("{} ({unit})", c.name),
+        None => c.name.clone(),
+    };
+    let _ = writeln!(
+        svg,
+        r#"<text x="{:.3}" y="{:.3}" text-anchor="middle" font-size="13">{}</text>"#,
+        LEFT + PLOT_WIDTH / 2.0,
+        EFFECT_TOP + EFFECT_HEIGHT + 40.0,
+        escape(&x_label)
+    );
+    legend(&mut svg, &level, model.covariance.is_some());
+    let _ = writeln!(svg, "</svg>");
+    Ok(svg)
+}
+
+fn legend(svg: &mut String, level: &str, intervals: bool) {
+    let y = HEIGHT - 28.0;
+    let interval_label = if intervals {
+        format!("{level} interval")
+    } else {
+        "no intervals (no covariance)".to_string()
+    };
+    let items = [
+        (
+            format!(
+                r#"<line x1="0" y1="0" x2="18" y2="0" stroke="{CURVE_COLOUR}" stroke-width="2.2"/>"#
+            ),
+            "probability".to_string(),
+        ),
+        (
+            format!(
+                r#"<line x1="0" y1="0" x2="18" y2="0" stroke="{EFFECT_COLOUR}" stroke-width="2.2"/>"#
+            ),
+            "marginal effect".to_string(),
+        ),
+        (
+            format!(r#"<rect x="0" y="-5" width="18" height="10" fill="{BAND_COLOUR}"/>"#),
+            interval_label,
+        ),
+        (
+            format!(
+                r##"<rect x="0" y="-5" width="18" height="10" fill="{RANGE_COLOUR}" stroke="#8a8778" stroke-dasharray="5 3"/>"##
+            ),
+            "training range (dotted: mean)".to_string(),
+        ),
+    ];
+    let mut x = LEFT;
+    for (swatch, label) in items {
+        let _ = writeln!(
+            svg,
+            r#"<g class="legend" transform="translate({x} {y})">{swatch}<text x="24" y="4">{}</text></g>"#,
+            escape(&label)
+        );
+        // Helvetica at 12 px averages about 6.5 px a character.
+        x += 40.0 + 6.5 * label.chars().count() as f64;
+    }
+}
+
+/// Write one plot per continuous covariate into `folder` (created if needed), named
+/// `COVARIATE.svg`; returns the paths written.
+pub fn write_plots(
+    model: &Model,
+    folder: &Path,
+    options: &Options,
+) -> Result<Vec<PathBuf>, PlotError> {
+    std::fs::create_dir_all(folder).map_err(|source| PlotError::Write {
+        path: folder.to_path_buf(),
+        source,
+    })?;
+    let mut written = Vec::new();
+    for j in plotted_covariates(model) {
+        let svg = render(model, j, options)?;
+        let path = folder.join(format!("{}.svg", model.covariates[j].name));
+        std::fs::write(&path, svg).map_err(|source| PlotError::Write {
+            path: path.clone(),
+            source,
+        })?;
+        written.push(path);
+    }
+    Ok(written)
+}
