@@ -418,6 +418,71 @@ fn each_score_job_pod_parses_as_its_own_shard_of_the_completions() {
     );
 }
 
+/// In the ConfigMap variant, every version file a ConfigMap volume places in the model
+/// directory is checked by the init container, each model gets its `live` pointer, and the
+/// init container checks nothing that is not mounted.
+#[test]
+fn configmap_variant_checks_exactly_the_versions_it_mounts() {
+    let deployment = manifest(CONFIGMAP_DEPLOYMENT);
+    let spec = pod_spec(&deployment);
+    let ogive = container(spec, "ogive");
+    let models = env_literal(ogive, "OGIVE_MODELS").expect("OGIVE_MODELS");
+    let mut mounted = BTreeSet::new();
+    for volume in list(&spec["volumes"], "volumes") {
+        let name = text(&volume["name"], "volume name");
+        let mount = list(&ogive["volumeMounts"], "volumeMounts")
+            .iter()
+            .find(|m| m["name"].as_str() == Some(name))
+            .unwrap_or_else(|| panic!("volume {name} is not mounted in the server"));
+        let mount_path = text(&mount["mountPath"], "mountPath");
+        let model = mount_path
+            .strip_prefix(&format!("{models}/"))
+            .unwrap_or_else(|| panic!("{mount_path} is not a model under {models}"));
+        assert!(
+            !model.contains('/'),
+            "{mount_path} is not one model's folder"
+        );
+        assert_eq!(
+            mount["readOnly"].as_bool(),
+            Some(true),
+            "{mount_path} is writable"
+        );
+        let items = list(&volume["configMap"]["items"], "configMap items");
+        let paths: Vec<&str> = items
+            .iter()
+            .map(|i| text(&i["path"], "item path"))
+            .collect();
+        assert!(paths.contains(&"live"), "model {model} has no live pointer");
+        for path in paths.iter().filter(|p| **p != "live") {
+            let version = path
+                .strip_prefix("versions/")
+                .and_then(|file| file.strip_suffix(".json"))
+                .unwrap_or_else(|| panic!("{model}: {path} is not versions/VERSION.json"));
+            assert!(
+                !version.is_empty() && !version.contains('/'),
+                "{model}: {path}"
+            );
+            mounted.insert(format!("{mount_path}/{path}"));
+        }
+    }
+    let init = list(&spec["initContainers"], "initContainers")
+        .iter()
+        .find(|c| c["name"].as_str() == Some("check-models"))
+        .expect("the check-models init container");
+    let Subcommand::Check(check) = parse_args(&string_args(&init["args"])).command else {
+        panic!("the init container does not run `ogive check`");
+    };
+    let checked: BTreeSet<String> = check
+        .files
+        .iter()
+        .map(|file| file.display().to_string())
+        .collect();
+    assert_eq!(
+        checked, mounted,
+        "files checked against version files mounted"
+    );
+}
+
 #[test]
 fn prometheus_annotations_point_at_the_metrics_route() {
     for file in SERVER_DEPLOYMENTS {
