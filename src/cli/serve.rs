@@ -11,6 +11,7 @@ use std::sync::Arc;
 
 use anyhow::Context;
 
+use crate::metrics::monitor::{Monitor, MonitorSettings};
 use crate::metrics::Metrics;
 use crate::registry::load::load_directory;
 use crate::registry::Registry;
@@ -80,6 +81,19 @@ pub struct ServeArgs {
     /// Log each request's covariate values (they may be personal data; off by default).
     #[arg(long, env = "OGIVE_LOG_OBSERVATIONS")]
     pub log_observations: bool,
+    /// Drift, outcome and calibration monitoring: on or off.
+    #[arg(long, env = "OGIVE_MONITORING", default_value = "on", value_name = "on|off",
+          value_parser = clap::builder::BoolishValueParser::new(), action = clap::ArgAction::Set)]
+    pub monitoring: bool,
+    /// Observations per model version in each drift window.
+    #[arg(long, env = "OGIVE_DRIFT_WINDOW", default_value_t = MonitorSettings::default().drift_window)]
+    pub drift_window: usize,
+    /// Outcomes per model version in each calibration window.
+    #[arg(long, env = "OGIVE_CALIBRATION_WINDOW", default_value_t = MonitorSettings::default().calibration_window)]
+    pub calibration_window: usize,
+    /// Answers kept for outcome reports, across all models (the oldest are evicted first).
+    #[arg(long, env = "OGIVE_ANSWER_CAPACITY", default_value_t = MonitorSettings::default().answer_capacity)]
+    pub answer_capacity: usize,
 }
 
 impl ServeArgs {
@@ -157,6 +171,17 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
         .map(|e| e.live.clone());
     registry.replace(report.snapshot);
     let state = AppState::new(registry, metrics, settings.clone(), all_loaded);
+    let state = if args.monitoring {
+        let windows = MonitorSettings {
+            drift_window: args.drift_window,
+            calibration_window: args.calibration_window,
+            answer_capacity: args.answer_capacity,
+        };
+        let monitor = Monitor::new(windows, &state.metrics.registry)?;
+        state.with_monitor(monitor)
+    } else {
+        state
+    };
     let listener = bind(&settings).with_context(|| format!("listening on {}", settings.listen))?;
     let addr = listener.local_addr()?;
     let base_url = format!("http://{addr}");

@@ -91,6 +91,9 @@ kinds! {
     NotComputable => "not-computable", 422, "The answer at these values is not a finite number";
     Internal => "internal", 500, "An unexpected error; it has been logged";
     Unavailable => "unavailable", 503, "The service is not ready";
+    UnknownAnswer => "unknown-answer", 404, "No answer of this model has this id (never given, or evicted)";
+    OutcomeAlreadyReported => "outcome-already-reported", 409, "The answer already has an outcome";
+    MonitoringOff => "monitoring-off", 404, "Monitoring is off in this process";
 }
 
 impl Kind {

@@ -300,6 +300,11 @@ impl Serialize for Scored<'_> {
 }
 
 impl Scored<'_> {
+    /// The answers, in observation order.
+    pub fn answers(&self) -> &[Answer] {
+        &self.answers
+    }
+
     /// The answer's JSON bytes.
     pub fn to_json(&self) -> Result<Vec<u8>, Problem> {
         let mut out = Vec::with_capacity(512 + 768 * self.answers.len());

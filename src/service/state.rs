@@ -5,6 +5,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
 
 use super::config::Settings;
+use crate::metrics::monitor::Monitor;
 use crate::metrics::Metrics;
 use crate::registry::Registry;
 
@@ -63,6 +64,8 @@ pub struct AppState {
     pub health: Arc<Health>,
     /// Limits, timeouts and logging choices.
     pub settings: Arc<Settings>,
+    /// Drift, answers and calibration; `None` when monitoring is off.
+    pub monitor: Option<Monitor>,
 }
 
 impl AppState {
@@ -79,6 +82,15 @@ impl AppState {
             metrics,
             health: Arc::new(Health::new(models_loaded)),
             settings: Arc::new(settings),
+            monitor: None,
+        }
+    }
+
+    /// The same state with monitoring on (its series registered in this state's metrics).
+    pub fn with_monitor(self, monitor: Monitor) -> AppState {
+        AppState {
+            monitor: Some(monitor),
+            ..self
         }
     }
 }

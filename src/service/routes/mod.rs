@@ -5,7 +5,9 @@
 pub mod curve;
 pub mod health;
 pub mod models;
+pub mod monitoring;
 pub mod openapi;
+pub mod outcomes;
 pub mod probability;
 
 use actix_web::{web, HttpResponse};
@@ -56,5 +58,11 @@ pub fn configure(cfg: &mut web::ServiceConfig) {
                 .route(web::post().to(Guarded(probability::probability)))
                 .default_service(web::to(method_not_allowed("POST"))),
         )
-        .service(get("/models/{name}/curve", curve::curve));
+        .service(get("/models/{name}/curve", curve::curve))
+        .service(
+            web::resource("/models/{name}/outcomes")
+                .route(web::post().to(Guarded(outcomes::report)))
+                .default_service(web::to(method_not_allowed("POST"))),
+        )
+        .service(get("/models/{name}/monitoring", monitoring::report));
 }

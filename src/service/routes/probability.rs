@@ -46,6 +46,12 @@ pub async fn probability(
         .unwrap_or_else(RequestId::generate);
     let metrics = state.metrics.scoring(model);
     let scored = score(model, &request, &values, request_id.as_str(), &metrics)?;
+    if let Some(monitor) = &state.monitor {
+        let single = matches!(request.observations, Observations::One(_));
+        let answers = scored.answers().iter();
+        let answers = answers.map(|a| (a.probability, a.linear_index));
+        monitor.record_scored(model, request_id.as_str(), single, &values, answers);
+    }
     let json = scored.to_json()?;
     Ok(HttpResponse::Ok()
         .insert_header((header::CONTENT_TYPE, "application/json"))

@@ -1,0 +1,31 @@
+//! `GET /models/{name}/monitoring`: the monitoring report of one model — for each version seen
+//! since the process started (and the live one), input drift per covariate and prediction drift
+//! with the bins behind them, and calibration over the outcomes reported so far — plus the size
+//! of the answer store.
+//!
+//! The report is built by [`crate::metrics::monitor::Monitor::report`]; this file only finds
+//! the model and serializes. The figures are this process's own: replicas each keep their own
+//! windows, and Prometheus aggregates them.
+
+use actix_web::http::header;
+use actix_web::{web, HttpResponse};
+
+use super::models::find;
+use super::outcomes::monitor_of;
+use crate::service::problem::Problem;
+use crate::service::state::AppState;
+
+/// The monitoring report of one model.
+pub async fn report(
+    name: web::Path<String>,
+    state: web::Data<AppState>,
+) -> Result<HttpResponse, Problem> {
+    let entry = find(&state, &name)?;
+    let monitor = monitor_of(&state)?;
+    let report = monitor.report(entry.live.name(), Some(entry.live.version()));
+    let body = serde_json::to_vec(&report).map_err(|e| Problem::internal(&e))?;
+    Ok(HttpResponse::Ok()
+        .insert_header((header::CONTENT_TYPE, "application/json"))
+        .insert_header((header::CACHE_CONTROL, "no-store"))
+        .body(body))
+}
