@@ -1,0 +1,24 @@
+//! The service over real HTTP: one test binary that starts the real server on 127.0.0.1:0 and
+//! talks to it with a real client (ureq). Submodules in `tests/http/`:
+//!
+//! ```text
+//! fixture.rs      test models, the server, the client
+//! routes.rs       every route and every option, answers compared with the engine
+//! malformed.rs    the catalogue of malformed requests: status, problem type, field
+//! concurrency.rs  many concurrent clients get exactly the engine's answers
+//! contract.rs     live answers validated against the served OpenAPI document; metric names
+//! operation.rs    request ids, panics, header limits, draining and shutdown, the binary itself
+//! ```
+
+#[path = "http/concurrency.rs"]
+mod concurrency;
+#[path = "http/contract.rs"]
+mod contract;
+#[path = "http/fixture.rs"]
+mod fixture;
+#[path = "http/malformed.rs"]
+mod malformed;
+#[path = "http/operation.rs"]
+mod operation;
+#[path = "http/routes.rs"]
+mod routes;

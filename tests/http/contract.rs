@@ -1,0 +1,200 @@
+//! The served OpenAPI document is kept true: live answers of every route, good and bad, are
+//! validated against the schemas it declares (JSON Schema 2020-12, by the `jsonschema` crate),
+//! and the requests the tests send as valid are valid under the per-model request schemas.
+
+use serde_json::{json, Value as Json};
+
+use crate::fixture::{lease_observation, Reply, Server};
+
+struct Contract {
+    doc: Json,
+}
+
+impl Contract {
+    fn fetch(server: &Server) -> Contract {
+        Contract {
+            doc: server.get("/openapi.json").json(),
+        }
+    }
+
+    fn validator(&self, schema: &str) -> jsonschema::Validator {
+        let root = json!({
+            "$schema": "https://json-schema.org/draft/2020-12/schema",
+            "$ref": format!("#/components/schemas/{schema}"),
+            "components": self.doc["components"],
+        });
+        jsonschema::validator_for(&root).unwrap_or_else(|e| panic!("schema {schema}: {e}"))
+    }
+
+    #[track_caller]
+    fn check(&self, schema: &str, instance: &Json, what: &str) {
+        let validator = self.validator(schema);
+        let errors: Vec<String> = validator
+            .iter_errors(instance)
+            .map(|e| format!("{} at {}", e, e.instance_path()))
+            .collect();
+        assert!(
+            errors.is_empty(),
+            "{what} does not match {schema}: {errors:?}\n{instance}"
+        );
+    }
+
+    /// The documented response of `path`'s operation for `status`, checked: the media type and
+    /// the schema.
+    #[track_caller]
+    fn check_reply(&self, path: &str, method: &str, reply: &Reply, what: &str) {
+        let operation = &self.doc["paths"][path][method];
+        assert!(operation.is_object(), "{method} {path} is not documented");
+        let status = reply.status.to_string();
+        let response = if operation["responses"][&status].is_object() {
+            &operation["responses"][&status]
+        } else {
+            &operation["responses"]["default"]
+        };
+        assert!(
+            response.is_object(),
+            "{what}: status {status} is not documented"
+        );
+        assert!(
+            reply.header("x-request-id").is_some(),
+            "{what}: no X-Request-Id"
+        );
+        let Some(content) = response["content"].as_object() else {
+            assert!(reply.text.is_empty(), "{what}: undocumented body");
+            return;
+        };
+        let media = reply
+            .header("content-type")
+            .and_then(|c| c.split(';').next())
+            .expect("content type");
+        let schema = &content
+            .get(media)
+            .unwrap_or_else(|| panic!("{what}: media type {media} not documented"))["schema"];
+        if let Some(reference) = schema["$ref"].as_str() {
+            let name = reference.trim_start_matches("#/components/schemas/");
+            self.check(name, &reply.json(), what);
+        }
+    }
+}
+
+#[test]
+fn live_answers_match_the_served_document() {
+    let server = Server::start();
+    let contract = Contract::fetch(&server);
+    let get = |path: &str, template: &str, what: &str| {
+        contract.check_reply(template, "get", &server.get(path), what);
+    };
+    get("/livez", "/livez", "liveness");
+    get("/readyz", "/readyz", "readiness");
+    get("/models", "/models", "model list");
+    get("/models/lease-test", "/models/{name}", "model description");
+    get(
+        "/models/plain-test",
+        "/models/{name}",
+        "model description without covariance",
+    );
+    get("/models/nothing", "/models/{name}", "unknown model");
+    for query in [
+        "over=years_trading",
+        "over=sector&guarantor=1",
+        "over=guarantor",
+        "over=prior_arrears&from=-3&to=4",
+        "over=years_trading&points=1",
+        "over=years_trading&points=x",
+    ] {
+        get(
+            &format!("/models/lease-test/curve?{query}"),
+            "/models/{name}/curve",
+            query,
+        );
+    }
+    get(
+        "/models/plain-test/curve?over=income",
+        "/models/{name}/curve",
+        "curve without covariance",
+    );
+
+    let mut outside = lease_observation();
+    outside["annual_revenue"] = json!(9000.0);
+    let bodies = [
+        json!({"observation": lease_observation()}),
+        json!({"observation": outside, "elasticities": true}),
+        json!({"observation": lease_observation(), "effects": false, "intervals": false, "contributions": false}),
+        json!({"observations": [lease_observation(), outside], "average_effects": true, "at_means": true}),
+        json!({"observations": [lease_observation()], "average_effects": true, "intervals": false}),
+    ];
+    let request_schema = "ProbabilityRequest.lease-test";
+    for body in &bodies {
+        contract.check(request_schema, body, "a valid request");
+        let reply = server.post("/models/lease-test/probability", body);
+        assert_eq!(reply.status, 200);
+        contract.check_reply(
+            "/models/{name}/probability",
+            "post",
+            &reply,
+            &body.to_string(),
+        );
+    }
+    let plain = server.post(
+        "/models/plain-test/probability",
+        &json!({"observations": [{"income": 10, "owner": 0}], "at_means": true}),
+    );
+    contract.check_reply(
+        "/models/{name}/probability",
+        "post",
+        &plain,
+        "no covariance",
+    );
+    for bad in [
+        json!({"observation": {"annual_revenue": 1}}),
+        json!({"observations": [lease_observation(), {"sector": 1}]}),
+        json!({"nothing": true}),
+    ] {
+        let reply = server.post("/models/lease-test/probability", &bad);
+        assert_eq!(reply.status, 422);
+        contract.check_reply(
+            "/models/{name}/probability",
+            "post",
+            &reply,
+            &bad.to_string(),
+        );
+        let validator = contract.validator(request_schema);
+        assert!(!validator.is_valid(&bad), "the document accepts {bad}");
+    }
+    let reply = server.post_raw("/models/lease-test/probability", b"{");
+    contract.check_reply(
+        "/models/{name}/probability",
+        "post",
+        &reply,
+        "malformed JSON",
+    );
+    let reply = server.send("PUT", "/models", &[], None);
+    contract.check_reply("/models", "get", &reply, "405 under default");
+}
+
+#[test]
+fn the_document_rejects_what_the_service_rejects() {
+    let server = Server::start();
+    let contract = Contract::fetch(&server);
+    let validator = contract.validator("ProbabilityRequest.lease-test");
+    let mut cases = Vec::new();
+    for (key, value) in [
+        ("guarantor", json!(2)),
+        ("prior_arrears", json!(1.5)),
+        ("annual_revenue", json!(0)),
+        ("annual_revenue", json!(2e12)),
+        ("sector", json!("mining")),
+        ("years_trading", json!("3")),
+    ] {
+        let mut o = lease_observation();
+        o[key] = value;
+        cases.push(json!({"observation": o}));
+    }
+    cases.push(json!({"observation": lease_observation(), "level": 1}));
+    cases.push(json!({"observation": lease_observation(), "observations": [lease_observation()]}));
+    for body in cases {
+        assert!(!validator.is_valid(&body), "the document accepts {body}");
+        let reply = server.post("/models/lease-test/probability", &body);
+        assert_eq!(reply.status, 422, "the service accepts {body}");
+    }
+}

@@ -1,0 +1,294 @@
+//! The catalogue of malformed requests. Each entry names what is wrong, what is sent, and the
+//! status, problem type and field (JSON Pointer or query parameter) the answer must carry.
+
+use serde_json::{json, Value as Json};
+
+use crate::fixture::{lease_observation, Server};
+
+/// Where the answer must locate the fault.
+#[derive(Debug, Clone, Copy)]
+enum Field {
+    /// No field (the request as a whole).
+    None,
+    /// A JSON Pointer into the body.
+    Pointer(&'static str),
+    /// A query parameter.
+    Parameter(&'static str),
+}
+
+struct Case {
+    what: &'static str,
+    method: &'static str,
+    path: String,
+    headers: Vec<(&'static str, String)>,
+    body: Option<Vec<u8>>,
+    status: u16,
+    slug: &'static str,
+    field: Field,
+}
+
+const PROBABILITY: &str = "/models/lease-test/probability";
+
+fn json_case(
+    what: &'static str,
+    body: Json,
+    status: u16,
+    slug: &'static str,
+    field: Field,
+) -> Case {
+    Case {
+        what,
+        method: "POST",
+        path: PROBABILITY.into(),
+        headers: vec![("Content-Type", "application/json".into())],
+        body: Some(body.to_string().into_bytes()),
+        status,
+        slug,
+        field,
+    }
+}
+
+fn raw_case(
+    what: &'static str,
+    body: &[u8],
+    status: u16,
+    slug: &'static str,
+    field: Field,
+) -> Case {
+    Case {
+        what,
+        method: "POST",
+        path: PROBABILITY.into(),
+        headers: vec![("Content-Type", "application/json".into())],
+        body: Some(body.to_vec()),
+        status,
+        slug,
+        field,
+    }
+}
+
+fn get_case(what: &'static str, path: &str, status: u16, slug: &'static str, field: Field) -> Case {
+    Case {
+        what,
+        method: "GET",
+        path: path.into(),
+        headers: vec![],
+        body: None,
+        status,
+        slug,
+        field,
+    }
+}
+
+/// One observation with `key` set to `value` (or removed when `value` is None).
+fn observation_with(key: &str, value: Option<Json>) -> Json {
+    let mut o = lease_observation();
+    match value {
+        Some(v) => o[key] = v,
+        None => {
+            o.as_object_mut().expect("object").remove(key);
+        }
+    }
+    json!({ "observation": o })
+}
+
+fn catalogue() -> Vec<Case> {
+    use Field::{None as Whole, Parameter, Pointer};
+    let good = lease_observation();
+    let mut bad_batch: Vec<Json> = (0..6).map(|_| good.clone()).collect();
+    bad_batch[3]["sector"] = json!("mining");
+    bad_batch[5]["guarantor"] = json!(7);
+    let too_many: Vec<Json> = (0..1001).map(|_| good.clone()).collect();
+    let curve = "/models/lease-test/curve";
+    vec![
+        raw_case("truncated JSON", br#"{"observation": "#, 400, "malformed-json", Whole),
+        raw_case("trailing garbage", br#"{"observation": {}} x"#, 400, "malformed-json", Whole),
+        raw_case("empty body", b"", 400, "malformed-json", Whole),
+        raw_case("bytes that are not UTF-8", b"{\"observation\": \"\xff\xfe\"}", 400, "malformed-json", Whole),
+        raw_case("single quotes", b"{'observation': {}}", 400, "malformed-json", Whole),
+        json_case("body is an array", json!([good]), 422, "invalid-body", Pointer("")),
+        json_case("body is a string", json!("hello"), 422, "invalid-body", Pointer("")),
+        json_case("neither observation nor observations", json!({"effects": true}), 422, "missing-observation", Pointer("")),
+        json_case("both observation and observations", json!({"observation": good, "observations": [good]}), 422, "conflicting-fields", Pointer("/observations")),
+        json_case("observation is an array", json!({"observation": [good]}), 422, "invalid-body", Pointer("/observation")),
+        json_case("observations is an object", json!({"observations": good}), 422, "invalid-body", Pointer("/observations")),
+        json_case("empty batch", json!({"observations": []}), 422, "empty-batch", Pointer("/observations")),
+        json_case("batch over the configured limit", json!({"observations": too_many}), 422, "too-many-observations", Pointer("/observations")),
+        json_case("misspelt option", json!({"observation": good, "efects": false}), 422, "unknown-field", Pointer("/efects")),
+        json_case("level as text", json!({"observation": good, "level": "95%"}), 422, "invalid-option", Pointer("/level")),
+        json_case("level of 1", json!({"observation": good, "level": 1.0}), 422, "invalid-option", Pointer("/level")),
+        json_case("level of 0", json!({"observation": good, "level": 0}), 422, "invalid-option", Pointer("/level")),
+        json_case("level above the largest accepted", json!({"observation": good, "level": 0.9999999}), 422, "invalid-option", Pointer("/level")),
+        json_case("effects not a boolean", json!({"observation": good, "effects": "yes"}), 422, "invalid-option", Pointer("/effects")),
+        json_case("average_effects not a boolean", json!({"observations": [good], "average_effects": 1}), 422, "invalid-option", Pointer("/average_effects")),
+        json_case("missing covariate", observation_with("sector", None), 422, "missing-covariate", Pointer("/observation/sector")),
+        json_case("unknown covariate", observation_with("revenue", Some(json!(3.0))), 422, "unknown-field", Pointer("/observation/revenue")),
+        json_case("unknown covariate with a slash", observation_with("a/b", Some(json!(3.0))), 422, "unknown-field", Pointer("/observation/a~1b")),
+        json_case("number sent as text", observation_with("annual_revenue", Some(json!("450"))), 422, "not-a-number", Pointer("/observation/annual_revenue")),
+        json_case("number sent as null", observation_with("years_trading", Some(Json::Null)), 422, "not-a-number", Pointer("/observation/years_trading")),
+        raw_case("number too large to be finite",
+            br#"{"observation": {"annual_revenue": 1e999, "years_trading": 3, "prior_arrears": 0, "guarantor": 0, "sector": "retail"}}"#,
+            422, "non-finite", Pointer("/observation/annual_revenue")),
+        json_case("binary covariate given 2", observation_with("guarantor", Some(json!(2))), 422, "not-binary", Pointer("/observation/guarantor")),
+        json_case("binary covariate given text", observation_with("guarantor", Some(json!("yes"))), 422, "not-binary", Pointer("/observation/guarantor")),
+        json_case("fractional count", observation_with("prior_arrears", Some(json!(1.5))), 422, "not-a-count", Pointer("/observation/prior_arrears")),
+        json_case("negative count", observation_with("prior_arrears", Some(json!(-1))), 422, "not-a-count", Pointer("/observation/prior_arrears")),
+        json_case("categorical given a number", observation_with("sector", Some(json!(3))), 422, "not-a-level", Pointer("/observation/sector")),
+        json_case("level never seen in training", observation_with("sector", Some(json!("mining"))), 422, "unseen-level", Pointer("/observation/sector")),
+        json_case("log of zero", observation_with("annual_revenue", Some(json!(0))), 422, "outside-domain", Pointer("/observation/annual_revenue")),
+        json_case("log argument below the service bound", observation_with("annual_revenue", Some(json!(1e-13))), 422, "outside-domain", Pointer("/observation/annual_revenue")),
+        json_case("magnitude above the service bound", observation_with("years_trading", Some(json!(2e12))), 422, "outside-domain", Pointer("/observation/years_trading")),
+        json_case("a batch with faults at 3 and 5", json!({"observations": bad_batch}), 422, "unseen-level", Pointer("/observations/3/sector")),
+        json_case("a batch element that is not an object", json!({"observations": [good, good, 17]}), 422, "invalid-body", Pointer("/observations/2")),
+        Case { what: "unknown model", method: "POST", path: "/models/no-such-model/probability".into(),
+            headers: vec![("Content-Type", "application/json".into())], body: Some(json!({"observation": good}).to_string().into_bytes()),
+            status: 404, slug: "unknown-model", field: Whole },
+        get_case("unknown route", "/nothing/here", 404, "not-found", Whole),
+        get_case("unknown model described", "/models/no-such-model", 404, "unknown-model", Whole),
+        get_case("GET on the probability route", PROBABILITY, 405, "method-not-allowed", Whole),
+        Case { what: "DELETE on the model list", method: "DELETE", path: "/models".into(), headers: vec![], body: None,
+            status: 405, slug: "method-not-allowed", field: Whole },
+        Case { what: "text/plain body", method: "POST", path: PROBABILITY.into(),
+            headers: vec![("Content-Type", "text/plain".into())], body: Some(json!({"observation": good}).to_string().into_bytes()),
+            status: 415, slug: "unsupported-media-type", field: Whole },
+        Case { what: "no content type", method: "POST", path: PROBABILITY.into(), headers: vec![],
+            body: Some(json!({"observation": good}).to_string().into_bytes()),
+            status: 415, slug: "unsupported-media-type", field: Whole },
+        raw_case("body over the configured size limit", &vec![b' '; 600 * 1024], 413, "body-too-large", Whole),
+        Case { what: "headers over the configured limit", method: "GET", path: "/models".into(),
+            headers: vec![("X-Padding", "p".repeat(9 * 1024))], body: None,
+            status: 431, slug: "headers-too-large", field: Whole },
+        get_case("curve without over", &format!("{curve}?points=5"), 422, "missing-covariate", Parameter("over")),
+        get_case("curve over an unknown covariate", &format!("{curve}?over=height"), 422, "unknown-field", Parameter("over")),
+        get_case("curve points not a number", &format!("{curve}?over=years_trading&points=many"), 400, "invalid-query", Parameter("points")),
+        get_case("curve with one point", &format!("{curve}?over=years_trading&points=1"), 422, "invalid-option", Parameter("points")),
+        get_case("curve with too many points", &format!("{curve}?over=years_trading&points=501"), 422, "invalid-option", Parameter("points")),
+        get_case("curve held at an unseen level", &format!("{curve}?over=years_trading&sector=mining"), 422, "unseen-level", Parameter("sector")),
+        get_case("curve with an unknown parameter", &format!("{curve}?over=years_trading&colour=red"), 422, "unknown-field", Parameter("colour")),
+        get_case("curve from infinity", &format!("{curve}?over=years_trading&from=inf"), 422, "non-finite", Parameter("from")),
+        get_case("curve with a repeated parameter", &format!("{curve}?over=years_trading&over=guarantor"), 400, "invalid-query", Parameter("over")),
+        get_case("curve binary held at true", &format!("{curve}?over=years_trading&guarantor=true"), 422, "not-binary", Parameter("guarantor")),
+        get_case("curve held below a log term's domain", &format!("{curve}?over=years_trading&annual_revenue=-5"), 422, "outside-domain", Parameter("annual_revenue")),
+        get_case("curve level of 2", &format!("{curve}?over=years_trading&level=2"), 422, "invalid-option", Parameter("level")),
+        get_case("curve held count fractional", &format!("{curve}?over=years_trading&prior_arrears=0.5"), 422, "not-a-count", Parameter("prior_arrears")),
+    ]
+}
+
+#[test]
+fn every_malformed_request_gets_its_problem_details() {
+    let server = Server::start();
+    let cases = catalogue();
+    assert!(cases.len() >= 30, "the catalogue has {} cases", cases.len());
+    let mut failures = Vec::new();
+    for case in &cases {
+        let headers: Vec<(&str, &str)> =
+            case.headers.iter().map(|(n, v)| (*n, v.as_str())).collect();
+        let reply = server.send(case.method, &case.path, &headers, case.body.as_deref());
+        let problem = match serde_json::from_str::<Json>(&reply.text) {
+            Ok(p) => p,
+            Err(_) => {
+                failures.push(format!(
+                    "{}: status {} with a body that is not JSON: {}",
+                    case.what, reply.status, reply.text
+                ));
+                continue;
+            }
+        };
+        let expected_type = format!("urn:ogive:problem:{}", case.slug);
+        let mut wrong = Vec::new();
+        if reply.status != case.status {
+            wrong.push(format!(
+                "status {} (expected {})",
+                reply.status, case.status
+            ));
+        }
+        if problem["type"] != json!(expected_type) {
+            wrong.push(format!(
+                "type {} (expected {expected_type})",
+                problem["type"]
+            ));
+        }
+        if problem["status"] != json!(case.status) {
+            wrong.push(format!("status member {}", problem["status"]));
+        }
+        if reply.header("content-type") != Some("application/problem+json") {
+            wrong.push(format!("content type {:?}", reply.header("content-type")));
+        }
+        for member in ["title", "detail"] {
+            if !problem[member].is_string() {
+                wrong.push(format!("no {member}"));
+            }
+        }
+        match case.field {
+            Field::None => {
+                if problem.get("pointer").is_some() || problem.get("parameter").is_some() {
+                    wrong.push(format!("unexpected field in {problem}"));
+                }
+            }
+            Field::Pointer(p) => {
+                if problem["pointer"] != json!(p) {
+                    wrong.push(format!("pointer {} (expected {p:?})", problem["pointer"]));
+                }
+            }
+            Field::Parameter(p) => {
+                if problem["parameter"] != json!(p) {
+                    wrong.push(format!(
+                        "parameter {} (expected {p:?})",
+                        problem["parameter"]
+                    ));
+                }
+            }
+        }
+        if !wrong.is_empty() {
+            failures.push(format!(
+                "{}: {} — body {}",
+                case.what,
+                wrong.join("; "),
+                reply.text
+            ));
+        }
+    }
+    assert!(
+        failures.is_empty(),
+        "{} of {} cases wrong:\n{}",
+        failures.len(),
+        cases.len(),
+        failures.join("\n")
+    );
+}
+
+#[test]
+fn a_faulty_batch_names_the_first_index_and_lists_every_fault() {
+    let server = Server::start();
+    let good = lease_observation();
+    let mut batch: Vec<Json> = (0..6).map(|_| good.clone()).collect();
+    batch[3]["sector"] = json!("mining");
+    batch[5]["guarantor"] = json!(7);
+    let reply = server.post(PROBABILITY, &json!({"observations": batch}));
+    let problem = reply.json();
+    assert_eq!(problem["index"], json!(3));
+    let errors = problem["errors"].as_array().expect("errors listed");
+    assert_eq!(errors.len(), 2);
+    assert_eq!(errors[1]["index"], json!(5));
+    assert_eq!(errors[1]["pointer"], json!("/observations/5/guarantor"));
+    assert_eq!(errors[1]["type"], json!("urn:ogive:problem:not-binary"));
+}
+
+#[test]
+fn a_405_names_the_allowed_method() {
+    let server = Server::start();
+    let reply = server.get(PROBABILITY);
+    assert_eq!(reply.status, 405);
+    assert_eq!(reply.header("allow"), Some("POST"));
+    let reply = server.send("POST", "/models", &[], Some(b"{}"));
+    assert_eq!(reply.header("allow"), Some("GET"));
+}
+
+#[test]
+fn malformed_json_names_line_and_column() {
+    let server = Server::start();
+    let reply = server.post_raw(PROBABILITY, b"{\n  \"observation\": {,}\n}");
+    let problem = reply.json();
+    assert_eq!(problem["line"], json!(2));
+    assert_eq!(problem["column"], json!(19));
+}
