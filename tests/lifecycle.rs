@@ -1118,17 +1118,10 @@ fn the_watcher_notices_new_models_ignores_temporaries_and_keeps_vanished_ones() 
     let registry = Registry::default();
     let mut watcher = Watcher::new(root.path());
     assert!(watcher.poll(&registry).is_empty());
-    // An upload without a promotion: the model is found but has nothing to serve.
+    // An upload without a promotion: the model is on its way in, neither failing nor unready.
     upload(root.path(), "v1");
-    let events = watcher.poll(&registry);
-    assert!(
-        matches!(
-            events.as_slice(),
-            [WatchEvent::Refused { serving: None, .. }]
-        ),
-        "{events:?}"
-    );
-    assert_eq!(watcher.unserved(), [NAME]);
+    assert!(watcher.poll(&registry).is_empty());
+    assert!(watcher.unserved().is_empty());
     promote(root.path(), "v1");
     // Debris of a writer that died, in every place a reader looks.
     std::fs::write(root.path().join("arrears/.live.dead.tmp"), b"v9\n").expect("write");
@@ -1179,4 +1172,68 @@ fn a_watcher_started_after_the_startup_load_adopts_what_is_served() {
     let mut watcher = Watcher::new(root.path());
     assert!(watcher.poll(&registry).is_empty());
     assert!(Arc::ptr_eq(&before, &registry.snapshot().models[NAME].live));
+}
+
+#[test]
+fn a_model_with_a_live_pointer_that_does_not_load_is_unserved() {
+    let root = root();
+    upload(root.path(), "v1");
+    support::place_live(root.path(), NAME, "v7");
+    let registry = Registry::default();
+    let mut watcher = Watcher::new(root.path());
+    let events = watcher.poll(&registry);
+    match events.as_slice() {
+        [WatchEvent::Refused {
+            serving: None,
+            error,
+            ..
+        }] => assert!(error.to_string().contains("versions/v7.json"), "{error}"),
+        other => panic!("expected one refusal, got {other:?}"),
+    }
+    assert_eq!(
+        watcher.unserved(),
+        [NAME],
+        "not ready: a live pointer serves nothing"
+    );
+}
+
+#[test]
+fn a_version_swapped_in_by_its_promoter_is_not_loaded_again() {
+    let root = root();
+    upload(root.path(), "v1");
+    upload(root.path(), "v2");
+    promote(root.path(), "v1");
+    let registry = Registry::default();
+    let mut watcher = Watcher::new(root.path());
+    assert_eq!(watcher.poll(&registry).len(), 1);
+    // What an admin route does: promote, then serve the promoted model at once.
+    let moved = promote(root.path(), "v2");
+    registry.set_live(Arc::new(moved.model));
+    let swapped_in = Arc::clone(&registry.snapshot().models[NAME].live);
+    assert!(watcher.poll(&registry).is_empty(), "nothing new to report");
+    assert!(Arc::ptr_eq(
+        &swapped_in,
+        &registry.snapshot().models[NAME].live
+    ));
+}
+
+#[test]
+fn setting_a_live_version_keeps_the_shadow_and_the_other_models() {
+    let load = |name: &str, version: &str| {
+        Arc::new(Model::from_json(&support::model_bytes(name, version)).expect("valid"))
+    };
+    let registry = Registry::default();
+    assert!(registry.set_live(load(NAME, "v1")).is_none());
+    registry.set_live(load("uptake", "a"));
+    let mut snapshot = ogive::registry::Snapshot::clone(&registry.snapshot());
+    let entry = Arc::make_mut(snapshot.models.get_mut(NAME).expect("entry"));
+    entry.shadow = Some(load(NAME, "v3"));
+    registry.replace(snapshot);
+    let replaced = registry.set_live(load(NAME, "v2")).expect("v1 was live");
+    assert_eq!(replaced.version(), "v1");
+    let snapshot = registry.snapshot();
+    let entry = &snapshot.models[NAME];
+    assert_eq!(entry.live.version(), "v2");
+    assert_eq!(entry.shadow.as_ref().map(|s| s.version()), Some("v3"));
+    assert_eq!(snapshot.models["uptake"].live.version(), "a");
 }

@@ -32,8 +32,10 @@
 //! each version; an upload repeated with identical bytes writes nothing.
 //!
 //! This module knows nothing of HTTP and nothing of the in-memory [`crate::registry::Registry`]:
-//! callers that serve models may swap in the [`Model`] an outcome carries at once, and the
-//! watcher ([`crate::registry::watch`]) brings every other replica along.
+//! callers that serve models may swap in the [`Model`] an outcome carries at once
+//! ([`crate::registry::Registry::set_live`]), and the watcher ([`crate::registry::watch`])
+//! brings every other replica along. Every function here does blocking file I/O and may wait
+//! up to [`LOCK_WAIT`] for the lock, so an async caller runs it on a blocking thread.
 
 use std::path::{Path, PathBuf};
 use std::time::Duration;

@@ -50,7 +50,9 @@ pub enum WatchEvent {
         /// The version it replaced, if one was serving.
         previous: Option<String>,
     },
-    /// A model's live version could not be loaded; `serving`, if any, keeps serving.
+    /// A model's live version could not be loaded (a file that fails validation, a pointer
+    /// naming a version that is not stored, a `live` file removed from a served model); `serving`,
+    /// if any, keeps serving.
     Refused {
         /// The model.
         name: String,
@@ -84,6 +86,9 @@ struct Fingerprint {
 
 #[derive(Debug, Default)]
 struct Watched {
+    /// The directory has versions but no `live` file, and nothing of it serves: a model on
+    /// its way in, not one that is failing.
+    awaiting_promotion: bool,
     /// The fingerprint of the last conclusive load (success, or a refusal that only a change
     /// of content can cure). `None` forces a load at the next poll.
     fingerprint: Option<Fingerprint>,
@@ -118,8 +123,10 @@ impl Watcher {
         &self.root
     }
 
-    /// The models found by the last poll that have no version serving in the registry (for
-    /// readiness: ready when this is empty).
+    /// The models found by the last poll that have a `live` pointer but no version serving in
+    /// the registry (for readiness: ready when this is empty). A model directory without a
+    /// `live` file (a first version uploaded, not yet promoted) is not in service and not
+    /// listed, so uploading a new model never makes a replica unready.
     pub fn unserved(&self) -> &[String] {
         &self.unserved
     }
@@ -163,6 +170,7 @@ impl Watcher {
         self.unserved = names
             .into_iter()
             .filter(|n| !snapshot.models.contains_key(n))
+            .filter(|n| !self.watched.get(n).is_some_and(|w| w.awaiting_promotion))
             .collect();
         events
     }
@@ -172,21 +180,24 @@ impl Watcher {
         // Taken before loading: if the pointer moves in between, the next poll sees a new
         // fingerprint and loads again; taken after, a move could be missed for good.
         let fingerprint = fingerprint(&dir);
-        let first_time = !self.watched.contains_key(name);
         let watched = self.watched.entry(name.to_string()).or_default();
-        if let Some(fingerprint) = &fingerprint {
-            if watched.fingerprint.as_ref() == Some(fingerprint) {
-                return None;
-            }
+        if fingerprint.is_some() && watched.fingerprint == fingerprint {
+            return None;
         }
         let serving = serving_version(registry, name);
-        if first_time {
-            // Whatever loaded this version at startup already validated it: adopt it.
-            let pointed = fingerprint.as_ref().and_then(pointer_label);
-            if pointed.is_some() && pointed == serving {
-                watched.fingerprint = fingerprint;
-                return None;
-            }
+        let no_pointer = fingerprint.as_ref().is_some_and(|f| f.pointer.is_none());
+        watched.awaiting_promotion = no_pointer && serving.is_none();
+        let pointed = fingerprint.as_ref().and_then(pointer_label);
+        let last_pointed = watched.fingerprint.as_ref().and_then(pointer_label);
+        // Nothing to load: versions are stored but none was ever promoted (not a failure);
+        // or the pointer moved to the version already serving (loaded at startup, or swapped
+        // in by the promoter itself), which was validated on its way in.
+        let settled = watched.awaiting_promotion
+            || (pointed.is_some() && pointed == serving && last_pointed != pointed);
+        if settled {
+            watched.fingerprint = fingerprint;
+            watched.last_refusal = None;
+            return None;
         }
         match load_live(dir.path(), name) {
             Ok(model) => {
