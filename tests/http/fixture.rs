@@ -12,90 +12,31 @@ use ogive::registry::Registry;
 use ogive::service::{AppState, Background, Configure, Settings};
 use serde_json::{json, Value as Json};
 
-/// A covariance V = D R D with R = 0.9 I + 0.1 J (positive definite) and D the given standard
-/// errors.
-fn covariance(std_errors: &[f64]) -> Vec<Vec<f64>> {
-    let k = std_errors.len();
-    (0..k)
-        .map(|r| {
-            (0..k)
-                .map(|c| {
-                    let rho = if r == c { 1.0 } else { 0.1 };
-                    rho * std_errors[r] * std_errors[c]
-                })
-                .collect()
-        })
-        .collect()
+/// The committed test model directory (also served by `.ci/http-checks.sh` when the demo
+/// models are absent).
+pub fn models_dir() -> std::path::PathBuf {
+    std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/http/models")
 }
 
-/// A logit model with every covariate kind, a log term, a square, a product, a covariance, a
-/// joint check and decision bands.
+fn read_model_file(name: &str, version: &str) -> Json {
+    let path = models_dir()
+        .join(name)
+        .join("versions")
+        .join(format!("{version}.json"));
+    let text = std::fs::read_to_string(&path)
+        .unwrap_or_else(|e| panic!("cannot read {}: {e}", path.display()));
+    serde_json::from_str(&text).unwrap_or_else(|e| panic!("{} is not JSON: {e}", path.display()))
+}
+
+/// A logit model with every covariate kind, a log term, a square, a product, a covariance
+/// (D R D with R = 0.9 I + 0.1 J, so positive definite), a joint check and decision bands.
 pub fn lease_file() -> Json {
-    let terms = [
-        ("intercept", -1.2),
-        ("log(annual_revenue)", -0.35),
-        ("years_trading", -0.08),
-        ("years_trading^2", 0.0015),
-        ("prior_arrears", 0.45),
-        ("guarantor", -0.6),
-        ("sector[construction]", 0.5),
-        ("sector[transport]", 0.3),
-        ("sector[services]", -0.2),
-        ("years_trading*guarantor", 0.02),
-    ];
-    let std_errors = [0.3, 0.05, 0.02, 0.0004, 0.08, 0.15, 0.12, 0.13, 0.11, 0.01];
-    json!({
-        "format": "ogive-model",
-        "format_version": 1,
-        "name": "lease-test",
-        "version": "2026-01",
-        "description": "test fixture for the HTTP tests",
-        "outcome": {"name": "arrears_60", "meaning": "the lease fell 60+ days behind within a year"},
-        "link": "logit",
-        "covariates": [
-            {"name": "annual_revenue", "kind": "continuous", "unit": "thousand EUR",
-             "training": {"min": 20.0, "max": 5000.0, "mean": 600.0, "std_dev": 500.0}},
-            {"name": "years_trading", "kind": "continuous", "unit": "years",
-             "training": {"min": 0.0, "max": 40.0, "mean": 9.0, "std_dev": 7.0}},
-            {"name": "prior_arrears", "kind": "count",
-             "training": {"min": 0.0, "max": 6.0, "mean": 0.4, "std_dev": 0.8}},
-            {"name": "guarantor", "kind": "binary",
-             "training": {"min": 0.0, "max": 1.0, "mean": 0.35, "std_dev": 0.48}},
-            {"name": "sector", "kind": "categorical",
-             "levels": ["retail", "construction", "transport", "services"], "reference": "retail",
-             "training": {"level_counts": {"retail": 400, "construction": 250, "transport": 150, "services": 200}}}
-        ],
-        "terms": terms.iter().map(|(t, b)| json!({"term": t, "coefficient": b})).collect::<Vec<_>>(),
-        "covariance": covariance(&std_errors),
-        "covariance_type": "classical",
-        "joint": {"covariates": ["annual_revenue", "years_trading"], "mean": [600.0, 9.0],
-                  "covariance": [[250000.0, 300.0], [300.0, 49.0]], "max_distance": 3.5},
-        "decision": {"threshold": 0.3, "bands": [
-            {"name": "low", "below": 0.1}, {"name": "medium", "below": 0.3}, {"name": "high", "below": 1.0}]},
-        "provenance": {"fitted_by": "hand-written test fixture", "fitted_at": "2026-01-01T00:00:00Z", "observations": 1000}
-    })
+    read_model_file("lease-test", "2026-01")
 }
 
 /// A probit model without a covariance.
 pub fn plain_file() -> Json {
-    json!({
-        "format": "ogive-model",
-        "format_version": 1,
-        "name": "plain-test",
-        "version": "v1",
-        "outcome": {"name": "took_up", "meaning": "the household took up the rebate"},
-        "link": "probit",
-        "covariates": [
-            {"name": "income", "kind": "continuous", "training": {"min": 5.0, "max": 200.0, "mean": 45.0}},
-            {"name": "owner", "kind": "binary", "training": {"min": 0.0, "max": 1.0, "mean": 0.6}}
-        ],
-        "terms": [
-            {"term": "intercept", "coefficient": -0.4},
-            {"term": "income", "coefficient": 0.01},
-            {"term": "owner", "coefficient": 0.3}
-        ],
-        "provenance": {"fitted_by": "hand-written test fixture", "fitted_at": "2026-01-01T00:00:00Z", "observations": 500}
-    })
+    read_model_file("plain-test", "v1")
 }
 
 /// A validated model from a file value.
