@@ -810,3 +810,315 @@ fn reported_outcomes_reach_the_calibration_gauges() {
         Some(case.outcomes.len() as f64)
     );
 }
+
+// ---------------------------------------------------------------------------------------------
+// Over real HTTP: the outcome and report routes, and the series in /metrics
+// ---------------------------------------------------------------------------------------------
+
+mod http {
+    use std::sync::Arc;
+    use std::time::Duration;
+
+    use ogive::metrics::monitor::{Monitor, MonitorSettings};
+    use ogive::metrics::Metrics;
+    use ogive::registry::Registry;
+    use ogive::service::{AppState, Background, Settings};
+    use serde_json::{json, Value as Json};
+
+    use super::drift_model;
+
+    /// A real server on 127.0.0.1:0 serving the drift test model, monitoring on or off.
+    fn server(monitoring: bool) -> Background {
+        let model = Arc::try_unwrap(drift_model("1")).unwrap_or_else(|m| (*m).clone());
+        let registry = Arc::new(Registry::from_models([model]));
+        let settings = Settings {
+            listen: "127.0.0.1:0".parse().expect("address"),
+            workers: 2,
+            drain_delay_ms: 0,
+            shutdown_timeout_ms: 2_000,
+            ..Settings::default()
+        };
+        let metrics = Metrics::new().expect("metrics");
+        let state = AppState::new(registry, metrics, settings, true);
+        let state = if monitoring {
+            let windows = MonitorSettings {
+                answer_capacity: 1_000,
+                ..MonitorSettings::default()
+            };
+            let monitor = Monitor::new(windows, &state.metrics.registry).expect("monitor");
+            state.with_monitor(monitor)
+        } else {
+            state
+        };
+        Background::start(state, None).expect("server starts")
+    }
+
+    fn agent() -> ureq::Agent {
+        ureq::AgentBuilder::new()
+            .timeout(Duration::from_secs(10))
+            .build()
+    }
+
+    /// POST a JSON body; returns the status and the parsed body (problem details included).
+    fn post(server: &Background, path: &str, request_id: Option<&str>, body: &Json) -> (u16, Json) {
+        let url = format!("http://{}{path}", server.addr);
+        let mut request = agent().post(&url).set("Content-Type", "application/json");
+        if let Some(id) = request_id {
+            request = request.set("X-Request-Id", id);
+        }
+        let response = match request.send_string(&body.to_string()) {
+            Ok(r) => r,
+            Err(ureq::Error::Status(_, r)) => r,
+            Err(e) => panic!("POST {path}: {e}"),
+        };
+        let status = response.status();
+        let body = response.into_json().expect("a JSON body");
+        (status, body)
+    }
+
+    fn get(server: &Background, path: &str) -> (u16, String) {
+        let url = format!("http://{}{path}", server.addr);
+        let response = match agent().get(&url).call() {
+            Ok(r) => r,
+            Err(ureq::Error::Status(_, r)) => r,
+            Err(e) => panic!("GET {path}: {e}"),
+        };
+        let status = response.status();
+        (status, response.into_string().expect("a body"))
+    }
+
+    fn observation(amount: f64) -> Json {
+        json!({"amount": amount, "sector": "retail", "guarantor": 0, "visits": 1})
+    }
+
+    #[test]
+    fn outcomes_are_matched_to_answers_and_move_the_series() {
+        let server = server(true);
+        let probability = "/models/lease-test/probability";
+        let (status, single) = post(
+            &server,
+            probability,
+            Some("one"),
+            &json!({"observation": observation(5.0)}),
+        );
+        assert_eq!(status, 200);
+        let observations: Vec<Json> = [5.0, 15.0, 25.0, 35.0].map(observation).to_vec();
+        let (status, batch) = post(
+            &server,
+            probability,
+            Some("many"),
+            &json!({"observations": observations}),
+        );
+        assert_eq!(status, 200);
+
+        let outcomes = "/models/lease-test/outcomes";
+        let (status, matched) = post(
+            &server,
+            outcomes,
+            None,
+            &json!({"answer_id": "one", "outcome": 1}),
+        );
+        assert_eq!(status, 200, "{matched}");
+        assert_eq!(matched["probability"], single["probability"]);
+        assert_eq!(matched["version"], "1");
+        let (status, problem) = post(
+            &server,
+            outcomes,
+            None,
+            &json!({"answer_id": "one", "outcome": 0}),
+        );
+        assert_eq!(
+            (status, problem["type"].as_str()),
+            (409, Some("urn:ogive:problem:outcome-already-reported"))
+        );
+        let (status, problem) = post(
+            &server,
+            outcomes,
+            None,
+            &json!({"answer_id": "never", "outcome": 0}),
+        );
+        assert_eq!(
+            (status, problem["type"].as_str()),
+            (404, Some("urn:ogive:problem:unknown-answer"))
+        );
+
+        let reports = json!({"outcomes": [
+            {"answer_id": "many/0", "outcome": 0},
+            {"answer_id": "many/1", "outcome": true},
+            {"answer_id": "many/3", "outcome": 1},
+            {"answer_id": "many/4", "outcome": 1},
+        ]});
+        let (status, results) = post(&server, outcomes, None, &reports);
+        assert_eq!(status, 200, "{results}");
+        assert_eq!(results["recorded"], 3);
+        let statuses: Vec<u64> = results["results"]
+            .as_array()
+            .expect("results")
+            .iter()
+            .map(|r| r["status"].as_u64().expect("status"))
+            .collect();
+        assert_eq!(statuses, [200, 200, 200, 404]);
+        assert_eq!(
+            results["results"][2]["probability"],
+            batch["results"][3]["probability"]
+        );
+
+        // The Brier score the server exports, against the same formula over what it answered.
+        let predicted = [
+            (&single["probability"], 1.0),
+            (&batch["results"][0]["probability"], 0.0),
+            (&batch["results"][1]["probability"], 1.0),
+            (&batch["results"][3]["probability"], 1.0),
+        ];
+        let brier = predicted
+            .iter()
+            .map(|(p, y)| (p.as_f64().expect("p") - y).powi(2))
+            .sum::<f64>()
+            / 4.0;
+        let (status, text) = get(&server, "/metrics");
+        assert_eq!(status, 200);
+        let line = |name: &str| {
+            text.lines()
+                .find(|l| l.starts_with(name))
+                .and_then(|l| l.rsplit_once(' '))
+                .map(|(_, v)| v.parse::<f64>().expect("a number"))
+                .unwrap_or_else(|| panic!("{name} missing from /metrics"))
+        };
+        assert_eq!(line("ogive_outcomes_total{"), 4.0);
+        assert!((line("ogive_brier_score{") - brier).abs() <= 1e-15);
+        assert_eq!(line("ogive_drift_window_observations{"), 5.0);
+        assert!(line("ogive_input_psi{covariate=\"amount\"") > 0.0);
+
+        let (status, report) = get(&server, "/models/lease-test/monitoring");
+        assert_eq!(status, 200);
+        let report: Json = serde_json::from_str(&report).expect("JSON");
+        let version = &report["versions"][0];
+        assert_eq!(
+            (version["version"].as_str(), version["live"].as_bool()),
+            (Some("1"), Some(true))
+        );
+        assert_eq!(version["drift"]["window_observations"], 5);
+        assert_eq!(version["calibration"]["figures"]["count"], 4);
+        assert_eq!(version["calibration"]["outcomes_total"], 4);
+        let reported_brier = version["calibration"]["figures"]["brier_score"]
+            .as_f64()
+            .expect("brier");
+        assert!((reported_brier - brier).abs() <= 1e-15);
+        assert_eq!(report["answers"]["held"], 5);
+        server.stop().expect("stops");
+    }
+
+    #[test]
+    fn malformed_outcome_reports_name_the_field() {
+        let server = server(true);
+        let outcomes = "/models/lease-test/outcomes";
+        let cases = [
+            (
+                json!({"answer_id": "x", "outcome": 2}),
+                422,
+                "invalid-body",
+                "/outcome",
+            ),
+            (
+                json!({"answer_id": "x", "outcome": "1"}),
+                422,
+                "invalid-body",
+                "/outcome",
+            ),
+            (json!({"answer_id": "x"}), 422, "invalid-body", ""),
+            (json!({"outcome": 1}), 422, "invalid-body", ""),
+            (
+                json!({"answer_id": 7, "outcome": 1}),
+                422,
+                "invalid-body",
+                "/answer_id",
+            ),
+            (
+                json!({"answer_id": "", "outcome": 1}),
+                422,
+                "invalid-body",
+                "/answer_id",
+            ),
+            (
+                json!({"answer_id": "x", "outcome": 1, "note": "late"}),
+                422,
+                "unknown-field",
+                "/note",
+            ),
+            (json!({"outcomes": []}), 422, "empty-batch", "/outcomes"),
+            (
+                json!({"outcomes": {"answer_id": "x"}}),
+                422,
+                "invalid-body",
+                "/outcomes",
+            ),
+            (
+                json!({"outcomes": [{"answer_id": "x", "outcome": 1}, {"answer_id": "y", "outcome": -1}]}),
+                422,
+                "invalid-body",
+                "/outcomes/1/outcome",
+            ),
+            (
+                json!({"outcomes": [], "answer_id": "x"}),
+                422,
+                "conflicting-fields",
+                "",
+            ),
+            (json!([1, 2]), 422, "invalid-body", ""),
+        ];
+        for (body, status, kind, pointer) in cases {
+            let (got, problem) = post(&server, outcomes, None, &body);
+            assert_eq!(got, status, "{body} → {problem}");
+            assert_eq!(
+                problem["type"],
+                format!("urn:ogive:problem:{kind}"),
+                "{body}"
+            );
+            assert_eq!(problem["pointer"].as_str().unwrap_or(""), pointer, "{body}");
+        }
+        let (status, problem) = post(
+            &server,
+            "/models/no-such/outcomes",
+            None,
+            &json!({"answer_id": "x", "outcome": 1}),
+        );
+        assert_eq!(
+            (status, problem["type"].as_str()),
+            (404, Some("urn:ogive:problem:unknown-model"))
+        );
+        let (status, _) = get(&server, "/models/lease-test/outcomes");
+        assert_eq!(status, 405);
+        let (status, _) = get(&server, "/models/no-such/monitoring");
+        assert_eq!(status, 404);
+        server.stop().expect("stops");
+    }
+
+    #[test]
+    fn with_monitoring_off_the_routes_say_so_and_export_nothing() {
+        let server = server(false);
+        let (status, _) = post(
+            &server,
+            "/models/lease-test/probability",
+            None,
+            &json!({"observation": observation(5.0)}),
+        );
+        assert_eq!(status, 200);
+        let (status, problem) = post(
+            &server,
+            "/models/lease-test/outcomes",
+            None,
+            &json!({"answer_id": "x", "outcome": 1}),
+        );
+        assert_eq!(
+            (status, problem["type"].as_str()),
+            (404, Some("urn:ogive:problem:monitoring-off"))
+        );
+        let (status, body) = get(&server, "/models/lease-test/monitoring");
+        assert_eq!(status, 404);
+        assert!(body.contains("monitoring-off"));
+        let (_, metrics) = get(&server, "/metrics");
+        assert!(!metrics.contains("ogive_input_psi"));
+        assert!(!metrics.contains("ogive_answers_held"));
+        server.stop().expect("stops");
+    }
+}
