@@ -94,7 +94,9 @@ pub fn sweep_temporaries(dir: &Path) -> Result<usize, StoreError> {
     for entry in entries {
         let entry = entry.map_err(|e| StoreError::io("list", dir, e))?;
         let name = entry.file_name();
-        if name.to_str().is_some_and(is_temporary_name) {
+        // Files only: a folder with such a name is nobody's half-written file.
+        let is_file = entry.file_type().is_ok_and(|t| t.is_file());
+        if is_file && name.to_str().is_some_and(is_temporary_name) {
             let path = entry.path();
             fs::remove_file(&path).map_err(|e| StoreError::io("remove", &path, e))?;
             removed += 1;
@@ -137,7 +139,9 @@ mod tests {
         fs::write(dir.path().join(".live.dead.tmp"), b"v").expect("write");
         fs::write(dir.path().join("live"), b"v1").expect("write");
         fs::write(dir.path().join(".lock"), b"").expect("write");
+        fs::create_dir(dir.path().join("..data.tmp")).expect("mkdir");
         assert_eq!(sweep_temporaries(dir.path()).expect("sweep"), 1);
+        assert!(dir.path().join("..data.tmp").is_dir());
         assert!(dir.path().join("live").exists());
         assert!(dir.path().join(".lock").exists());
     }
