@@ -120,7 +120,7 @@ fn a_number_too_large_for_a_double_is_refused() {
     let text = serde_json::to_string(&base())
         .expect("serialise")
         .replace("-0.3", "-1e999");
-    let e = Model::from_json(text.as_bytes()).err().expect("refused");
+    let e = Model::from_json(text.as_bytes()).expect_err("refused");
     assert!(e.to_string().contains("not a valid model file"), "{e}");
 }
 
@@ -375,7 +375,7 @@ fn non_finite_text_values_are_refused() {
         let value = model
             .parse_text_value(age, text)
             .expect("parses as a float");
-        let mut values: Vec<_> = model.mean_profile.iter().copied().collect();
+        let mut values: Vec<_> = model.mean_profile.to_vec();
         values[age] = value;
         values[model.covariate_index("region").expect("region")] = ogive::model::Value::Level(0);
         let e = model.check_values(&values).expect_err("non-finite");
