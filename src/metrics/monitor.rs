@@ -128,9 +128,10 @@ impl Monitor {
         answers: impl ExactSizeIterator<Item = (f64, f64)>,
     ) {
         let width = model.covariates.len().max(1);
+        let drift = self.drift.recorder(model);
         let mut kept = Vec::with_capacity(if single { 0 } else { answers.len() });
         for (observation, (probability, linear_index)) in values.chunks(width).zip(answers) {
-            self.drift.record(model, observation, probability);
+            drift.record(observation, probability);
             let answer = StoredAnswer::new(probability, linear_index);
             if single {
                 self.answers.keep_single(request_id, model, answer);
