@@ -236,8 +236,14 @@ pub fn parse_curve_request(
             let clipped = a != asked_from || b != asked_to;
             let mut grid: Vec<Value> = Vec::with_capacity(points);
             for i in 0..points {
+                // The last point is `b` itself: a + (b − a)·1 can round past it (to 0 for
+                // a = 1e12, b = 1e-12, which a log term cannot take).
                 let t = i as f64 / (points - 1) as f64;
-                let mut x = a + (b - a) * t;
+                let mut x = if i + 1 == points {
+                    b
+                } else {
+                    clip(a + (b - a) * t)
+                };
                 if covariate.kind == CovariateKind::Count {
                     x = x.round().clamp(0.0, MAX_MAGNITUDE);
                 }

@@ -12,7 +12,7 @@
 //! effects         bool   true    marginal effects of every covariate
 //! intervals       bool   true    standard errors and intervals (when the model has a covariance)
 //! level           number 0.95    interval level, 0 < level ≤ 0.999999
-//! elasticities    bool   false   m·x/p for continuous covariates
+//! elasticities    bool   false   m·x/p for continuous covariates (left out where p underflows to 0)
 //! contributions   bool   true    each covariate's contribution to the index, ranked
 //! average_effects bool   false   average marginal effects over the observations
 //! at_means        bool   false   effects at the training means

@@ -5,8 +5,10 @@
 //! configured limits replace the defaults written there, and each loaded model gets concrete
 //! paths (`/models/NAME/probability`, `/models/NAME/curve`) whose schemas spell out that
 //! model's covariates exactly, kinds, levels and the service's numeric bounds included, so a
-//! generated client or a property-based tester knows what a valid observation is. (OpenAPI
-//! 3.1 matches concrete paths before templated ones.)
+//! generated client or a property-based tester knows what a valid observation is. The
+//! templated model paths are then left out: the served document describes this deployment's
+//! routes exactly (a name that is not loaded answers 404 `unknown-model`). With no model
+//! loaded, the templates are served as written.
 
 use std::sync::OnceLock;
 
@@ -95,6 +97,7 @@ pub fn document(snapshot: &Snapshot, limits: &Limits) -> Json {
     let template_curve = doc["paths"]["/models/{name}/curve"].clone();
     set_points_maximum(&mut doc["paths"]["/models/{name}/curve"], limits);
     let template_probability = doc["paths"]["/models/{name}/probability"].clone();
+    let template_describe = doc["paths"]["/models/{name}"].clone();
     let request_template = doc["components"]["schemas"]["ProbabilityRequest"].clone();
     for entry in snapshot.models.values() {
         let model = &entry.live;
@@ -116,6 +119,13 @@ pub fn document(snapshot: &Snapshot, limits: &Limits) -> Json {
             map.remove("parameters");
         }
         doc["paths"][format!("/models/{}/probability", model.name())] = probability;
+
+        let mut describe = template_describe.clone();
+        describe["get"]["operationId"] = json!(format!("describeModel.{}", model.name()));
+        if let Some(map) = describe["get"].as_object_mut() {
+            map.remove("parameters");
+        }
+        doc["paths"][format!("/models/{}", model.name())] = describe;
 
         let mut curve = template_curve.clone();
         let operation = &mut curve["get"];
@@ -154,8 +164,24 @@ pub fn document(snapshot: &Snapshot, limits: &Limits) -> Json {
         set_points_maximum(&mut curve, limits);
         doc["paths"][format!("/models/{}/curve", model.name())] = curve;
     }
+    if !snapshot.models.is_empty() {
+        // The served document describes this deployment: its models' concrete paths replace
+        // the templates (which stay in openapi.json, and are served when no model is loaded).
+        if let Some(paths) = doc["paths"].as_object_mut() {
+            for template in TEMPLATED_PATHS {
+                paths.remove(template);
+            }
+        }
+    }
     doc
 }
+
+/// The templated model paths of the hand-written document.
+pub const TEMPLATED_PATHS: [&str; 3] = [
+    "/models/{name}",
+    "/models/{name}/probability",
+    "/models/{name}/curve",
+];
 
 fn set_points_maximum(curve_path: &mut Json, limits: &Limits) {
     if let Some(parameters) = curve_path["get"]["parameters"].as_array_mut() {

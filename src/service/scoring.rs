@@ -42,6 +42,16 @@ pub fn is_finite(answer: &Answer) -> bool {
             .all(|c| c.contribution.is_finite())
 }
 
+/// Leave out an elasticity m·x/p that is not a number: where p underflows to 0 far in the
+/// lower tail it is 0/0. The effect itself is still answered.
+pub fn drop_undefined_elasticities(answer: &mut Answer) {
+    for effect in &mut answer.effects {
+        if effect.elasticity.is_some_and(|e| !e.is_finite()) {
+            effect.elasticity = None;
+        }
+    }
+}
+
 fn average_is_finite(a: &Average) -> bool {
     a.value.is_finite()
         && a.std_error.is_none_or(f64::is_finite)
@@ -81,7 +91,9 @@ pub fn score<'a>(
             Some(a) => scorer.score_and_average(model, observation, &request.options, a),
             None => scorer.score(model, observation, &request.options),
         };
-        if !is_finite(answer) {
+        let mut answer = answer.clone();
+        drop_undefined_elasticities(&mut answer);
+        if !is_finite(&answer) {
             let base = match request.observations {
                 Observations::One(_) => "/observation".to_string(),
                 Observations::Many(_) => format!("/observations/{i}"),
@@ -103,7 +115,7 @@ pub fn score<'a>(
                 Warning::UnusualCombination { .. } => unusual += 1,
             }
         }
-        answers.push(answer.clone());
+        answers.push(answer);
     }
     metrics.scored.inc_by(n as u64);
     for (counter, count) in metrics.out_of_range.iter().zip(&out_of_range) {

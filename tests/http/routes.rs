@@ -621,15 +621,16 @@ fn the_openapi_document_has_a_concrete_path_per_model() {
         "/metrics",
         "/openapi.json",
         "/models",
-        "/models/{name}",
-        "/models/{name}/probability",
-        "/models/{name}/curve",
+        "/models/lease-test",
         "/models/lease-test/probability",
         "/models/lease-test/curve",
+        "/models/plain-test",
         "/models/plain-test/probability",
+        "/models/plain-test/curve",
     ] {
         assert!(paths.contains_key(path), "missing {path}");
     }
+    assert!(!paths.contains_key("/models/{name}/probability"));
     let observation = &doc["components"]["schemas"]["Observation.lease-test"];
     assert_eq!(
         observation["properties"]["sector"]["enum"],
@@ -644,4 +645,28 @@ fn the_openapi_document_has_a_concrete_path_per_model() {
             ["maxItems"],
         json!(1000)
     );
+}
+
+#[test]
+fn regression_a_descending_curve_ends_exactly_at_the_log_domain_edge() {
+    // The grid's last point was computed as a + (b − a)·1, which rounds to 0 for a = 1e12 and
+    // b = 1e-12; log(0) made the curve not computable.
+    let server = Server::start();
+    let reply = server
+        .get("/models/lease-test/curve?over=annual_revenue&points=2&from=999999999999&to=-1e12");
+    assert_eq!(reply.status, 200, "{}", reply.text);
+    assert_eq!(reply.json()["points"][1]["value"], json!(1e-12));
+}
+
+#[test]
+fn regression_an_elasticity_at_an_underflowing_probability_is_left_out() {
+    // m·x/p is 0/0 where a probit probability underflows to 0; it made the whole answer
+    // not computable.
+    let server = Server::start();
+    let body = json!({"elasticities": true, "observation": {"income": -569103424293.3263, "owner": false}});
+    let reply = server.post("/models/plain-test/probability", &body);
+    assert_eq!(reply.status, 200, "{}", reply.text);
+    let got = reply.json();
+    assert_eq!(got["probability"], json!(0.0));
+    assert!(got["effects"][0].get("elasticity").is_none());
 }
