@@ -7,14 +7,16 @@
   pandas MODEL CSV OUT         the baseline: pandas.read_csv, the same probabilities, intervals,
                                derivative effects and delta-method standard errors as
                                `ogive score --effects` computed with numpy, pandas.to_csv
-  measure NAME -- CMD...       run CMD, print its wall time and peak resident memory
+  measure NAME [--discard-output] -- CMD...
+                               run CMD (its standard output thrown away if asked), print
+                               its wall time and its own peak resident memory
   compare A.csv B.csv          check that two scored files agree column by column (rel 1e-9)
 
 The data and coefficients are invented (this is a speed benchmark, not a check of any value).
 """
 
 import json
-import resource
+import os
 import subprocess
 import sys
 import time
@@ -138,13 +140,16 @@ def pandas_score(model_path, data_path, out_path):
     frame.to_csv(out_path, index=False)
 
 
-def measure(name, command):
+def measure(name, command, discard_output=False):
+    """Run one process; its own peak resident set size comes from wait4's resource usage."""
     start = time.perf_counter()
-    status = subprocess.call(command)
+    child = subprocess.Popen(command, stdout=subprocess.DEVNULL if discard_output else None)
+    _, status, usage = os.wait4(child.pid, 0)
     seconds = time.perf_counter() - start
-    peak_kib = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    print(f"{name}\t{seconds:.3f}\t{peak_kib / 1024:.1f}\t{status}")
-    sys.exit(status)
+    code = os.waitstatus_to_exitcode(status)
+    # Linux reports ru_maxrss in KiB.
+    print(f"{name}\t{seconds:.3f}\t{usage.ru_maxrss / 1024:.1f}\t{code}")
+    sys.exit(code)
 
 
 def compare(a_path, b_path):
@@ -175,7 +180,10 @@ def main(argv):
     elif command == "pandas":
         pandas_score(argv[2], argv[3], argv[4])
     elif command == "measure":
-        measure(argv[2], argv[4:])
+        discard = argv[3] == "--discard-output"
+        rest = argv[4:] if discard else argv[3:]
+        assert rest[0] == "--", "measure NAME [--discard-output] -- CMD..."
+        measure(argv[2], rest[1:], discard)
     elif command == "compare":
         compare(argv[2], argv[3])
     else:

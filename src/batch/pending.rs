@@ -67,3 +67,30 @@ impl Drop for PendingFile {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::io::Write;
+
+    #[test]
+    fn the_target_appears_only_on_commit_and_a_dropped_file_leaves_nothing() {
+        let dir = tempfile::tempdir().unwrap();
+        let target = dir.path().join("scored.csv");
+        let mut pending = PendingFile::create(&target).unwrap();
+        pending.file().write_all(b"a,b\n1,2\n").unwrap();
+        assert!(!target.exists());
+        pending.commit().unwrap();
+        assert_eq!(std::fs::read_to_string(&target).unwrap(), "a,b\n1,2\n");
+
+        let abandoned = dir.path().join("abandoned.csv");
+        let mut pending = PendingFile::create(&abandoned).unwrap();
+        pending.file().write_all(b"half").unwrap();
+        drop(pending);
+        let names: Vec<_> = std::fs::read_dir(dir.path())
+            .unwrap()
+            .map(|e| e.unwrap().file_name())
+            .collect();
+        assert_eq!(names, [std::ffi::OsString::from("scored.csv")]);
+    }
+}

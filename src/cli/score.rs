@@ -60,6 +60,15 @@ fn is_dash(path: &Path) -> bool {
     path.as_os_str() == "-"
 }
 
+/// How a path is named in messages: `standard input` / `standard output` for `-`.
+fn shown(path: &Path, dash: &'static str) -> String {
+    if is_dash(path) {
+        dash.to_string()
+    } else {
+        path.display().to_string()
+    }
+}
+
 /// Run `ogive score`.
 pub fn run(args: ScoreArgs) -> anyhow::Result<ExitCode> {
     let bytes = std::fs::read(&args.model)
@@ -102,7 +111,7 @@ pub fn run(args: ScoreArgs) -> anyhow::Result<ExitCode> {
     let summary = if is_dash(&args.out) {
         let mut stdout = io::stdout().lock();
         let summary = batch::score_csv(&model, input, &mut stdout, &options, &mut on_progress)
-            .with_context(|| format!("scoring {} stopped", args.data.display()))?;
+            .with_context(|| format!("scoring {} stopped", shown(&args.data, "standard input")))?;
         stdout.flush().context("cannot write standard output")?;
         summary
     } else {

@@ -178,7 +178,11 @@ pub fn render_text(report: &Report) -> String {
     facts.push(("covariance".to_string(), m.covariance.clone()));
     facts.push((
         "check cases".to_string(),
-        format!("{} reproduced when the file was loaded", m.check_cases),
+        if m.check_cases == 0 {
+            "none stored in the file".to_string()
+        } else {
+            format!("{} reproduced when the file was loaded", m.check_cases)
+        },
     ));
     if let Some(t) = m.decision_threshold {
         facts.push(("decision threshold".to_string(), format_number(t)));
