@@ -1008,6 +1008,79 @@ mod http {
         server.stop().expect("stops");
     }
 
+    /// A validator for one schema of the served OpenAPI document.
+    fn schema(doc: &Json, name: &str) -> jsonschema::Validator {
+        let root = json!({
+            "$schema": "https://json-schema.org/draft/2020-12/schema",
+            "$ref": format!("#/components/schemas/{name}"),
+            "components": doc["components"],
+        });
+        jsonschema::validator_for(&root).unwrap_or_else(|e| panic!("schema {name}: {e}"))
+    }
+
+    #[track_caller]
+    fn assert_valid(doc: &Json, name: &str, instance: &Json) {
+        let errors: Vec<String> = schema(doc, name)
+            .iter_errors(instance)
+            .map(|e| format!("{e} at {}", e.instance_path()))
+            .collect();
+        assert!(errors.is_empty(), "{name}: {errors:?}\n{instance}");
+    }
+
+    #[test]
+    fn the_served_document_describes_the_monitoring_routes_truly() {
+        let server = server(true);
+        let (_, doc) = get(&server, "/openapi.json");
+        let doc: Json = serde_json::from_str(&doc).expect("JSON");
+        for (path, method) in [
+            ("/models/{name}/outcomes", "post"),
+            ("/models/{name}/monitoring", "get"),
+        ] {
+            assert!(doc["paths"][path][method].is_object(), "{method} {path}");
+        }
+        let probability = "/models/lease-test/probability";
+        post(
+            &server,
+            probability,
+            Some("doc-1"),
+            &json!({"observation": observation(5.0)}),
+        );
+        post(
+            &server,
+            probability,
+            Some("doc-2"),
+            &json!({"observations": [observation(1.0), observation(39.0)]}),
+        );
+        let single = json!({"answer_id": "doc-1", "outcome": 1});
+        let batch = json!({"outcomes": [{"answer_id": "doc-2/0", "outcome": 0}, {"answer_id": "doc-2/9", "outcome": 1}]});
+        assert_valid(&doc, "OutcomeReport", &single);
+        assert_valid(&doc, "OutcomeReports", &batch);
+        for bad in [
+            json!({"answer_id": "x", "outcome": 2}),
+            json!({"answer_id": "x"}),
+            json!({"answer_id": "x", "outcome": 1, "extra": 0}),
+        ] {
+            assert!(
+                !schema(&doc, "OutcomeReport").is_valid(&bad),
+                "{bad} must be invalid"
+            );
+        }
+        let (status, matched) = post(&server, "/models/lease-test/outcomes", None, &single);
+        assert_eq!(status, 200);
+        assert_valid(&doc, "MatchedAnswer", &matched);
+        let (status, results) = post(&server, "/models/lease-test/outcomes", None, &batch);
+        assert_eq!(status, 200);
+        assert_valid(&doc, "OutcomeBatchResponse", &results);
+        let (status, problem) = post(&server, "/models/lease-test/outcomes", None, &single);
+        assert_eq!(status, 409);
+        assert_valid(&doc, "Problem", &problem);
+        let (status, report) = get(&server, "/models/lease-test/monitoring");
+        assert_eq!(status, 200);
+        let report: Json = serde_json::from_str(&report).expect("JSON");
+        assert_valid(&doc, "MonitorReport", &report);
+        server.stop().expect("stops");
+    }
+
     #[test]
     fn malformed_outcome_reports_name_the_field() {
         let server = server(true);
