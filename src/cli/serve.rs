@@ -1,8 +1,10 @@
-//! `ogive serve`: load the model directory, start the public listener, print its address and an
-//! example request, and serve until SIGTERM or SIGINT (then drain and stop).
+//! `ogive serve`: load the model directory, follow it for changes, start the public listener
+//! and (with an admin token) the admin listener, print their addresses and an example request,
+//! and serve until SIGTERM or SIGINT (then drain and stop both).
 //!
-//! Every flag can also be set from the `OGIVE_…` variable named in its help. The admin flags are
-//! read here so that deployments can set them now; the admin listener mounts on them.
+//! Every flag can also be set from the `OGIVE_…` variable named in its help; the admin token
+//! itself can be given as `OGIVE_ADMIN_TOKEN` instead of a file. Without a token the admin
+//! listener does not start, and the startup message says so.
 
 use std::net::SocketAddr;
 use std::path::PathBuf;
@@ -14,9 +16,14 @@ use anyhow::Context;
 use crate::metrics::monitor::{Monitor, MonitorSettings};
 use crate::metrics::Metrics;
 use crate::registry::load::load_directory;
+use crate::registry::watch::DEFAULT_INTERVAL;
 use crate::registry::Registry;
+use crate::service::admin::auth::{DEFAULT_LABEL, TOKEN_ENV};
+use crate::service::admin::{self, AdminState, AdminToken};
 use crate::service::example::example_curl;
-use crate::service::{bind, serve, shutdown, AppState, Limits, Settings};
+use crate::service::follow::Follower;
+use crate::service::shadow::{Shadowing, Share};
+use crate::service::{bind, serve_with_admin, shutdown, AppState, Limits, Settings};
 
 /// Arguments of `ogive serve`.
 #[derive(Debug, clap::Args)]
@@ -45,9 +52,21 @@ pub struct ServeArgs {
         value_name = "ADDR"
     )]
     pub admin_listen: SocketAddr,
-    /// File holding the admin bearer token.
+    /// File holding the admin bearer token (one trailing newline is ignored); or set
+    /// OGIVE_ADMIN_TOKEN to the token itself. Without either, no admin listener starts.
     #[arg(long, env = "OGIVE_ADMIN_TOKEN_FILE", value_name = "FILE")]
     pub admin_token_file: Option<PathBuf>,
+    /// Who the admin token stands for in the model history (recorded as admin:LABEL).
+    #[arg(long, env = "OGIVE_ADMIN_TOKEN_LABEL", default_value = DEFAULT_LABEL, value_name = "LABEL")]
+    pub admin_token_label: String,
+    /// Share of a shadowed model's observations also scored by its shadow, from 0 to 1.
+    #[arg(
+        long,
+        env = "OGIVE_SHADOW_SHARE",
+        default_value = "1",
+        value_name = "SHARE"
+    )]
+    pub shadow_share: Share,
     /// Worker threads (0: one per CPU core).
     #[arg(long, env = "OGIVE_WORKERS", default_value_t = 0)]
     pub workers: usize,
@@ -139,6 +158,12 @@ fn log_panics() {
 pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
     log_panics();
     let settings = args.settings();
+    let token_variable = std::env::var_os(TOKEN_ENV).map(|v| v.into_encoded_bytes());
+    let token = AdminToken::configured(
+        args.admin_token_file.as_deref(),
+        token_variable.as_deref(),
+        &args.admin_token_label,
+    )?;
     let report = load_directory(&args.models)
         .with_context(|| format!("loading the model directory {}", args.models.display()))?;
     let metrics = Metrics::new()?;
@@ -157,9 +182,6 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
     }
     if report.snapshot.models.is_empty() {
         tracing::warn!(dir = %args.models.display(), "no models loaded");
-    }
-    if let Some(file) = &args.admin_token_file {
-        tracing::info!(admin_listen = %args.admin_listen, token_file = %file.display(), "admin settings read");
     }
     let all_loaded = report.failures.is_empty();
     let registry = Arc::new(Registry::default());
@@ -182,17 +204,66 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
     } else {
         state
     };
+    let shadowing = Shadowing::new(args.shadow_share, &state.metrics.registry)?;
+    let state = state.with_shadow(shadowing);
+    let follower = Arc::new(Follower::new(
+        args.models.clone(),
+        Arc::clone(&state.registry),
+        Arc::clone(&state.health),
+        state.metrics.clone(),
+        state.shadow.clone(),
+    ));
+    let following = follower
+        .spawn(DEFAULT_INTERVAL)
+        .context("starting the model directory watcher")?;
     let listener = bind(&settings).with_context(|| format!("listening on {}", settings.listen))?;
     let addr = listener.local_addr()?;
+    let admin = match token {
+        Some(token) => {
+            if token.is_short() {
+                tracing::warn!(
+                    label = token.label(),
+                    "the admin token is short; use at least 128 random bits"
+                );
+            }
+            let admin_state = AdminState::new(state.clone(), Arc::clone(&follower), token);
+            let admin = admin::Listener::bind(args.admin_listen, admin_state)
+                .with_context(|| format!("listening on {} (admin)", args.admin_listen))?;
+            Some(admin)
+        }
+        None => None,
+    };
     let base_url = format!("http://{addr}");
     println!("ogive serving on {base_url}");
     if let Some(model) = example {
         println!("try:\n  {}", example_curl(&model, &base_url));
     }
-    actix_web::rt::System::new().block_on(serve(state, listener, None, async {
-        if let Err(e) = shutdown::termination_signal().await {
-            tracing::error!(error = %e, "cannot wait for signals; stopping");
+    match &admin {
+        Some(admin) => {
+            let admin_addr = admin.local_addr()?;
+            if !admin_addr.ip().is_loopback() {
+                tracing::warn!(admin_listen = %admin_addr, "the admin listener is not on a loopback address; restrict who can reach it");
+            }
+            tracing::info!(admin_listen = %admin_addr, label = %args.admin_token_label, "admin listener on");
+            println!("ogive admin on http://{admin_addr}");
         }
-    }))?;
+        None => {
+            let why = "no admin token is configured (--admin-token-file or OGIVE_ADMIN_TOKEN)";
+            tracing::warn!(reason = why, "admin listener off");
+            println!("ogive admin off: {why}");
+        }
+    }
+    actix_web::rt::System::new().block_on(serve_with_admin(
+        state,
+        listener,
+        admin,
+        None,
+        async {
+            if let Err(e) = shutdown::termination_signal().await {
+                tracing::error!(error = %e, "cannot wait for signals; stopping");
+            }
+        },
+    ))?;
+    following.stop();
     Ok(ExitCode::SUCCESS)
 }

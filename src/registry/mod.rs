@@ -90,4 +90,31 @@ impl Registry {
         });
         before.models.get(&name).map(|e| Arc::clone(&e.live))
     }
+
+    /// Set model `name`'s shadow to what `choose` returns for its current entry, keeping its
+    /// live version and every other entry, in one atomic swap (read-copy-update, so a
+    /// concurrent [`set_live`](Registry::set_live) is never lost; `choose` may run more than
+    /// once). Returns the entry as it was, or `None`, changing nothing, when `name` is not
+    /// served.
+    pub fn update_shadow(
+        &self,
+        name: &str,
+        choose: impl Fn(&Entry) -> Option<Arc<Model>>,
+    ) -> Option<Arc<Entry>> {
+        let before = self.current.rcu(|current| {
+            let mut next = Snapshot::clone(current);
+            if let Some(entry) = current.models.get(name) {
+                let shadow = choose(entry);
+                next.models.insert(
+                    name.to_string(),
+                    Arc::new(Entry {
+                        live: Arc::clone(&entry.live),
+                        shadow,
+                    }),
+                );
+            }
+            next
+        });
+        before.models.get(name).cloned()
+    }
 }

@@ -17,16 +17,21 @@
 //! request_id.rs   X-Request-Id validation and generation
 //! example.rs      an example observation and curl command for a model
 //! shutdown.rs     signals, draining, graceful stop
+//! shadow.rs       scoring a shadow candidate beside the live version, and its report
+//! follow.rs       following the model directory: the watcher, readiness, its thread
+//! admin/          the admin listener: token, lifecycle and shadow routes, its document
 //! ```
 //!
 //! The service contains no statistics: it parses, calls the engine, and writes what the engine
 //! computed.
 
+pub mod admin;
 pub mod body;
 pub mod config;
 pub mod curve;
 pub mod dto;
 pub mod example;
+pub mod follow;
 pub mod middleware;
 pub mod observations;
 pub mod openapi;
@@ -34,6 +39,7 @@ pub mod problem;
 pub mod request_id;
 pub mod routes;
 pub mod scoring;
+pub mod shadow;
 pub mod shutdown;
 pub mod state;
 
@@ -117,10 +123,35 @@ pub async fn serve(
     .await
 }
 
-/// A public listener running on its own thread (for tests and embedding).
+/// Serve as [`serve`] does, with the admin listener beside the public one when `admin` is
+/// given: it runs until the public listener has drained and stopped, then stops too.
+pub async fn serve_with_admin(
+    state: AppState,
+    listener: TcpListener,
+    admin: Option<admin::Listener>,
+    extra: Option<Configure>,
+    signal: impl std::future::Future<Output = ()>,
+) -> io::Result<()> {
+    let admin = admin.map(admin::Listener::server).transpose()?;
+    let admin_handle = admin.as_ref().map(actix_web::dev::Server::handle);
+    let admin_running = admin.map(actix_web::rt::spawn);
+    let result = serve(state, listener, extra, signal).await;
+    if let Some(handle) = admin_handle {
+        handle.stop(true).await;
+    }
+    if let Some(running) = admin_running {
+        let _ = tokio::time::timeout(Duration::from_millis(100), running).await;
+    }
+    result
+}
+
+/// A public listener (and an admin listener, if started with one) running on its own thread
+/// (for tests and embedding).
 pub struct Background {
     /// The address it listens on.
     pub addr: SocketAddr,
+    /// The admin listener's address, if it has one.
+    pub admin_addr: Option<SocketAddr>,
     /// The state it serves.
     pub state: AppState,
     stop: Option<tokio::sync::oneshot::Sender<()>>,
@@ -130,19 +161,40 @@ pub struct Background {
 impl Background {
     /// Start serving `state` on `settings.listen` in a new thread with its own runtime.
     pub fn start(state: AppState, extra: Option<Configure>) -> io::Result<Background> {
+        Background::start_with_admin(state, None, extra)
+    }
+
+    /// Start as [`Background::start`] does, with the admin listener `admin` beside it.
+    pub fn start_with_admin(
+        state: AppState,
+        admin: Option<admin::Listener>,
+        extra: Option<Configure>,
+    ) -> io::Result<Background> {
         let listener = bind(&state.settings)?;
         let addr = listener.local_addr()?;
+        let admin_addr = admin
+            .as_ref()
+            .map(admin::Listener::local_addr)
+            .transpose()?;
         let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
         let thread_state = state.clone();
         let thread = std::thread::Builder::new()
             .name("ogive-public".into())
             .spawn(move || {
-                actix_web::rt::System::new().block_on(serve(thread_state, listener, extra, async {
+                let stop = async {
                     let _ = stopped.await;
-                }))
+                };
+                actix_web::rt::System::new().block_on(serve_with_admin(
+                    thread_state,
+                    listener,
+                    admin,
+                    extra,
+                    stop,
+                ))
             })?;
         Ok(Background {
             addr,
+            admin_addr,
             state,
             stop: Some(stop),
             thread: Some(thread),

@@ -15,6 +15,7 @@
 //! index     the observation's position in a batch
 //! parameter the query parameter at fault (curve route)
 //! errors    in a batch, every faulty observation (up to 100), each {pointer, index, type, detail}
+//! …         extension members of the admin routes (see `service::admin::refusals`)
 //! ```
 //!
 //! Client mistakes map to 4xx; anything unexpected is [`Kind::Internal`] (500) whose cause is
@@ -94,6 +95,21 @@ kinds! {
     UnknownAnswer => "unknown-answer", 404, "No answer of this model has this id (never given, or evicted)";
     OutcomeAlreadyReported => "outcome-already-reported", 409, "The answer already has an outcome";
     MonitoringOff => "monitoring-off", 404, "Monitoring is off in this process";
+    Unauthorized => "unauthorized", 401, "The admin routes need a valid bearer token";
+    InvalidLabel => "invalid-label", 422, "A model name or version label breaks its naming rule";
+    InvalidModelFile => "invalid-model-file", 422, "The model file is not valid, or its check cases do not reproduce";
+    LabelMismatch => "label-mismatch", 422, "The file names another model or version than the route";
+    VersionExists => "version-exists", 409, "A different file is already stored under this version label";
+    BreakingChange => "breaking-change", 422, "The candidate changes what callers send";
+    UnknownVersion => "unknown-version", 404, "The model has no such stored version";
+    NoLiveVersion => "no-live-version", 409, "The model has no live version";
+    NothingToRollBack => "nothing-to-roll-back", 409, "There is no earlier live version to return to";
+    LiveUnreadable => "live-unreadable", 409, "The live version cannot be read";
+    RollbackTargetInvalid => "rollback-target-invalid", 409, "The version a rollback would return to cannot go live";
+    ModelBusy => "model-busy", 503, "Another change to this model holds its lock";
+    NoShadow => "no-shadow", 404, "The model has no shadow";
+    CannotShadow => "cannot-shadow", 422, "This version cannot shadow the live version";
+    ShadowOff => "shadow-off", 404, "Shadow scoring is off in this process";
 }
 
 impl Kind {
@@ -158,6 +174,9 @@ pub struct Details {
     pub allow: Option<&'static str>,
     /// A configured limit that was exceeded.
     pub limit: Option<u64>,
+    /// Extension members (RFC 9457 §3.2) of the admin routes' problems, such as the covariate
+    /// changes a breaking candidate makes; empty elsewhere.
+    pub extensions: serde_json::Map<String, serde_json::Value>,
 }
 
 #[derive(Serialize)]
@@ -181,6 +200,8 @@ struct Body<'a> {
     limit: Option<u64>,
     #[serde(skip_serializing_if = "<[_]>::is_empty")]
     errors: &'a [FieldError],
+    #[serde(flatten)]
+    extensions: &'a serde_json::Map<String, serde_json::Value>,
 }
 
 impl Problem {
@@ -196,7 +217,14 @@ impl Problem {
             position: None,
             allow: None,
             limit: None,
+            extensions: serde_json::Map::new(),
         }))
+    }
+
+    /// Add an extension member (a name that is not one of the standard members above).
+    pub fn extension(mut self, name: &str, value: serde_json::Value) -> Problem {
+        self.extensions.insert(name.to_string(), value);
+        self
     }
 
     /// Name the field at fault by its JSON Pointer.
@@ -253,6 +281,7 @@ impl Problem {
             column: self.position.map(|p| p.1),
             limit: self.limit,
             errors: &self.errors,
+            extensions: &self.extensions,
         };
         serde_json::to_vec(&body).unwrap_or_else(|_| b"{}".to_vec())
     }

@@ -5,6 +5,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
 
 use super::config::Settings;
+use super::shadow::Shadowing;
 use crate::metrics::monitor::Monitor;
 use crate::metrics::Metrics;
 use crate::registry::Registry;
@@ -66,6 +67,8 @@ pub struct AppState {
     pub settings: Arc<Settings>,
     /// Drift, answers and calibration; `None` when monitoring is off.
     pub monitor: Option<Monitor>,
+    /// Scoring of shadow candidates beside the live versions; `None` when it is off.
+    pub shadow: Option<Arc<Shadowing>>,
 }
 
 impl AppState {
@@ -83,6 +86,7 @@ impl AppState {
             health: Arc::new(Health::new(models_loaded)),
             settings: Arc::new(settings),
             monitor: None,
+            shadow: None,
         }
     }
 
@@ -90,6 +94,14 @@ impl AppState {
     pub fn with_monitor(self, monitor: Monitor) -> AppState {
         AppState {
             monitor: Some(monitor),
+            ..self
+        }
+    }
+
+    /// The same state with shadow scoring on (its series registered in this state's metrics).
+    pub fn with_shadow(self, shadow: Shadowing) -> AppState {
+        AppState {
+            shadow: Some(Arc::new(shadow)),
             ..self
         }
     }

@@ -15,7 +15,9 @@ use actix_web::{web, HttpResponse};
 use super::middleware::Guarded;
 use super::problem::{Kind, Problem};
 
-fn method_not_allowed(
+/// The handler of a resource's other methods: 405 with `Allow: allow` (the admin routes use
+/// it too).
+pub fn method_not_allowed(
     allow: &'static str,
 ) -> impl Fn() -> std::future::Ready<Result<HttpResponse, Problem>> + Clone {
     move || {

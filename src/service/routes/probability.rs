@@ -1,4 +1,5 @@
-//! `POST /models/{name}/probability`: one observation or a batch, scored by the live version.
+//! `POST /models/{name}/probability`: one observation or a batch, scored by the live version
+//! (and, once the answer is built, by the entry's shadow candidate, if any: `service::shadow`).
 
 use actix_web::http::header;
 use actix_web::{web, HttpMessage, HttpRequest, HttpResponse};
@@ -53,6 +54,9 @@ pub async fn probability(
         monitor.record_scored(model, request_id.as_str(), single, &values, answers);
     }
     let json = scored.to_json()?;
+    if let Some(shadow) = &state.shadow {
+        shadow.compare(&entry, &values, scored.answers());
+    }
     Ok(HttpResponse::Ok()
         .insert_header((header::CONTENT_TYPE, "application/json"))
         .body(json))

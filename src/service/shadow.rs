@@ -1,0 +1,631 @@
+//! Shadow scoring: when a model's entry has a shadow candidate, the observations of its
+//! probability requests (all of them, or a configured share) are scored by the candidate too,
+//! after the live answer is built, and only measured. The answer never changes.
+//!
+//! Per sampled observation, with p the live version's probability and q the candidate's:
+//!
+//! ```text
+//! difference     |q − p|                                   into a histogram
+//! disagreement   (p ≥ t_live) ≠ (q ≥ t_candidate)          counted
+//!                t = the model file's decision threshold, 0.5 when it sets none
+//! ```
+//!
+//! Each version decides by its own threshold, because that is the decision it would make if
+//! it were live. The candidate takes the probability-only path of the engine
+//! ([`Scorer::probability`]): no effects, intervals or warnings, so the added cost per
+//! observation is one term vector and one link evaluation.
+//!
+//! Sampling is deterministic. Counting every observation of a shadowed model from 0 across the
+//! whole process, observation g is scored when
+//!
+//! ```text
+//! ⌊(g + 1)·s⌋ > ⌊g·s⌋        (s the share, 0 ≤ s ≤ 1)
+//! ```
+//!
+//! so after N observations exactly ⌊N·s⌋ have been scored, evenly spread.
+//!
+//! A candidate may differ from the live version in its covariates (a breaking candidate
+//! uploaded with `allow_breaking`). The live version's values are carried over by covariate
+//! name, levels by level name; a covariate the candidate has but callers do not send makes it
+//! unable to shadow (refused when it is set, see [`check_shadowable`]); a sampled observation
+//! the candidate cannot take (a level it dropped, a value outside a log term's domain) is
+//! counted as unscored.
+//!
+//! The exported series, lock-free to record (the label children are looked up once per
+//! request):
+//!
+//! ```text
+//! ogive_shadow_scored_total{model,version}          counter   version = the candidate's
+//! ogive_shadow_unscored_total{model,version}        counter
+//! ogive_shadow_abs_difference{model,version}        histogram, 0.001 … 1
+//! ogive_shadow_disagreements_total{model,version}   counter
+//! ```
+//!
+//! The admin report ([`Shadowing::report`]) reads the same series, minus their values when the
+//! shadow was set through the admin listener ([`Shadowing::begin`]), so it covers the current
+//! shadowing only. The figures are this process's own; replicas each keep theirs, and shadows
+//! are not written to the model directory (a restart ends them). This module does no I/O and
+//! knows nothing of HTTP.
+
+use std::collections::HashMap;
+use std::str::FromStr;
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::{Mutex, PoisonError};
+use std::time::SystemTime;
+
+use prometheus::core::Metric as _;
+use prometheus::{HistogramOpts, HistogramVec, IntCounterVec, Opts, Registry};
+use serde::Serialize;
+
+use crate::engine::{Answer, Scorer};
+use crate::metrics::MetricsError;
+use crate::model::{CovariateKind, Model, Value};
+use crate::registry::store::history::rfc3339_utc;
+use crate::registry::Entry;
+
+/// Upper bounds of the absolute-difference histogram: from a difference no caller would notice
+/// to the largest possible one (a project choice).
+pub const DIFFERENCE_BUCKETS: [f64; 10] =
+    [0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0];
+
+/// The decision threshold of a model file that sets none.
+pub const DEFAULT_THRESHOLD: f64 = 0.5;
+
+/// The share of observations scored by a shadow, in [0, 1].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Share(f64);
+
+/// A share outside [0, 1], or not a number.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("the shadow share must be a number from 0 to 1, got {0:?}")]
+pub struct BadShare(pub String);
+
+impl Share {
+    /// Every observation.
+    pub const ALL: Share = Share(1.0);
+
+    /// A share, if `share` is in [0, 1].
+    pub fn new(share: f64) -> Result<Share, BadShare> {
+        if (0.0..=1.0).contains(&share) {
+            Ok(Share(share))
+        } else {
+            Err(BadShare(share.to_string()))
+        }
+    }
+
+    /// The share as a number.
+    pub fn get(self) -> f64 {
+        self.0
+    }
+
+    /// Whether observation `g` (counted from 0) is scored.
+    pub fn samples(self, g: u64) -> bool {
+        if self.0 >= 1.0 {
+            return true;
+        }
+        ((g + 1) as f64 * self.0).floor() > (g as f64 * self.0).floor()
+    }
+}
+
+impl Default for Share {
+    fn default() -> Share {
+        Share::ALL
+    }
+}
+
+impl FromStr for Share {
+    type Err = BadShare;
+
+    fn from_str(text: &str) -> Result<Share, BadShare> {
+        let share: f64 = text
+            .trim()
+            .parse()
+            .map_err(|_| BadShare(text.to_string()))?;
+        Share::new(share).map_err(|_| BadShare(text.to_string()))
+    }
+}
+
+/// Why a candidate cannot shadow the live version.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum CannotShadow {
+    /// The candidate is the live version.
+    #[error("version '{version}' is the live version of '{model}'; a shadow is another version scored beside it")]
+    IsLive {
+        /// The model.
+        model: String,
+        /// The version.
+        version: String,
+    },
+    /// The candidate needs a covariate that callers of the live version do not send.
+    #[error("version '{candidate}' needs covariate '{covariate}', which callers of live version '{live}' do not send, so it cannot be scored on their requests")]
+    Missing {
+        /// The candidate's version.
+        candidate: String,
+        /// The live version.
+        live: String,
+        /// The covariate.
+        covariate: String,
+    },
+    /// A covariate is categorical in one version and numeric in the other.
+    #[error("covariate '{covariate}' is {live_kind} in live version '{live}' but {candidate_kind} in version '{candidate}', so its values cannot be carried over")]
+    KindMismatch {
+        /// The candidate's version.
+        candidate: String,
+        /// The live version.
+        live: String,
+        /// The covariate.
+        covariate: String,
+        /// Its kind in the live version.
+        live_kind: &'static str,
+        /// Its kind in the candidate.
+        candidate_kind: &'static str,
+    },
+}
+
+/// Where a candidate's covariate value comes from in the live version's values.
+#[derive(Debug, Clone)]
+enum Source {
+    /// The number at this live covariate index.
+    Number(usize),
+    /// The level at this live covariate index, mapped to the candidate's level index.
+    Level(usize, Vec<Option<usize>>),
+}
+
+/// How to build a candidate's values from the live version's values.
+#[derive(Debug, Clone)]
+enum Translation {
+    /// The covariates are the same, in the same order, with the same levels.
+    Identity,
+    /// One source per candidate covariate.
+    Mapped(Vec<Source>),
+}
+
+fn same_layout(live: &Model, candidate: &Model) -> bool {
+    live.covariates.len() == candidate.covariates.len()
+        && live
+            .covariates
+            .iter()
+            .zip(&candidate.covariates)
+            .all(|(a, b)| a.name == b.name && a.kind == b.kind && a.levels == b.levels)
+}
+
+fn translation(live: &Model, candidate: &Model) -> Result<Translation, CannotShadow> {
+    if same_layout(live, candidate) {
+        return Ok(Translation::Identity);
+    }
+    let mut sources = Vec::with_capacity(candidate.covariates.len());
+    for covariate in &candidate.covariates {
+        let Some(j) = live.covariate_index(&covariate.name) else {
+            return Err(CannotShadow::Missing {
+                candidate: candidate.version().to_string(),
+                live: live.version().to_string(),
+                covariate: covariate.name.clone(),
+            });
+        };
+        let old = &live.covariates[j];
+        let categorical = (
+            old.kind == CovariateKind::Categorical,
+            covariate.kind == CovariateKind::Categorical,
+        );
+        sources.push(match categorical {
+            (false, false) => Source::Number(j),
+            (true, true) => Source::Level(
+                j,
+                old.levels
+                    .iter()
+                    .map(|l| covariate.levels.iter().position(|m| m == l))
+                    .collect(),
+            ),
+            _ => {
+                return Err(CannotShadow::KindMismatch {
+                    candidate: candidate.version().to_string(),
+                    live: live.version().to_string(),
+                    covariate: covariate.name.clone(),
+                    live_kind: old.kind.name(),
+                    candidate_kind: covariate.kind.name(),
+                })
+            }
+        });
+    }
+    Ok(Translation::Mapped(sources))
+}
+
+/// Whether `candidate` can shadow `live`: it is another version, and every covariate it needs
+/// can be carried over from what callers of `live` send.
+pub fn check_shadowable(live: &Model, candidate: &Model) -> Result<(), CannotShadow> {
+    if live.version() == candidate.version() {
+        return Err(CannotShadow::IsLive {
+            model: live.name().to_string(),
+            version: live.version().to_string(),
+        });
+    }
+    translation(live, candidate).map(|_| ())
+}
+
+impl Translation {
+    /// The candidate's probability for one observation of the live version's values, or
+    /// `None` if the candidate cannot take it.
+    fn probability(
+        &self,
+        candidate: &Model,
+        observation: &[Value],
+        buffer: &mut Vec<Value>,
+    ) -> Option<f64> {
+        let values: &[Value] = match self {
+            Translation::Identity => observation,
+            Translation::Mapped(sources) => {
+                buffer.clear();
+                for source in sources {
+                    buffer.push(match source {
+                        Source::Number(j) => match observation[*j] {
+                            Value::Number(x) => Value::Number(x),
+                            _ => return None,
+                        },
+                        Source::Level(j, levels) => match observation[*j] {
+                            Value::Level(l) => Value::Level(levels.get(l).copied().flatten()?),
+                            _ => return None,
+                        },
+                    });
+                }
+                buffer
+            }
+        };
+        candidate.check_values(values).ok()?;
+        let p = Scorer::probability(candidate, values);
+        p.is_finite().then_some(p)
+    }
+}
+
+/// The decision threshold of `model`: its file's, or [`DEFAULT_THRESHOLD`].
+pub fn threshold(model: &Model) -> f64 {
+    model
+        .file
+        .decision
+        .as_ref()
+        .and_then(|d| d.threshold)
+        .unwrap_or(DEFAULT_THRESHOLD)
+}
+
+/// The series' values for one model and candidate version at one instant.
+#[derive(Debug, Clone, Default, PartialEq)]
+struct Figures {
+    scored: u64,
+    unscored: u64,
+    disagreements: u64,
+    difference_sum: f64,
+    /// Cumulative counts at each of [`DIFFERENCE_BUCKETS`].
+    cumulative: Vec<u64>,
+}
+
+/// A shadowing begun through the admin listener.
+#[derive(Debug, Clone)]
+struct Run {
+    candidate: String,
+    live_at_start: String,
+    since: String,
+    baseline: Figures,
+}
+
+/// Shadow scoring: the sampling share, the series, and the shadowings begun.
+#[derive(Debug)]
+pub struct Shadowing {
+    share: Share,
+    seen: AtomicU64,
+    scored: IntCounterVec,
+    unscored: IntCounterVec,
+    abs_difference: HistogramVec,
+    disagreements: IntCounterVec,
+    runs: Mutex<HashMap<String, Run>>,
+}
+
+/// One bin of the difference histogram: differences in (`above`, `up_to`] (the first bin
+/// includes 0).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Bin {
+    /// The lower bound (exclusive, except 0 for the first bin).
+    pub above: f64,
+    /// The upper bound (inclusive).
+    pub up_to: f64,
+    /// Observations whose difference falls in the bin.
+    pub count: u64,
+}
+
+/// The decision thresholds the disagreement rate is counted with.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Thresholds {
+    /// The live version's.
+    pub live: f64,
+    /// The candidate's.
+    pub shadow: f64,
+}
+
+/// What shadow scoring has measured for one model's current shadow.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ShadowReport {
+    /// The model.
+    pub model: String,
+    /// The live version now.
+    pub live_version: String,
+    /// The candidate.
+    pub shadow_version: String,
+    /// The share of observations sampled.
+    pub share: f64,
+    /// When the shadow was set through the admin listener (RFC 3339, UTC); `null` when the
+    /// figures count from the start of the process.
+    pub since: Option<String>,
+    /// The live version when the shadow was set (the figures compare against whichever version
+    /// was live at each request).
+    pub live_version_at_start: Option<String>,
+    /// Observations scored by the candidate.
+    pub scored: u64,
+    /// Sampled observations the candidate could not score.
+    pub unscored: u64,
+    /// The mean of |q − p| over the scored observations; `null` before the first.
+    pub mean_abs_difference: Option<f64>,
+    /// The distribution of |q − p|.
+    pub difference_histogram: Vec<Bin>,
+    /// Observations on which the two versions decide differently.
+    pub disagreements: u64,
+    /// `disagreements / scored`; `null` before the first.
+    pub disagreement_rate: Option<f64>,
+    /// The thresholds of each version's decision.
+    pub thresholds: Thresholds,
+}
+
+impl Shadowing {
+    /// Shadow scoring of `share` of the observations, its series registered in `registry`.
+    pub fn new(share: Share, registry: &Registry) -> Result<Shadowing, MetricsError> {
+        let labels = &["model", "version"];
+        let scored = IntCounterVec::new(
+            Opts::new(
+                "ogive_shadow_scored_total",
+                "Observations also scored by a shadow candidate, by model and candidate version.",
+            ),
+            labels,
+        )?;
+        let unscored = IntCounterVec::new(
+            Opts::new(
+                "ogive_shadow_unscored_total",
+                "Sampled observations a shadow candidate could not score (a level or value it does not take), by model and candidate version.",
+            ),
+            labels,
+        )?;
+        let abs_difference = HistogramVec::new(
+            HistogramOpts::new(
+                "ogive_shadow_abs_difference",
+                "Absolute difference between a shadow candidate's probability and the live version's, by model and candidate version.",
+            )
+            .buckets(DIFFERENCE_BUCKETS.to_vec()),
+            labels,
+        )?;
+        let disagreements = IntCounterVec::new(
+            Opts::new(
+                "ogive_shadow_disagreements_total",
+                "Observations on which a shadow candidate and the live version fall on different sides of their decision thresholds, by model and candidate version.",
+            ),
+            labels,
+        )?;
+        registry.register(Box::new(scored.clone()))?;
+        registry.register(Box::new(unscored.clone()))?;
+        registry.register(Box::new(abs_difference.clone()))?;
+        registry.register(Box::new(disagreements.clone()))?;
+        Ok(Shadowing {
+            share,
+            seen: AtomicU64::new(0),
+            scored,
+            unscored,
+            abs_difference,
+            disagreements,
+            runs: Mutex::new(HashMap::new()),
+        })
+    }
+
+    /// The share of observations sampled.
+    pub fn share(&self) -> Share {
+        self.share
+    }
+
+    /// Score the sampled observations of one answered request with `entry`'s shadow, if it has
+    /// one, and record the comparison. `values` are the request's observations as the live
+    /// version parsed them (`answers.len()` × its covariates), `answers` the live answers.
+    /// Call it after the live answer is built; it changes nothing the caller sees.
+    pub fn compare(&self, entry: &Entry, values: &[Value], answers: &[Answer]) {
+        let Some(candidate) = entry.shadow.as_deref() else {
+            return;
+        };
+        let live = &*entry.live;
+        if candidate.version() == live.version() || answers.is_empty() || self.share.get() <= 0.0 {
+            return;
+        }
+        let width = live.covariates.len();
+        if values.len() != answers.len() * width {
+            return;
+        }
+        let first = self.seen.fetch_add(answers.len() as u64, Ordering::Relaxed);
+        let Ok(translation) = translation(live, candidate) else {
+            // Refused when the shadow is set; a live version swapped in since may no longer
+            // carry what the candidate needs.
+            let sampled = (0..answers.len() as u64)
+                .filter(|i| self.share.samples(first + i))
+                .count();
+            self.unscored
+                .with_label_values(&[live.name(), candidate.version()])
+                .inc_by(sampled as u64);
+            return;
+        };
+        let histogram = self
+            .abs_difference
+            .with_label_values(&[live.name(), candidate.version()]);
+        let (live_threshold, candidate_threshold) = (threshold(live), threshold(candidate));
+        let mut buffer = Vec::new();
+        let (mut scored, mut unscored, mut disagreements) = (0u64, 0u64, 0u64);
+        for (i, answer) in answers.iter().enumerate() {
+            if !self.share.samples(first + i as u64) {
+                continue;
+            }
+            let observation = &values[i * width..(i + 1) * width];
+            let Some(q) = translation.probability(candidate, observation, &mut buffer) else {
+                unscored += 1;
+                continue;
+            };
+            let p = answer.probability;
+            histogram.observe((q - p).abs());
+            scored += 1;
+            if (p >= live_threshold) != (q >= candidate_threshold) {
+                disagreements += 1;
+            }
+        }
+        let labels = [live.name(), candidate.version()];
+        if scored > 0 {
+            self.scored.with_label_values(&labels).inc_by(scored);
+        }
+        if unscored > 0 {
+            self.unscored.with_label_values(&labels).inc_by(unscored);
+        }
+        if disagreements > 0 {
+            self.disagreements
+                .with_label_values(&labels)
+                .inc_by(disagreements);
+        }
+    }
+
+    fn figures(&self, model: &str, candidate: &str) -> Figures {
+        let labels = [model, candidate];
+        let histogram = self.abs_difference.with_label_values(&labels).metric();
+        let histogram = histogram.get_histogram();
+        Figures {
+            scored: self.scored.with_label_values(&labels).get(),
+            unscored: self.unscored.with_label_values(&labels).get(),
+            disagreements: self.disagreements.with_label_values(&labels).get(),
+            difference_sum: histogram.get_sample_sum(),
+            cumulative: histogram
+                .get_bucket()
+                .iter()
+                .map(|b| b.cumulative_count())
+                .collect(),
+        }
+    }
+
+    /// Note that `candidate` now shadows version `live` of `model` (the admin listener calls
+    /// this when it sets a shadow), so that the report counts from here.
+    pub fn begin(&self, model: &str, live: &str, candidate: &str) {
+        let run = Run {
+            candidate: candidate.to_string(),
+            live_at_start: live.to_string(),
+            since: rfc3339_utc(SystemTime::now()),
+            baseline: self.figures(model, candidate),
+        };
+        self.runs
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner)
+            .insert(model.to_string(), run);
+    }
+
+    /// Forget the shadowing of `model` (its shadow was cleared).
+    pub fn end(&self, model: &str) {
+        self.runs
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner)
+            .remove(model);
+    }
+
+    /// The report on `entry`'s shadow, or `None` when it has none.
+    pub fn report(&self, entry: &Entry) -> Option<ShadowReport> {
+        let candidate = entry.shadow.as_deref()?;
+        let live = &*entry.live;
+        let model = live.name();
+        let run = self
+            .runs
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner)
+            .get(model)
+            .filter(|run| run.candidate == candidate.version())
+            .cloned();
+        let now = self.figures(model, candidate.version());
+        let zero = Figures::default();
+        let base = run.as_ref().map_or(&zero, |run| &run.baseline);
+        let scored = now.scored.saturating_sub(base.scored);
+        let disagreements = now.disagreements.saturating_sub(base.disagreements);
+        let cumulative: Vec<u64> = now
+            .cumulative
+            .iter()
+            .enumerate()
+            .map(|(i, c)| c.saturating_sub(base.cumulative.get(i).copied().unwrap_or(0)))
+            .collect();
+        let mut lower = 0.0;
+        let mut below = 0;
+        let difference_histogram = DIFFERENCE_BUCKETS
+            .iter()
+            .zip(&cumulative)
+            .map(|(&up_to, &at_most)| {
+                let bin = Bin {
+                    above: lower,
+                    up_to,
+                    count: at_most.saturating_sub(below),
+                };
+                (lower, below) = (up_to, at_most);
+                bin
+            })
+            .collect();
+        let rate = |count: u64| (scored > 0).then(|| count as f64 / scored as f64);
+        Some(ShadowReport {
+            model: model.to_string(),
+            live_version: live.version().to_string(),
+            shadow_version: candidate.version().to_string(),
+            share: self.share.get(),
+            since: run.as_ref().map(|r| r.since.clone()),
+            live_version_at_start: run.as_ref().map(|r| r.live_at_start.clone()),
+            scored,
+            unscored: now.unscored.saturating_sub(base.unscored),
+            mean_abs_difference: (scored > 0)
+                .then(|| (now.difference_sum - base.difference_sum).max(0.0) / scored as f64),
+            difference_histogram,
+            disagreements,
+            disagreement_rate: rate(disagreements),
+            thresholds: Thresholds {
+                live: threshold(live),
+                shadow: threshold(candidate),
+            },
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_share_is_kept_over_every_prefix_and_spread_evenly() {
+        for s in [0.0, 0.1, 0.25, 1.0 / 3.0, 0.5, 0.9, 1.0] {
+            let share = Share::new(s).expect("a share");
+            let picks: Vec<bool> = (0..10_000u64).map(|g| share.samples(g)).collect();
+            let mut scored = 0.0;
+            for (n, &pick) in picks.iter().enumerate() {
+                scored += f64::from(u8::from(pick));
+                let expected = (n + 1) as f64 * s;
+                assert!(
+                    (scored - expected).abs() < 1.0,
+                    "share {s}: {scored} of {}",
+                    n + 1
+                );
+            }
+            for window in picks.windows(10) {
+                let count = window.iter().filter(|&&p| p).count() as f64;
+                let (low, high) = ((10.0 * s).floor(), (10.0 * s).ceil());
+                assert!(
+                    count >= low && count <= high,
+                    "share {s}: {count} in a window of 10"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn shares_outside_zero_to_one_are_refused() {
+        for text in ["-0.1", "1.5", "NaN", "half", ""] {
+            assert!(text.parse::<Share>().is_err(), "{text}");
+        }
+        assert_eq!("0.25".parse::<Share>(), Ok(Share(0.25)));
+        assert_eq!(" 1 ".parse::<Share>(), Ok(Share::ALL));
+    }
+}
