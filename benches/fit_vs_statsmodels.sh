@@ -1,0 +1,47 @@
+#!/usr/bin/env bash
+# Benchmark: `ogive fit` (release build) against the Python pipeline pandas.read_csv +
+# statsmodels Logit(...).fit() / Probit(...).fit(), both as whole processes, on the same
+# generated CSV of ROWS rows × 10 covariates, in the same run. Prints for each link the wall
+# times and their ratio, the peak resident memory of each process, and the largest relative
+# coefficient difference. Goal: ≥ 10× faster, coefficients equal to 1e-6, less peak memory.
+#
+# Usage: bash benches/fit_vs_statsmodels.sh [ROWS]     (default 1000000; needs python3 with
+# numpy, pandas and statsmodels)
+set -euo pipefail
+
+root="$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)"
+cd "$root"
+rows="${1:-1000000}"
+helper=benches/fit_vs_statsmodels.py
+work="$(mktemp -d)"
+trap 'rm -rf "$work"' EXIT
+
+cargo build --release --quiet --bin ogive
+ogive="$root/target/release/ogive"
+
+echo "generating $rows rows × 10 covariates"
+python3 "$helper" generate "$work/data.csv" "$rows"
+ls -l "$work/data.csv" | awk '{printf "CSV size: %.1f MB\n", $5 / 1e6}'
+terms="x1, x2, x3, x4, x5, x6, x7, b1, b2, b3"
+
+field() { python3 -c "import json,sys; print(json.load(open(sys.argv[1]))[sys.argv[2]])" "$1" "$2"; }
+
+printf '\n%-7s %12s %12s %8s %14s %14s %12s\n' link "ogive s" "python s" ratio "ogive MiB" "python MiB" "max rel diff"
+for link in logit probit; do
+    python3 "$helper" measure "$work/ogive-$link.time" -- \
+        "$ogive" fit --data "$work/data.csv" --outcome y --terms "$terms" --link "$link" \
+        --name bench --version 1 --out "$work/$link.json"
+    python3 "$helper" measure "$work/python-$link.time" -- \
+        python3 "$helper" statsmodels "$work/data.csv" "$link" "$work/$link-statsmodels.json"
+    ours_s=$(field "$work/ogive-$link.time" seconds)
+    theirs_s=$(field "$work/python-$link.time" seconds)
+    ours_kib=$(field "$work/ogive-$link.time" peak_kib)
+    theirs_kib=$(field "$work/python-$link.time" peak_kib)
+    diff=$(python3 "$helper" compare "$work/$link.json" "$work/$link-statsmodels.json")
+    python3 - "$link" "$ours_s" "$theirs_s" "$ours_kib" "$theirs_kib" "$diff" <<'PY'
+import sys
+link, a, b, ma, mb, d = sys.argv[1:]
+a, b, ma, mb = float(a), float(b), float(ma) / 1024, float(mb) / 1024
+print("%-7s %12.3f %12.3f %7.1fx %14.1f %14.1f %12s" % (link, a, b, b / a, ma, mb, d))
+PY
+done

@@ -1,0 +1,60 @@
+#!/usr/bin/env bash
+# Regenerate the demo data and fit the two demo models into model-files/, laid out as
+#
+#   model-files/NAME/versions/VERSION.json   the fitted model file
+#   model-files/NAME/live                    the live version's name
+#   model-files/NAME/history.jsonl           empty: no promotion has happened yet
+#
+# Usage (from anywhere):  bash demo-data/fit-demo-models.sh
+# Uses $OGIVE if set, otherwise builds the release binary. The fit time recorded in the files
+# is fixed (SOURCE_DATE_EPOCH), so a rerun reproduces the committed files byte for byte.
+set -euo pipefail
+
+root="$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)"
+cd "$root"
+
+python3 demo-data/generate.py
+
+if [[ -z "${OGIVE:-}" ]]; then
+    cargo build --release --quiet --bin ogive
+    OGIVE="$root/target/release/ogive"
+fi
+export SOURCE_DATE_EPOCH=1767225600 # 2026-01-01T00:00:00Z
+VERSION=1.0.0
+
+layout() {
+    local name="$1"
+    mkdir -p "model-files/$name/versions"
+    printf '%s\n' "$VERSION" >"model-files/$name/live"
+    : >"model-files/$name/history.jsonl"
+}
+
+layout lease-arrears
+"$OGIVE" fit \
+    --data demo-data/lease-arrears.csv \
+    --outcome arrears_60d \
+    --outcome-meaning "the lease fell 60 or more days behind within a year of signing" \
+    --terms "log(annual_revenue), years_trading, years_trading^2, prior_arrears, guarantor, years_trading*guarantor, sector" \
+    --categorical sector \
+    --unit annual_revenue="thousand EUR" --unit years_trading=years --unit prior_arrears=leases \
+    --link logit \
+    --threshold 0.3 --band low=0.08 --band medium=0.2 --band high=1 \
+    --name lease-arrears --version "$VERSION" \
+    --description "Invented demo: a fictional equipment lessor's probability that a small-business lease falls 60+ days behind within a year." \
+    --out "model-files/lease-arrears/versions/$VERSION.json"
+
+layout rebate-uptake
+"$OGIVE" fit \
+    --data demo-data/rebate-uptake.csv \
+    --outcome took_rebate \
+    --outcome-meaning "the household took up the offered energy-efficiency rebate" \
+    --terms "household_income, dwelling_age, occupants, owner_occupied, energy_audit, heating" \
+    --categorical heating=gas --count occupants --continuous dwelling_age \
+    --unit household_income="thousand EUR" --unit dwelling_age=years --unit occupants=people \
+    --link probit \
+    --name rebate-uptake --version "$VERSION" \
+    --description "Invented demo: a fictional energy office's probability that a household takes up an offered rebate." \
+    --out "model-files/rebate-uptake/versions/$VERSION.json"
+
+"$OGIVE" check model-files/lease-arrears/versions/$VERSION.json model-files/rebate-uptake/versions/$VERSION.json >/dev/null
+echo "demo models written and checked"
