@@ -233,6 +233,7 @@ fn text_report_has_every_section_and_the_cautions() {
 
 /// A panel of a plot and its data-to-pixel mapping, read from its data attributes.
 struct Panel {
+    log: bool,
     x: (f64, f64),
     y: (f64, f64),
     left: f64,
@@ -250,6 +251,11 @@ impl Panel {
                 .expect("number")
         };
         Panel {
+            log: match node.attribute("data-x-scale") {
+                Some("log") => true,
+                Some("linear") => false,
+                other => panic!("data-x-scale is {other:?}"),
+            },
             x: (get("data-x-min"), get("data-x-max")),
             y: (get("data-y-min"), get("data-y-max")),
             left: get("data-left"),
@@ -259,8 +265,27 @@ impl Panel {
         }
     }
 
+    fn scaled(&self, x: f64) -> f64 {
+        if self.log {
+            x.ln()
+        } else {
+            x
+        }
+    }
+
     fn data_x(&self, px: f64) -> f64 {
-        self.x.0 + (px - self.left) / self.width * (self.x.1 - self.x.0)
+        let (a, b) = (self.scaled(self.x.0), self.scaled(self.x.1));
+        let s = a + (px - self.left) / self.width * (b - a);
+        if self.log {
+            s.exp()
+        } else {
+            s
+        }
+    }
+
+    fn pixel_x(&self, x: f64) -> f64 {
+        let (a, b) = (self.scaled(self.x.0), self.scaled(self.x.1));
+        self.left + (self.scaled(x) - a) / (b - a) * self.width
     }
 
     fn data_y(&self, py: f64) -> f64 {
@@ -293,8 +318,9 @@ fn path_of<'a>(panel: roxmltree::Node<'a, 'a>, quantity: &str) -> Vec<(f64, f64)
     vertices(node.attribute("d").expect("d"))
 }
 
-/// Check every vertex of the probability and effect curves and bands against the engine.
-fn check_plot(model: &Model, covariate: usize, svg: &str) {
+/// Check every vertex of the probability and effect curves and bands against the engine;
+/// returns whether the x axis is logarithmic.
+fn check_plot(model: &Model, covariate: usize, svg: &str) -> bool {
     let document = roxmltree::Document::parse(svg).expect("the SVG is well-formed XML");
     let root = document.root_element();
     assert_eq!(root.tag_name().name(), "svg");
@@ -370,16 +396,16 @@ fn check_plot(model: &Model, covariate: usize, svg: &str) {
             (effect_panel.data_y(effect_band[2 * n - 1 - i].1) - e_interval.lower).abs() <= tol
         );
     }
-    // The shaded training range spans exactly [min, max] in data units.
+    // The shaded training range spans exactly [min, max] (to the 1/1000 pixel written).
     let range = probability_node
         .descendants()
         .find(|n| n.attribute("class") == Some("training-range"))
         .expect("training range");
     let left: f64 = range.attribute("x").unwrap().parse().unwrap();
     let width: f64 = range.attribute("width").unwrap().parse().unwrap();
-    let x_tol = 1e-3 * (probability_panel.x.1 - probability_panel.x.0) / probability_panel.width;
-    assert!((probability_panel.data_x(left) - c.training_min).abs() <= x_tol);
-    assert!((probability_panel.data_x(left + width) - c.training_max).abs() <= x_tol);
+    assert!((left - probability_panel.pixel_x(c.training_min)).abs() <= 2e-3);
+    assert!((left + width - probability_panel.pixel_x(c.training_max)).abs() <= 2e-3);
+    probability_panel.log
 }
 
 fn plots_for(model_json: &Json) -> (Model, Vec<(String, String)>, Json) {
@@ -413,7 +439,7 @@ fn spector_plots_parse_and_follow_the_engine() {
             let covariate = model
                 .covariate_index(name.trim_end_matches(".svg"))
                 .unwrap();
-            check_plot(&model, covariate, svg);
+            assert!(!check_plot(&model, covariate, svg), "{name}: linear axis");
         }
     }
 }
@@ -433,6 +459,11 @@ fn plots_of_a_model_with_logs_squares_and_levels_follow_the_engine() {
         let covariate = model
             .covariate_index(name.trim_end_matches(".svg"))
             .unwrap();
-        check_plot(&model, covariate, svg);
+        // revenue enters as log(revenue) and spans 20 to 5000: a log axis; years: linear.
+        assert_eq!(
+            check_plot(&model, covariate, svg),
+            name == "revenue.svg",
+            "{name}"
+        );
     }
 }

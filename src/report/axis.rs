@@ -36,6 +36,31 @@ pub fn ticks(low: f64, high: f64, target: usize) -> Vec<f64> {
         .collect()
 }
 
+/// Ticks for a logarithmic axis over `[low, high]` (both > 0): 1, 2 and 5 × 10^k, thinned to
+/// the powers of ten when there would be more than nine, filled in with every digit when there
+/// would be fewer than three.
+pub fn log_ticks(low: f64, high: f64) -> Vec<f64> {
+    if !(low > 0.0 && high > low) {
+        return Vec::new();
+    }
+    let first = low.log10().floor() as i32;
+    let last = high.log10().ceil() as i32;
+    let pick = |mantissas: &[f64]| -> Vec<f64> {
+        (first..=last)
+            .flat_map(|k| mantissas.iter().map(move |m| m * 10f64.powi(k)))
+            .filter(|t| *t >= low * (1.0 - 1e-12) && *t <= high * (1.0 + 1e-12))
+            .collect()
+    };
+    let ticks = pick(&[1.0, 2.0, 5.0]);
+    if ticks.len() > 9 {
+        pick(&[1.0])
+    } else if ticks.len() < 3 {
+        pick(&[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0])
+    } else {
+        ticks
+    }
+}
+
 /// The smallest range with nice ends that holds `[low, high]`.
 pub fn nice_range(low: f64, high: f64, target: usize) -> (f64, f64) {
     let (low, high) = if high > low {
@@ -107,6 +132,11 @@ mod tests {
         assert_eq!(tick_label(0.6, 0.2), "0.6");
         assert_eq!(tick_label(-0.0, 0.05), "0.00");
         assert_eq!(tick_label(1500.0, 500.0), "1500");
+        assert_eq!(
+            log_ticks(14.0, 7200.0),
+            vec![20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0, 5000.0]
+        );
+        assert_eq!(log_ticks(2.0, 7.0), vec![2.0, 3.0, 4.0, 5.0, 6.0, 7.0]);
     }
 
     #[test]

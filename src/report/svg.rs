@@ -3,18 +3,21 @@
 //! training shares), written directly as SVG text — no script, no browser needed.
 //!
 //! The curve runs over the training range extended by a tenth of its width on each side (not
-//! below 0 for a covariate whose training values are all non-negative, and staying positive for
-//! one that is logged), so a reviewer sees where the model extrapolates. The training range is
+//! below 0 for a covariate whose training values are all non-negative), so a reviewer sees where
+//! the model extrapolates. A covariate that enters the model through a `log(x)` term and whose
+//! training range spans a factor of ten or more is drawn on a logarithmic x axis (extended by a
+//! tenth of its width in log units), where its curve is read most easily. The training range is
 //! shaded in both panels, the training mean is marked, the interval band surrounds each curve,
-//! and the point where the effect is largest in magnitude is marked.
+//! and the point of the training range where the effect is largest in magnitude is marked.
 //!
 //! Every value drawn comes from the engine ([`Scorer`]); this module only places it. Each panel
 //! is a `<g class="panel">` whose data attributes give its mapping from data to pixels, so a
 //! reader (or a test) can turn any path vertex back into numbers:
 //!
 //! ```text
-//! px = data-left + (x − data-x-min) / (data-x-max − data-x-min) · data-width
+//! px = data-left + (s(x) − s(data-x-min)) / (s(data-x-max) − s(data-x-min)) · data-width
 //! py = data-top  + (data-y-max − y) / (data-y-max − data-y-min) · data-height
+//! s(x) = x, or ln x where data-x-scale="log"
 //! ```
 //!
 //! Inside a panel, `<path class="curve">` is the curve (one vertex per grid point, in order of
@@ -24,7 +27,7 @@
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
-use super::axis::{format_number, nice_range, nice_step, tick_label, ticks};
+use super::axis::{format_number, log_ticks, nice_range, nice_step, tick_label, ticks};
 use super::text::percent;
 use crate::engine::{effect_slots, Options, Scorer};
 use crate::model::{CovariateKind, Model, Value};
@@ -33,6 +36,9 @@ use crate::model::{CovariateKind, Model, Value};
 pub const GRID_POINTS: usize = 161;
 /// The share of the training range's width added on each side of it.
 pub const EXTENSION: f64 = 0.1;
+/// A logged covariate whose training maximum is at least this multiple of its minimum gets a
+/// logarithmic x axis.
+pub const LOG_AXIS_RATIO: f64 = 10.0;
 
 const WIDTH: f64 = 760.0;
 const HEIGHT: f64 = 660.0;
@@ -48,6 +54,9 @@ const BAND_COLOUR: &str = "#8fb3de";
 const RANGE_COLOUR: &str = "#ecebe4";
 const EFFECT_COLOUR: &str = "#a3470f";
 const EFFECT_BAND_COLOUR: &str = "#f0b98d";
+/// A white outline drawn under a label's letters, so it stays readable over curves and bands.
+const HALO: &str =
+    r#"stroke="white" stroke-width="3" stroke-linejoin="round" paint-order="stroke""#;
 
 /// Why a plot could not be made or written.
 #[derive(Debug, thiserror::Error)]
@@ -88,12 +97,25 @@ pub fn plotted_covariates(model: &Model) -> Vec<usize> {
         .collect()
 }
 
+/// Whether a covariate's plot has a logarithmic x axis: a term takes its log and its training
+/// range spans a factor of at least [`LOG_AXIS_RATIO`].
+pub fn log_axis(model: &Model, covariate: usize) -> bool {
+    let c = &model.covariates[covariate];
+    model.log_terms.iter().any(|&(_, j)| j == covariate)
+        && c.training_min > 0.0
+        && c.training_max / c.training_min >= LOG_AXIS_RATIO
+}
+
 /// The x range of a covariate's plot: its training range extended by [`EXTENSION`] of its
-/// width on each side, not below 0 if the training minimum is ≥ 0, and above 0 (at least half
-/// the training minimum) if a term takes its log.
+/// width on each side (of its width in log units on a log axis), not below 0 if the training
+/// minimum is ≥ 0, and above 0 (at least half the training minimum) if a term takes its log.
 pub fn plot_range(model: &Model, covariate: usize) -> (f64, f64) {
     let c = &model.covariates[covariate];
     let (min, max) = (c.training_min, c.training_max);
+    if log_axis(model, covariate) {
+        let factor = (EXTENSION * (max / min).ln()).exp();
+        return (min / factor, max * factor);
+    }
     let span = if max > min {
         max - min
     } else {
@@ -110,8 +132,8 @@ pub fn plot_range(model: &Model, covariate: usize) -> (f64, f64) {
     (low, high)
 }
 
-/// The engine's probability and effect at `points` evenly spaced values over the plot range,
-/// other covariates at the mean profile.
+/// The engine's probability and effect at `points` values over the plot range, evenly spaced
+/// along its axis (in ln x on a log axis), other covariates at the mean profile.
 pub fn curve(
     model: &Model,
     covariate: usize,
@@ -127,6 +149,7 @@ pub fn curve(
         .position(|s| s.covariate == covariate)
         .ok_or_else(|| PlotError::NotContinuous(c.name.clone()))?;
     let (low, high) = plot_range(model, covariate);
+    let log = log_axis(model, covariate);
     let mut options = *options;
     options.effects = true;
     options.intervals = true;
@@ -137,7 +160,12 @@ pub fn curve(
     let n = points.max(2);
     let mut out = Vec::with_capacity(n);
     for i in 0..n {
-        let x = low + (high - low) * i as f64 / (n - 1) as f64;
+        let t = i as f64 / (n - 1) as f64;
+        let x = if log {
+            (low.ln() + (high.ln() - low.ln()) * t).exp()
+        } else {
+            low + (high - low) * t
+        };
         values[covariate] = Value::Number(x);
         let answer = scorer.score(model, &values, &options);
         let effect = answer.effects[slot];
@@ -160,11 +188,21 @@ struct Panel {
     height: f64,
     x: (f64, f64),
     y: (f64, f64),
+    x_log: bool,
 }
 
 impl Panel {
+    fn scale(&self, x: f64) -> f64 {
+        if self.x_log {
+            x.ln()
+        } else {
+            x
+        }
+    }
+
     fn px(&self, x: f64) -> f64 {
-        self.left + (x - self.x.0) / (self.x.1 - self.x.0) * self.width
+        let (a, b) = (self.scale(self.x.0), self.scale(self.x.1));
+        self.left + (self.scale(x) - a) / (b - a) * self.width
     }
 
     fn py(&self, y: f64) -> f64 {
@@ -174,8 +212,16 @@ impl Panel {
     fn open(&self, svg: &mut String, id: &str) {
         let _ = writeln!(
             svg,
-            r#"<g class="panel" id="{id}" data-x-min="{}" data-x-max="{}" data-y-min="{}" data-y-max="{}" data-left="{}" data-top="{}" data-width="{}" data-height="{}">"#,
-            self.x.0, self.x.1, self.y.0, self.y.1, self.left, self.top, self.width, self.height
+            r#"<g class="panel" id="{id}" data-x-scale="{}" data-x-min="{}" data-x-max="{}" data-y-min="{}" data-y-max="{}" data-left="{}" data-top="{}" data-width="{}" data-height="{}">"#,
+            if self.x_log { "log" } else { "linear" },
+            self.x.0,
+            self.x.1,
+            self.y.0,
+            self.y.1,
+            self.left,
+            self.top,
+            self.width,
+            self.height
         );
     }
 
@@ -276,7 +322,12 @@ impl Panel {
             );
         }
         let x_step = nice_step(self.x.1 - self.x.0, 7);
-        for t in ticks(self.x.0, self.x.1, 7) {
+        let x_ticks = if self.x_log {
+            log_ticks(self.x.0, self.x.1)
+        } else {
+            ticks(self.x.0, self.x.1, 7)
+        };
+        for t in x_ticks {
             let x = self.px(t);
             let bottom = self.top + self.height;
             let _ = writeln!(
@@ -289,7 +340,11 @@ impl Panel {
                     svg,
                     r#"<text x="{x:.3}" y="{:.3}" text-anchor="middle">{}</text>"#,
                     bottom + 19.0,
-                    tick_label(t, x_step)
+                    if self.x_log {
+                        format_number(t)
+                    } else {
+                        tick_label(t, x_step)
+                    }
                 );
             }
         }
@@ -356,6 +411,7 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         height: PROBABILITY_HEIGHT,
         x: (low, high),
         y: (0.0, probability_max),
+        x_log: log_axis(model, covariate),
     };
     let (effect_low, effect_high) = points.iter().fold((0.0_f64, 0.0_f64), |(a, b), p| {
         let (lower, upper) = p.effect_interval.unwrap_or((p.effect, p.effect));
@@ -368,6 +424,7 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         height: EFFECT_HEIGHT,
         x: (low, high),
         y: nice_range(effect_low, effect_high, 4),
+        x_log: log_axis(model, covariate),
     };
 
     let mut svg = String::with_capacity(64 * 1024);
@@ -441,7 +498,7 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
     );
     let _ = writeln!(
         svg,
-        r##"<text x="{:.3}" y="{:.3}" text-anchor="middle" fill="#5d5a4c">{}</text>"##,
+        r##"<text x="{:.3}" y="{:.3}" text-anchor="middle" fill="#5d5a4c" {HALO}>{}</text>"##,
         probability_panel.px(0.5 * (c.training_min + c.training_max)),
         PROBABILITY_TOP + 16.0,
         escape(&range_label)
@@ -471,8 +528,11 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             band_colour: EFFECT_BAND_COLOUR,
         },
     );
+    // The largest effect within the training range: beyond it the curve is extrapolation.
+    let inside = |p: &&CurvePoint| p.x >= c.training_min && p.x <= c.training_max;
     if let Some(peak) = points
         .iter()
+        .filter(inside)
         .max_by(|a, b| a.effect.abs().total_cmp(&b.effect.abs()))
     {
         let (x, y) = (effect_panel.px(peak.x), effect_panel.py(peak.effect));
@@ -490,7 +550,7 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             peak.x, peak.effect
         );
         let label = format!(
-            "largest effect {} at {} = {}",
+            "largest effect in the training range: {} at {} = {}",
             format_number(peak.effect),
             c.name,
             format_number(peak.x)
@@ -505,7 +565,7 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         };
         let _ = writeln!(
             svg,
-            r#"<text x="{:.3}" y="{:.3}" text-anchor="{anchor}" fill="{EFFECT_COLOUR}">{}</text>"#,
+            r#"<text x="{:.3}" y="{:.3}" text-anchor="{anchor}" fill="{EFFECT_COLOUR}" {HALO}>{}</text>"#,
             x + shift,
             EFFECT_TOP + 16.0,
             escape(&label)
@@ -515,8 +575,8 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
     let _ = writeln!(svg, "</g>");
 
     let x_label = match &c.unit {
-        Some(unit) => format!("{} ({unit})", c.name),
-        None => c.name.clone(),
+        Some(unit) if *unit != c.name => format!("{} ({unit})", c.name),
+        _ => c.name.clone(),
     };
     let _ = writeln!(
         svg,

@@ -115,7 +115,7 @@ pub fn model_json(link: &str) -> Value {
 /// An invented model exercising every covariate kind and term form (identity tests only).
 pub fn portfolio_json(with_covariance: bool) -> Value {
     let terms = [
-        ("intercept", -2.1),
+        ("intercept", 2.0),
         ("log(revenue)", -0.35),
         ("years", -0.09),
         ("years^2", 0.0021),
@@ -125,8 +125,11 @@ pub fn portfolio_json(with_covariance: bool) -> Value {
         ("sector[transport]", 0.55),
         ("years*guarantor", 0.018),
     ];
+    // Typical size of each term, so that every coefficient's standard error is a plausible
+    // share of it.
+    let scale = [1.0, 6.5, 9.0, 130.0, 1.0, 1.0, 1.0, 1.0, 4.0];
     let k = terms.len();
-    // A positive-definite covariance: A·Aᵀ + 0.01·I with a fixed, deterministic A.
+    // A positive-definite covariance: D·(A·Aᵀ + 0.01·I)·D with a fixed A and D = 1/scale.
     let a: Vec<Vec<f64>> = (0..k)
         .map(|r| {
             (0..k)
@@ -139,7 +142,7 @@ pub fn portfolio_json(with_covariance: bool) -> Value {
             (0..k)
                 .map(|c| {
                     let dot: f64 = (0..k).map(|m| a[r][m] * a[c][m]).sum();
-                    dot + if r == c { 0.01 } else { 0.0 }
+                    (dot + if r == c { 0.01 } else { 0.0 }) / (scale[r] * scale[c])
                 })
                 .collect()
         })
