@@ -37,8 +37,8 @@ pub fn ticks(low: f64, high: f64, target: usize) -> Vec<f64> {
 }
 
 /// Ticks for a logarithmic axis over `[low, high]` (both > 0): 1, 2 and 5 × 10^k, thinned to
-/// the powers of ten when there would be more than nine, filled in with every digit when there
-/// would be fewer than three.
+/// the powers of ten when there would be more than twelve, filled in with every digit when
+/// there would be fewer than three.
 pub fn log_ticks(low: f64, high: f64) -> Vec<f64> {
     if !(low > 0.0 && high > low) {
         return Vec::new();
@@ -52,7 +52,7 @@ pub fn log_ticks(low: f64, high: f64) -> Vec<f64> {
             .collect()
     };
     let ticks = pick(&[1.0, 2.0, 5.0]);
-    if ticks.len() > 9 {
+    if ticks.len() > 12 {
         pick(&[1.0])
     } else if ticks.len() < 3 {
         pick(&[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0])

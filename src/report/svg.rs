@@ -496,10 +496,17 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         format_number(c.training_max),
         format_number(c.training_mean)
     );
+    // Centred over the shaded range, but kept inside the panel (about 6.5 px a character).
+    let half_width = 3.25 * range_label.chars().count() as f64 + 6.0;
+    let centre = 0.5
+        * (probability_panel.px(c.training_min.max(low))
+            + probability_panel.px(c.training_max.min(high)));
+    let centre = centre
+        .max(LEFT + half_width)
+        .min(LEFT + PLOT_WIDTH - half_width);
     let _ = writeln!(
         svg,
-        r##"<text x="{:.3}" y="{:.3}" text-anchor="middle" fill="#5d5a4c" {HALO}>{}</text>"##,
-        probability_panel.px(0.5 * (c.training_min + c.training_max)),
+        r##"<text x="{centre:.3}" y="{:.3}" text-anchor="middle" fill="#5d5a4c" {HALO}>{}</text>"##,
         PROBABILITY_TOP + 16.0,
         escape(&range_label)
     );
@@ -571,7 +578,7 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             escape(&label)
         );
     }
-    effect_panel.axes(&mut svg, &format!("dP/d{}", c.name), true);
+    effect_panel.axes(&mut svg, &format!("dP/d({})", c.name), true);
     let _ = writeln!(svg, "</g>");
 
     let x_label = match &c.unit {

@@ -193,8 +193,8 @@ pub fn render_text(report: &Report) -> String {
     for (label, value) in facts {
         wrap(
             &mut out,
-            &format!("  {label:<16}"),
-            &" ".repeat(18),
+            &format!("  {label:<19}"),
+            &" ".repeat(21),
             &value,
             96,
         );
