@@ -467,3 +467,53 @@ fn plots_of_a_model_with_logs_squares_and_levels_follow_the_engine() {
         );
     }
 }
+
+#[test]
+fn without_a_covariance_the_report_says_so_and_plots_have_no_bands() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let data = dir.path().join("data.csv");
+    // The second row is inside every training range but an unusual combination of revenue and
+    // years (Mahalanobis distance above the model's largest training distance, 3).
+    std::fs::write(
+        &data,
+        "revenue,years,arrears,guarantor,sector\n800,9,0,1,retail\n4900,0.5,1,0,transport\n",
+    )
+    .unwrap();
+    let plots = dir.path().join("plots");
+    let report = describe_json(
+        &portfolio_json(false),
+        &[
+            "--data",
+            data.to_str().unwrap(),
+            "--plots",
+            plots.to_str().unwrap(),
+        ],
+    );
+    assert!(report["coefficients"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|c| c["std_error"].is_null() && c["p_value"].is_null()));
+    assert!(report["data"]["average_effects"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|e| e["std_error"].is_null() && e["effect"].is_f64()));
+    assert!(report["notes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|n| n.as_str().unwrap().contains("no coefficient covariance")));
+    let w = &report["data"]["warnings"];
+    assert_eq!(w["unusual_combination"], 1);
+    assert_eq!(w["rows_with_warnings"], 1);
+    assert!(w["out_of_range"].as_array().unwrap().is_empty());
+    for entry in std::fs::read_dir(&plots).unwrap() {
+        let svg = std::fs::read_to_string(entry.unwrap().path()).unwrap();
+        let document = roxmltree::Document::parse(&svg).expect("well-formed XML");
+        assert!(document
+            .descendants()
+            .all(|n| n.attribute("class") != Some("band")));
+        assert!(svg.contains("no intervals (no covariance)"));
+    }
+}
