@@ -822,13 +822,33 @@ mod http {
     use ogive::metrics::monitor::{Monitor, MonitorSettings};
     use ogive::metrics::Metrics;
     use ogive::registry::Registry;
+    use ogive::service::admin::{self, AdminState, AdminToken};
+    use ogive::service::follow::Follower;
     use ogive::service::{AppState, Background, Settings};
     use serde_json::{json, Value as Json};
 
     use super::drift_model;
 
-    /// A real server on 127.0.0.1:0 serving the drift test model, monitoring on or off.
-    fn server(monitoring: bool) -> Background {
+    /// The admin token of these tests.
+    const TOKEN: &str = "monitoring-test-token-8d41c7";
+
+    /// The public and admin listeners of one test server.
+    struct Served {
+        background: Background,
+        admin: std::net::SocketAddr,
+        /// The (empty) model directory the admin listener's follower watches.
+        _models: tempfile::TempDir,
+    }
+
+    impl Served {
+        fn stop(self) -> std::io::Result<()> {
+            self.background.stop()
+        }
+    }
+
+    /// A real server on 127.0.0.1:0 (public and admin listeners) serving the drift test model,
+    /// monitoring on or off.
+    fn server(monitoring: bool) -> Served {
         let model = Arc::try_unwrap(drift_model("1")).unwrap_or_else(|m| (*m).clone());
         let registry = Arc::new(Registry::from_models([model]));
         let settings = Settings {
@@ -850,7 +870,20 @@ mod http {
         } else {
             state
         };
-        Background::start(state, None).expect("server starts")
+        let models = tempfile::tempdir().expect("tempdir");
+        let follower = Arc::new(Follower::new(models.path(), &state));
+        let token = AdminToken::new(TOKEN.as_bytes(), "ops", "the test").expect("token");
+        let admin_state = AdminState::new(state.clone(), follower, token);
+        let listener = admin::Listener::bind("127.0.0.1:0".parse().expect("address"), admin_state)
+            .expect("the admin listener binds");
+        let background =
+            Background::start_with_admin(state, Some(listener), None).expect("server starts");
+        let admin = background.admin_addr.expect("an admin address");
+        Served {
+            background,
+            admin,
+            _models: models,
+        }
     }
 
     fn agent() -> ureq::Agent {
@@ -860,8 +893,8 @@ mod http {
     }
 
     /// POST a JSON body; returns the status and the parsed body (problem details included).
-    fn post(server: &Background, path: &str, request_id: Option<&str>, body: &Json) -> (u16, Json) {
-        let url = format!("http://{}{path}", server.addr);
+    fn post(server: &Served, path: &str, request_id: Option<&str>, body: &Json) -> (u16, Json) {
+        let url = format!("http://{}{path}", server.background.addr);
         let mut request = agent().post(&url).set("Content-Type", "application/json");
         if let Some(id) = request_id {
             request = request.set("X-Request-Id", id);
@@ -876,9 +909,26 @@ mod http {
         (status, body)
     }
 
-    fn get(server: &Background, path: &str) -> (u16, String) {
-        let url = format!("http://{}{path}", server.addr);
-        let response = match agent().get(&url).call() {
+    fn get(server: &Served, path: &str) -> (u16, String) {
+        fetch(
+            agent().get(&format!("http://{}{path}", server.background.addr)),
+            path,
+        )
+    }
+
+    /// GET from the admin listener, with the token unless `token` is false.
+    fn admin_get(server: &Served, path: &str, token: bool) -> (u16, String) {
+        let request = agent().get(&format!("http://{}{path}", server.admin));
+        let request = if token {
+            request.set("Authorization", &format!("Bearer {TOKEN}"))
+        } else {
+            request
+        };
+        fetch(request, path)
+    }
+
+    fn fetch(request: ureq::Request, path: &str) -> (u16, String) {
+        let response = match request.call() {
             Ok(r) => r,
             Err(ureq::Error::Status(_, r)) => r,
             Err(e) => panic!("GET {path}: {e}"),
@@ -989,7 +1039,7 @@ mod http {
         assert_eq!(line("ogive_drift_window_observations{"), 5.0);
         assert!(line("ogive_input_psi{covariate=\"amount\"") > 0.0);
 
-        let (status, report) = get(&server, "/models/lease-test/monitoring");
+        let (status, report) = admin_get(&server, "/models/lease-test/monitoring", true);
         assert_eq!(status, 200);
         let report: Json = serde_json::from_str(&report).expect("JSON");
         let version = &report["versions"][0];
@@ -1032,12 +1082,14 @@ mod http {
         let server = server(true);
         let (_, doc) = get(&server, "/openapi.json");
         let doc: Json = serde_json::from_str(&doc).expect("JSON");
-        for (path, method) in [
-            ("/models/{name}/outcomes", "post"),
-            ("/models/{name}/monitoring", "get"),
-        ] {
-            assert!(doc["paths"][path][method].is_object(), "{method} {path}");
-        }
+        let (_, admin_doc) = admin_get(&server, "/openapi.json", true);
+        let admin_doc: Json = serde_json::from_str(&admin_doc).expect("JSON");
+        assert!(doc["paths"]["/models/{name}/outcomes"]["post"].is_object());
+        assert!(admin_doc["paths"]["/models/{name}/monitoring"]["get"].is_object());
+        assert!(
+            doc["paths"]["/models/{name}/monitoring"].is_null(),
+            "an admin route"
+        );
         let probability = "/models/lease-test/probability";
         post(
             &server,
@@ -1074,10 +1126,17 @@ mod http {
         let (status, problem) = post(&server, "/models/lease-test/outcomes", None, &single);
         assert_eq!(status, 409);
         assert_valid(&doc, "Problem", &problem);
-        let (status, report) = get(&server, "/models/lease-test/monitoring");
+        let (status, report) = admin_get(&server, "/models/lease-test/monitoring", true);
         assert_eq!(status, 200);
         let report: Json = serde_json::from_str(&report).expect("JSON");
-        assert_valid(&doc, "MonitorReport", &report);
+        assert_valid(&admin_doc, "MonitorReport", &report);
+        // The report is the admin listener's: the public one has no such route, and the admin
+        // one wants the token.
+        assert_eq!(get(&server, "/models/lease-test/monitoring").0, 404);
+        assert_eq!(
+            admin_get(&server, "/models/lease-test/monitoring", false).0,
+            401
+        );
         server.stop().expect("stops");
     }
 
@@ -1161,7 +1220,7 @@ mod http {
         );
         let (status, _) = get(&server, "/models/lease-test/outcomes");
         assert_eq!(status, 405);
-        let (status, _) = get(&server, "/models/no-such/monitoring");
+        let (status, _) = admin_get(&server, "/models/no-such/monitoring", true);
         assert_eq!(status, 404);
         server.stop().expect("stops");
     }
@@ -1186,7 +1245,7 @@ mod http {
             (status, problem["type"].as_str()),
             (404, Some("urn:ogive:problem:monitoring-off"))
         );
-        let (status, body) = get(&server, "/models/lease-test/monitoring");
+        let (status, body) = admin_get(&server, "/models/lease-test/monitoring", true);
         assert_eq!(status, 404);
         assert!(body.contains("monitoring-off"));
         let (_, metrics) = get(&server, "/metrics");

@@ -13,6 +13,7 @@
 //! PUT    /models/{name}/shadow               {"version": "V"} → 200 {model, live_version, shadow_version, replaced, share, changes}
 //! GET    /models/{name}/shadow               → 200 the shadow report (see `service::shadow`)
 //! DELETE /models/{name}/shadow               → 200 {model, cleared, report}: the final report
+//! GET    /models/{name}/monitoring           → 200 drift and calibration (see `service::routes::monitoring`)
 //! GET    /openapi.json                       the admin listener's OpenAPI 3.1 document
 //! ```
 //!
@@ -68,6 +69,10 @@ pub fn configure(cfg: &mut web::ServiceConfig) {
                 .route(web::put().to(Guarded(set_shadow)))
                 .route(web::get().to(Guarded(shadow_report)))
                 .route(web::delete().to(Guarded(clear_shadow))),
+        )
+        .service(
+            resource("/models/{name}/monitoring", "GET")
+                .route(web::get().to(Guarded(crate::service::routes::monitoring::report))),
         );
 }
 

@@ -65,6 +65,5 @@ pub fn configure(cfg: &mut web::ServiceConfig) {
             web::resource("/models/{name}/outcomes")
                 .route(web::post().to(Guarded(outcomes::report)))
                 .default_service(web::to(method_not_allowed("POST"))),
-        )
-        .service(get("/models/{name}/monitoring", monitoring::report));
+        );
 }
