@@ -85,6 +85,9 @@ pub struct ServeArgs {
     /// Time a client has to send the request head, in milliseconds.
     #[arg(long, env = "OGIVE_CLIENT_REQUEST_TIMEOUT_MS", default_value_t = Limits::default().client_request_timeout_ms)]
     pub client_request_timeout_ms: u64,
+    /// Time a client has to send the request body once its head has arrived, in milliseconds.
+    #[arg(long, env = "OGIVE_BODY_TIMEOUT_MS", default_value_t = Limits::default().body_timeout_ms)]
+    pub body_timeout_ms: u64,
     /// Time an idle keep-alive connection stays open, in milliseconds.
     #[arg(long, env = "OGIVE_KEEP_ALIVE_MS", default_value_t = Limits::default().keep_alive_ms)]
     pub keep_alive_ms: u64,
@@ -127,6 +130,7 @@ impl ServeArgs {
                 max_header_bytes: self.max_header_bytes,
                 max_curve_points: self.max_curve_points.max(2),
                 client_request_timeout_ms: self.client_request_timeout_ms,
+                body_timeout_ms: self.body_timeout_ms,
                 keep_alive_ms: self.keep_alive_ms,
                 client_disconnect_timeout_ms: self.client_disconnect_timeout_ms,
                 ..Limits::default()
@@ -206,13 +210,7 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
     };
     let shadowing = Shadowing::new(args.shadow_share, &state.metrics.registry)?;
     let state = state.with_shadow(shadowing);
-    let follower = Arc::new(Follower::new(
-        args.models.clone(),
-        Arc::clone(&state.registry),
-        Arc::clone(&state.health),
-        state.metrics.clone(),
-        state.shadow.clone(),
-    ));
+    let follower = Arc::new(Follower::new(args.models.clone(), &state));
     let following = follower
         .spawn(DEFAULT_INTERVAL)
         .context("starting the model directory watcher")?;

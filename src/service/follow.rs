@@ -26,7 +26,7 @@ use std::thread::JoinHandle;
 use std::time::Duration;
 
 use super::shadow::Shadowing;
-use super::state::Health;
+use super::state::{AppState, Health};
 use crate::metrics::Metrics;
 use crate::registry::watch::{WatchEvent, Watcher, MAX_INTERVAL};
 use crate::registry::Registry;
@@ -43,24 +43,19 @@ pub struct Follower {
 }
 
 impl Follower {
-    /// A follower of the model directory `root` that swaps into `registry`, reports readiness
-    /// to `health`, counts refusals in `metrics`, and ends shadowings in `shadow`. It has
-    /// polled nothing yet: the first poll adopts what the registry already serves.
-    pub fn new(
-        root: impl Into<PathBuf>,
-        registry: Arc<Registry>,
-        health: Arc<Health>,
-        metrics: Metrics,
-        shadow: Option<Arc<Shadowing>>,
-    ) -> Follower {
+    /// A follower of the model directory `root` for the process serving `state`: it swaps
+    /// into its registry, reports readiness to its health, counts refusals in its metrics and
+    /// ends shadowings in its shadow scoring. It has polled nothing yet: the first poll adopts
+    /// what the registry already serves.
+    pub fn new(root: impl Into<PathBuf>, state: &AppState) -> Follower {
         let root = root.into();
         Follower {
             watcher: Mutex::new(Watcher::new(root.clone())),
             root,
-            registry,
-            health,
-            metrics,
-            shadow,
+            registry: Arc::clone(&state.registry),
+            health: Arc::clone(&state.health),
+            metrics: state.metrics.clone(),
+            shadow: state.shadow.clone(),
         }
     }
 

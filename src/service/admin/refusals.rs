@@ -48,7 +48,7 @@ pub fn changes_json(changes: &[CovariateChange]) -> Json {
 
 /// The RFC 6901 pointer of a model-file field path such as `terms[3].term` or
 /// `covariates[0].training.level_counts`; `None` for a path it cannot read (a whole-file
-/// problem has none).
+/// problem, such as JSON that does not parse, names a line and column instead).
 pub fn field_pointer(field: &str) -> Option<String> {
     if field.is_empty() {
         return None;
@@ -59,7 +59,7 @@ pub fn field_pointer(field: &str) -> Option<String> {
             Some(at) => (&part[..at], &part[at..]),
             None => (part, ""),
         };
-        if key.is_empty() {
+        if key.is_empty() || !key.bytes().all(|b| b.is_ascii_alphanumeric() || b == b'_') {
             return None;
         }
         pointer.push('/');
@@ -212,7 +212,14 @@ mod tests {
             Some("/covariance/2/1")
         );
         assert_eq!(field_pointer("name").as_deref(), Some("/name"));
-        for unreadable in ["", "terms[x]", "terms[", ".name", "a..b"] {
+        for unreadable in [
+            "",
+            "terms[x]",
+            "terms[",
+            ".name",
+            "a..b",
+            "(line 1, column 1)",
+        ] {
             assert_eq!(field_pointer(unreadable), None, "{unreadable}");
         }
     }
