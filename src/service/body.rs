@@ -1,16 +1,38 @@
 //! Reading a JSON request body: the content type (415), the size limit (413, checked against
 //! `Content-Length` before reading and against the bytes while reading), and the parse (400 for
 //! malformed JSON with line and column; 422 `non-finite` for a number too large for a double,
-//! with the JSON Pointer of where it stands).
+//! with the JSON Pointer of where it stands), all within the body timeout (408 for a body that
+//! stops arriving: actix times only the request head).
 //!
 //! This module knows nothing of models; the routes interpret the parsed value.
 
+use std::pin::Pin;
+use std::task::{Context, Poll};
+use std::time::Duration;
+
+use actix_web::body::{BodySize, BoxBody, MessageBody};
+use actix_web::dev::ServiceResponse;
 use actix_web::http::header;
 use actix_web::web::{self, Bytes, Payload};
-use actix_web::HttpRequest;
+use actix_web::{HttpMessage, HttpRequest};
 use serde_json::Value as Json;
+use tokio::time::{timeout_at, Instant};
 
+use super::config::Limits;
 use super::problem::{escape_pointer_token, Kind, Problem};
+
+/// How long a client may take to send a request body once its head has arrived. Each listener
+/// registers its configured value as app data; where none is registered,
+/// [`Limits::default`]'s applies.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct BodyTimeout(pub Duration);
+
+impl BodyTimeout {
+    /// The body timeout of these limits.
+    pub fn of(limits: &Limits) -> BodyTimeout {
+        BodyTimeout(Duration::from_millis(limits.body_timeout_ms))
+    }
+}
 
 /// Whether the request declares a JSON body: `application/json` or any `application/*+json`,
 /// parameters (such as `charset`) allowed.
@@ -27,7 +49,7 @@ pub fn is_json_content_type(req: &HttpRequest) -> bool {
         || (essence.starts_with("application/") && essence.ends_with("+json"))
 }
 
-/// Read the body of a JSON request within `limit` bytes.
+/// Read the body of a JSON request within `limit` bytes and the body timeout.
 pub async fn read_json_body(
     req: &HttpRequest,
     payload: Payload,
@@ -45,6 +67,11 @@ pub async fn read_json_body(
             format!("send the body as application/json; the request has {sent}"),
         ));
     }
+    let timeout = req
+        .app_data::<BodyTimeout>()
+        .copied()
+        .unwrap_or_else(|| BodyTimeout::of(&Limits::default()));
+    let deadline = Instant::now() + timeout.0;
     let too_large = || {
         Problem::new(
             Kind::BodyTooLarge,
@@ -58,12 +85,26 @@ pub async fn read_json_body(
         .and_then(|v| v.to_str().ok())
         .and_then(|s| s.parse::<u64>().ok());
     if declared.is_some_and(|n| n > limit as u64) {
-        discard(payload, limit.saturating_mul(DRAIN_FACTOR)).await;
+        let rest = discard(payload, limit.saturating_mul(DRAIN_FACTOR), deadline).await;
+        req.extensions_mut().insert(UnreadBody { _payload: rest });
         return Err(too_large());
     }
     let mut payload = payload;
     let mut body = web::BytesMut::new();
-    while let Some(chunk) = next_chunk(&mut payload).await {
+    loop {
+        let Ok(next) = timeout_at(deadline, next_chunk(&mut payload)).await else {
+            req.extensions_mut()
+                .insert(UnreadBody { _payload: payload });
+            let ms = timeout.0.as_millis();
+            return Err(Problem::new(
+                Kind::BodyTimeout,
+                format!(
+                    "{} bytes of the body arrived within {ms} ms, and then no more",
+                    body.len()
+                ),
+            ));
+        };
+        let Some(chunk) = next else { break };
         let chunk = chunk.map_err(|error| {
             Problem::new(
                 Kind::MalformedJson,
@@ -71,7 +112,8 @@ pub async fn read_json_body(
             )
         })?;
         if body.len() + chunk.len() > limit {
-            discard(payload, limit.saturating_mul(DRAIN_FACTOR)).await;
+            let rest = discard(payload, limit.saturating_mul(DRAIN_FACTOR), deadline).await;
+            req.extensions_mut().insert(UnreadBody { _payload: rest });
             return Err(too_large());
         }
         body.extend_from_slice(&chunk);
@@ -79,9 +121,9 @@ pub async fn read_json_body(
     Ok(body.freeze())
 }
 
-/// An oversized body is read and thrown away up to this many times the limit before the 413 is
-/// sent, so that the client, still writing, reads a clean answer instead of a reset connection;
-/// beyond that the connection is closed.
+/// An oversized body is read and thrown away up to this many times the limit (and no longer than
+/// the body timeout) before the 413 is sent, so that the client, still writing, reads a clean
+/// answer instead of a reset connection; beyond that the connection is closed.
 pub const DRAIN_FACTOR: usize = 4;
 
 async fn next_chunk(
@@ -91,13 +133,60 @@ async fn next_chunk(
     std::future::poll_fn(|cx| std::pin::Pin::new(&mut *payload).poll_next(cx)).await
 }
 
-async fn discard(mut payload: Payload, most: usize) {
+async fn discard(mut payload: Payload, most: usize, deadline: Instant) -> Payload {
     let mut seen = 0usize;
-    while let Some(Ok(chunk)) = next_chunk(&mut payload).await {
+    while let Ok(Some(Ok(chunk))) = timeout_at(deadline, next_chunk(&mut payload)).await {
         seen += chunk.len();
         if seen > most {
             break;
         }
+    }
+    payload
+}
+
+/// The unread rest of a refused body (413 or 408), left in the request's extensions by
+/// [`read_json_body`] for [`close_after_refused_body`].
+struct UnreadBody {
+    /// Held, never read: while it is alive actix sees the payload as unread.
+    _payload: Payload,
+}
+
+/// Make a response to a refused body end its connection. actix closes a connection whose
+/// request payload is still unread when the response is written, but once the handler has
+/// dropped the payload of a chunked body it drains the rest instead, for as long as the client
+/// keeps the stream open; so the response holds the payload until its last byte is written.
+/// The middleware calls this on every response; others pass through unchanged.
+pub fn close_after_refused_body(response: ServiceResponse<BoxBody>) -> ServiceResponse<BoxBody> {
+    let unread = response.request().extensions_mut().remove::<UnreadBody>();
+    match unread {
+        None => response,
+        Some(unread) => response.map_body(|_, body| {
+            BoxBody::new(HoldingUnread {
+                body,
+                _unread: unread,
+            })
+        }),
+    }
+}
+
+/// A response body that keeps the request's unread payload alive while it is written.
+struct HoldingUnread {
+    body: BoxBody,
+    _unread: UnreadBody,
+}
+
+impl MessageBody for HoldingUnread {
+    type Error = <BoxBody as MessageBody>::Error;
+
+    fn size(&self) -> BodySize {
+        self.body.size()
+    }
+
+    fn poll_next(
+        mut self: Pin<&mut Self>,
+        cx: &mut Context<'_>,
+    ) -> Poll<Option<Result<Bytes, Self::Error>>> {
+        Pin::new(&mut self.body).poll_next(cx)
     }
 }
 

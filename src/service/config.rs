@@ -20,6 +20,9 @@ pub struct Limits {
     pub max_curve_points: usize,
     /// Time a client has to send the request head after connecting.
     pub client_request_timeout_ms: u64,
+    /// Time a client has to send the whole request body once its head has arrived (actix
+    /// bounds only the head; without this a stalled body would hold its connection forever).
+    pub body_timeout_ms: u64,
     /// Time an idle keep-alive connection stays open.
     pub keep_alive_ms: u64,
     /// Time a client has to acknowledge a closed connection.
@@ -36,6 +39,7 @@ impl Default for Limits {
             max_header_bytes: 16 * 1024,
             max_curve_points: 500,
             client_request_timeout_ms: 5_000,
+            body_timeout_ms: 30_000,
             keep_alive_ms: 5_000,
             client_disconnect_timeout_ms: 1_000,
             max_connections_per_worker: 25_000,

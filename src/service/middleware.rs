@@ -147,6 +147,7 @@ pub async fn observe(
         next.call(req)
             .await
             .map(ServiceResponse::map_into_boxed_body)
+            .map(super::body::close_after_refused_body)
     };
     let seconds = started.elapsed().as_secs_f64();
     let mut response = match result {

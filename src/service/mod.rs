@@ -65,6 +65,7 @@ pub fn public_server(
     let settings = state.settings.clone();
     let limits = &settings.limits;
     let data = web::Data::new(state);
+    let body_timeout = body::BodyTimeout::of(limits);
     let grace_seconds = settings
         .shutdown_timeout_ms
         .saturating_sub(settings.drain_delay_ms)
@@ -74,6 +75,7 @@ pub fn public_server(
         let extra = extra.clone();
         App::new()
             .app_data(data.clone())
+            .app_data(body_timeout)
             .wrap(from_fn(middleware::observe))
             .configure(routes::configure)
             .configure(move |cfg| {

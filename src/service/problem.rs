@@ -72,6 +72,7 @@ kinds! {
     UnknownModel => "unknown-model", 404, "There is no such model";
     MethodNotAllowed => "method-not-allowed", 405, "The route does not take this method";
     BodyTooLarge => "body-too-large", 413, "The body is larger than the configured limit";
+    BodyTimeout => "body-timeout", 408, "The body did not arrive within the configured time";
     UnsupportedMediaType => "unsupported-media-type", 415, "The body must be sent as application/json";
     HeadersTooLarge => "headers-too-large", 431, "The request headers are larger than the configured limit";
     InvalidBody => "invalid-body", 422, "The body does not have the expected shape";

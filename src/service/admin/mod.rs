@@ -81,9 +81,11 @@ impl Listener {
         let settings = Arc::clone(&self.state.app.settings);
         let data = web::Data::new(self.state);
         let limits = &settings.limits;
+        let body_timeout = crate::service::body::BodyTimeout::of(limits);
         let server = HttpServer::new(move || {
             App::new()
                 .app_data(data.clone())
+                .app_data(body_timeout)
                 .wrap(from_fn(auth::require_token))
                 .wrap(from_fn(middleware::observe))
                 .configure(routes::configure)
