@@ -1,5 +1,5 @@
-//! Hardening of the public listener over real TCP on 127.0.0.1: what a hostile or broken client
-//! can do to a running server, and that every other client keeps being answered.
+//! Hardening over real TCP on 127.0.0.1: what a hostile or broken client can do to a running
+//! server, and that every other client keeps being answered.
 //!
 //! ```text
 //! slow head          a head sent one byte at a time is cut off by the client request timeout
@@ -8,13 +8,14 @@
 //! idle connections   hundreds of idle sockets: others are answered, the idle ones are closed
 //! oversized body     413 before the client has sent it all
 //! admin routes       absent from the public listener
+//! admin.rs           the binary: tokens on the admin listener, and never in the log
 //! ```
 //!
-//! The server runs in-process with small timeouts (a few hundred milliseconds) so the tests run
-//! fast. No assertion is about time: each wait has a generous deadline only so that a broken
-//! server fails the test instead of hanging it. The admin listener's tests (tokens, logs) are in
-//! `tests/hardening/admin.rs`.
+//! The public listener runs in-process with small timeouts (1.5 s) so the tests run fast. No assertion is about time: each wait has a generous deadline only so that a broken
+//! server fails the test instead of hanging it.
 
+#[path = "hardening/admin.rs"]
+mod admin;
 #[allow(dead_code)]
 #[path = "http/fixture.rs"]
 mod fixture;

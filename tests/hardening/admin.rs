@@ -1,0 +1,287 @@
+//! The admin listener as a deployment runs it: the real `ogive serve` binary with a token file,
+//! both listeners on 127.0.0.1:0, every log level on. The admin routes are not on the public
+//! listener even with the right token; the admin listener refuses missing, empty and wrong
+//! tokens with 401 problem details and takes the right one; and no part of any token sent
+//! ever reaches the process's output.
+//!
+//! The route-by-route refusals are the admin tests' (`tests/admin.rs`); this file holds what a
+//! hostile caller would try and what an operator reading the logs would see.
+
+use std::io::{BufRead, BufReader, Read};
+use std::net::SocketAddr;
+use std::process::{Child, Command, Stdio};
+use std::sync::mpsc;
+use std::time::{Duration, Instant};
+
+use serde_json::{json, Value as Json};
+
+use crate::fixture::lease_file;
+use crate::{raw_request, Raw, DEADLINE};
+
+/// The admin token: 32 hex digits, as `openssl rand -hex 16` would make one.
+const TOKEN: &str = "4f3a9c0e7b21d86a5e0f4c93b7a1d2e8";
+
+/// Tokens that are not the token but share most of it.
+fn near_misses() -> Vec<String> {
+    vec![
+        TOKEN[..TOKEN.len() - 1].to_string(),
+        format!("{TOKEN}0"),
+        TOKEN.to_uppercase(),
+        format!("{}x{}", &TOKEN[..16], &TOKEN[17..]),
+    ]
+}
+
+/// A running `ogive serve` and everything it has printed so far.
+struct Serving {
+    child: Child,
+    public: SocketAddr,
+    admin: SocketAddr,
+    output: mpsc::Receiver<String>,
+    _models: tempfile::TempDir,
+}
+
+/// Forward each line of `stream` to `lines`.
+fn collect(stream: impl Read + Send + 'static, lines: mpsc::Sender<String>) {
+    std::thread::spawn(move || {
+        for line in BufReader::new(stream).lines().map_while(Result::ok) {
+            if lines.send(line).is_err() {
+                break;
+            }
+        }
+    });
+}
+
+/// The address in the first line of `output` starting with `prefix` (the rest of the line is
+/// `http://ADDR`).
+fn address_after(
+    output: &mpsc::Receiver<String>,
+    prefix: &str,
+    seen: &mut Vec<String>,
+) -> SocketAddr {
+    let deadline = Instant::now() + DEADLINE;
+    while Instant::now() < deadline {
+        if let Ok(line) = output.recv_timeout(Duration::from_millis(100)) {
+            seen.push(line.clone());
+            if let Some(rest) = line.strip_prefix(prefix) {
+                let address = rest.trim().trim_start_matches("http://");
+                return address.parse().unwrap_or_else(|e| panic!("{line}: {e}"));
+            }
+        }
+    }
+    panic!("no line starting with {prefix:?}; printed so far: {seen:#?}");
+}
+
+fn start() -> (Serving, Vec<String>) {
+    let models = tempfile::tempdir().expect("a temporary directory");
+    let model = models.path().join("lease-test");
+    std::fs::create_dir_all(model.join("versions")).expect("mkdir");
+    std::fs::write(
+        model.join("versions").join("2026-01.json"),
+        lease_file().to_string(),
+    )
+    .expect("write the model");
+    std::fs::write(model.join("live"), "2026-01\n").expect("write the live pointer");
+    let token_file = models.path().join(".admin-token");
+    std::fs::write(&token_file, TOKEN).expect("write the token file");
+    let mut child = Command::new(env!("CARGO_BIN_EXE_ogive"))
+        .args(["serve", "--models"])
+        .arg(models.path())
+        .args(["--listen", "127.0.0.1:0", "--admin-listen", "127.0.0.1:0"])
+        .arg("--admin-token-file")
+        .arg(&token_file)
+        .args([
+            "--workers",
+            "1",
+            "--drain-delay-ms",
+            "0",
+            "--shutdown-timeout-ms",
+            "5000",
+        ])
+        .env_remove("OGIVE_ADMIN_TOKEN")
+        .env_remove("OGIVE_ADMIN_TOKEN_FILE")
+        // Every level of every crate, actix's own included: a token logged anywhere shows.
+        .env("RUST_LOG", "trace")
+        .stdin(Stdio::null())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("ogive serve starts");
+    let (lines, output) = mpsc::channel();
+    collect(child.stdout.take().expect("stdout"), lines.clone());
+    collect(child.stderr.take().expect("stderr"), lines);
+    let mut seen = Vec::new();
+    let public = address_after(&output, "ogive serving on ", &mut seen);
+    let admin = address_after(&output, "ogive admin on ", &mut seen);
+    let serving = Serving {
+        child,
+        public,
+        admin,
+        output,
+        _models: models,
+    };
+    (serving, seen)
+}
+
+impl Serving {
+    /// Stop with SIGTERM and return every line printed, once the process has exited.
+    fn stop(mut self, mut printed: Vec<String>) -> Vec<String> {
+        let status = Command::new("kill")
+            .args(["-TERM", &self.child.id().to_string()])
+            .status()
+            .expect("kill runs");
+        assert!(status.success());
+        let deadline = Instant::now() + DEADLINE;
+        while self.child.try_wait().expect("wait").is_none() {
+            if Instant::now() > deadline {
+                let _ = self.child.kill();
+                let _ = self.child.wait();
+                panic!("ogive serve did not stop after SIGTERM");
+            }
+            std::thread::sleep(Duration::from_millis(20));
+        }
+        // The readers end when the pipes close.
+        while let Ok(line) = self.output.recv_timeout(Duration::from_secs(5)) {
+            printed.push(line);
+        }
+        printed
+    }
+}
+
+fn bearer(token: &str) -> String {
+    format!("Authorization: Bearer {token}\r\n")
+}
+
+fn json_headers(authorization: &str) -> String {
+    format!("Content-Type: application/json\r\n{authorization}")
+}
+
+fn problem(reply: &Raw) -> Json {
+    serde_json::from_str(&reply.body)
+        .unwrap_or_else(|e| panic!("status {}: not JSON ({e}): {}", reply.status, reply.body))
+}
+
+#[test]
+fn admin_tokens_are_checked_on_the_admin_listener_only_and_never_logged() {
+    let (serving, printed) = start();
+    let mut candidate = lease_file();
+    candidate["version"] = json!("2026-02");
+    let candidate = candidate.to_string();
+    let promote = json!({"version": "2026-02"}).to_string();
+
+    // The admin routes do not exist on the public listener, even with the right token.
+    for (method, path, body) in [
+        (
+            "PUT",
+            "/models/lease-test/versions/2026-02",
+            candidate.as_str(),
+        ),
+        ("POST", "/models/lease-test/live", promote.as_str()),
+        ("POST", "/models/lease-test/rollback", ""),
+        ("GET", "/models/lease-test/history", ""),
+    ] {
+        let reply = raw_request(
+            serving.public,
+            method,
+            path,
+            &json_headers(&bearer(TOKEN)),
+            body.as_bytes(),
+        );
+        assert_eq!(
+            reply.status, 404,
+            "{method} {path} on the public listener: {}",
+            reply.body
+        );
+        assert_eq!(problem(&reply)["status"], json!(404));
+    }
+
+    // Missing, empty and wrong tokens: 401 problem details, and nothing changes.
+    let mut refused: Vec<String> = vec![
+        String::new(),
+        "Authorization: Bearer\r\n".into(),
+        bearer(""),
+    ];
+    refused.push(format!("Authorization: Basic {TOKEN}\r\n"));
+    refused.extend(near_misses().iter().map(|t| bearer(t)));
+    for authorization in &refused {
+        let headers = json_headers(authorization);
+        for (method, path, body) in [
+            (
+                "PUT",
+                "/models/lease-test/versions/2026-02",
+                candidate.as_str(),
+            ),
+            ("POST", "/models/lease-test/live", promote.as_str()),
+            ("GET", "/models/lease-test/history", ""),
+        ] {
+            let reply = raw_request(serving.admin, method, path, &headers, body.as_bytes());
+            assert_eq!(
+                reply.status, 401,
+                "{method} {path} with {authorization:?}: {}",
+                reply.body
+            );
+            let problem = problem(&reply);
+            assert_eq!(problem["status"], json!(401));
+            assert_eq!(problem["type"], json!("urn:ogive:problem:unauthorized"));
+            assert!(
+                !reply.body.contains(&TOKEN[..12]),
+                "the refusal echoes the token"
+            );
+        }
+    }
+    let live = raw_request(serving.public, "GET", "/models/lease-test", "", b"");
+    assert_eq!(
+        problem(&live)["version"],
+        json!("2026-01"),
+        "a refused request changed the live version"
+    );
+
+    // The right token passes: upload, promote, and the public listener serves the new version.
+    let headers = json_headers(&bearer(TOKEN));
+    let upload = raw_request(
+        serving.admin,
+        "PUT",
+        "/models/lease-test/versions/2026-02",
+        &headers,
+        candidate.as_bytes(),
+    );
+    assert_eq!(upload.status, 201, "{}", upload.body);
+    let promoted = raw_request(
+        serving.admin,
+        "POST",
+        "/models/lease-test/live",
+        &headers,
+        promote.as_bytes(),
+    );
+    assert_eq!(promoted.status, 200, "{}", promoted.body);
+    let history = raw_request(
+        serving.admin,
+        "GET",
+        "/models/lease-test/history",
+        &headers,
+        b"",
+    );
+    assert_eq!(history.status, 200, "{}", history.body);
+    let live = raw_request(serving.public, "GET", "/models/lease-test", "", b"");
+    assert_eq!(problem(&live)["version"], json!("2026-02"));
+
+    let printed = serving.stop(printed);
+    assert!(
+        printed.iter().any(|line| line.contains("\"status\":401")),
+        "the refusals were not logged at all, so the check below would prove nothing"
+    );
+    let mut secrets = vec![TOKEN.to_string()];
+    secrets.extend(near_misses());
+    for line in &printed {
+        for secret in &secrets {
+            // Any 12 characters in a row of a token sent, so that a truncated or partly
+            // masked token is caught too.
+            for window in secret.as_bytes().windows(12) {
+                let window = std::str::from_utf8(window).expect("ASCII");
+                assert!(
+                    !line.contains(window),
+                    "a token sent is in the output: {line}"
+                );
+            }
+        }
+    }
+}
