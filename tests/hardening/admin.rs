@@ -155,7 +155,7 @@ fn json_headers(authorization: &str) -> String {
     format!("Content-Type: application/json\r\n{authorization}")
 }
 
-fn problem(reply: &Raw) -> Json {
+fn body_json(reply: &Raw) -> Json {
     serde_json::from_str(&reply.body)
         .unwrap_or_else(|e| panic!("status {}: not JSON ({e}): {}", reply.status, reply.body))
 }
@@ -191,7 +191,7 @@ fn admin_tokens_are_checked_on_the_admin_listener_only_and_never_logged() {
             "{method} {path} on the public listener: {}",
             reply.body
         );
-        assert_eq!(problem(&reply)["status"], json!(404));
+        assert_eq!(body_json(&reply)["status"], json!(404));
     }
 
     // Missing, empty and wrong tokens: 401 problem details, and nothing changes.
@@ -219,7 +219,7 @@ fn admin_tokens_are_checked_on_the_admin_listener_only_and_never_logged() {
                 "{method} {path} with {authorization:?}: {}",
                 reply.body
             );
-            let problem = problem(&reply);
+            let problem = body_json(&reply);
             assert_eq!(problem["status"], json!(401));
             assert_eq!(problem["type"], json!("urn:ogive:problem:unauthorized"));
             assert!(
@@ -230,39 +230,28 @@ fn admin_tokens_are_checked_on_the_admin_listener_only_and_never_logged() {
     }
     let live = raw_request(serving.public, "GET", "/models/lease-test", "", b"");
     assert_eq!(
-        problem(&live)["version"],
+        body_json(&live)["version"],
         json!("2026-01"),
         "a refused request changed the live version"
     );
 
     // The right token passes: upload, promote, and the public listener serves the new version.
     let headers = json_headers(&bearer(TOKEN));
-    let upload = raw_request(
-        serving.admin,
-        "PUT",
-        "/models/lease-test/versions/2026-02",
-        &headers,
-        candidate.as_bytes(),
-    );
-    assert_eq!(upload.status, 201, "{}", upload.body);
-    let promoted = raw_request(
-        serving.admin,
-        "POST",
-        "/models/lease-test/live",
-        &headers,
-        promote.as_bytes(),
-    );
-    assert_eq!(promoted.status, 200, "{}", promoted.body);
-    let history = raw_request(
-        serving.admin,
-        "GET",
-        "/models/lease-test/history",
-        &headers,
-        b"",
-    );
-    assert_eq!(history.status, 200, "{}", history.body);
+    for (method, path, body, status) in [
+        (
+            "PUT",
+            "/models/lease-test/versions/2026-02",
+            candidate.as_str(),
+            201,
+        ),
+        ("POST", "/models/lease-test/live", promote.as_str(), 200),
+        ("GET", "/models/lease-test/history", "", 200),
+    ] {
+        let reply = raw_request(serving.admin, method, path, &headers, body.as_bytes());
+        assert_eq!(reply.status, status, "{method} {path}: {}", reply.body);
+    }
     let live = raw_request(serving.public, "GET", "/models/lease-test", "", b"");
-    assert_eq!(problem(&live)["version"], json!("2026-02"));
+    assert_eq!(body_json(&live)["version"], json!("2026-02"));
 
     let printed = serving.stop(printed);
     assert!(
