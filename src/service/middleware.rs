@@ -36,6 +36,12 @@ pub struct Scored {
     pub observations: Option<String>,
 }
 
+/// A resource's route template, registered as the resource's app data: the middleware reads it
+/// from the answered request to label metrics and logs, instead of matching the path against
+/// every route a second time.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct RouteTemplate(pub &'static str);
+
 /// The route label for requests that matched no route.
 pub const UNMATCHED_ROUTE: &str = "unmatched";
 
@@ -128,8 +134,6 @@ pub async fn observe(
     let state = req.app_data::<web::Data<AppState>>().cloned();
     let request_id = RequestId::from_header(req.headers().get(HEADER));
     req.extensions_mut().insert(request_id.clone());
-    let route = req.match_pattern();
-    let route = route.as_deref().unwrap_or(UNMATCHED_ROUTE).to_string();
     let method = method_label(req.method());
     let max_header_bytes = state
         .as_ref()
@@ -142,7 +146,9 @@ pub async fn observe(
             format!("the request headers take {size} bytes; the limit is {max_header_bytes}"),
         )
         .limit(max_header_bytes as u64);
-        Ok(req.into_response(problem.error_response()))
+        Ok(req
+            .into_response(problem.error_response())
+            .map_into_boxed_body())
     } else {
         next.call(req)
             .await
@@ -153,6 +159,7 @@ pub async fn observe(
     let mut response = match result {
         Ok(response) => response,
         Err(error) => {
+            let route = UNMATCHED_ROUTE;
             let status = error.as_response_error().status_code().as_u16();
             record(
                 state.as_ref(),
@@ -173,7 +180,14 @@ pub async fn observe(
             .insert(HeaderName::from_static(HEADER), value);
     }
     let status = response.status().as_u16();
-    let scored = response.request().extensions().get::<Scored>().cloned();
+    let request = response.request();
+    let route: std::borrow::Cow<'static, str> = match request.app_data::<RouteTemplate>() {
+        Some(template) => template.0.into(),
+        None => request
+            .match_pattern()
+            .map_or(UNMATCHED_ROUTE.into(), Into::into),
+    };
+    let scored = request.extensions().get::<Scored>().cloned();
     record(
         state.as_ref(),
         &request_id,

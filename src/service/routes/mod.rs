@@ -12,7 +12,7 @@ pub mod probability;
 
 use actix_web::{web, HttpResponse};
 
-use super::middleware::Guarded;
+use super::middleware::{Guarded, RouteTemplate};
 use super::problem::{Kind, Problem};
 
 /// The handler of a resource's other methods: 405 with `Allow: allow` (the admin routes use
@@ -36,34 +36,40 @@ pub async fn not_found(req: actix_web::HttpRequest) -> Result<HttpResponse, Prob
     ))
 }
 
-fn get<F, Args>(path: &str, handler: F) -> actix_web::Resource
+/// A resource labelled with its route template (see [`RouteTemplate`]).
+pub fn resource(path: &'static str) -> actix_web::Resource {
+    web::resource(path).app_data(RouteTemplate(path))
+}
+
+fn get<F, Args>(path: &'static str, handler: F) -> actix_web::Resource
 where
     F: actix_web::Handler<Args>,
     Args: actix_web::FromRequest + 'static,
     F::Output: actix_web::Responder + 'static,
 {
-    web::resource(path)
+    resource(path)
         .route(web::get().to(Guarded(handler)))
         .default_service(web::to(method_not_allowed("GET")))
 }
 
-/// Mount every public route.
+/// Mount every public route. The model routes come first, the busiest first: the router tries
+/// templated paths in order, each a pattern match.
 pub fn configure(cfg: &mut web::ServiceConfig) {
-    cfg.service(get("/livez", health::livez))
-        .service(get("/readyz", health::readyz))
-        .service(get("/metrics", health::metrics))
-        .service(get("/openapi.json", openapi::document_route))
-        .service(get("/models", models::list))
-        .service(get("/models/{name}", models::describe))
-        .service(
-            web::resource("/models/{name}/probability")
-                .route(web::post().to(Guarded(probability::probability)))
-                .default_service(web::to(method_not_allowed("POST"))),
-        )
-        .service(get("/models/{name}/curve", curve::curve))
-        .service(
-            web::resource("/models/{name}/outcomes")
-                .route(web::post().to(Guarded(outcomes::report)))
-                .default_service(web::to(method_not_allowed("POST"))),
-        );
+    cfg.service(
+        resource("/models/{name}/probability")
+            .route(web::post().to(Guarded(probability::probability)))
+            .default_service(web::to(method_not_allowed("POST"))),
+    )
+    .service(get("/models/{name}/curve", curve::curve))
+    .service(
+        resource("/models/{name}/outcomes")
+            .route(web::post().to(Guarded(outcomes::report)))
+            .default_service(web::to(method_not_allowed("POST"))),
+    )
+    .service(get("/models/{name}", models::describe))
+    .service(get("/livez", health::livez))
+    .service(get("/readyz", health::readyz))
+    .service(get("/metrics", health::metrics))
+    .service(get("/openapi.json", openapi::document_route))
+    .service(get("/models", models::list));
 }
