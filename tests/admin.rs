@@ -107,6 +107,52 @@ impl Contract {
     }
 }
 
+impl Contract {
+    fn validator(&self, schema: &str) -> jsonschema::Validator {
+        let root = json!({
+            "$schema": "https://json-schema.org/draft/2020-12/schema",
+            "$ref": format!("#/components/schemas/{schema}"),
+            "components": self.doc["components"],
+        });
+        jsonschema::validator_for(&root).unwrap_or_else(|e| panic!("schema {schema}: {e}"))
+    }
+}
+
+#[test]
+fn the_admin_document_refuses_the_bodies_the_routes_refuse() {
+    let d = three_versions(Share::ALL);
+    let contract = Contract::fetch(&d);
+    let promote = contract.validator("PromoteRequest");
+    let long = "x".repeat(501);
+    for body in [
+        json!({}),
+        json!({"version": 2}),
+        json!({"version": "v2", "allow_breaking": "yes"}),
+        json!({"version": "v2", "force": true}),
+        json!({"version": "-v2"}),
+        json!({"version": "v2", "reason": "tab\there"}),
+        json!({"version": "v2", "reason": long}),
+    ] {
+        assert!(!promote.is_valid(&body), "the document accepts {body}");
+        let reply = d.admin_json("POST", &format!("/models/{NAME}/live"), &body);
+        assert_eq!(reply.status, 422, "{body}: {}", reply.text);
+    }
+    assert_eq!(d.public_version(NAME), "v1");
+    let body = json!({"version": "v2", "allow_breaking": false, "reason": "a reason"});
+    assert!(promote.is_valid(&body));
+    d.admin_json("POST", &format!("/models/{NAME}/live"), &body)
+        .expect(200);
+    let shadow = contract.validator("ShadowRequest");
+    for body in [
+        json!({"version": "../v1"}),
+        json!({"version": "v1", "share": 1}),
+    ] {
+        assert!(!shadow.is_valid(&body), "the document accepts {body}");
+        assert_eq!(d.set_shadow_body(NAME, &body).status, 422, "{body}");
+    }
+    assert!(shadow.is_valid(&json!({"version": "v3"})));
+}
+
 /// The public listener answers `observation` with `version`, and the probability the engine
 /// computes with that version's file.
 #[track_caller]
@@ -886,8 +932,7 @@ fn shadow_refusals_say_why() {
     let d = three_versions(Share::ALL);
     let contract = Contract::fetch(&d);
     let template = "/models/{name}/shadow";
-    let put =
-        |name: &str, body: &Json| d.admin_json("PUT", &format!("/models/{name}/shadow"), body);
+    let put = |name: &str, body: &Json| d.set_shadow_body(name, body);
 
     let reply = put(NAME, &json!({"version": "v8"}));
     contract.check(template, "put", &reply);

@@ -214,11 +214,12 @@ impl Deployment {
 
     /// Set `name`'s shadow through the admin listener.
     pub fn set_shadow(&self, name: &str, version: &str) -> Reply {
-        self.admin_json(
-            "PUT",
-            &format!("/models/{name}/shadow"),
-            &json!({"version": version}),
-        )
+        self.set_shadow_body(name, &json!({"version": version}))
+    }
+
+    /// `PUT /models/{name}/shadow` with this body.
+    pub fn set_shadow_body(&self, name: &str, body: &Json) -> Reply {
+        self.admin_json("PUT", &format!("/models/{name}/shadow"), body)
     }
 
     /// `name`'s shadow report from the admin listener.
