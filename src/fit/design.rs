@@ -11,6 +11,8 @@ use std::ops::Range;
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Mutex;
 
+use nalgebra::{DMatrixView, DMatrixViewMut};
+
 use crate::model::{Term, Value};
 
 use super::reader::ColumnData;
@@ -99,6 +101,12 @@ impl Design {
         &self.values[i * self.columns..(i + 1) * self.columns]
     }
 
+    /// Rows `range`, row-major.
+    #[inline]
+    pub fn rows_of(&self, range: Range<usize>) -> &[f64] {
+        &self.values[range.start * self.columns..range.end * self.columns]
+    }
+
     /// Column `j`, copied out.
     pub fn column(&self, j: usize) -> Vec<f64> {
         (0..self.rows)
@@ -159,23 +167,37 @@ pub fn reduce_rows<A: Send>(
     total
 }
 
-/// The lower triangle of `Σ wᵢ xᵢ xᵢᵀ` is accumulated into `matrix` (row-major `k × k`).
-#[inline]
-pub fn add_outer_lower(matrix: &mut [f64], x: &[f64], weight: f64) {
-    let k = x.len();
-    for a in 0..k {
-        let wa = weight * x[a];
-        if wa == 0.0 {
-            continue;
-        }
-        let row = &mut matrix[a * k..a * k + a + 1];
-        for (cell, &xb) in row.iter_mut().zip(&x[..=a]) {
-            *cell += wa * xb;
-        }
+/// Add `Σ wᵢ xᵢ xᵢᵀ` over a block of rows (row-major, `k` columns) to `matrix` (`k × k`), as one
+/// matrix product `Xᵀ (W X)` so that it runs at the speed of a blocked, vectorised GEMM; with
+/// no weights it adds `XᵀX`. The result is symmetric up to rounding; callers finish with
+/// [`symmetrise`].
+pub fn add_weighted_gram(matrix: &mut [f64], rows: &[f64], weights: Option<&[f64]>, k: usize) {
+    if k == 0 || rows.is_empty() {
+        return;
     }
+    let n = rows.len() / k;
+    let scaled: Vec<f64>;
+    let right = match weights {
+        Some(w) => {
+            let mut out = vec![0.0; rows.len()];
+            for ((target, x), &wi) in out.chunks_exact_mut(k).zip(rows.chunks_exact(k)).zip(w) {
+                for (t, &v) in target.iter_mut().zip(x) {
+                    *t = v * wi;
+                }
+            }
+            scaled = out;
+            &scaled[..]
+        }
+        None => rows,
+    };
+    // Xᵀ is the row-major block read column-major: k × n with strides (1, k).
+    let transposed = DMatrixView::from_slice_with_strides(rows, k, n, 1, k);
+    let weighted = DMatrixView::from_slice_with_strides(right, n, k, k, 1);
+    let mut out = DMatrixViewMut::from_slice(matrix, k, k);
+    out.gemm(1.0, &transposed, &weighted, 1.0);
 }
 
-/// Copy the lower triangle of a row-major square matrix into its upper triangle.
+/// Make a row-major square matrix exactly symmetric by copying its lower triangle up.
 pub fn symmetrise(matrix: &mut [f64], k: usize) {
     for a in 0..k {
         for b in 0..a {
@@ -190,11 +212,7 @@ pub fn gram(design: &Design) -> Vec<f64> {
     let mut g = reduce_rows(
         design.rows(),
         || vec![0.0; k * k],
-        |acc, range| {
-            for i in range {
-                add_outer_lower(acc, design.row(i), 1.0);
-            }
-        },
+        |acc, range| add_weighted_gram(acc, design.rows_of(range), None, k),
         |total, part| total.iter_mut().zip(part).for_each(|(t, p)| *t += p),
     );
     symmetrise(&mut g, k);

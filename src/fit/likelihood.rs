@@ -22,7 +22,7 @@ use std::f64::consts::PI;
 
 use crate::link::Link;
 
-use super::design::{add_outer_lower, reduce_rows, symmetrise, Design};
+use super::design::{add_weighted_gram, reduce_rows, symmetrise, Design};
 
 /// `½·log(2π)`.
 const HALF_LN_2PI: f64 = 0.918_938_533_204_672_8;
@@ -125,9 +125,41 @@ pub struct Pointwise {
     pub expected_weight: f64,
 }
 
+/// The logit contribution from one exponential and one `log1p`: with e = exp(−|z|),
+///
+/// ```text
+/// F = 1/(1+e) or e/(1+e)    log F = −log1p(e) or z − log1p(e)    w = F(1 − F)    s = y − F
+/// ```
+#[inline]
+fn logit_pointwise(z: f64, y: f64) -> Pointwise {
+    let e = (-z.abs()).exp();
+    let (p, q) = if z >= 0.0 {
+        (1.0 / (1.0 + e), e / (1.0 + e))
+    } else {
+        (e / (1.0 + e), 1.0 / (1.0 + e))
+    };
+    let log1pe = e.ln_1p();
+    let positive = z >= 0.0;
+    let log_likelihood = match (y > 0.5, positive) {
+        (true, true) | (false, false) => -log1pe,
+        (true, false) => z - log1pe,
+        (false, true) => -z - log1pe,
+    };
+    let w = p * q;
+    Pointwise {
+        log_likelihood,
+        score: if y > 0.5 { q } else { -p },
+        observed_weight: w,
+        expected_weight: w,
+    }
+}
+
 /// The contribution of one observation with index `z` and outcome `y` (0 or 1).
 #[inline]
 pub fn pointwise(link: Link, z: f64, y: f64) -> Pointwise {
+    if link == Link::Logit {
+        return logit_pointwise(z, y);
+    }
     let one = ratio_one(link, z);
     let zero = ratio_zero(link, z);
     let h = density_ratio(link, z);
@@ -196,20 +228,23 @@ pub fn accumulate(
             matrix: vec![0.0; size],
         },
         |acc, range| {
-            for i in range {
+            let mut weights = Vec::with_capacity(if size > 0 { range.len() } else { 0 });
+            for i in range.clone() {
                 let x = design.row(i);
                 let p = pointwise(link, index(x, beta), outcome[i]);
                 acc.log_likelihood += p.log_likelihood;
                 for (g, &xj) in acc.gradient.iter_mut().zip(x) {
                     *g += p.score * xj;
                 }
-                let weight = match matrix {
-                    Matrix::None => continue,
-                    Matrix::Observed => p.observed_weight,
-                    Matrix::Expected => p.expected_weight,
-                    Matrix::ScoreOuter => p.score * p.score,
-                };
-                add_outer_lower(&mut acc.matrix, x, weight);
+                match matrix {
+                    Matrix::None => {}
+                    Matrix::Observed => weights.push(p.observed_weight),
+                    Matrix::Expected => weights.push(p.expected_weight),
+                    Matrix::ScoreOuter => weights.push(p.score * p.score),
+                }
+            }
+            if size > 0 {
+                add_weighted_gram(&mut acc.matrix, design.rows_of(range), Some(&weights), k);
             }
         },
         |total, part| {
