@@ -306,7 +306,7 @@ fn take_record(
     let row_numbers = &mut scratch.numbers;
     let row_codes = &mut scratch.codes;
     let mut missing: Option<String> = None;
-    let outcome_text = trim(&fields[plan.outcome_index]);
+    let outcome_text = trim(fields[plan.outcome_index]);
     let outcome = if is_missing(outcome_text) {
         missing = Some(plan.outcome_name.clone());
         0.0
@@ -327,7 +327,7 @@ fn take_record(
         if missing.is_some() {
             break;
         }
-        let cell = trim(&fields[*index]);
+        let cell = trim(fields[*index]);
         if is_missing(cell) {
             missing = Some(plan.names[c].clone());
             break;
