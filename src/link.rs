@@ -42,6 +42,17 @@ pub enum Link {
 /// Every link, in a fixed order (for tests, help text and documentation).
 pub const ALL_LINKS: [Link; 4] = [Link::Logit, Link::Probit, Link::Cloglog, Link::Cauchit];
 
+/// The probability, its complement and the density at one value of the index.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct LinkValues {
+    /// `F(z)`.
+    pub probability: f64,
+    /// `1 − F(z)`, accurate when `F(z)` is close to 1.
+    pub complement: f64,
+    /// `f(z)`.
+    pub density: f64,
+}
+
 impl Link {
     /// The name used in model files, flags and answers.
     pub fn name(self) -> &'static str {
@@ -53,67 +64,118 @@ impl Link {
         }
     }
 
+    /// `F(z)`, `1 − F(z)` and `f(z)` together, from as few transcendental evaluations as the
+    /// link allows (one `exp` for logit, one `erfc` and one `exp` for probit). The separate
+    /// functions below return exactly these values, so the engine's one-call path and a
+    /// caller's separate calls agree to the bit.
+    ///
+    /// Each link computes the smaller of `F` and `1 − F` directly and the larger as one minus
+    /// it (which is exact to an ulp because the larger is at least ½), except logit, where
+    /// both are one division from the same `e^−|z|`.
+    #[inline]
+    pub fn evaluate(self, z: f64) -> LinkValues {
+        match self {
+            Link::Logit => {
+                // e = e^−|z| never overflows; the density e/(1 + e)² is symmetric.
+                let e = (-z.abs()).exp();
+                let smaller = e / (1.0 + e);
+                let larger = 1.0 / (1.0 + e);
+                let density = e / ((1.0 + e) * (1.0 + e));
+                let (probability, complement) = if z >= 0.0 {
+                    (larger, smaller)
+                } else {
+                    (smaller, larger)
+                };
+                LinkValues {
+                    probability,
+                    complement,
+                    density,
+                }
+            }
+            Link::Probit => {
+                // The tail beyond |z|, ½·erfc(|z|/√2), is the smaller of Φ(z) and 1 − Φ(z).
+                let tail = 0.5 * libm::erfc(z.abs() * FRAC_1_SQRT_2);
+                let (probability, complement) = if z >= 0.0 {
+                    (1.0 - tail, tail)
+                } else {
+                    (tail, 1.0 - tail)
+                };
+                LinkValues {
+                    probability,
+                    complement,
+                    density: FRAC_1_SQRT_2PI * (-0.5 * z * z).exp(),
+                }
+            }
+            Link::Cloglog => {
+                let ez = z.exp();
+                let complement = (-ez).exp();
+                // 1 − exp(−e^z) = −expm1(−e^z) is exact for small e^z, where 1 − exp would
+                // cancel; once 1 − F ≤ ½ (e^z ≥ ln 2) one minus the complement is exact.
+                let probability = if ez < std::f64::consts::LN_2 {
+                    -(-ez).exp_m1()
+                } else {
+                    1.0 - complement
+                };
+                // f = e^z·exp(−e^z); 0 once e^z overflows (where inf·0 would be NaN).
+                let density = if ez.is_infinite() {
+                    0.0
+                } else {
+                    ez * complement
+                };
+                LinkValues {
+                    probability,
+                    complement,
+                    density,
+                }
+            }
+            Link::Cauchit => LinkValues {
+                probability: cauchy_cdf(z),
+                complement: cauchy_cdf(-z),
+                density: 1.0 / (PI * (1.0 + z * z)),
+            },
+        }
+    }
+
     /// The probability `F(z)`.
     #[inline]
     pub fn probability(self, z: f64) -> f64 {
-        match self {
-            Link::Logit => logistic(z),
-            Link::Probit => normal_cdf(z),
-            // 1 − exp(−e^z) = −expm1(−e^z): exact for tiny e^z where 1 − exp would cancel.
-            Link::Cloglog => -(-z.exp()).exp_m1(),
-            Link::Cauchit => cauchy_cdf(z),
-        }
+        self.evaluate(z).probability
     }
 
     /// The complement `1 − F(z)`, computed directly so it keeps its precision when `F(z)` is
     /// close to 1.
     #[inline]
     pub fn complement(self, z: f64) -> f64 {
-        match self {
-            Link::Logit => logistic(-z),
-            Link::Probit => normal_cdf(-z),
-            Link::Cloglog => (-z.exp()).exp(),
-            Link::Cauchit => cauchy_cdf(-z),
-        }
+        self.evaluate(z).complement
     }
 
     /// The density `f(z) = F′(z)`.
     #[inline]
     pub fn density(self, z: f64) -> f64 {
-        match self {
-            Link::Logit => {
-                // e^−|z| / (1 + e^−|z|)² is symmetric and never overflows.
-                let e = (-z.abs()).exp();
-                e / ((1.0 + e) * (1.0 + e))
-            }
-            Link::Probit => FRAC_1_SQRT_2PI * (-0.5 * z * z).exp(),
-            Link::Cloglog => {
-                let ez = z.exp();
-                if ez.is_infinite() {
-                    0.0
-                } else {
-                    (z - ez).exp()
-                }
-            }
-            Link::Cauchit => 1.0 / (PI * (1.0 + z * z)),
-        }
+        self.evaluate(z).density
     }
 
     /// The derivative of the density, `f′(z)`.
     #[inline]
     pub fn density_derivative(self, z: f64) -> f64 {
+        self.density_derivative_from(z, self.density(z))
+    }
+
+    /// `f′(z)` given `f(z)` (from [`Link::evaluate`]), without evaluating the density again.
+    #[inline]
+    pub fn density_derivative_from(self, z: f64, density: f64) -> f64 {
         match self {
             // 1 − 2F = −tanh(z/2): no cancellation near z = 0, where F(−z) − F(z) would lose
             // every digit of a tiny slope, and exact in both tails.
-            Link::Logit => -self.density(z) * (0.5 * z).tanh(),
-            Link::Probit => -z * self.density(z),
+            Link::Logit => -density * (0.5 * z).tanh(),
+            Link::Probit => -z * density,
+            // f·(1 − e^z), with 1 − e^z = −expm1(z) keeping its digits near z = 0; 0 where the
+            // density has underflowed (and e^z may be infinite).
             Link::Cloglog => {
-                let ez = z.exp();
-                if ez.is_infinite() {
+                if density == 0.0 {
                     0.0
                 } else {
-                    // 1 − e^z = −expm1(z) keeps its digits near z = 0.
-                    -(z - ez).exp() * z.exp_m1()
+                    -density * z.exp_m1()
                 }
             }
             Link::Cauchit => {
@@ -163,17 +225,6 @@ impl FromStr for Link {
             .copied()
             .find(|l| l.name() == s)
             .ok_or_else(|| UnknownLink(s.to_string()))
-    }
-}
-
-/// The logistic function, evaluated on the side where `e^x` cannot overflow.
-#[inline]
-fn logistic(z: f64) -> f64 {
-    if z >= 0.0 {
-        1.0 / (1.0 + (-z).exp())
-    } else {
-        let e = z.exp();
-        e / (1.0 + e)
     }
 }
 

@@ -247,11 +247,12 @@ fn options() -> Options {
     options
 }
 
-/// 1 − F on the side where it keeps its digits, for difference quotients: p itself when the
-/// index is negative, else minus the complement (same slope).
-fn smooth_probability(model: &Model, values: &[Value]) -> f64 {
+/// F, or −(1 − F) (same slope) when the index at the centre of the stencil is positive: the
+/// side where the difference quotient keeps its digits. The side is chosen once per stencil,
+/// never per point, so a stencil that straddles z = 0 stays on one curve.
+fn smooth_probability(model: &Model, values: &[Value], upper_side: bool) -> f64 {
     let z = model.linear_index_of(values);
-    if z > 0.0 {
+    if upper_side {
         -model.link.complement(z)
     } else {
         model.link.probability(z)
@@ -277,14 +278,28 @@ fn std_error_of(covariance: &[f64], gradient: &[f64]) -> f64 {
 
 /// The numerical Jacobian, with respect to each coefficient, of the vector `quantities(model)`,
 /// each perturbed model rebuilt from its parts through `Model::from_file`. Row `i` is ∂/∂βᵢ.
+///
+/// βᵢ moves the index by tᵢ per unit, so its step is scaled down by the largest |tᵢ| among
+/// the observations (a count squared reaches 100): the stencil's truncation error depends on
+/// h·tᵢ, not on h.
 fn numerical_jacobian(
     parts: &ModelParts,
+    observations: &[Vec<Value>],
     quantities: impl Fn(&Model) -> Vec<f64>,
 ) -> Vec<Vec<f64>> {
+    let model = parts.model();
+    let mut t = Vec::new();
+    let mut largest = vec![1.0_f64; parts.terms.len()];
+    for values in observations {
+        model.term_vector(values, &mut t);
+        for (l, ti) in largest.iter_mut().zip(&t) {
+            *l = l.max(ti.abs());
+        }
+    }
     (0..parts.terms.len())
         .map(|i| {
             let beta = parts.terms[i].1;
-            let h = 1e-4 * beta.abs().max(1.0);
+            let h = 1e-4 * beta.abs().max(1.0) / largest[i];
             let at = |step: f64| {
                 let mut perturbed = parts.clone();
                 perturbed.terms[i].1 = beta + step;
@@ -298,26 +313,42 @@ fn numerical_jacobian(
         .collect()
 }
 
-/// Probability followed by every effect, from a fresh score.
-fn probability_and_effects(model: &Model, values: &[Value]) -> Vec<f64> {
+/// Probability followed by every effect, from a fresh score. With `upper_side` the first
+/// entry is −(1 − p) instead of p: the same slope in β, without the rounding of p near 1
+/// (where p's last bit is worth more than its whole change over a difference step). The side
+/// is fixed from the unperturbed model, so every point of a stencil uses the same one.
+fn probability_and_effects(model: &Model, values: &[Value], upper_side: bool) -> Vec<f64> {
     let mut scorer = Scorer::new(model);
     let mut no_intervals = options();
     no_intervals.intervals = false;
     let answer = scorer.score(model, values, &no_intervals);
-    std::iter::once(answer.probability)
+    let probability = if upper_side {
+        -answer.complement
+    } else {
+        answer.probability
+    };
+    std::iter::once(probability)
         .chain(answer.effects.iter().map(|e| e.effect))
         .collect()
 }
 
 /// Compare engine standard errors with those of a numerical Jacobian (column q of `jacobian`
 /// is the gradient of quantity q), under the model's covariance.
+///
+/// The difference quotients carry an error relative to each gradient entry, so the comparison
+/// is relative to the size the standard error would have without cancellation between entries,
+/// √(|∇|ᵀ|V||∇|) (entrywise absolute values), when that is the larger: under a rank-one V the
+/// standard error |uᵀ∇| can be far smaller than its terms.
 fn check_std_errors(model: &Model, jacobian: &[Vec<f64>], engine: &[f64], what: &str) {
     let covariance = model.covariance.as_deref().expect("covariance");
+    let absolute: Vec<f64> = covariance.iter().map(|v| v.abs()).collect();
     for (q, &se) in engine.iter().enumerate() {
         let gradient: Vec<f64> = jacobian.iter().map(|row| row[q]).collect();
         let numeric = std_error_of(covariance, &gradient);
+        let magnitudes: Vec<f64> = gradient.iter().map(|g| g.abs()).collect();
+        let scale = std_error_of(&absolute, &magnitudes).max(STD_ERROR_SCALE);
         let what = format!("{what}, quantity {q}: delta-method se vs numerical Jacobian");
-        assert_close(se, numeric, NUMERICAL_JACOBIAN, STD_ERROR_SCALE, what);
+        assert_close(se, numeric, NUMERICAL_JACOBIAN, scale, what);
     }
 }
 
@@ -339,10 +370,11 @@ proptest! {
                 let j = effect.slot.covariate;
                 let x = values[j].number();
                 let h = 1e-4 * x.abs().max(1.0);
+                let upper_side = answer.linear_index > 0.0;
                 let at = |v: f64| {
                     let mut shifted = values.clone();
                     shifted[j] = Value::Number(v);
-                    smooth_probability(&model, &shifted)
+                    smooth_probability(&model, &shifted, upper_side)
                 };
                 let slope = five_point(at, x, h);
                 let what = format!("d p / d {} at {values:?}", model.covariates[j].name);
@@ -371,7 +403,11 @@ proptest! {
             .chain(answer.effects.iter().map(|e| e.std_error))
             .map(|se| se.expect("the model has a covariance"))
             .collect();
-        let jacobian = numerical_jacobian(&case.parts, |m| probability_and_effects(m, &values));
+        let observation = std::slice::from_ref(&values);
+        let jacobian =
+            numerical_jacobian(&case.parts, observation, |m| {
+                probability_and_effects(m, &values, answer.linear_index > 0.0)
+            });
         check_std_errors(&model, &jacobian, &engine, "full covariance");
 
         // A rank-one covariance uuᵀ makes each standard error the directional derivative
@@ -466,10 +502,11 @@ proptest! {
             let what = "average effect vs mean of effects";
             assert_close(a.value, *mean, ROUNDING, EFFECT_SCALE, what);
         }
-        let jacobian = numerical_jacobian(&case.parts, |m| {
+        let jacobian = numerical_jacobian(&case.parts, &batch, |m| {
             let mut total = vec![0.0; means.len()];
             for values in &batch {
-                for (t, q) in total.iter_mut().zip(probability_and_effects(m, values)) {
+                let upper_side = model.linear_index_of(values) > 0.0;
+                for (t, q) in total.iter_mut().zip(probability_and_effects(m, values, upper_side)) {
                     *t += q / n as f64;
                 }
             }

@@ -23,7 +23,7 @@ mod average;
 
 pub use average::{Average, Averager};
 
-use crate::link::normal_quantile;
+use crate::link::{normal_quantile, LinkValues};
 use crate::model::{CovariateKind, Model, Value};
 
 /// A two-sided interval.
@@ -246,12 +246,22 @@ pub struct Answer {
 #[derive(Debug, Clone)]
 pub struct Scorer {
     slots: Vec<EffectSlot>,
+    /// The observation being scored, with one covariate changed at a time (discrete changes,
+    /// contributions) and put back straight after.
     alternative: Vec<Value>,
     terms: Vec<f64>,
-    terms_a: Vec<f64>,
-    terms_b: Vec<f64>,
-    derivative: Vec<f64>,
+    /// V·t for the observation being scored, when intervals are computed.
+    covariance_terms: Vec<f64>,
+    /// The effect being computed: its gradient is c·t + e, with e nonzero only on the terms
+    /// that involve the covariate; these are e's entries there, in `terms_of_covariate` order.
+    sparse: Vec<f64>,
+    /// t_b − t and t_a − t on the involved terms, for a discrete change from a to b.
+    shift_high: Vec<f64>,
+    shift_low: Vec<f64>,
+    /// A full gradient, for the rare effect whose variance needs the direct quadratic form.
     gradient: Vec<f64>,
+    /// x − mean of the joint-check covariates.
+    deviations: Vec<f64>,
     /// The answer for the last observation scored.
     pub answer: Answer,
     /// The gradient of each effect with respect to β for the last observation, row-major
@@ -281,19 +291,107 @@ pub fn quadratic_form(covariance: &[f64], g: &[f64]) -> f64 {
     total.max(0.0)
 }
 
+/// `w = V·t` into `out` for a symmetric row-major `k × k` matrix, returning `tᵀVt`. Written
+/// as a sum of rows scaled by tⱼ (row j of a symmetric V is its column j) so the inner loop
+/// has no reduction and vectorises.
+#[inline]
+fn symmetric_product(covariance: &[f64], t: &[f64], out: &mut Vec<f64>) -> f64 {
+    let k = t.len();
+    out.clear();
+    out.resize(k, 0.0);
+    for (j, &tj) in t.iter().enumerate() {
+        if tj == 0.0 {
+            continue;
+        }
+        let row = &covariance[j * k..(j + 1) * k];
+        for (w, v) in out.iter_mut().zip(row) {
+            *w += tj * v;
+        }
+    }
+    t.iter().zip(out.iter()).map(|(a, b)| a * b).sum()
+}
+
+/// Below this share of `c²·tᵀVt + eᵀVe`, the expanded variance below has cancelled too far to
+/// trust its last digits, and the direct quadratic form is used instead.
+const CANCELLATION: f64 = 1e-3;
+
+/// The delta-method variance `∇ᵀV∇` of an effect whose gradient is `∇ = c·t + e`, where e is
+/// nonzero only on the `involved` terms, from the already computed `w = V·t`, `a = tᵀVt`:
+///
+/// ```text
+/// ∇ᵀV∇ = c²·a + 2c·eᵀw + eᵀVe          (V symmetric; e has a handful of entries)
+/// ```
+///
+/// That costs a few operations per involved term instead of k² per effect. Its rounding error
+/// is about ε·(c²a + eᵀVe); when the result is smaller than [`CANCELLATION`] times that, the
+/// gradient is formed and its quadratic form taken directly, which keeps the error relative to
+/// the result.
+#[allow(clippy::too_many_arguments)]
+#[inline]
+fn effect_variance(
+    covariance: &[f64],
+    covariance_terms: &[f64],
+    index_variance: f64,
+    terms: &[f64],
+    c: f64,
+    involved: &[usize],
+    e: &[f64],
+    gradient: &mut [f64],
+) -> f64 {
+    let k = terms.len();
+    let mut cross = 0.0;
+    let mut own = 0.0;
+    for (m, &i) in involved.iter().enumerate() {
+        let ei = e[m];
+        if ei == 0.0 {
+            continue;
+        }
+        cross += ei * covariance_terms[i];
+        let row = &covariance[i * k..(i + 1) * k];
+        let inner: f64 = involved.iter().zip(e).map(|(&i2, e2)| row[i2] * e2).sum();
+        own += ei * inner;
+    }
+    let scale = c * c * index_variance + own;
+    let variance = c * c * index_variance + 2.0 * c * cross + own;
+    if variance >= CANCELLATION * scale {
+        return variance.max(0.0);
+    }
+    full_gradient(c, terms, involved, e, gradient);
+    quadratic_form(covariance, gradient)
+}
+
+/// `∇ = c·t + e` into `out`, with e given on the involved terms.
+#[inline]
+fn full_gradient(c: f64, terms: &[f64], involved: &[usize], e: &[f64], out: &mut [f64]) {
+    for (g, t) in out.iter_mut().zip(terms) {
+        *g = c * t;
+    }
+    for (&i, ei) in involved.iter().zip(e) {
+        out[i] += ei;
+    }
+}
+
 impl Scorer {
     /// Buffers sized for `model`.
     pub fn new(model: &Model) -> Scorer {
         let k = model.terms.len();
         let slots = effect_slots(model);
         let n_slots = slots.len();
+        let most_involved = model
+            .terms_of_covariate
+            .iter()
+            .map(Vec::len)
+            .max()
+            .unwrap_or(0);
         Scorer {
             alternative: Vec::with_capacity(model.covariates.len()),
             terms: Vec::with_capacity(k),
-            terms_a: Vec::with_capacity(k),
-            terms_b: Vec::with_capacity(k),
-            derivative: vec![0.0; k],
+            covariance_terms: Vec::with_capacity(k),
+            sparse: Vec::with_capacity(most_involved),
+            shift_high: Vec::with_capacity(most_involved),
+            shift_low: Vec::with_capacity(most_involved),
             gradient: vec![0.0; k],
+            deviations: Vec::with_capacity(model.joint.as_ref().map_or(0, |j| j.mean.len())),
             answer: Answer {
                 effects: Vec::with_capacity(n_slots),
                 warnings: Vec::with_capacity(model.covariates.len() + 1),
@@ -340,8 +438,7 @@ impl Scorer {
     /// training shares; the terms are built from that mean profile, so a square term is the
     /// square of the mean). No extrapolation warnings are raised for the profile itself.
     pub fn score_at_means(&mut self, model: &Model, options: &Options) -> &Answer {
-        let profile = model.mean_profile.clone();
-        self.score_inner(model, &profile, options, None, false);
+        self.score_inner(model, &model.mean_profile, options, None, false);
         &self.answer
     }
 
@@ -356,11 +453,11 @@ impl Scorer {
         let link = model.link;
         model.term_vector(values, &mut self.terms);
         let z = model.linear_index(&self.terms);
-        let density = link.density(z);
+        let at = link.evaluate(z);
         let a = &mut self.answer;
         a.linear_index = z;
-        a.probability = link.probability(z);
-        a.complement = link.complement(z);
+        a.probability = at.probability;
+        a.complement = at.complement;
         a.effects.clear();
         a.warnings.clear();
         a.contributions.clear();
@@ -371,18 +468,25 @@ impl Scorer {
         };
         a.std_error = None;
         a.interval = None;
+        let mut index_variance = 0.0;
         if let Some(v) = covariance {
-            let index_se = quadratic_form(v, &self.terms).sqrt();
+            index_variance = symmetric_product(v, &self.terms, &mut self.covariance_terms);
+            let index_se = index_variance.max(0.0).sqrt();
             let q = options.quantile;
-            a.std_error = Some(density * index_se);
+            a.std_error = Some(at.density * index_se);
             a.interval = Some(Interval {
                 lower: link.probability(z - q * index_se),
                 upper: link.probability(z + q * index_se),
             });
         }
         let averaging = averager.is_some();
+        if options.effects || averaging || options.contributions {
+            self.alternative.clear();
+            self.alternative.extend_from_slice(values);
+        }
         if options.effects || averaging {
-            self.compute_effects(model, values, z, options, covariance, averaging);
+            let uncertainty = covariance.map(|v| (v, index_variance));
+            self.compute_effects(model, values, z, at, options, uncertainty, averaging);
         }
         if warn {
             self.compute_warnings(model, values);
@@ -410,7 +514,7 @@ impl Scorer {
         if let Some(averager) = averager {
             let k = self.terms.len();
             for (g, t) in self.probability_gradient.iter_mut().zip(&self.terms) {
-                *g = density * t;
+                *g = at.density * t;
             }
             averager.add(
                 self.answer.probability,
@@ -422,80 +526,86 @@ impl Scorer {
         }
     }
 
+    /// Every effect of the observation. Each effect's gradient is kept in the form c·t + e
+    /// (e on the involved terms only); it is expanded to a full vector only for averaging.
+    #[allow(clippy::too_many_arguments)]
     fn compute_effects(
         &mut self,
         model: &Model,
         values: &[Value],
         z: f64,
+        at: LinkValues,
         options: &Options,
-        covariance: Option<&[f64]>,
+        uncertainty: Option<(&[f64], f64)>,
         keep_gradients: bool,
     ) {
         let link = model.link;
         let k = self.terms.len();
-        let density = link.density(z);
-        let density_slope = link.density_derivative(z);
+        let density = at.density;
+        let need_gradient = uncertainty.is_some() || keep_gradients;
+        let density_slope = if need_gradient {
+            link.density_derivative_from(z, density)
+        } else {
+            0.0
+        };
         let q = options.quantile;
-        for (s, slot) in self.slots.iter().enumerate() {
+        for s in 0..self.slots.len() {
+            let slot = self.slots[s];
             let j = slot.covariate;
-            let involved = &model.terms_of_covariate[j];
-            let effect = match slot.kind {
+            let involved = model.terms_of_covariate[j].as_slice();
+            self.sparse.clear();
+            let (effect, c) = match slot.kind {
                 EffectKind::Derivative => {
-                    self.derivative.iter_mut().for_each(|d| *d = 0.0);
                     let mut g = 0.0;
                     for &i in involved {
                         let d = model.terms[i].derivative(j, values, &model.level_shares);
-                        self.derivative[i] = d;
+                        self.sparse.push(density * d);
                         g += model.coefficients[i] * d;
                     }
-                    for i in 0..k {
-                        self.gradient[i] =
-                            density_slope * g * self.terms[i] + density * self.derivative[i];
-                    }
-                    density * g
+                    // ∇ = f′(z)·g·t + f(z)·d
+                    (density * g, density_slope * g)
                 }
                 EffectKind::DiscreteChange | EffectKind::LevelChange => {
                     let (to, from) = match slot.level {
                         Some(l) => (Value::Level(l), Value::Level(model.covariates[j].reference)),
                         None => (Value::Number(1.0), Value::Number(0.0)),
                     };
-                    self.alternative.clear();
-                    self.alternative.extend_from_slice(values);
-                    self.alternative[j] = to;
-                    let z_b = shifted_terms(
-                        model,
-                        &self.alternative,
-                        involved,
-                        &self.terms,
-                        &mut self.terms_b,
-                        z,
-                    );
-                    self.alternative[j] = from;
-                    let z_a = shifted_terms(
-                        model,
-                        &self.alternative,
-                        involved,
-                        &self.terms,
-                        &mut self.terms_a,
-                        z,
-                    );
-                    let (f_b, f_a) = (link.density(z_b), link.density(z_a));
-                    for i in 0..k {
-                        self.gradient[i] = f_b * self.terms_b[i] - f_a * self.terms_a[i];
+                    let (z_high, high) = self.shifted(model, values, j, to, z, at, true);
+                    let (z_low, low) = self.shifted(model, values, j, from, z, at, false);
+                    // ∇ = f(z_b)·t_b − f(z_a)·t_a = (f_b − f_a)·t + f_b·(t_b − t) − f_a·(t_a − t)
+                    for (b, a) in self.shift_high.iter().zip(&self.shift_low) {
+                        self.sparse.push(high.density * b - low.density * a);
                     }
-                    probability_difference(link, z_b, z_a)
+                    let effect = if z_low > 0.0 && z_high > 0.0 {
+                        // Both near 1: the difference of the complements keeps its digits.
+                        low.complement - high.complement
+                    } else {
+                        high.probability - low.probability
+                    };
+                    (effect, high.density - low.density)
                 }
             };
             if keep_gradients {
                 self.effect_values[s] = effect;
-                self.effect_gradients[s * k..(s + 1) * k].copy_from_slice(&self.gradient);
+                let out = &mut self.effect_gradients[s * k..(s + 1) * k];
+                full_gradient(c, &self.terms, involved, &self.sparse, out);
             }
             if !options.effects {
                 continue;
             }
-            let (std_error, interval) = match covariance {
-                Some(v) => {
-                    let se = quadratic_form(v, &self.gradient).sqrt();
+            let (std_error, interval) = match uncertainty {
+                Some((v, index_variance)) => {
+                    let variance = effect_variance(
+                        v,
+                        &self.covariance_terms,
+                        index_variance,
+                        &self.terms,
+                        c,
+                        involved,
+                        &self.sparse,
+                        &mut self.gradient,
+                    );
+                    let se = variance.sqrt();
                     (
                         Some(se),
                         Some(Interval {
@@ -510,13 +620,51 @@ impl Scorer {
                 && model.covariates[j].kind == CovariateKind::Continuous)
                 .then(|| effect * values[j].number() / self.answer.probability);
             self.answer.effects.push(Effect {
-                slot: *slot,
+                slot,
                 effect,
                 std_error,
                 interval,
                 elasticity,
             });
         }
+    }
+
+    /// The index and link values with covariate `j` set to `value`, and t(x′) − t(x) on the
+    /// involved terms in `shift_high` (or `shift_low`). When `value` is what the observation
+    /// already has, that is the observation itself: z and its link values are reused.
+    #[allow(clippy::too_many_arguments)]
+    #[inline]
+    fn shifted(
+        &mut self,
+        model: &Model,
+        values: &[Value],
+        j: usize,
+        value: Value,
+        z: f64,
+        at: LinkValues,
+        high: bool,
+    ) -> (f64, LinkValues) {
+        let involved = model.terms_of_covariate[j].as_slice();
+        let shift = if high {
+            &mut self.shift_high
+        } else {
+            &mut self.shift_low
+        };
+        shift.clear();
+        if values[j] == value {
+            shift.resize(involved.len(), 0.0);
+            return (z, at);
+        }
+        self.alternative[j] = value;
+        let mut shifted_index = z;
+        for &i in involved {
+            let t = model.terms[i].value(&self.alternative, &model.level_shares);
+            let d = t - self.terms[i];
+            shifted_index += model.coefficients[i] * d;
+            shift.push(d);
+        }
+        self.alternative[j] = values[j];
+        (shifted_index, model.link.evaluate(shifted_index))
     }
 
     fn compute_warnings(&mut self, model: &Model, values: &[Value]) {
@@ -536,14 +684,18 @@ impl Scorer {
         }
         if let Some(joint) = &model.joint {
             let n = joint.covariates.len();
+            self.deviations.clear();
+            self.deviations.extend(
+                joint
+                    .covariates
+                    .iter()
+                    .zip(&joint.mean)
+                    .map(|(&c, m)| values[c].number() - m),
+            );
             let mut squared = 0.0;
-            for r in 0..n {
-                let dr = values[joint.covariates[r]].number() - joint.mean[r];
-                let mut inner = 0.0;
-                for c in 0..n {
-                    inner += joint.precision[r * n + c]
-                        * (values[joint.covariates[c]].number() - joint.mean[c]);
-                }
+            for (r, dr) in self.deviations.iter().enumerate() {
+                let row = &joint.precision[r * n..(r + 1) * n];
+                let inner: f64 = row.iter().zip(&self.deviations).map(|(p, d)| p * d).sum();
                 squared += dr * inner;
             }
             let distance = squared.max(0.0).sqrt();
@@ -557,16 +709,17 @@ impl Scorer {
     }
 
     fn compute_contributions(&mut self, model: &Model, values: &[Value]) {
-        for j in 0..model.covariates.len() {
+        for (j, (&value, &reference_value)) in
+            values.iter().zip(&model.reference_profile).enumerate()
+        {
             let mut c = 0.0;
-            if values[j] != model.reference_profile[j] {
-                self.alternative.clear();
-                self.alternative.extend_from_slice(values);
-                self.alternative[j] = model.reference_profile[j];
+            if value != reference_value {
+                self.alternative[j] = reference_value;
                 for &i in &model.terms_of_covariate[j] {
                     let reference = model.terms[i].value(&self.alternative, &model.level_shares);
                     c += model.coefficients[i] * (self.terms[i] - reference);
                 }
+                self.alternative[j] = value;
             }
             self.answer.contributions.push(Contribution {
                 covariate: j,
@@ -582,43 +735,55 @@ impl Scorer {
     }
 }
 
-/// Terms and index at an alternative observation that differs from the scored one only in the
-/// covariate whose terms are `involved`: copy the base terms, recompute just those.
-#[inline]
-fn shifted_terms(
-    model: &Model,
-    alternative: &[Value],
-    involved: &[usize],
-    base: &[f64],
-    out: &mut Vec<f64>,
-    base_index: f64,
-) -> f64 {
-    out.clear();
-    out.extend_from_slice(base);
-    let mut z = base_index;
-    for &i in involved {
-        let t = model.terms[i].value(alternative, &model.level_shares);
-        z += model.coefficients[i] * (t - base[i]);
-        out[i] = t;
-    }
-    z
-}
-
-/// F(z_b) − F(z_a), taken on whichever side of the distribution keeps its digits: when both
-/// probabilities are near 1, the difference of the complements is exact where the difference
-/// of the probabilities would cancel.
-#[inline]
-fn probability_difference(link: crate::link::Link, z_b: f64, z_a: f64) -> f64 {
-    if z_a > 0.0 && z_b > 0.0 {
-        link.complement(z_a) - link.complement(z_b)
-    } else {
-        link.probability(z_b) - link.probability(z_a)
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The direct quadratic form of the gradient c·t + e (e on `involved`), for comparison.
+    fn direct(v: &[f64], t: &[f64], c: f64, involved: &[usize], e: &[f64]) -> f64 {
+        let mut g = vec![0.0; t.len()];
+        full_gradient(c, t, involved, e, &mut g);
+        quadratic_form(v, &g)
+    }
+
+    #[test]
+    fn expanded_effect_variance_equals_the_direct_quadratic_form() {
+        let v = [4.0, 1.0, 0.5, 1.0, 3.0, -0.2, 0.5, -0.2, 2.0];
+        let t = [1.0, 2.5, -0.7];
+        let mut w = Vec::new();
+        let a = symmetric_product(&v, &t, &mut w);
+        assert!((a - quadratic_form(&v, &t)).abs() <= 1e-14 * a);
+        let mut scratch = [0.0; 3];
+        for (c, involved, e) in [
+            (0.3, vec![1], vec![0.8]),
+            (-1.2, vec![0, 2], vec![0.1, -0.4]),
+            (0.0, vec![2], vec![0.25]),
+        ] {
+            let fast = effect_variance(&v, &w, a, &t, c, &involved, &e, &mut scratch);
+            let expected = direct(&v, &t, c, &involved, &e);
+            assert!(
+                (fast - expected).abs() <= 1e-14 * expected,
+                "{fast} vs {expected}"
+            );
+        }
+    }
+
+    #[test]
+    fn a_cancelling_effect_variance_falls_back_to_the_direct_form() {
+        // ∇ = c·t + e = (1e-9, 0): the expanded form would cancel 1 − 2 + 1 to nothing.
+        let v = [1.0, 0.0, 0.0, 1.0];
+        let t = [1.0, 0.0];
+        let mut w = Vec::new();
+        let a = symmetric_product(&v, &t, &mut w);
+        let e = [-1.0 + 1e-9];
+        let mut scratch = [0.0; 2];
+        let variance = effect_variance(&v, &w, a, &t, 1.0, &[0], &e, &mut scratch);
+        let expected = direct(&v, &t, 1.0, &[0], &e);
+        assert!(
+            (variance - expected).abs() <= 1e-12 * expected,
+            "{variance} vs {expected}"
+        );
+    }
 
     #[test]
     fn default_quantile_is_the_95_percent_normal_quantile() {

@@ -798,6 +798,11 @@ fn validate_covariance(
                     },
                 ));
             }
+            // Keep the symmetric part, the matrix a quadratic form means: the engine relies on
+            // V = Vᵀ exactly (a fitted covariance is symmetric only up to its rounding).
+            let symmetric = a + 0.5 * (b - a);
+            flat[r * k + c] = symmetric;
+            flat[c * k + r] = symmetric;
         }
     }
     let matrix = DMatrix::from_row_slice(k, k, &flat);

@@ -41,7 +41,7 @@ pub const EFFECT_SCALE: f64 = 1e-3;
 pub const STD_ERROR_SCALE: f64 = 1e-4;
 
 /// Delta-method standard error against one built from a numerical Jacobian of the effect with
-/// respect to β (five-point stencil, h = 1e-4 · max(1, |β|)): relative.
+/// respect to β (five-point stencil, h = 1e-4 · max(1, |βᵢ|) / max(1, |tᵢ|)): relative.
 pub const NUMERICAL_JACOBIAN: f64 = 1e-6;
 
 /// Identities that hold up to a few roundings (a discrete change against two separately
