@@ -1,0 +1,106 @@
+//! Fuzz target: the body of `POST /models/{name}/probability`, taken through the same library
+//! calls as the route (JSON parse → request fields → observations → scoring → drift window and
+//! answer store → answer JSON), never panics, and ends either in an answer whose probabilities
+//! lie in [0, 1] or in a problem with a 4xx status whose body is well-formed JSON.
+//!
+//! What this does not cover: the HTTP layer itself (headers, content type, the size limit),
+//! which `tests/hardening.rs` and the HTTP tests exercise over a real connection.
+#![no_main]
+
+#[path = "../support/fuzz_model.rs"]
+mod support;
+
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::OnceLock;
+
+use libfuzzer_sys::fuzz_target;
+use ogive::metrics::monitor::{Monitor, MonitorSettings};
+use ogive::metrics::Metrics;
+use ogive::service::body::parse_json;
+use ogive::service::dto::{parse_probability_request, Observations};
+use ogive::service::observations::parse_all;
+use ogive::service::problem::Problem;
+use ogive::service::scoring::score;
+use ogive::service::Limits;
+use serde_json::Value as Json;
+
+struct Service {
+    metrics: Metrics,
+    monitor: Monitor,
+    max_batch: usize,
+}
+
+static SERVICE: OnceLock<Service> = OnceLock::new();
+static REQUESTS: AtomicU64 = AtomicU64::new(0);
+
+fn service() -> &'static Service {
+    SERVICE.get_or_init(|| {
+        let metrics = Metrics::new().expect("metrics register");
+        let monitor =
+            Monitor::new(MonitorSettings::default(), &metrics.registry).expect("monitor registers");
+        Service {
+            metrics,
+            monitor,
+            max_batch: Limits::default().max_batch,
+        }
+    })
+}
+
+/// What the route does with the body once it has been read.
+fn answer(body: &[u8]) -> Result<Vec<u8>, Problem> {
+    let service = service();
+    let model = support::fuzz_model();
+    let body = parse_json(body)?;
+    let request = parse_probability_request(&body, service.max_batch)?;
+    let values = parse_all(model, request.observations)?;
+    let request_id = format!("fuzz-{}", REQUESTS.fetch_add(1, Ordering::Relaxed));
+    let scored = score(
+        model,
+        &request,
+        &values,
+        &request_id,
+        &service.metrics.scoring(model),
+    )?;
+    let single = matches!(request.observations, Observations::One(_));
+    let answers = scored
+        .answers()
+        .iter()
+        .map(|a| (a.probability, a.linear_index));
+    service
+        .monitor
+        .record_scored(model, &request_id, single, &values, answers);
+    scored.to_json()
+}
+
+fn probabilities(answer: &Json) -> Vec<f64> {
+    match answer.get("results").and_then(Json::as_array) {
+        Some(results) => results
+            .iter()
+            .map(|r| {
+                r["probability"]
+                    .as_f64()
+                    .expect("a result has a probability")
+            })
+            .collect(),
+        None => vec![answer["probability"]
+            .as_f64()
+            .expect("an answer has a probability")],
+    }
+}
+
+fuzz_target!(|data: &[u8]| {
+    match answer(data) {
+        Ok(json) => {
+            let answer: Json = serde_json::from_slice(&json).expect("the answer is JSON");
+            for p in probabilities(&answer) {
+                assert!((0.0..=1.0).contains(&p), "probability {p}");
+            }
+        }
+        Err(problem) => {
+            let status = problem.kind.status();
+            assert!((400..500).contains(&status), "status {status}: {problem}");
+            let body: Json = serde_json::from_slice(&problem.to_json()).expect("problem is JSON");
+            assert_eq!(body["status"].as_u64(), Some(u64::from(status)));
+        }
+    }
+});
