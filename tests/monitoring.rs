@@ -162,7 +162,7 @@ fn term(a: f64, e: f64) -> f64 {
 #[test]
 fn input_psi_of_a_known_shift_matches_the_hand_computation() {
     let registry = Registry::new();
-    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    let drift = DriftMonitor::new(1_000, 1, &registry).expect("monitor");
     let model = drift_model("1");
     // Window shares .4 .3 .2 .1 against training .1 .2 .3 .4. Values outside the training range
     // (-5 below, 55 above) count in the first and last bins; 40, the last edge, is in the last.
@@ -232,7 +232,7 @@ fn input_psi_of_a_known_shift_matches_the_hand_computation() {
 #[test]
 fn an_empty_bin_is_floored_at_the_documented_share() {
     let registry = Registry::new();
-    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    let drift = DriftMonitor::new(1_000, 1, &registry).expect("monitor");
     let model = drift_model("1");
     // Every observation is retail: window shares 1, 0, 0 against training .5 .3 .2; the empty
     // bins count as 1e-4.
@@ -263,7 +263,7 @@ fn an_empty_bin_is_floored_at_the_documented_share() {
 #[test]
 fn a_binary_covariate_without_histogram_uses_its_training_share() {
     let registry = Registry::new();
-    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    let drift = DriftMonitor::new(1_000, 1, &registry).expect("monitor");
     let model = drift_model("1");
     for i in 0..80 {
         drift.record(
@@ -298,7 +298,7 @@ fn a_binary_covariate_without_histogram_uses_its_training_share() {
 #[test]
 fn prediction_psi_bins_probabilities_by_the_fitted_histogram() {
     let registry = Registry::new();
-    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    let drift = DriftMonitor::new(1_000, 1, &registry).expect("monitor");
     let model = drift_model("1");
     // Window .1 .2 .3 .4 against training .4 .3 .2 .1; p = 1 falls in the closed last bin.
     for (p, n) in [(0.1, 10), (0.3, 20), (0.6, 30), (0.8, 20), (1.0, 20)] {
@@ -328,7 +328,7 @@ fn prediction_psi_bins_probabilities_by_the_fitted_histogram() {
 #[test]
 fn the_window_forgets_the_oldest_observations() {
     let registry = Registry::new();
-    let drift = DriftMonitor::new(100, &registry).expect("monitor");
+    let drift = DriftMonitor::new(100, 1, &registry).expect("monitor");
     let model = drift_model("1");
     // 100 shifted observations, then 100 in exactly the training shares: the shifted ones must
     // all have left the window, leaving a PSI of exactly 0.
@@ -349,7 +349,7 @@ fn the_window_forgets_the_oldest_observations() {
 #[test]
 fn versions_keep_separate_windows_and_empty_windows_export_no_psi() {
     let registry = Registry::new();
-    let drift = DriftMonitor::new(1_000, &registry).expect("monitor");
+    let drift = DriftMonitor::new(1_000, 1, &registry).expect("monitor");
     assert!(series(&scrape(&registry), "ogive_input_psi", &[]).is_none());
     let (one, two) = (drift_model("1"), drift_model("2"));
     for _ in 0..10 {
@@ -388,7 +388,7 @@ fn versions_keep_separate_windows_and_empty_windows_export_no_psi() {
 #[test]
 fn concurrent_recorders_lose_no_sample_without_counting_it() {
     let registry = Registry::new();
-    let drift = DriftMonitor::new(100_000, &registry).expect("monitor");
+    let drift = DriftMonitor::new(100_000, 4, &registry).expect("monitor");
     let model = drift_model("1");
     let threads = 4;
     let per_thread = 5_000;
@@ -425,6 +425,23 @@ fn concurrent_recorders_lose_no_sample_without_counting_it() {
         &[("version", "1")],
     );
     assert_eq!(dropped.unwrap_or(0.0), r.dropped_samples as f64);
+}
+
+#[test]
+fn a_lone_thread_fills_only_its_home_shard() {
+    // Documented: each thread keeps to its own shard, so one busy thread sees window/shards.
+    let registry = Registry::new();
+    let drift = DriftMonitor::new(100, 4, &registry).expect("monitor");
+    let model = drift_model("1");
+    for i in 0..1_000 {
+        drift.record(&model, &values(&model, f64::from(i % 40), "retail", 0), 0.1);
+    }
+    let report = drift.report("lease-test");
+    assert_eq!(
+        (report[0].window_observations, report[0].window_capacity),
+        (25, 100)
+    );
+    assert_eq!(report[0].dropped_samples, 0);
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -704,6 +721,35 @@ fn the_oldest_requests_are_evicted_and_counted() {
         Some(8.0)
     );
     assert_eq!(series(&samples, "ogive_answers_held", &[]), Some(5.0));
+}
+
+#[test]
+fn concurrent_answers_are_all_found_later() {
+    let registry = Registry::new();
+    let store = AnswerStore::new(100_000, &registry).expect("store");
+    let model = drift_model("1");
+    let (threads, per_thread) = (4, 3_000);
+    std::thread::scope(|scope| {
+        for t in 0..threads {
+            let (store, model) = (&store, &model);
+            scope.spawn(move || {
+                for i in 0..per_thread {
+                    let answer = StoredAnswer::new(0.5, f64::from(t * per_thread + i));
+                    store.keep_single(&format!("t{t}-{i}"), model, answer);
+                }
+            });
+        }
+    });
+    for t in 0..threads {
+        for i in 0..per_thread {
+            let matched = store
+                .claim("lease-test", &format!("t{t}-{i}"), true)
+                .expect("every answer is kept");
+            assert_eq!(matched.linear_index, f64::from(t * per_thread + i));
+        }
+    }
+    let summary = store.summary();
+    assert_eq!((summary.held, summary.evicted_total), (12_000, 0));
 }
 
 #[test]

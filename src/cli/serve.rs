@@ -200,6 +200,7 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
     let state = if args.monitoring {
         let windows = MonitorSettings {
             drift_window: args.drift_window,
+            drift_shards: settings.worker_count(),
             calibration_window: args.calibration_window,
             answer_capacity: args.answer_capacity,
         };

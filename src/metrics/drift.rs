@@ -30,30 +30,32 @@
 //! A covariate without training bins (no histogram, no level counts, all-zero counts, or more
 //! than 65,535 bins) is not tracked, and the report says why.
 //!
-//! Memory and cost: each model version keeps a ring buffer of `window` rows, one `u16` bin index
-//! per tracked covariate plus one for the probability, and the running count of every bin, so a
+//! Memory and cost: each model version keeps `window` rows in all, one `u16` bin index per
+//! tracked covariate plus one for the probability, and the running count of every bin, so a
 //! window of 10,000 observations of 10 covariates costs about 220 kB. Recording an observation
 //! finds each bin (a binary search over the edges), overwrites the oldest row and moves the
 //! running counts: O(covariates · log bins). The PSI reads the running counts: O(bins).
 //!
-//! Concurrency: the request path never waits. Each version's window sits behind a std mutex that
-//! a recorder only *tries* to take; if another thread holds it (for the few dozen nanoseconds of
-//! one update, or the O(bins) read of a scrape), the sample is dropped and counted in
+//! Concurrency: the request path never waits. A version's window is split into `shards`
+//! (the service uses one per worker thread), each holding `window / shards` rows behind its own
+//! std mutex on its own cache lines. A thread records into its home shard, taking the lock only
+//! if it is free; if it is busy (another thread, or a scrape reading its counts) it tries the
+//! other shards, and if all are busy the sample is dropped and counted in
 //! `ogive_drift_samples_dropped_total`. Dropping under contention keeps the window a sample of
-//! the traffic rather than all of it, which is all a PSI needs. Versions are found through an
-//! atomically swapped map, so a lookup takes no lock; the map is rebuilt only when a version is
-//! seen for the first time, and a request looks its version up once ([`DriftRecorder`]).
-//! Measured by `cargo bench --bench monitoring`: recording costs about a tenth of scoring the
-//! observation, and with threads doing nothing but scoring and recording into one window, 2
-//! threads drop about 10% of samples; under HTTP load, where a request spends most of its time
-//! outside the window, drops are rare (`benches/monitoring_cost.sh` prints the share).
+//! the traffic rather than all of it, which is all a PSI needs. Because each thread keeps to its
+//! own shard, the window is the most recent `window` observations when traffic is spread over
+//! the workers, and the most recent `window / shards` of a lone busy worker otherwise (the
+//! exported window size says which). Versions are found through an atomically swapped map, so
+//! a lookup takes no lock; the map is rebuilt only when a version is seen for the first time,
+//! and a request looks its version up once ([`DriftRecorder`]). The costs are measured by
+//! `cargo bench --bench monitoring` and, over HTTP, by `benches/monitoring_cost.sh`.
 //!
 //! This module does not parse observations (the service hands it the engine's values), does not
 //! know HTTP, and does not decide when drift is alarming (the alert rules in `deploy/prometheus`
 //! do).
 
 use std::collections::HashMap;
-use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::atomic::{AtomicU64, AtomicUsize, Ordering};
 use std::sync::{Arc, Mutex, PoisonError, TryLockError};
 
 use arc_swap::ArcSwap;
@@ -418,9 +420,22 @@ impl Window {
 #[derive(Debug)]
 struct VersionDrift {
     layout: Layout,
-    window: Mutex<Window>,
+    shards: Box<[Shard]>,
     dropped: AtomicU64,
     dropped_counter: IntCounter,
+}
+
+/// One shard of a version's window, on its own cache lines so that threads recording into
+/// different shards do not disturb each other.
+#[derive(Debug)]
+#[repr(align(128))]
+struct Shard(Mutex<Window>);
+
+/// Numbers the threads that record, so that each has a home shard.
+static NEXT_THREAD: AtomicUsize = AtomicUsize::new(0);
+
+thread_local! {
+    static THREAD_NUMBER: usize = NEXT_THREAD.fetch_add(1, Ordering::Relaxed);
 }
 
 /// The PSI of one tracked distribution and the shares behind it.
@@ -471,10 +486,16 @@ pub struct VersionDriftReport {
 impl VersionDrift {
     /// Copy the counts out under the lock (O(bins)) and compute the PSI outside it.
     fn report(&self, version: &str) -> VersionDriftReport {
-        let (observations, capacity, counts) = {
-            let window = self.window.lock().unwrap_or_else(PoisonError::into_inner);
-            (window.len(), window.capacity, window.counts.clone())
-        };
+        let mut counts = vec![0_u32; self.layout.total_bins];
+        let (mut observations, mut capacity) = (0, 0);
+        for shard in self.shards.iter() {
+            let window = shard.0.lock().unwrap_or_else(PoisonError::into_inner);
+            observations += window.len();
+            capacity += window.capacity;
+            for (total, n) in counts.iter_mut().zip(&window.counts) {
+                *total += n;
+            }
+        }
         let distribution = |c: &Channel| {
             let counts = &counts[c.offset..c.offset + c.bins()];
             let actual: Vec<f64> = counts
@@ -539,6 +560,7 @@ struct DriftMetrics {
 #[derive(Debug)]
 pub struct DriftMonitor {
     window: usize,
+    shards: usize,
     versions: ArcSwap<VersionMap>,
     /// Serialises the (rare) addition of a version, and scrapes, which reset and refill gauges.
     writer: Mutex<()>,
@@ -562,8 +584,8 @@ pub enum DriftSetupError {
 }
 
 impl DriftMonitor {
-    /// A monitor keeping `window` observations per model version, its series registered in
-    /// `registry`:
+    /// A monitor keeping `window` observations per model version in `shards` shards (at least
+    /// one; one per worker thread keeps threads apart), its series registered in `registry`:
     ///
     /// ```text
     /// ogive_input_psi{model,version,covariate}            gauge
@@ -574,10 +596,15 @@ impl DriftMonitor {
     ///
     /// The PSI gauges are computed when scraped, from the running counts, and are absent for a
     /// version whose window is still empty.
-    pub fn new(window: usize, registry: &Registry) -> Result<Arc<DriftMonitor>, DriftSetupError> {
+    pub fn new(
+        window: usize,
+        shards: usize,
+        registry: &Registry,
+    ) -> Result<Arc<DriftMonitor>, DriftSetupError> {
         if window == 0 {
             return Err(EmptyWindow(window).into());
         }
+        let shards = shards.clamp(1, window);
         let metrics = DriftMetrics {
             input_psi: GaugeVec::new(
                 Opts::new(
@@ -610,6 +637,7 @@ impl DriftMonitor {
         };
         let monitor = Arc::new(DriftMonitor {
             window,
+            shards,
             versions: ArcSwap::from_pointee(VersionMap::new()),
             writer: Mutex::new(()),
             metrics,
@@ -662,7 +690,14 @@ impl DriftMonitor {
         }
         let layout = Layout::new(model);
         let state = Arc::new(VersionDrift {
-            window: Mutex::new(Window::new(self.window, &layout)),
+            shards: (0..self.shards)
+                .map(|_| {
+                    Shard(Mutex::new(Window::new(
+                        self.window.div_ceil(self.shards),
+                        &layout,
+                    )))
+                })
+                .collect(),
             layout,
             dropped: AtomicU64::new(0),
             dropped_counter: self
@@ -731,18 +766,21 @@ impl DriftRecorder {
     /// waits: a busy window drops the sample and counts it.
     pub fn record(&self, values: &[Value], probability: f64) {
         let version = &self.0;
-        let window = match version.window.try_lock() {
-            Ok(window) => Some(window),
-            Err(TryLockError::Poisoned(poisoned)) => Some(poisoned.into_inner()),
-            Err(TryLockError::WouldBlock) => None,
-        };
-        match window {
-            Some(mut window) => window.record(&version.layout, values, probability),
-            None => {
-                version.dropped.fetch_add(1, Ordering::Relaxed);
-                version.dropped_counter.inc();
-            }
+        let shards = version.shards.len();
+        let home = THREAD_NUMBER.with(|n| *n) % shards;
+        // The home shard first, then the others; a sample is dropped only if all are busy.
+        for shard in (0..shards).map(|i| &version.shards[(home + i) % shards]) {
+            let window = match shard.0.try_lock() {
+                Ok(window) => window,
+                Err(TryLockError::Poisoned(poisoned)) => poisoned.into_inner(),
+                Err(TryLockError::WouldBlock) => continue,
+            };
+            let mut window = window;
+            window.record(&version.layout, values, probability);
+            return;
         }
+        version.dropped.fetch_add(1, Ordering::Relaxed);
+        version.dropped_counter.inc();
     }
 }
 

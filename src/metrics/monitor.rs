@@ -27,6 +27,8 @@ use crate::model::{Model, Value};
 pub struct MonitorSettings {
     /// Observations per model version in the drift window.
     pub drift_window: usize,
+    /// Shards of each drift window: one per thread that records keeps threads apart.
+    pub drift_shards: usize,
     /// Outcomes per model version in the calibration window.
     pub calibration_window: usize,
     /// Answers kept for outcomes, across all models.
@@ -37,6 +39,7 @@ impl Default for MonitorSettings {
     fn default() -> MonitorSettings {
         MonitorSettings {
             drift_window: drift::DEFAULT_WINDOW,
+            drift_shards: std::thread::available_parallelism().map_or(1, |n| n.get()),
             calibration_window: calibration::DEFAULT_WINDOW,
             answer_capacity: outcomes::DEFAULT_CAPACITY,
         }
@@ -109,7 +112,7 @@ impl Monitor {
         registry: &Registry,
     ) -> Result<Monitor, MonitorSetupError> {
         Ok(Monitor {
-            drift: DriftMonitor::new(settings.drift_window, registry)?,
+            drift: DriftMonitor::new(settings.drift_window, settings.drift_shards, registry)?,
             answers: AnswerStore::new(settings.answer_capacity, registry)?,
             calibration: CalibrationMonitor::new(settings.calibration_window, registry)?,
         })

@@ -10,8 +10,9 @@
 //!
 //! Memory is bounded: the store holds at most `capacity` answers (default 50,000). Each answer
 //! keeps its probability, its linear index and its outcome once reported (24 bytes); each
-//! request keeps its id (inline up to 38 bytes, so a UUID needs no allocation) and a reference
-//! to the model version that answered. Measured, a single-observation request costs about
+//! request keeps its id (inline up to 38 bytes, so a UUID needs no allocation) and the number
+//! of the model version that answered (versions are named once, in a list that grows by one
+//! per version ever served). Measured, a single-observation request costs about
 //! 115 bytes, so the default store stays under 6 MB; the ring and the index are allocated at
 //! their full size once, so they never reallocate. When a new request would exceed the capacity, whole requests are
 //! evicted oldest first and their answers counted in `ogive_answers_evicted_total`; a single
@@ -23,12 +24,18 @@
 //! of each request id to its number, and a lookup checks the stored id, so a hash collision
 //! (odds about n²/2⁶⁵) can only make the older of two requests unfindable, never match the
 //! wrong one. A replaced request stays in the ring as an empty slot until it reaches the front;
-//! slots count toward the capacity too, so the ring never outgrows it.
+//! slots count toward the capacity too, so the ring never outgrows it. Evicting a request does
+//! not touch the index (its entry, numbered before the ring's front, is simply stale); stale
+//! entries are swept out together once they reach a quarter of the capacity.
 //!
-//! Concurrency: one std mutex guards the store; everything that allocates (the id, the answers)
-//! and the hashing are done before taking it, so the critical section is an index insert, a
-//! ring push and the occasional eviction. Unlike the drift windows, an answer is never dropped
-//! under contention: an outcome reported for it later must find it.
+//! Concurrency: the request path never waits for the store. It builds the request's entry
+//! (copying the id, hashing it, boxing a batch's answers) and sends it to a bounded lock-free
+//! inbox (1,024 requests), then moves the inbox into the ring only if the store's lock is free;
+//! if another thread holds it, that thread or the next caller moves it. Reporting an outcome
+//! takes the lock and drains the inbox first, so an answer sent before its response was written
+//! is always found. Only a full inbox (1,024 requests arriving while the lock is held) makes a
+//! request wait for the lock. Unlike the drift windows, an answer is never dropped under
+//! contention: an outcome reported for it later must find it.
 //!
 //! This module does not score, know HTTP, or compute calibration figures
 //! ([`crate::metrics::calibration`] does).
@@ -36,8 +43,10 @@
 use std::collections::hash_map::RandomState;
 use std::collections::{HashMap, VecDeque};
 use std::hash::{BuildHasher, BuildHasherDefault, Hasher};
-use std::sync::{Arc, Mutex, PoisonError};
+use std::sync::mpsc::{sync_channel, Receiver, SyncSender, TrySendError};
+use std::sync::{Arc, Mutex, MutexGuard, PoisonError};
 
+use arc_swap::ArcSwap;
 use prometheus::{IntCounter, IntGauge, Opts, Registry};
 use schemars::JsonSchema;
 use serde::Serialize;
@@ -127,7 +136,10 @@ impl StoredId {
 struct Request {
     /// The request id; empty for an empty slot.
     id: StoredId,
-    model: Arc<Model>,
+    /// The id's hash, the index's key.
+    hash: u64,
+    /// The answering version, as its place in [`AnswerStore::versions`].
+    version: u32,
     answers: Answers,
 }
 
@@ -171,7 +183,10 @@ impl Hasher for PreHashed {
     }
 }
 
-#[derive(Debug, Default)]
+/// Requests waiting in the inbox, with the answers already cut from an oversized batch.
+type Pending = (Request, usize);
+
+#[derive(Debug)]
 struct Store {
     /// Requests, oldest first; `ring[i]` arrived as number `front + i`.
     ring: VecDeque<Request>,
@@ -180,6 +195,8 @@ struct Store {
     index: HashMap<u64, u64, BuildHasherDefault<PreHashed>>,
     /// Answers held (empty slots hold none).
     held: usize,
+    /// Requests sent by the request path and not yet in the ring.
+    inbox: Receiver<Pending>,
 }
 
 impl Store {
@@ -191,22 +208,62 @@ impl Store {
         (request.id.as_bytes() == id.as_bytes()).then_some(position)
     }
 
-    /// Remove the oldest slot; returns how many answers it held.
-    fn pop_oldest(&mut self, hasher: &RandomState) -> usize {
+    /// Remove the oldest slot; returns how many answers it held. Its index entry stays: an
+    /// entry whose number is below `front` is stale, and [`Store::insert`] sweeps stale entries
+    /// out in bulk. (Removing it here would cost a cache miss per eviction, the largest single
+    /// cost of keeping an answer.)
+    fn pop_oldest(&mut self) -> usize {
         let Some(oldest) = self.ring.pop_front() else {
             return 0;
         };
-        let number = self.front;
         self.front += 1;
         if oldest.is_empty_slot() {
             return 0;
         }
-        let hash = hasher.hash_one(oldest.id.as_bytes());
-        if self.index.get(&hash) == Some(&number) {
-            self.index.remove(&hash);
-        }
         self.held -= oldest.answers.len();
         oldest.answers.len()
+    }
+
+    /// Put one request in the ring, evicting the oldest while over `capacity`; returns how many
+    /// answers were evicted.
+    fn insert(&mut self, request: Request, capacity: usize) -> usize {
+        let mut evicted = 0;
+        let number = self.front + self.ring.len() as u64;
+        if let Some(earlier) = self.index.insert(request.hash, number) {
+            let position = earlier.checked_sub(self.front).map(|p| p as usize);
+            if let Some(replaced) = position.and_then(|p| self.ring.get_mut(p)) {
+                let gone = replaced.vacate();
+                self.held -= gone;
+                evicted += gone;
+            }
+        }
+        // Make room before pushing, so the ring and the index never outgrow the size they were
+        // allocated with. Popping keeps `front + ring.len()`, so `number` stays right.
+        let incoming = request.answers.len();
+        while !self.ring.is_empty()
+            && (self.held + incoming > capacity || self.ring.len() >= capacity)
+        {
+            evicted += self.pop_oldest();
+        }
+        self.held += incoming;
+        self.ring.push_back(request);
+        // Stale entries may add a quarter of the capacity before one sequential sweep drops them
+        // all; the index was sized for that, so it never reallocates.
+        if self.index.len() > capacity + capacity / 4 {
+            let front = self.front;
+            self.index.retain(|_, number| *number >= front);
+        }
+        evicted
+    }
+
+    /// Move every request waiting in the inbox into the ring; returns how many answers were
+    /// evicted (or cut from oversized batches).
+    fn drain(&mut self, capacity: usize) -> usize {
+        let mut evicted = 0;
+        while let Ok((request, cut)) = self.inbox.try_recv() {
+            evicted += cut + self.insert(request, capacity);
+        }
+        evicted
     }
 }
 
@@ -259,11 +316,27 @@ pub struct StoreSummary {
     pub evicted_total: u64,
 }
 
+/// Requests that may wait in the inbox before the request path takes the store's lock itself.
+const INBOX: usize = 1024;
+
+/// A model version that has answered, by name.
+#[derive(Debug, Clone, PartialEq, Eq)]
+struct VersionName {
+    model: Box<str>,
+    version: Box<str>,
+}
+
 /// Recent answers by id, bounded in memory.
 #[derive(Debug)]
 pub struct AnswerStore {
     capacity: usize,
     hasher: RandomState,
+    /// Every version that has answered, in order of first answer; requests name theirs by its
+    /// place here, which costs no reference count on the request path. It grows by one entry
+    /// per version ever served.
+    versions: ArcSwap<Vec<VersionName>>,
+    versions_writer: Mutex<()>,
+    inbox: SyncSender<Pending>,
     store: Mutex<Store>,
     evicted: IntCounter,
     held: IntGauge,
@@ -301,14 +374,23 @@ impl AnswerStore {
         ))?;
         registry.register(Box::new(evicted.clone()))?;
         registry.register(Box::new(held.clone()))?;
+        let (inbox, receiver) = sync_channel(INBOX);
         Ok(Arc::new(AnswerStore {
             capacity,
             hasher: RandomState::new(),
+            versions: ArcSwap::from_pointee(Vec::new()),
+            versions_writer: Mutex::new(()),
+            inbox,
             // Sized once: growing by doubling would leave the old blocks behind in the heap.
             store: Mutex::new(Store {
                 ring: VecDeque::with_capacity(capacity),
-                index: HashMap::with_capacity_and_hasher(capacity + 1, Default::default()),
-                ..Store::default()
+                front: 0,
+                index: HashMap::with_capacity_and_hasher(
+                    capacity + capacity / 4 + 1,
+                    Default::default(),
+                ),
+                held: 0,
+                inbox: receiver,
             }),
             evicted,
             held,
@@ -321,12 +403,12 @@ impl AnswerStore {
     }
 
     /// Keep the answer to a single-observation request: its id is `request_id`.
-    pub fn keep_single(&self, request_id: &str, model: &Arc<Model>, answer: StoredAnswer) {
+    pub fn keep_single(&self, request_id: &str, model: &Model, answer: StoredAnswer) {
         self.keep(request_id, model, Answers::Single(answer), 0);
     }
 
     /// Keep the answers to a batch request, in batch order: their ids are `request_id/i`.
-    pub fn keep_batch(&self, request_id: &str, model: &Arc<Model>, mut answers: Vec<StoredAnswer>) {
+    pub fn keep_batch(&self, request_id: &str, model: &Model, mut answers: Vec<StoredAnswer>) {
         let over = answers.len().saturating_sub(self.capacity);
         answers.truncate(self.capacity);
         if answers.is_empty() {
@@ -340,45 +422,78 @@ impl AnswerStore {
         );
     }
 
-    /// Store one request's answers, evicting the oldest requests while over capacity;
-    /// `evicted` answers were already cut from an oversized batch.
-    fn keep(&self, request_id: &str, model: &Arc<Model>, answers: Answers, mut evicted: usize) {
+    /// Store one request's answers without waiting: send them to the inbox, then move the
+    /// inbox into the ring if the lock is free (otherwise its holder, or the next caller, will).
+    /// Only a full inbox makes the caller wait for the lock. `cut` answers were already cut
+    /// from an oversized batch.
+    fn keep(&self, request_id: &str, model: &Model, answers: Answers, cut: usize) {
         if request_id.is_empty() {
             // An empty id could never be reported against; the service always sets one.
-            self.evicted.inc_by((answers.len() + evicted) as u64);
+            self.evicted.inc_by((answers.len() + cut) as u64);
             return;
         }
-        let hash = self.hasher.hash_one(request_id.as_bytes());
         let request = Request {
             id: StoredId::new(request_id),
-            model: Arc::clone(model),
+            hash: self.hasher.hash_one(request_id.as_bytes()),
+            version: self.version_number(model),
             answers,
         };
-        let mut store = self.store.lock().unwrap_or_else(PoisonError::into_inner);
-        let number = store.front + store.ring.len() as u64;
-        if let Some(earlier) = store.index.insert(hash, number) {
-            let position = earlier.checked_sub(store.front).map(|p| p as usize);
-            if let Some(replaced) = position.and_then(|p| store.ring.get_mut(p)) {
-                let gone = replaced.vacate();
-                store.held -= gone;
-                evicted += gone;
+        match self.inbox.try_send((request, cut)) {
+            Ok(()) => {
+                if let Ok(store) = self.store.try_lock() {
+                    drop(self.settle(store));
+                }
+            }
+            Err(
+                TrySendError::Full((request, cut)) | TrySendError::Disconnected((request, cut)),
+            ) => {
+                let mut store = self.locked();
+                let evicted = cut + store.insert(request, self.capacity);
+                self.evicted.inc_by(evicted as u64);
+                drop(self.settle(store));
             }
         }
-        // Make room before pushing, so the ring and the index never outgrow the size they were
-        // allocated with. Popping keeps `front + ring.len()`, so `number` stays right.
-        let incoming = request.answers.len();
-        while !store.ring.is_empty()
-            && (store.held + incoming > self.capacity || store.ring.len() >= self.capacity)
-        {
-            evicted += store.pop_oldest(&self.hasher);
+    }
+
+    /// The place of `model`'s version in [`AnswerStore::versions`], added the first time.
+    fn version_number(&self, model: &Model) -> u32 {
+        let known = |list: &[VersionName]| {
+            list.iter()
+                .position(|v| &*v.model == model.name() && &*v.version == model.version())
+        };
+        if let Some(i) = known(&self.versions.load()) {
+            return i as u32;
         }
-        store.held += incoming;
-        store.ring.push_back(request);
+        let _writer = self
+            .versions_writer
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner);
+        let current = self.versions.load_full();
+        if let Some(i) = known(&current) {
+            return i as u32;
+        }
+        let mut next = Vec::clone(&current);
+        next.push(VersionName {
+            model: model.name().into(),
+            version: model.version().into(),
+        });
+        self.versions.store(Arc::new(next));
+        current.len() as u32
+    }
+
+    /// The store, locked, with the inbox not yet drained.
+    fn locked(&self) -> MutexGuard<'_, Store> {
+        self.store.lock().unwrap_or_else(PoisonError::into_inner)
+    }
+
+    /// Drain the inbox into the locked store and update the series; returns the store.
+    fn settle<'a>(&self, mut store: MutexGuard<'a, Store>) -> MutexGuard<'a, Store> {
+        let evicted = store.drain(self.capacity);
         self.held.set(i64::try_from(store.held).unwrap_or(i64::MAX));
-        drop(store);
         if evicted > 0 {
             self.evicted.inc_by(evicted as u64);
         }
+        store
     }
 
     /// Mark answer `answer_id` of model `model_name` as having `outcome`, and return it.
@@ -400,7 +515,7 @@ impl AnswerStore {
                 self.hasher.hash_one(request_id.as_bytes()),
             )
         });
-        let mut store = self.store.lock().unwrap_or_else(PoisonError::into_inner);
+        let mut store = self.settle(self.locked());
         let single = store
             .position(answer_id, whole_hash)
             .filter(|&p| matches!(store.ring[p].answers, Answers::Single(_)));
@@ -413,7 +528,11 @@ impl AnswerStore {
             (None, None) => return Err(not_found()),
         };
         let request = &mut store.ring[position];
-        if request.model.name() != model_name {
+        let versions = self.versions.load();
+        let Some(answered_by) = versions.get(request.version as usize) else {
+            return Err(not_found());
+        };
+        if &*answered_by.model != model_name {
             return Err(not_found());
         }
         let answer = match (&mut request.answers, index) {
@@ -431,7 +550,7 @@ impl AnswerStore {
         Ok(MatchedAnswer {
             answer_id: answer_id.to_string(),
             model: model_name.to_string(),
-            version: request.model.version().to_string(),
+            version: answered_by.version.to_string(),
             probability: answer.probability,
             linear_index: answer.linear_index,
             outcome: u8::from(outcome),
@@ -440,11 +559,7 @@ impl AnswerStore {
 
     /// The store's size now.
     pub fn summary(&self) -> StoreSummary {
-        let held = self
-            .store
-            .lock()
-            .unwrap_or_else(PoisonError::into_inner)
-            .held;
+        let held = self.settle(self.locked()).held;
         StoreSummary {
             held,
             capacity: self.capacity,
@@ -519,7 +634,7 @@ mod tests {
                 store.keep_single(&id, &model, StoredAnswer::new(0.5, 0.0));
             }
             let s = store.store.lock().expect("lock");
-            assert!(s.ring.len() <= 64 && s.held <= 64 && s.index.len() <= 64);
+            assert!(s.ring.len() <= 64 && s.held <= 64 && s.index.len() <= 64 + 64 / 4 + 1);
         }
         let s = store.store.lock().expect("lock");
         assert_eq!(s.ring.capacity(), ring);
