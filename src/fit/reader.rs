@@ -228,6 +228,8 @@ struct BlockData {
     dictionaries: Vec<HashMap<Vec<u8>, u32>>,
     records: u64,
     dropped: u64,
+    /// Bytes parsed (to estimate the whole file's rows from the first block).
+    bytes: u64,
 }
 
 /// A parse failure inside a block, with the row counted from the block's start.
@@ -407,6 +409,7 @@ fn take_record(
 fn parse_block(plan: &Plan, bytes: &[u8]) -> Result<BlockData, BlockFailure> {
     let width = plan.columns.len();
     let mut data = BlockData::new(width);
+    data.bytes = bytes.len() as u64;
     let mut scratch = RecordScratch {
         numbers: vec![0.0; width],
         codes: vec![0u32; width],
@@ -520,6 +523,27 @@ impl BlockData {
             codes: vec![Vec::new(); width],
             dictionaries: vec![HashMap::new(); width],
             ..BlockData::default()
+        }
+    }
+
+    /// Reserve room for the rows a file of `total_bytes` is likely to hold, judging by this
+    /// first block, so the columns grow once rather than by repeated doubling and copying.
+    fn reserve_for(&mut self, block: &BlockData, total_bytes: u64) {
+        if block.bytes == 0 || block.records == 0 {
+            return;
+        }
+        let per_row = block.bytes as f64 / block.records as f64;
+        let rows = ((total_bytes as f64 / per_row) * 1.02) as usize + 16;
+        self.outcome.reserve(rows);
+        for (c, numbers) in self.numeric.iter_mut().enumerate() {
+            if !block.numeric[c].is_empty() {
+                numbers.reserve(rows);
+            }
+        }
+        for (c, codes) in self.codes.iter_mut().enumerate() {
+            if !block.codes[c].is_empty() {
+                codes.reserve(rows);
+            }
         }
     }
 
@@ -644,6 +668,8 @@ pub fn read_table(request: &ReadRequest, progress: &dyn Progress) -> Result<Tabl
         .clamp(1, 8);
     let stop = AtomicBool::new(false);
     let (block_sender, block_receiver) = mpsc::sync_channel::<(usize, Vec<u8>)>(threads * 2);
+    // Parsed blocks' buffers come back for reuse, so reading touches no fresh pages per block.
+    let (recycle_sender, recycle_receiver) = mpsc::channel::<Vec<u8>>();
     let block_receiver = Mutex::new(block_receiver);
     let (result_sender, result_receiver) =
         mpsc::channel::<(usize, Result<BlockData, BlockFailure>)>();
@@ -652,6 +678,7 @@ pub fn read_table(request: &ReadRequest, progress: &dyn Progress) -> Result<Tabl
     let outcome: Result<Joiner, FitError> = std::thread::scope(|scope| {
         for _ in 0..threads {
             let results = result_sender.clone();
+            let recycle = recycle_sender.clone();
             let blocks = &block_receiver;
             let stop = &stop;
             scope.spawn(move || loop {
@@ -667,6 +694,7 @@ pub fn read_table(request: &ReadRequest, progress: &dyn Progress) -> Result<Tabl
                 {
                     stop.store(true, Ordering::Relaxed);
                 }
+                let _ = recycle.send(bytes);
             });
         }
         drop(result_sender);
@@ -682,6 +710,9 @@ pub fn read_table(request: &ReadRequest, progress: &dyn Progress) -> Result<Tabl
                 while let Some(result) = waiting.remove(&next) {
                     match result {
                         Ok(block) => {
+                            if next == 0 {
+                                joiner.reserve_for(&block, total_bytes);
+                            }
                             joiner.append(block);
                             progress.rows_read(joiner.records);
                         }
@@ -733,7 +764,12 @@ pub fn read_table(request: &ReadRequest, progress: &dyn Progress) -> Result<Tabl
                 }
                 break;
             }
-            let rest = pending.split_off(cut);
+            let mut rest = recycle_receiver
+                .try_recv()
+                .unwrap_or_else(|_| Vec::with_capacity(BLOCK_BYTES * 2));
+            rest.clear();
+            rest.extend_from_slice(&pending[cut..]);
+            pending.truncate(cut);
             let block = std::mem::replace(&mut pending, rest);
             read_bytes += block.len() as u64;
             progress.bytes_read(read_bytes);
