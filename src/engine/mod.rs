@@ -24,7 +24,7 @@ mod average;
 pub use average::{Average, Averager};
 
 use crate::link::{normal_quantile, LinkValues};
-use crate::model::{CovariateKind, Model, Value};
+use crate::model::{CovariateKind, Factor, Model, Term, Value};
 
 /// A two-sided interval.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -242,7 +242,38 @@ pub struct Answer {
     pub above_threshold: Option<bool>,
 }
 
-/// Reusable buffers for scoring one model's observations.
+/// How a term depends on one covariate x, for the shapes that are worth writing out inline;
+/// every other term goes through [`Term::value`] and [`Term::derivative`]. Each inline form is
+/// the same arithmetic as the general one, so the results are the same to the bit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Shape {
+    /// t = x, ∂t/∂x = 1.
+    Linear,
+    /// t = x², ∂t/∂x = 2x.
+    Square,
+    /// t = x·y for another numeric covariate y, ∂t/∂x = y.
+    TimesOther(usize),
+    /// Anything else.
+    General,
+}
+
+impl Shape {
+    fn of(term: &Term, j: usize) -> Shape {
+        match term {
+            Term::Covariate(c) if *c == j => Shape::Linear,
+            Term::Power(c, 2) if *c == j => Shape::Square,
+            Term::Product(factors) => match factors.as_slice() {
+                [Factor::Value(a), Factor::Value(b)] if *a == j && *b != j => Shape::TimesOther(*b),
+                [Factor::Value(a), Factor::Value(b)] if *b == j && *a != j => Shape::TimesOther(*a),
+                _ => Shape::General,
+            },
+            _ => Shape::General,
+        }
+    }
+}
+
+/// Reusable buffers for scoring one model's observations. A scorer serves the model it was
+/// built for (its buffers and term shapes follow that model's layout).
 #[derive(Debug, Clone)]
 pub struct Scorer {
     slots: Vec<EffectSlot>,
@@ -262,6 +293,9 @@ pub struct Scorer {
     gradient: Vec<f64>,
     /// x − mean of the joint-check covariates.
     deviations: Vec<f64>,
+    /// For each covariate, the shape of each term that involves it (in `terms_of_covariate`
+    /// order), so the common shapes are differentiated and re-evaluated inline.
+    shapes: Vec<Vec<Shape>>,
     /// The answer for the last observation scored.
     pub answer: Answer,
     /// The gradient of each effect with respect to β for the last observation, row-major
@@ -392,6 +426,17 @@ impl Scorer {
             shift_low: Vec::with_capacity(most_involved),
             gradient: vec![0.0; k],
             deviations: Vec::with_capacity(model.joint.as_ref().map_or(0, |j| j.mean.len())),
+            shapes: model
+                .terms_of_covariate
+                .iter()
+                .enumerate()
+                .map(|(j, involved)| {
+                    involved
+                        .iter()
+                        .map(|&i| Shape::of(&model.terms[i], j))
+                        .collect()
+                })
+                .collect(),
             answer: Answer {
                 effects: Vec::with_capacity(n_slots),
                 warnings: Vec::with_capacity(model.covariates.len() + 1),
@@ -557,9 +602,18 @@ impl Scorer {
             let (effect, c) = match slot.kind {
                 EffectKind::Derivative => {
                     let mut g = 0.0;
-                    for &i in involved {
-                        let d = model.terms[i].derivative(j, values, &model.level_shares);
-                        self.sparse.push(density * d);
+                    for (&i, &shape) in involved.iter().zip(&self.shapes[j]) {
+                        let d = match shape {
+                            Shape::Linear => 1.0,
+                            Shape::Square => 2.0 * values[j].number(),
+                            Shape::TimesOther(other) => values[other].number(),
+                            Shape::General => {
+                                model.terms[i].derivative(j, values, &model.level_shares)
+                            }
+                        };
+                        if need_gradient {
+                            self.sparse.push(density * d);
+                        }
                         g += model.coefficients[i] * d;
                     }
                     // ∇ = f′(z)·g·t + f(z)·d
@@ -573,8 +627,10 @@ impl Scorer {
                     let (z_high, high) = self.shifted(model, values, j, to, z, at, true);
                     let (z_low, low) = self.shifted(model, values, j, from, z, at, false);
                     // ∇ = f(z_b)·t_b − f(z_a)·t_a = (f_b − f_a)·t + f_b·(t_b − t) − f_a·(t_a − t)
-                    for (b, a) in self.shift_high.iter().zip(&self.shift_low) {
-                        self.sparse.push(high.density * b - low.density * a);
+                    if need_gradient {
+                        for (b, a) in self.shift_high.iter().zip(&self.shift_low) {
+                            self.sparse.push(high.density * b - low.density * a);
+                        }
                     }
                     let effect = if z_low > 0.0 && z_high > 0.0 {
                         // Both near 1: the difference of the complements keeps its digits.
@@ -657,8 +713,13 @@ impl Scorer {
         }
         self.alternative[j] = value;
         let mut shifted_index = z;
-        for &i in involved {
-            let t = model.terms[i].value(&self.alternative, &model.level_shares);
+        for (&i, &shape) in involved.iter().zip(&self.shapes[j]) {
+            let t = match (shape, value) {
+                (Shape::Linear, Value::Number(x)) => x,
+                (Shape::Square, Value::Number(x)) => x * x,
+                (Shape::TimesOther(other), Value::Number(x)) => x * values[other].number(),
+                _ => model.terms[i].value(&self.alternative, &model.level_shares),
+            };
             let d = t - self.terms[i];
             shifted_index += model.coefficients[i] * d;
             shift.push(d);
@@ -783,6 +844,37 @@ mod tests {
             (variance - expected).abs() <= 1e-12 * expected,
             "{variance} vs {expected}"
         );
+    }
+
+    #[test]
+    fn inline_shapes_give_the_general_term_arithmetic_to_the_bit() {
+        let terms = [
+            Term::Covariate(0),
+            Term::Power(0, 2),
+            Term::Product(vec![Factor::Value(0), Factor::Value(1)]),
+            Term::Product(vec![Factor::Value(1), Factor::Value(0)]),
+        ];
+        for x in [-2.7, 0.1, 3.3e-5, 17.25] {
+            let values = [Value::Number(x), Value::Number(0.37)];
+            for term in &terms {
+                let (value, derivative) = match Shape::of(term, 0) {
+                    Shape::Linear => (x, 1.0),
+                    Shape::Square => (x * x, 2.0 * x),
+                    Shape::TimesOther(other) => {
+                        (x * values[other].number(), values[other].number())
+                    }
+                    Shape::General => panic!("{term:?} has an inline shape"),
+                };
+                assert_eq!(
+                    value.to_bits(),
+                    term.value(&values, &[]).to_bits(),
+                    "{term:?}"
+                );
+                let general = term.derivative(0, &values, &[]);
+                assert_eq!(derivative.to_bits(), general.to_bits(), "{term:?}");
+            }
+        }
+        assert_eq!(Shape::of(&Term::Power(0, 3), 0), Shape::General);
     }
 
     #[test]
