@@ -8,8 +8,10 @@
 #
 # Loads: one observation with effects and intervals (the defaults), and batches of 100
 # observations, each at 16 and 64 connections. Prints per load the throughput of both servers
-# and their ratio, p50 and p99 latency and the p99 ratio, and each server's peak resident
-# memory (VmHWM from /proc). Needs wrk (Debian: apt-get install -y wrk).
+# and their ratio, p50 and p99 latency and the p99 ratio, each server's CPU time per request
+# (from /proc/PID/stat: steadier than throughput on a machine shared with other work), and
+# each server's peak resident memory (VmHWM from /proc). Needs wrk (Debian: apt-get install -y
+# wrk). Extra `ogive serve` flags can be given in OGIVE_FLAGS (say, "--monitoring off").
 set -euo pipefail
 cd "$(dirname "$0")/../.."
 
@@ -40,7 +42,7 @@ wait_for_line() { # file pattern
 }
 
 target/release/ogive serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
-  --workers "$workers" --drain-delay-ms 0 >"$work/ogive.out" 2>/dev/null &
+  --workers "$workers" --drain-delay-ms 0 ${OGIVE_FLAGS:-} >"$work/ogive.out" 2>/dev/null &
 ogive_pid=$!; pids+=("$ogive_pid")
 target/release/examples/bare_actix 127.0.0.1:0 "$workers" >"$work/bare.out" 2>/dev/null &
 bare_pid=$!; pids+=("$bare_pid")
@@ -70,29 +72,45 @@ for body in single batch; do
   [ "$status" = 200 ] || { echo "ogive answered $status to the $body body"; exit 1; }
 done
 
-measure() { # url body connections seconds -> RESULT line
-  OGIVE_BODY="$work/$2.json" wrk -t"$threads" -c"$3" -d"$4" -s benches/load/post.lua "$1$path" \
-    | grep '^RESULT'
+cpu_ticks() { # pid -> utime + stime, in clock ticks
+  awk '{print $14 + $15}' "/proc/$1/stat"
+}
+measure() { # url body connections seconds pid -> RESULT line with the server's CPU µs per request
+  local before after line
+  before="$(cpu_ticks "$5")"
+  line="$(OGIVE_BODY="$work/$2.json" wrk -t"$threads" -c"$3" -d"$4" -s benches/load/post.lua "$1$path" \
+    | grep '^RESULT')"
+  after="$(cpu_ticks "$5")"
+  python3 - "$line" "$before" "$after" "$4" "$(getconf CLK_TCK)" <<'PY'
+import re, sys
+line, before, after, duration, tick = sys.argv[1:]
+rps = float(re.search(r"rps=([0-9.]+)", line).group(1))
+seconds = float(duration.rstrip("s"))
+cpu_us = (int(after) - int(before)) / int(tick) * 1e6 / max(1.0, rps * seconds)
+print(f"{line} cpu_us={cpu_us:.1f}")
+PY
 }
 field() { sed -n "s/.*$2=\([0-9.]*\).*/\1/p" <<<"$1"; }
 
 echo "model $model from $models; $workers workers per server; wrk $threads threads; $duration per run"
 for body in single batch; do
-  measure "$bare_url" "$body" 16 2s >/dev/null
-  measure "$ogive_url" "$body" 16 2s >/dev/null
+  measure "$bare_url" "$body" 16 2s "$bare_pid" >/dev/null
+  measure "$ogive_url" "$body" 16 2s "$ogive_pid" >/dev/null
 done
-printf '\n%-7s %5s | %10s %10s %6s | %8s %8s | %8s %8s %6s | %s\n' \
-  load conns "bare rps" "ogive rps" ratio "bare p50" "ogive" "bare p99" "ogive" ratio "errors"
+printf '\n%-7s %5s | %10s %10s %6s | %8s %8s | %8s %8s %6s | %13s | %s\n' \
+  load conns "bare rps" "ogive rps" ratio "bare p50" "ogive" "bare p99" "ogive" ratio \
+  "CPU µs/req" "errors"
 for body in single batch; do
   for connections in 16 64; do
-    bare="$(measure "$bare_url" "$body" "$connections" "$duration")"
-    ours="$(measure "$ogive_url" "$body" "$connections" "$duration")"
-    printf '%-7s %5s | %10.0f %10.0f %6.3f | %6dus %6dus | %6dus %6dus %6.3f | %s\n' \
+    bare="$(measure "$bare_url" "$body" "$connections" "$duration" "$bare_pid")"
+    ours="$(measure "$ogive_url" "$body" "$connections" "$duration" "$ogive_pid")"
+    printf '%-7s %5s | %10.0f %10.0f %6.3f | %6dus %6dus | %6dus %6dus %6.3f | %5.1f / %5.1f | %s\n' \
       "$body" "$connections" "$(field "$bare" rps)" "$(field "$ours" rps)" \
       "$(python3 -c "print($(field "$ours" rps) / $(field "$bare" rps))")" \
       "$(field "$bare" p50_us)" "$(field "$ours" p50_us)" \
       "$(field "$bare" p99_us)" "$(field "$ours" p99_us)" \
       "$(python3 -c "print($(field "$ours" p99_us) / max(1, $(field "$bare" p99_us)))")" \
+      "$(field "$bare" cpu_us)" "$(field "$ours" cpu_us)" \
       "bare non2xx=$(field "$bare" non2xx) ogive non2xx=$(field "$ours" non2xx) socket=$(field "$ours" socket_errors)"
   done
 done

@@ -319,7 +319,12 @@ impl Scored<'_> {
 
     /// The answer's JSON bytes.
     pub fn to_json(&self) -> Result<Vec<u8>, Problem> {
-        let mut out = Vec::with_capacity(512 + 768 * self.answers.len());
+        // Sized from the answer's shape (about 220 bytes per effect, 64 per contribution and
+        // 160 per warning), so that a large batch is written without regrowing the buffer.
+        let per_answer = self.answers.first().map_or(512, |a| {
+            320 + 220 * a.effects.len() + 64 * a.contributions.len() + 160 * a.warnings.len()
+        });
+        let mut out = Vec::with_capacity(1024 + per_answer * self.answers.len());
         serde_json::to_writer(&mut out, self).map_err(|e| Problem::internal(&e))?;
         Ok(out)
     }
