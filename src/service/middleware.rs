@@ -159,12 +159,11 @@ pub async fn observe(
     let mut response = match result {
         Ok(response) => response,
         Err(error) => {
-            let route = UNMATCHED_ROUTE;
             let status = error.as_response_error().status_code().as_u16();
             record(
                 state.as_ref(),
                 &request_id,
-                &route,
+                UNMATCHED_ROUTE,
                 method,
                 status,
                 seconds,
