@@ -118,7 +118,10 @@ fn non_convergence_says_what_was_tried() {
         text.starts_with("the fit did not converge: no convergence in 2 Newton–Raphson steps (0 of them Fisher-scoring steps, 0 step halvings); at the last step the relative change of the log-likelihood was"),
         "{text}"
     );
-    assert!(text.ends_with("raise --max-iterations or rescale the covariates"), "{text}");
+    assert!(
+        text.ends_with("raise --max-iterations or rescale the covariates"),
+        "{text}"
+    );
 }
 
 #[test]
@@ -240,8 +243,23 @@ fn term_syntax_and_kind_errors_point_at_the_item() {
 fn no_csv_makes_the_fit_panic() {
     let mut rng = rand::rngs::StdRng::seed_from_u64(2024);
     let cells = [
-        "0", "1", "", "NA", "2.5", "-3", "1e308", "inf", "\"q,uoted\"", "\"a\nb\"", "x", "0.0",
-        "true", " 7 ", "\u{fffd}", "1e-320", "-0",
+        "0",
+        "1",
+        "",
+        "NA",
+        "2.5",
+        "-3",
+        "1e308",
+        "inf",
+        "\"q,uoted\"",
+        "\"a\nb\"",
+        "x",
+        "0.0",
+        "true",
+        " 7 ",
+        "\u{fffd}",
+        "1e-320",
+        "-0",
     ];
     for case in 0..400 {
         let text = if case % 4 == 0 {
