@@ -52,6 +52,14 @@ fn version_files(dir: &Path, out: &mut Vec<PathBuf>) {
 fn every_committed_model_file_validates() {
     let mut files = Vec::new();
     version_files(&root().join("model-files"), &mut files);
+    for demo in ["lease-arrears", "rebate-uptake"] {
+        assert!(
+            files
+                .iter()
+                .any(|f| f.starts_with(root().join("model-files").join(demo))),
+            "the demo model {demo} is missing from model-files/"
+        );
+    }
     for path in &files {
         let bytes = std::fs::read(path).expect("read model file");
         if let Err(e) = Model::from_json(&bytes) {
