@@ -92,7 +92,7 @@ echo "--- schemathesis: $examples examples per operation, every check, seed $see
 (
   cd "$work"
   schemathesis --no-color run "$base/openapi.json" --checks all --max-examples "$examples" \
-    --seed "$seed" --workers 2 --request-timeout 20
+    --seed "$seed" --workers 1 --request-timeout 20
 )
 
 echo "--- promtool check metrics"
