@@ -47,7 +47,7 @@
 //! the workers, and the most recent `window / shards` of a lone busy worker otherwise (the
 //! exported window size says which). Versions are found through an atomically swapped map, so
 //! a lookup takes no lock; the map is rebuilt only when a version is seen for the first time,
-//! and a request looks its version up once ([`DriftRecorder`]). The costs are measured by
+//! and a request looks its version up once ([`DriftMonitor::record_many`]). The costs are measured by
 //! `cargo bench --bench monitoring` and, over HTTP, by `benches/monitoring_cost.sh`.
 //!
 //! This module does not parse observations (the service hands it the engine's values), does not
@@ -484,6 +484,24 @@ pub struct VersionDriftReport {
 }
 
 impl VersionDrift {
+    /// Record one observation into the calling thread's home shard, or the first free one; drop
+    /// and count it if every shard is busy.
+    fn record(&self, values: &[Value], probability: f64) {
+        let shards = self.shards.len();
+        let home = THREAD_NUMBER.with(|n| *n) % shards;
+        for shard in (0..shards).map(|i| &self.shards[(home + i) % shards]) {
+            let mut window = match shard.0.try_lock() {
+                Ok(window) => window,
+                Err(TryLockError::Poisoned(poisoned)) => poisoned.into_inner(),
+                Err(TryLockError::WouldBlock) => continue,
+            };
+            window.record(&self.layout, values, probability);
+            return;
+        }
+        self.dropped.fetch_add(1, Ordering::Relaxed);
+        self.dropped_counter.inc();
+    }
+
     /// Copy the counts out under the lock (O(bins)) and compute the PSI outside it.
     fn report(&self, version: &str) -> VersionDriftReport {
         let mut counts = vec![0_u32; self.layout.total_bins];
@@ -658,16 +676,35 @@ impl DriftMonitor {
     }
 
     /// Record one scored observation of `model`: its covariate values (as the engine took them)
-    /// and its predicted probability. Never waits: a busy window drops the sample and counts it.
-    /// For many observations of one request, take a [`DriftMonitor::recorder`] once instead.
+    /// and its predicted probability. Never waits: a sample finding every shard busy is dropped
+    /// and counted.
     pub fn record(&self, model: &Model, values: &[Value], probability: f64) {
-        self.recorder(model).record(values, probability);
+        self.record_many(model, std::iter::once((values, probability)));
     }
 
-    /// The window of `model`'s version, looked up once (and created the first time the version
-    /// is seen), for recording many observations.
-    pub fn recorder(&self, model: &Model) -> DriftRecorder {
-        DriftRecorder(self.version_state(model))
+    /// Record the scored observations of one request, looking the version up once. The lookup
+    /// holds the version map through a guard, so it takes no reference count: nothing on this
+    /// path writes to memory that other threads read, except the home shard.
+    pub fn record_many<'a>(
+        &self,
+        model: &Model,
+        observations: impl IntoIterator<Item = (&'a [Value], f64)>,
+    ) {
+        let versions = self.versions.load();
+        if let Some(state) = versions
+            .get(model.name())
+            .and_then(|m| m.get(model.version()))
+        {
+            for (values, probability) in observations {
+                state.record(values, probability);
+            }
+            return;
+        }
+        drop(versions);
+        let state = self.version_state(model);
+        for (values, probability) in observations {
+            state.record(values, probability);
+        }
     }
 
     /// The state of `model`'s version, created the first time the version is seen.
@@ -754,33 +791,6 @@ impl DriftMonitor {
                 }
             }
         }
-    }
-}
-
-/// One model version's drift window, found once per request.
-#[derive(Debug, Clone)]
-pub struct DriftRecorder(Arc<VersionDrift>);
-
-impl DriftRecorder {
-    /// Record one scored observation: its covariate values and predicted probability. Never
-    /// waits: a busy window drops the sample and counts it.
-    pub fn record(&self, values: &[Value], probability: f64) {
-        let version = &self.0;
-        let shards = version.shards.len();
-        let home = THREAD_NUMBER.with(|n| *n) % shards;
-        // The home shard first, then the others; a sample is dropped only if all are busy.
-        for shard in (0..shards).map(|i| &version.shards[(home + i) % shards]) {
-            let window = match shard.0.try_lock() {
-                Ok(window) => window,
-                Err(TryLockError::Poisoned(poisoned)) => poisoned.into_inner(),
-                Err(TryLockError::WouldBlock) => continue,
-            };
-            let mut window = window;
-            window.record(&version.layout, values, probability);
-            return;
-        }
-        version.dropped.fetch_add(1, Ordering::Relaxed);
-        version.dropped_counter.inc();
     }
 }
 

@@ -124,26 +124,24 @@ impl Monitor {
     /// observation, as `ID/0`, `ID/1`, … when it scored a batch.
     pub fn record_scored(
         &self,
-        model: &Arc<Model>,
+        model: &Model,
         request_id: &str,
         single: bool,
         values: &[Value],
-        answers: impl ExactSizeIterator<Item = (f64, f64)>,
+        answers: impl ExactSizeIterator<Item = (f64, f64)> + Clone,
     ) {
         let width = model.covariates.len().max(1);
-        let drift = self.drift.recorder(model);
-        let mut kept = Vec::with_capacity(if single { 0 } else { answers.len() });
-        for (observation, (probability, linear_index)) in values.chunks(width).zip(answers) {
-            drift.record(observation, probability);
-            let answer = StoredAnswer::new(probability, linear_index);
-            if single {
+        let probabilities = answers.clone().map(|(probability, _)| probability);
+        self.drift
+            .record_many(model, values.chunks(width).zip(probabilities));
+        let mut kept =
+            answers.map(|(probability, linear_index)| StoredAnswer::new(probability, linear_index));
+        if single {
+            if let Some(answer) = kept.next() {
                 self.answers.keep_single(request_id, model, answer);
-            } else {
-                kept.push(answer);
             }
-        }
-        if !single {
-            self.answers.keep_batch(request_id, model, kept);
+        } else {
+            self.answers.keep_batch(request_id, model, kept.collect());
         }
     }
 

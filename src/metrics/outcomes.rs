@@ -29,12 +29,13 @@
 //! entries are swept out together once they reach a quarter of the capacity.
 //!
 //! Concurrency: the request path never waits for the store. It builds the request's entry
-//! (copying the id, hashing it, boxing a batch's answers) and sends it to a bounded lock-free
-//! inbox (1,024 requests), then moves the inbox into the ring only if the store's lock is free;
-//! if another thread holds it, that thread or the next caller moves it. Reporting an outcome
-//! takes the lock and drains the inbox first, so an answer sent before its response was written
-//! is always found. Only a full inbox (1,024 requests arriving while the lock is held) makes a
-//! request wait for the lock. Unlike the drift windows, an answer is never dropped under
+//! (copying the id, hashing it, boxing a batch's answers) outside any lock, then puts it in the
+//! ring if the store's lock is free, and otherwise in a bounded lock-free inbox (1,024
+//! requests) that the lock's holder or the next caller drains. Reporting an outcome takes the
+//! lock and drains the inbox first, so an answer kept before its response was written is always
+//! found. Only a full inbox (1,024 requests arriving while the lock is held) makes a request
+//! wait for the lock. The store's series are read from it when scraped, so keeping an answer
+//! writes no shared counter. Unlike the drift windows, an answer is never dropped under
 //! contention: an outcome reported for it later must find it.
 //!
 //! This module does not score, know HTTP, or compute calibration figures
@@ -44,9 +45,11 @@ use std::collections::hash_map::RandomState;
 use std::collections::{HashMap, VecDeque};
 use std::hash::{BuildHasher, BuildHasherDefault, Hasher};
 use std::sync::mpsc::{sync_channel, Receiver, SyncSender, TrySendError};
-use std::sync::{Arc, Mutex, MutexGuard, PoisonError};
+use std::sync::{Arc, Mutex, MutexGuard, PoisonError, TryLockError};
 
 use arc_swap::ArcSwap;
+use prometheus::core::{Collector, Desc};
+use prometheus::proto::MetricFamily;
 use prometheus::{IntCounter, IntGauge, Opts, Registry};
 use schemars::JsonSchema;
 use serde::Serialize;
@@ -195,6 +198,8 @@ struct Store {
     index: HashMap<u64, u64, BuildHasherDefault<PreHashed>>,
     /// Answers held (empty slots hold none).
     held: usize,
+    /// Answers evicted (or cut from oversized batches) since the store was made.
+    evicted: u64,
     /// Requests sent by the request path and not yet in the ring.
     inbox: Receiver<Pending>,
 }
@@ -256,14 +261,17 @@ impl Store {
         evicted
     }
 
-    /// Move every request waiting in the inbox into the ring; returns how many answers were
-    /// evicted (or cut from oversized batches).
-    fn drain(&mut self, capacity: usize) -> usize {
-        let mut evicted = 0;
-        while let Ok((request, cut)) = self.inbox.try_recv() {
-            evicted += cut + self.insert(request, capacity);
+    /// Put one request, and the count of answers cut from it, in the ring.
+    fn admit(&mut self, (request, cut): Pending, capacity: usize) {
+        let evicted = cut + self.insert(request, capacity);
+        self.evicted += evicted as u64;
+    }
+
+    /// Move every request waiting in the inbox into the ring.
+    fn drain(&mut self, capacity: usize) {
+        while let Ok(pending) = self.inbox.try_recv() {
+            self.admit(pending, capacity);
         }
-        evicted
     }
 }
 
@@ -338,8 +346,6 @@ pub struct AnswerStore {
     versions_writer: Mutex<()>,
     inbox: SyncSender<Pending>,
     store: Mutex<Store>,
-    evicted: IntCounter,
-    held: IntGauge,
 }
 
 /// Why the answer store could not be set up.
@@ -360,22 +366,15 @@ impl AnswerStore {
     /// ogive_answers_evicted_total   counter
     /// ogive_answers_held            gauge
     /// ```
+    ///
+    /// Both are read from the store when scraped, so keeping an answer updates no shared
+    /// counter.
     pub fn new(capacity: usize, registry: &Registry) -> Result<Arc<AnswerStore>, StoreSetupError> {
         if capacity == 0 {
             return Err(StoreSetupError::EmptyStore(capacity));
         }
-        let evicted = IntCounter::with_opts(Opts::new(
-            "ogive_answers_evicted_total",
-            "Answers evicted from the answer store before an outcome could be reported for them.",
-        ))?;
-        let held = IntGauge::with_opts(Opts::new(
-            "ogive_answers_held",
-            "Answers held in the answer store, awaiting outcomes.",
-        ))?;
-        registry.register(Box::new(evicted.clone()))?;
-        registry.register(Box::new(held.clone()))?;
         let (inbox, receiver) = sync_channel(INBOX);
-        Ok(Arc::new(AnswerStore {
+        let store = Arc::new(AnswerStore {
             capacity,
             hasher: RandomState::new(),
             versions: ArcSwap::from_pointee(Vec::new()),
@@ -390,11 +389,25 @@ impl AnswerStore {
                     Default::default(),
                 ),
                 held: 0,
+                evicted: 0,
                 inbox: receiver,
             }),
-            evicted,
-            held,
-        }))
+        });
+        let collector = StoreCollector {
+            store: Arc::clone(&store),
+            evicted: IntCounter::with_opts(Opts::new(
+                "ogive_answers_evicted_total",
+                "Answers evicted from the answer store before an outcome could be reported for them.",
+            ))?,
+            held: IntGauge::with_opts(Opts::new(
+                "ogive_answers_held",
+                "Answers held in the answer store, awaiting outcomes.",
+            ))?,
+            descs: Vec::new(),
+        }
+        .with_descs();
+        registry.register(Box::new(collector))?;
+        Ok(store)
     }
 
     /// The most answers held.
@@ -422,36 +435,42 @@ impl AnswerStore {
         );
     }
 
-    /// Store one request's answers without waiting: send them to the inbox, then move the
-    /// inbox into the ring if the lock is free (otherwise its holder, or the next caller, will).
-    /// Only a full inbox makes the caller wait for the lock. `cut` answers were already cut
-    /// from an oversized batch.
+    /// Store one request's answers without waiting: straight into the ring if the lock is
+    /// free (draining the inbox first, to keep arrival order), otherwise into the inbox, which
+    /// the lock's holder or the next caller drains. Only a full inbox makes the caller wait for
+    /// the lock. `cut` answers were already cut from an oversized batch.
     fn keep(&self, request_id: &str, model: &Model, answers: Answers, cut: usize) {
-        if request_id.is_empty() {
-            // An empty id could never be reported against; the service always sets one.
-            self.evicted.inc_by((answers.len() + cut) as u64);
-            return;
-        }
         let request = Request {
             id: StoredId::new(request_id),
             hash: self.hasher.hash_one(request_id.as_bytes()),
             version: self.version_number(model),
             answers,
         };
-        match self.inbox.try_send((request, cut)) {
-            Ok(()) => {
-                if let Ok(store) = self.store.try_lock() {
-                    drop(self.settle(store));
-                }
+        if request_id.is_empty() {
+            // An empty id could never be reported against; the service always sets one.
+            self.locked().evicted += (request.answers.len() + cut) as u64;
+            return;
+        }
+        let pending = match self.store.try_lock() {
+            Ok(mut store) => {
+                store.drain(self.capacity);
+                store.admit((request, cut), self.capacity);
+                return;
             }
-            Err(
-                TrySendError::Full((request, cut)) | TrySendError::Disconnected((request, cut)),
-            ) => {
-                let mut store = self.locked();
-                let evicted = cut + store.insert(request, self.capacity);
-                self.evicted.inc_by(evicted as u64);
-                drop(self.settle(store));
+            Err(TryLockError::Poisoned(poisoned)) => {
+                let mut store = poisoned.into_inner();
+                store.drain(self.capacity);
+                store.admit((request, cut), self.capacity);
+                return;
             }
+            Err(TryLockError::WouldBlock) => (request, cut),
+        };
+        if let Err(TrySendError::Full(pending) | TrySendError::Disconnected(pending)) =
+            self.inbox.try_send(pending)
+        {
+            let mut store = self.locked();
+            store.drain(self.capacity);
+            store.admit(pending, self.capacity);
         }
     }
 
@@ -486,13 +505,9 @@ impl AnswerStore {
         self.store.lock().unwrap_or_else(PoisonError::into_inner)
     }
 
-    /// Drain the inbox into the locked store and update the series; returns the store.
+    /// Drain the inbox into the locked store; returns the store.
     fn settle<'a>(&self, mut store: MutexGuard<'a, Store>) -> MutexGuard<'a, Store> {
-        let evicted = store.drain(self.capacity);
-        self.held.set(i64::try_from(store.held).unwrap_or(i64::MAX));
-        if evicted > 0 {
-            self.evicted.inc_by(evicted as u64);
-        }
+        store.drain(self.capacity);
         store
     }
 
@@ -559,12 +574,53 @@ impl AnswerStore {
 
     /// The store's size now.
     pub fn summary(&self) -> StoreSummary {
-        let held = self.settle(self.locked()).held;
+        let store = self.settle(self.locked());
         StoreSummary {
-            held,
+            held: store.held,
             capacity: self.capacity,
-            evicted_total: self.evicted.get(),
+            evicted_total: store.evicted,
         }
+    }
+}
+
+/// Exposes the store's size to a Prometheus registry, read when scraped.
+struct StoreCollector {
+    store: Arc<AnswerStore>,
+    evicted: IntCounter,
+    held: IntGauge,
+    descs: Vec<Desc>,
+}
+
+impl StoreCollector {
+    fn with_descs(mut self) -> Self {
+        self.descs = self
+            .evicted
+            .desc()
+            .into_iter()
+            .chain(self.held.desc())
+            .cloned()
+            .collect();
+        self
+    }
+}
+
+impl Collector for StoreCollector {
+    fn desc(&self) -> Vec<&Desc> {
+        self.descs.iter().collect()
+    }
+
+    fn collect(&self) -> Vec<MetricFamily> {
+        let summary = self.store.summary();
+        self.held
+            .set(i64::try_from(summary.held).unwrap_or(i64::MAX));
+        // The store's count only grows; the counter catches up with it.
+        let behind = summary.evicted_total.saturating_sub(self.evicted.get());
+        self.evicted.inc_by(behind);
+        self.evicted
+            .collect()
+            .into_iter()
+            .chain(self.held.collect())
+            .collect()
     }
 }
 
