@@ -177,6 +177,7 @@ impl Metrics {
             let _ = self.scoring(model);
             self.observations_scored
                 .with_label_values(&[model.name(), model.version()]);
+            self.model_load_errors.with_label_values(&[model.name()]);
         }
         self.set_live_versions(snapshot);
     }
