@@ -224,6 +224,15 @@ fn columns_and_rows_that_do_not_fit_the_header() {
 }
 
 #[test]
+fn a_bad_model_name_is_refused_before_reading() {
+    let e = failure(&healthy_rows(), "x", |r| r.name = "Lease Model".into());
+    assert_eq!(
+        e,
+        "--name 'Lease Model': a model name is lower-case letters, digits and '-', starting with a letter, at most 64"
+    );
+}
+
+#[test]
 fn term_syntax_and_kind_errors_point_at_the_item() {
     let e = failure(&healthy_rows(), "x, x+group", |_| {});
     assert_eq!(

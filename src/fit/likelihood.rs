@@ -125,6 +125,19 @@ pub struct Pointwise {
     pub expected_weight: f64,
 }
 
+/// `log(1 + x)` for `0 ≤ x ≤ 1` from one `ln`: with u = 1 + x rounded, the correction
+/// `((u − 1) − x)/u` removes the rounding of u (accurate to a few ulps, and cheaper than
+/// `ln_1p`).
+#[inline]
+fn log_one_plus(x: f64) -> f64 {
+    let u = 1.0 + x;
+    if u == 1.0 {
+        x
+    } else {
+        u.ln() - ((u - 1.0) - x) / u
+    }
+}
+
 /// The logit contribution from one exponential and one `log1p`: with e = exp(−|z|),
 ///
 /// ```text
@@ -138,7 +151,7 @@ fn logit_pointwise(z: f64, y: f64) -> Pointwise {
     } else {
         (e / (1.0 + e), 1.0 / (1.0 + e))
     };
-    let log1pe = e.ln_1p();
+    let log1pe = log_one_plus(e);
     let positive = z >= 0.0;
     let log_likelihood = match (y > 0.5, positive) {
         (true, true) | (false, false) => -log1pe,
@@ -329,6 +342,23 @@ mod tests {
                     );
                 }
             }
+        }
+    }
+
+    /// The cheap `log(1 + x)` against `ln_1p` (relative 1e-15) over (0, 1].
+    #[test]
+    fn log_one_plus_matches_ln_1p() {
+        for i in 0..=10_000 {
+            let x = if i == 0 {
+                1e-300
+            } else {
+                (f64::from(i) / 10_000.0).powi(3)
+            };
+            let (ours, std) = (log_one_plus(x), x.ln_1p());
+            assert!(
+                (ours - std).abs() <= 1e-15 * std,
+                "x = {x}: {ours} vs {std}"
+            );
         }
     }
 

@@ -379,6 +379,19 @@ fn sandwich(bread: &[f64], meat: &[f64], k: usize) -> Vec<f64> {
 
 /// Fit the model a request describes.
 pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitError> {
+    // Refuse a bad name or version before reading what may be a large file.
+    if !crate::model::is_model_name(&request.name) {
+        return Err(FitError::BadOption(format!(
+            "--name '{}': a model name is lower-case letters, digits and '-', starting with a letter, at most 64",
+            request.name
+        )));
+    }
+    if !crate::model::is_version_label(&request.version) {
+        return Err(FitError::BadOption(format!(
+            "--version '{}': a version is letters, digits, '.', '_' and '-', starting with a letter or digit, at most 64",
+            request.version
+        )));
+    }
     let parsed = terms::parse_term_list(&request.terms)?;
     let names = terms::covariate_names(&parsed);
     if names.is_empty() {

@@ -148,33 +148,36 @@ fn exact_fast_decimal(text: &[u8]) -> Option<f64> {
         b'+' => (false, &text[1..]),
         _ => (false, text),
     };
+    // Every digit counts towards the 19 that fit a u64; a longer (even zero-padded) number
+    // goes to the standard parser, which is slower but equally exact.
     let mut mantissa: u64 = 0;
-    let mut significant = 0;
-    let mut exponent: i32 = 0;
-    let mut seen_digit = false;
+    let mut count = 0usize;
     let mut i = 0;
-    let mut in_fraction = false;
-    while i < digits.len() {
-        let b = digits[i];
-        if b.is_ascii_digit() {
-            seen_digit = true;
-            if mantissa != 0 || b != b'0' {
-                significant += 1;
-                if significant > 19 {
-                    return None;
-                }
-            }
-            mantissa = mantissa * 10 + u64::from(b - b'0');
-            if in_fraction {
-                exponent -= 1;
-            }
-        } else if b == b'.' && !in_fraction {
-            in_fraction = true;
-        } else {
-            break;
-        }
+    while i < digits.len() && digits[i].is_ascii_digit() {
+        mantissa = mantissa
+            .wrapping_mul(10)
+            .wrapping_add(u64::from(digits[i] - b'0'));
         i += 1;
     }
+    count += i;
+    let mut exponent: i32 = 0;
+    if i < digits.len() && digits[i] == b'.' {
+        i += 1;
+        let fraction_start = i;
+        while i < digits.len() && digits[i].is_ascii_digit() {
+            mantissa = mantissa
+                .wrapping_mul(10)
+                .wrapping_add(u64::from(digits[i] - b'0'));
+            i += 1;
+        }
+        let fraction = i - fraction_start;
+        count += fraction;
+        exponent = -(fraction as i32);
+    }
+    if count > 19 {
+        return None;
+    }
+    let seen_digit = count > 0;
     if !seen_digit {
         return None;
     }
@@ -404,6 +407,27 @@ fn take_record(
     Ok(())
 }
 
+/// Hand a quote-free line's fields to [`take_record`]: drop a CR before the newline and skip
+/// blank lines, as the csv parser does.
+fn finish_line(
+    plan: &Plan,
+    data: &mut BlockData,
+    fields: &mut Vec<&[u8]>,
+    scratch: &mut RecordScratch,
+) -> Result<(), BlockFailure> {
+    if let Some(last) = fields.last_mut() {
+        *last = last.strip_suffix(b"\r").unwrap_or(last);
+    }
+    let blank = fields.len() == 1 && fields[0].is_empty();
+    let result = if blank {
+        Ok(())
+    } else {
+        take_record(plan, data, fields, scratch)
+    };
+    fields.clear();
+    result
+}
+
 /// Parse a block: quote-free blocks (the common case) are split on newlines and commas
 /// directly; a block with a quote goes through the csv parser, which knows RFC 4180 quoting.
 fn parse_block(plan: &Plan, bytes: &[u8]) -> Result<BlockData, BlockFailure> {
@@ -416,14 +440,20 @@ fn parse_block(plan: &Plan, bytes: &[u8]) -> Result<BlockData, BlockFailure> {
     };
     let mut fields: Vec<&[u8]> = Vec::with_capacity(plan.header_len);
     if !bytes.contains(&b'"') {
-        for line in bytes.split(|&b| b == b'\n') {
-            let line = line.strip_suffix(b"\r").unwrap_or(line);
-            if line.is_empty() {
-                continue;
+        // One vectorised scan for both separators; a field ends at a comma or a newline.
+        let mut start = 0;
+        for at in memchr::memchr2_iter(b',', b'\n', bytes) {
+            fields.push(&bytes[start..at]);
+            start = at + 1;
+            if bytes[at] == b'\n' {
+                finish_line(plan, &mut data, &mut fields, &mut scratch)?;
             }
-            fields.clear();
-            fields.extend(line.split(|&b| b == b','));
-            take_record(plan, &mut data, &fields, &mut scratch)?;
+        }
+        if start < bytes.len() {
+            fields.push(&bytes[start..]);
+        }
+        if !fields.is_empty() {
+            finish_line(plan, &mut data, &mut fields, &mut scratch)?;
         }
         return Ok(data);
     }
