@@ -6,8 +6,9 @@
   statsmodels CSV LINK OUT the baseline pipeline: pandas.read_csv, then statsmodels
                            Logit(...).fit() or Probit(...).fit() with their defaults; writes the
                            coefficients to OUT as JSON
-  measure OUT -- CMD...    run CMD as a child process; write its wall time (s) and peak resident
-                           memory (KiB, getrusage of the child) to OUT as JSON
+  measure OUT -- CMD...    run CMD as a child process; write its wall time (s), its CPU time (user
+                           + system, s) and its peak resident memory (KiB), from getrusage of the
+                           child, to OUT as JSON
   compare MODEL OUT        largest relative difference between the coefficients of an ogive model
                            file and those written by `statsmodels`
 """
@@ -55,9 +56,17 @@ def measure(out, command):
     start = time.perf_counter()
     completed = subprocess.run(command, stdout=subprocess.DEVNULL)
     seconds = time.perf_counter() - start
-    peak_kib = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    usage = resource.getrusage(resource.RUSAGE_CHILDREN)
     with open(out, "w") as f:
-        json.dump({"seconds": seconds, "peak_kib": peak_kib, "status": completed.returncode}, f)
+        json.dump(
+            {
+                "seconds": seconds,
+                "cpu_seconds": usage.ru_utime + usage.ru_stime,
+                "peak_kib": usage.ru_maxrss,
+                "status": completed.returncode,
+            },
+            f,
+        )
     sys.exit(completed.returncode)
 
 
