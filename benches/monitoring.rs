@@ -8,6 +8,7 @@
 //! store     AnswerStore::keep_single with a fresh 36-character id (the ring full, so each
 //!           call also evicts the oldest request)
 //! request   Monitor::record_scored for a single-observation request: drift + store
+//! batch     Monitor::record_scored for requests of 100 observations, per observation
 //! ```
 //!
 //! A plain timing loop runs them round-robin over many repetitions and prints each one's
@@ -119,7 +120,15 @@ fn main() {
         drift.record(&model, values, p);
     }
 
-    let names = ["score", "drift", "store", "request"];
+    let names = ["score", "drift", "store", "request", "batch"];
+    // The batch rows, flat, as the service hands them over: 1024 observations in requests of 100
+    // (and one of 24).
+    let flat: Vec<Value> = batch.iter().flatten().copied().collect();
+    let width = model.covariates.len();
+    let answers: Vec<(f64, f64)> = probabilities.iter().map(|&p| (p, 0.0)).collect();
+    let batch_ids: Vec<String> = (0..REPETITIONS * BATCH.div_ceil(100))
+        .map(|i| format!("batch-{i:08}-0000-4000-8000-000000000000"))
+        .collect();
     let mut samples: Vec<Vec<Duration>> = vec![Vec::with_capacity(REPETITIONS); names.len()];
     for repetition in 0..REPETITIONS {
         let ids = &ids[repetition * BATCH..(repetition + 1) * BATCH];
@@ -147,6 +156,16 @@ fn main() {
             monitor.record_scored(&model, id, true, black_box(values), [(p, 0.0)].into_iter());
         }
         samples[3].push(started.elapsed());
+        let started = Instant::now();
+        for (k, (rows, answers)) in flat
+            .chunks(100 * width)
+            .zip(answers.chunks(100))
+            .enumerate()
+        {
+            let id = &batch_ids[repetition * BATCH.div_ceil(100) + k];
+            monitor.record_scored(&model, id, false, black_box(rows), answers.iter().copied());
+        }
+        samples[4].push(started.elapsed());
     }
     let medians: Vec<f64> = samples.iter_mut().map(|s| median(s)).collect();
     println!("per observation (median of {REPETITIONS} batches of {BATCH}):");
