@@ -5,11 +5,14 @@
 //! link      F, f, f′ for each link, accurate in both tails
 //! model     the model file, its validation, covariates and terms
 //! engine    probability, effects, intervals, warnings, contributions, averages
-//! registry  the model directory, live versions, promotion, hot swap
-//! service   the HTTP listener: routes, problem details, limits, shutdown
-//! metrics   the Prometheus registry and the request and scoring metrics
+//! fit       maximum-likelihood estimation and the model file it writes
+//! registry  the model directory, live versions, promotion, rollback, history, watching
+//!           and the atomic snapshot
 //! batch     streaming CSV scoring for `ogive score`: columns, shards, error policy
 //! report    the reviewer's report and plots of `ogive describe`
+//! service   the public and admin HTTP listeners: routes, problem details, limits, shadow,
+//!           shutdown
+//! metrics   the Prometheus registry; request metrics, drift windows, outcomes, calibration
 //! cli       the subcommands of the binary, one file each
 //! ```
 #![warn(missing_docs)]
