@@ -27,6 +27,12 @@
 # Also prints the share of drift samples the "on" server dropped (its window was busy) and
 # both servers' peak RSS.
 #
+# Allocator: a batch of 100 allocates buffers above glibc's mmap threshold, which glibc maps and
+# unmaps on every request unless long-lived memory sits above them in the heap, as the answer
+# store's does. So with monitoring on, batches can run faster than with it off. To compare
+# monitoring alone, take the allocator out of it for all three servers:
+#   MALLOC_MMAP_THRESHOLD_=268435456 MALLOC_TRIM_THRESHOLD_=268435456 bash benches/monitoring_cost.sh
+#
 #   bash benches/monitoring_cost.sh
 #   DURATION=5s ROUNDS=3 bash benches/monitoring_cost.sh
 #

@@ -12,13 +12,13 @@
 //! keeps its probability, its linear index and its outcome once reported (24 bytes); each
 //! request keeps its id (inline up to 38 bytes, so a UUID needs no allocation) and the number
 //! of the model version that answered (versions are named once, in a list that grows by one
-//! per version ever served). Measured, a single-observation request costs about
-//! 115 bytes, so the default store stays under 6 MB; the ring and the index are allocated at
-//! their full size once, so they never reallocate. When a new request would exceed the capacity, whole requests are
-//! evicted oldest first and their answers counted in `ogive_answers_evicted_total`; a single
-//! batch larger than the whole capacity keeps its first `capacity` answers and counts the rest
-//! as evicted at once. A request id seen again replaces the earlier request's answers (they
-//! count as evicted).
+//! per version ever served). Measured, a single-observation request costs about 125 bytes, so
+//! the default store stays under 7 MB; the ring and the index are allocated at their full size
+//! once, so they never reallocate. When a new request would exceed the capacity, whole requests
+//! are evicted oldest first and their answers counted in `ogive_answers_evicted_total`; a
+//! single batch larger than the whole capacity keeps its first `capacity` answers and counts
+//! the rest as evicted at once. A request id seen again replaces the earlier request's answers
+//! (they count as evicted).
 //!
 //! Layout: requests sit in one ring, oldest first, numbered by arrival; an index maps the hash
 //! of each request id to its number, and a lookup checks the stored id, so a hash collision
