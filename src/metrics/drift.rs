@@ -46,9 +46,10 @@
 //! own shard, the window is the most recent `window` observations when traffic is spread over
 //! the workers, and the most recent `window / shards` of a lone busy worker otherwise (the
 //! exported window size says which). Versions are found through an atomically swapped map, so
-//! a lookup takes no lock; the map is rebuilt only when a version is seen for the first time,
-//! and a request looks its version up once ([`DriftMonitor::record_many`]). The costs are measured by
-//! `cargo bench --bench monitoring` and, over HTTP, by `benches/monitoring_cost.sh`.
+//! a lookup takes no lock and no reference count; the map is rebuilt only when a version is
+//! seen for the first time, and a request looks its version up once
+//! ([`DriftMonitor::record_many`]). The costs are measured by `cargo bench --bench monitoring`
+//! and, over HTTP, by `benches/monitoring_cost.sh`.
 //!
 //! This module does not parse observations (the service hands it the engine's values), does not
 //! know HTTP, and does not decide when drift is alarming (the alert rules in `deploy/prometheus`

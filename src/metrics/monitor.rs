@@ -5,6 +5,12 @@
 //! calls: [`Monitor::record_scored`] after scoring a request, and [`report_outcome`] when an
 //! outcome arrives. Everything here is bounded in memory by [`MonitorSettings`]; nothing here
 //! knows HTTP.
+//!
+//! Cost, measured on the demo models: recording takes about 0.4 µs for a single-observation
+//! request and 66 ns per observation of a batch (`cargo bench --bench monitoring`); profiled in
+//! `ogive serve` under wrk load, these functions are about 1.3% (single observations) and 1.0%
+//! (batches of 100) of the process's CPU. `benches/monitoring_cost.sh` compares throughput with
+//! monitoring on and off.
 
 use std::collections::BTreeSet;
 use std::sync::Arc;
