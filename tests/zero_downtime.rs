@@ -238,7 +238,7 @@ fn two_hundred_promotions_and_rollbacks_under_load_fail_no_request() {
         "both versions should have answered: {by_version:?}"
     );
     eprintln!(
-        "{changes} changes in {:.1?}, {} observations answered ({by_version:?})",
+        "{changes} changes over {:.1?}, {} observations answered ({by_version:?})",
         took,
         answered.len()
     );
