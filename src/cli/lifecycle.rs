@@ -26,7 +26,9 @@ pub struct Directory {
 /// Who made a change, and why.
 #[derive(Debug, clap::Args)]
 pub struct Actor {
-    /// Who is making the change, as recorded in the history (default `cli:$USER`).
+    /// Who is making the change, as recorded in the history (default `cli:` and the login
+    /// name: `$USER`, else `$LOGNAME`, else the account of the process's user id in
+    /// `/etc/passwd`, else `uid-N`).
     #[arg(long, env = "OGIVE_WHO", value_name = "LABEL")]
     pub who: Option<String>,
     /// Why, as recorded in the history.
@@ -36,11 +38,45 @@ pub struct Actor {
 
 impl Actor {
     fn who(&self) -> String {
-        self.who.clone().unwrap_or_else(|| {
-            let user = std::env::var("USER").unwrap_or_else(|_| "unknown".into());
-            format!("cli:{user}")
-        })
+        self.who
+            .clone()
+            .unwrap_or_else(|| format!("cli:{}", login_name(|key| std::env::var(key).ok())))
     }
+}
+
+/// The name of the user running the command: `USER`, else `LOGNAME` (from `variable`), else
+/// the `/etc/passwd` account of the process's user id, else `uid-N`; `unknown` only where the
+/// user id itself cannot be read.
+fn login_name(variable: impl Fn(&str) -> Option<String>) -> String {
+    let from_environment = ["USER", "LOGNAME"]
+        .into_iter()
+        .filter_map(&variable)
+        .find(|name| !name.trim().is_empty());
+    if let Some(name) = from_environment {
+        return name;
+    }
+    let Some(uid) = process_uid() else {
+        return "unknown".into();
+    };
+    let passwd = std::fs::read_to_string("/etc/passwd").unwrap_or_default();
+    account_of(&passwd, uid).unwrap_or_else(|| format!("uid-{uid}"))
+}
+
+/// The user id the process runs as: the owner of `/proc/self` (Linux), which is the
+/// effective user id, read without a C binding.
+fn process_uid() -> Option<u32> {
+    use std::os::unix::fs::MetadataExt;
+    std::fs::metadata("/proc/self").ok().map(|m| m.uid())
+}
+
+/// The account name `/etc/passwd` (`name:password:uid:…` per line) gives user id `uid`.
+fn account_of(passwd: &str, uid: u32) -> Option<String> {
+    passwd.lines().find_map(|line| {
+        let mut fields = line.split(':');
+        let name = fields.next()?;
+        let id: u32 = fields.nth(1)?.parse().ok()?;
+        (id == uid && !name.is_empty()).then(|| name.to_string())
+    })
 }
 
 /// Arguments of `ogive promote`.
@@ -80,6 +116,9 @@ pub enum HistoryFormat {
     /// One JSON document: live version, rollback target, records and warnings.
     Json,
 }
+
+/// How long `ogive history` waits for the model's lock to complete an interrupted move.
+const REPAIR_LOCK_WAIT: std::time::Duration = std::time::Duration::from_secs(5);
 
 /// Arguments of `ogive history`.
 #[derive(Debug, clap::Args)]
@@ -127,6 +166,16 @@ pub fn rollback(args: RollbackArgs) -> anyhow::Result<ExitCode> {
 
 /// Run `ogive history`. Skipped lines are reported on standard error; they do not fail it.
 pub fn history(args: HistoryArgs) -> anyhow::Result<ExitCode> {
+    // Verification repairs what it can: a move the history records but the pointer lags.
+    match lifecycle::reconcile(&args.directory.models, &args.name, REPAIR_LOCK_WAIT) {
+        Ok(Some(record)) => eprintln!(
+            "repaired: the live pointer now names '{}', as the history's last record says (an interrupted {} was completed)",
+            record.to,
+            record.action.name()
+        ),
+        Ok(None) => {}
+        Err(error) => eprintln!("warning: could not complete an interrupted move: {error}"),
+    }
     let view = lifecycle::history(&args.directory.models, &args.name)
         .with_context(|| format!("reading the history of {}", args.name))?;
     match args.format {
@@ -196,4 +245,34 @@ fn history_text(view: &HistoryView) -> String {
         out.push('\n');
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn who_without_user_falls_back_to_logname() {
+        let name = login_name(|key| (key == "LOGNAME").then(|| "ana".to_string()));
+        assert_eq!(name, "ana");
+    }
+
+    #[test]
+    fn who_without_user_or_logname_is_the_account_of_the_uid_never_unknown() {
+        let name = login_name(|_| None);
+        assert_ne!(name, "unknown");
+        assert!(!name.is_empty());
+        let uid = process_uid().expect("uid");
+        let passwd = std::fs::read_to_string("/etc/passwd").unwrap_or_default();
+        let expected = account_of(&passwd, uid).unwrap_or_else(|| format!("uid-{uid}"));
+        assert_eq!(name, expected);
+    }
+
+    #[test]
+    fn passwd_lines_give_the_account_of_a_uid() {
+        let passwd = "root:x:0:0:root:/root:/bin/sh\nana:x:1000:1000::/home/ana:/bin/sh\n";
+        assert_eq!(account_of(passwd, 1000).as_deref(), Some("ana"));
+        assert_eq!(account_of(passwd, 0).as_deref(), Some("root"));
+        assert_eq!(account_of(passwd, 7), None);
+    }
 }

@@ -171,6 +171,16 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
     let report = load_directory(&args.models)
         .with_context(|| format!("loading the model directory {}", args.models.display()))?;
     let metrics = Metrics::new()?;
+    for repair in &report.repairs {
+        match &repair.outcome {
+            Ok(record) => {
+                tracing::warn!(model = %repair.name, to = %record.to, "completed a move the history records but the live pointer did not show (an interrupted promotion or rollback)")
+            }
+            Err(error) => {
+                tracing::error!(model = %repair.name, error = %error, "the live pointer lags the history and could not be moved")
+            }
+        }
+    }
     for (name, error) in &report.failures {
         tracing::error!(model = %name, error = %error, "model not loaded");
         metrics.model_load_errors.with_label_values(&[name]).inc();

@@ -3,10 +3,17 @@
 //! thin wrappers around these four functions.
 //!
 //! Each changing operation runs under the model's exclusive lock, passes the [`gate`], and
-//! writes in an order chosen for crashes: the version file or pointer first (atomically), the
-//! history record second. A crash between the two leaves a change the history does not
-//! mention, never a history that claims a change that did not happen; [`replay`] accounts for
-//! such a change, and [`history`] reports it.
+//! writes in an order chosen for crashes. The history is the truth and the `live` pointer its
+//! cache: a promotion or rollback appends its record first (fsynced), then moves the pointer
+//! (atomically). A crash between the two leaves a history one move ahead of the pointer, with
+//! the pointer still naming that last record's `from`; [`reconcile`] completes such a move by
+//! writing the pointer the record names. Every changing operation reconciles first, under its
+//! lock; so do the server's startup load and `ogive history`. No crash can therefore leave a
+//! pointer the history does not name, and a rollback always goes where the history says.
+//!
+//! The one case this reading cannot tell apart: a pointer set by hand back to the `from` of the
+//! last record is taken for an interrupted move and moved forward again. Move pointers with
+//! `ogive promote` and `ogive rollback`, never by hand, while a history exists.
 //!
 //! Rollback is a stack. Replaying the history in order, with `live` the version it leaves live
 //! and `previous` a stack of versions:
@@ -18,8 +25,9 @@
 //! ```
 //!
 //! Before each promotion or rollback record, and finally against the `live` file itself, a
-//! pointer that differs from `live` counts as a promotion `live → pointer` (a history record
-//! lost to a crash, a hand edit, a redeployed ConfigMap). [`rollback`] goes to the top of the
+//! pointer that differs from `live` counts as a promotion `live → pointer` (a hand edit, a
+//! redeployed ConfigMap), except a pointer that still names the `from` of the last record: that
+//! is the interrupted move above, and the history's `live` stands. [`rollback`] goes to the top of the
 //! stack, skipping entries equal to the current live version; an empty stack means there is
 //! nothing to roll back to. So after promotions v1 → v2 → v3, rollbacks go to v2, then v1,
 //! then refuse; a rollback is not undone by another rollback, but by promoting again.
@@ -181,6 +189,14 @@ pub enum ViewWarning {
     /// A line of the file was skipped.
     #[error(transparent)]
     Line(#[from] HistoryWarning),
+    /// The history records a move the pointer does not show yet.
+    #[error("the history's last record moves the model to '{recorded}' but the live pointer still names '{}': a promotion or rollback was interrupted (or is in progress); the next promote, rollback, `ogive history` or server start completes it", .pointer.as_deref().unwrap_or("nothing"))]
+    PointerBehind {
+        /// Where the history leaves the model.
+        recorded: String,
+        /// What the `live` file names.
+        pointer: Option<String>,
+    },
     /// The live pointer differs from where the history leaves it.
     #[error("the live pointer names '{}' but the history leaves '{}' live: that change is not recorded (an interrupted promotion, or an edit made outside ogive)", .pointer.as_deref().unwrap_or("nothing"), .recorded.as_deref().unwrap_or("nothing"))]
     Unrecorded {
@@ -204,6 +220,10 @@ pub struct Lineage {
     pub recorded: Option<String>,
     /// Versions to roll back to, the next one last.
     pub previous: Vec<String>,
+    /// The pointer still names the `from` of the last move the history records: that move was
+    /// interrupted between its record and the pointer, and [`reconcile`] completes it. `live`
+    /// is then the history's version.
+    pub pointer_behind: bool,
 }
 
 impl Lineage {
@@ -218,8 +238,21 @@ impl Lineage {
 
     /// Whether the history accounts for the live pointer.
     pub fn is_recorded(&self) -> bool {
-        self.live == self.recorded
+        self.live == self.recorded && !self.pointer_behind
     }
+}
+
+/// The last promotion or rollback record, if the pointer still names its `from` rather than
+/// its `to`: a move recorded but not yet made (see the module docs).
+pub fn interrupted_move<'a>(
+    records: &'a [HistoryRecord],
+    pointer: Option<&str>,
+) -> Option<&'a HistoryRecord> {
+    let last = records
+        .iter()
+        .rev()
+        .find(|r| matches!(r.action, Action::Promote | Action::Rollback))?;
+    (pointer != Some(last.to.as_str()) && pointer == last.from.as_deref()).then_some(last)
 }
 
 /// Move `live` to `to`, pushing the version it leaves: a promotion, recorded or not.
@@ -252,7 +285,9 @@ pub fn replay(records: &[HistoryRecord], pointer: Option<&str>) -> Lineage {
         }
     }
     let recorded = live.clone();
+    let pointer_behind = interrupted_move(records, pointer).is_some();
     match pointer {
+        _ if pointer_behind => {}
         Some(p) => move_live(&mut live, &mut previous, Some(p)),
         // No `live` file: nothing is live, but the stack is kept for when one is promoted.
         None => live = None,
@@ -261,7 +296,40 @@ pub fn replay(records: &[HistoryRecord], pointer: Option<&str>) -> Lineage {
         live,
         recorded,
         previous,
+        pointer_behind,
     }
+}
+
+/// Under `lock`, complete a move the history records but the pointer does not show yet, by
+/// writing the pointer the last record names. Returns that record, or `None` when the pointer
+/// already agrees. The record's version passed the gate before it was written, so it is not
+/// checked again.
+fn complete_interrupted_move(lock: &ModelLock) -> Result<Option<HistoryRecord>, LifecycleError> {
+    let pointer = lock.dir().read_live()?;
+    let history = lock.dir().read_history()?;
+    let Some(record) = interrupted_move(&history.records, pointer.as_deref()) else {
+        return Ok(None);
+    };
+    lock.write_live(&record.to)?;
+    Ok(Some(record.clone()))
+}
+
+/// Bring model `name`'s pointer into line with its history (see the module docs), waiting at
+/// most `wait` for the lock. Returns the record whose move was completed, if one was. Reads
+/// first without the lock, so a model that needs nothing is never locked or written (a
+/// read-only directory stays untouched).
+pub fn reconcile(
+    root: &Path,
+    name: &str,
+    wait: Duration,
+) -> Result<Option<HistoryRecord>, LifecycleError> {
+    let dir = existing_dir(root, name)?;
+    let pointer = dir.read_live()?;
+    if interrupted_move(&dir.read_history()?.records, pointer.as_deref()).is_none() {
+        return Ok(None);
+    }
+    let lock = dir.lock(wait)?;
+    complete_interrupted_move(&lock)
 }
 
 fn existing_dir(root: &Path, name: &str) -> Result<ModelDir, LifecycleError> {
@@ -331,6 +399,7 @@ pub fn upload(
     let dir = ModelDir::new(root, name)?;
     dir.create()?;
     let lock = dir.lock(LOCK_WAIT)?;
+    complete_interrupted_move(&lock)?;
     let novelty =
         gate::check_new_version(name, version, dir.read_version(version)?.as_deref(), bytes)?;
     let live = dir.read_live()?;
@@ -342,6 +411,7 @@ pub fn upload(
         changes: Vec::new(),
     };
     if novelty == Novelty::AlreadyStored {
+        record_unrecorded_upload(&lock, version, who, reason)?;
         return Ok(uploaded);
     }
     uploaded.changes = compare_with_live(&dir, live.as_deref(), &candidate, allow_breaking)?;
@@ -354,6 +424,31 @@ pub fn upload(
         reason,
     ))?;
     Ok(uploaded)
+}
+
+/// A version is stored before its upload record is appended; if a crash came between the two,
+/// the repeated upload (which writes no file) writes the missing record.
+fn record_unrecorded_upload(
+    lock: &ModelLock,
+    version: &str,
+    who: &str,
+    reason: Option<&str>,
+) -> Result<(), LifecycleError> {
+    let history = lock.dir().read_history()?;
+    let recorded = history
+        .records
+        .iter()
+        .any(|r| r.action == Action::Upload && r.to == version);
+    if !recorded {
+        lock.append_history(&HistoryRecord::now(
+            Action::Upload,
+            None,
+            version,
+            who,
+            reason,
+        ))?;
+    }
+    Ok(())
 }
 
 /// Make stored version `version` the live version of model `name`, after the gate (valid,
@@ -370,6 +465,7 @@ pub fn promote(
     gate::check_labels(name, version)?;
     let dir = existing_dir(root, name)?;
     let lock = dir.lock(LOCK_WAIT)?;
+    complete_interrupted_move(&lock)?;
     let candidate = load_stored(&dir, version)?;
     let live = dir.read_live()?;
     if live.as_deref() == Some(version) {
@@ -410,6 +506,7 @@ pub fn rollback(
 ) -> Result<Moved, LifecycleError> {
     let dir = existing_dir(root, name)?;
     let lock = dir.lock(LOCK_WAIT)?;
+    complete_interrupted_move(&lock)?;
     let live = dir
         .read_live()?
         .ok_or_else(|| LifecycleError::NoLiveVersion {
@@ -449,10 +546,10 @@ pub fn rollback(
     })
 }
 
-/// Pointer first, history second: see the module docs for why.
+/// History first, pointer second: see the module docs for why.
 fn move_pointer(lock: &ModelLock, record: &HistoryRecord) -> Result<(), LifecycleError> {
-    lock.write_live(&record.to)?;
     lock.append_history(record)?;
+    lock.write_live(&record.to)?;
     Ok(())
 }
 
@@ -465,7 +562,12 @@ pub fn history(root: &Path, name: &str) -> Result<HistoryView, LifecycleError> {
     let history = dir.read_history()?;
     let lineage = replay(&history.records, live.as_deref());
     let mut warnings: Vec<ViewWarning> = history.warnings.into_iter().map(Into::into).collect();
-    if !lineage.is_recorded() {
+    if lineage.pointer_behind {
+        warnings.push(ViewWarning::PointerBehind {
+            recorded: lineage.recorded.clone().unwrap_or_default(),
+            pointer: live.clone(),
+        });
+    } else if !lineage.is_recorded() {
         warnings.push(ViewWarning::Unrecorded {
             recorded: lineage.recorded.clone(),
             pointer: live.clone(),
@@ -547,6 +649,49 @@ mod tests {
         let lineage = replay(&records, Some("v4"));
         assert_eq!(lineage.previous, vec!["v1", "v2", "v3"]);
         assert!(lineage.is_recorded());
+    }
+
+    #[test]
+    fn a_move_recorded_but_not_made_counts_as_made() {
+        // The record of v2 → v3 was written; the crash came before the pointer moved.
+        let records = vec![
+            promote_record(Some("v1"), "v2"),
+            promote_record(Some("v2"), "v3"),
+        ];
+        let lineage = replay(&records, Some("v2"));
+        assert!(lineage.pointer_behind);
+        assert!(!lineage.is_recorded());
+        assert_eq!(lineage.live.as_deref(), Some("v3"));
+        assert_eq!(lineage.rollback_target(), Some("v2"));
+        assert_eq!(
+            interrupted_move(&records, Some("v2")).map(|r| r.to.as_str()),
+            Some("v3")
+        );
+        assert!(interrupted_move(&records, Some("v3")).is_none());
+    }
+
+    #[test]
+    fn an_interrupted_rollback_does_not_return_to_the_version_rolled_away_from() {
+        let records = vec![
+            promote_record(Some("v1"), "v2"),
+            promote_record(Some("v2"), "v3"),
+            record(Action::Rollback, Some("v3"), "v2"),
+        ];
+        // The pointer still names v3: the rollback's record is the truth.
+        let lineage = replay(&records, Some("v3"));
+        assert_eq!(lineage.live.as_deref(), Some("v2"));
+        assert_eq!(lineage.rollback_target(), Some("v1"));
+    }
+
+    #[test]
+    fn an_interrupted_first_promotion_is_completed_from_no_pointer() {
+        let records = vec![
+            record(Action::Upload, None, "v1"),
+            promote_record(None, "v1"),
+        ];
+        let lineage = replay(&records, None);
+        assert!(lineage.pointer_behind);
+        assert_eq!(lineage.live.as_deref(), Some("v1"));
     }
 
     #[test]

@@ -10,12 +10,19 @@
 //! progress and are skipped, as are directories whose names are not model names (a volume's
 //! `lost+found`, say); loose files in `DIR` (the model-file schema, a README) are ignored.
 //! A model that fails to load is reported and left out of the snapshot; the others still
-//! serve. This module does not watch the directory or promote versions.
+//! serve. This module does not watch the directory or promote versions; but before loading a
+//! model it completes a move its history records and its pointer does not show yet (a
+//! promoter killed between the two writes, see [`crate::registry::lifecycle`]), so that a
+//! server never starts on a version its history says was replaced. A directory it cannot
+//! write is loaded as it is, and the repair reported as failed.
 
 use std::fs;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
+use std::time::Duration;
 
+use super::lifecycle;
+use super::store::HistoryRecord;
 use super::{Entry, Snapshot};
 use crate::model::{is_model_name, is_version_label, Model, ModelError};
 
@@ -92,6 +99,35 @@ pub struct LoadReport {
     pub snapshot: Snapshot,
     /// The entries that did not, by model name, in name order.
     pub failures: Vec<(String, LoadError)>,
+    /// Interrupted moves completed before loading (or that could not be), by model name.
+    pub repairs: Vec<Repair>,
+}
+
+/// An interrupted move found at load: the pointer lagged the history's last record.
+#[derive(Debug)]
+pub struct Repair {
+    /// The model.
+    pub name: String,
+    /// The record whose move was completed, or why it could not be (the pointer's version then
+    /// loads as it is).
+    pub outcome: Result<HistoryRecord, String>,
+}
+
+/// How long the startup load waits for a model's lock before leaving its repair to the
+/// promoter holding it.
+const REPAIR_LOCK_WAIT: Duration = Duration::from_secs(2);
+
+/// Complete an interrupted move of model `name`, if its files show one.
+fn repair_interrupted_move(root: &Path, name: &str) -> Option<Repair> {
+    let outcome = match lifecycle::reconcile(root, name, REPAIR_LOCK_WAIT) {
+        Ok(Some(record)) => Ok(record),
+        Ok(None) => return None,
+        Err(error) => Err(error.to_string()),
+    };
+    Some(Repair {
+        name: name.to_string(),
+        outcome,
+    })
 }
 
 /// Whether a directory entry's name marks a writer's temporary file.
@@ -122,6 +158,7 @@ pub fn load_directory(dir: &Path) -> Result<LoadReport, DirectoryError> {
     names.sort();
     let mut report = LoadReport::default();
     for name in names {
+        report.repairs.extend(repair_interrupted_move(dir, &name));
         match load_live(&dir.join(&name), &name) {
             Ok(model) => {
                 report.snapshot.models.insert(
