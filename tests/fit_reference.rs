@@ -112,7 +112,7 @@ fn spector_cloglog_matches_statsmodels_glm_newton() {
         reference,
         "statsmodels 0.15 GLM(Binomial(CLogLog)), method='newton', Spector data",
     );
-    // The issue's check, printed to three decimals: the intercept's standard error is 3.479 by
+    // The check, printed to three decimals: the intercept's standard error is 3.479 by
     // Newton (observed information) and 3.436 by IRLS (expected information); ours is Newton's.
     let se = std_error(&fitted, "intercept");
     assert!(
@@ -140,7 +140,7 @@ fn spector_cauchit_matches_statsmodels_glm_newton() {
 }
 
 /// Greene, Econometric Analysis, the Spector & Mazzeo logit as printed (values recalled from
-/// memory, as the issue gives them): constant −13.021, GPA 2.826, TUCE 0.095, PSI 2.379; checked
+/// memory): constant −13.021, GPA 2.826, TUCE 0.095, PSI 2.379; checked
 /// at the printed rounding (half a unit in the third decimal).
 #[test]
 fn spector_logit_reproduces_greenes_printed_coefficients() {

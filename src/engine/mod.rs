@@ -6,7 +6,7 @@
 //! [`Model::parse_observation`]. A [`Scorer`] owns every buffer it needs and reuses them, so
 //! scoring a batch allocates nothing per observation once the first answer has sized them.
 //!
-//! The formulas (design brief §4), with t the term vector, β the coefficients, V their covariance,
+//! The formulas, with t the term vector, β the coefficients, V their covariance,
 //! z = βᵀt, and F, f, f′ the link's probability, density and density derivative:
 //!
 //! ```text

@@ -1,4 +1,4 @@
-//! Loading a model directory (design brief §6) into a [`Snapshot`], once, with one error per
+//! Loading a model directory into a [`Snapshot`], once, with one error per
 //! model entry that could not be loaded.
 //!
 //! ```text

@@ -1,5 +1,5 @@
-//! The cautions every report carries (design brief §9), in one place so that the text and JSON
-//! reports, and anything else that shows a model to a person, say the same thing.
+//! The cautions every report carries (as in the README's Cautions paragraph), in one place so
+//! that the text and JSON reports, and anything else that shows a model to a person, say the same thing.
 
 /// What a reader of a model report must keep in mind, one sentence or two each.
 pub const CAUTIONS: [&str; 5] = [

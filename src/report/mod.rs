@@ -1,7 +1,7 @@
 //! The reviewer's report on a model (`ogive describe`): identity and provenance, the link, the
 //! coefficient table, training ranges, effects at the training means, and over a data file the
 //! average marginal effects and the warnings its rows would raise; then the notes that say how
-//! each number was computed, and the cautions of the design brief §9.
+//! each number was computed, and the cautions of the README (its Cautions paragraph).
 //!
 //! ```text
 //! mod.rs           the Report value and how it is built from a model (and a data pass)
@@ -55,7 +55,7 @@ pub struct Report {
     pub plots: Vec<String>,
     /// How the numbers were computed.
     pub notes: Vec<String>,
-    /// The cautions of the design brief §9.
+    /// The cautions of the README's Cautions paragraph.
     pub cautions: Vec<String>,
 }
 

@@ -3,7 +3,7 @@
 //! writes a tolerance as a literal.
 
 /// Engine against statsmodels (predict, get_margeff) and against the numpy formulas of
-/// `tests/reference/make_engine_fixtures.py`: relative. The issue asks for 1e-8 or better; the
+/// `tests/reference/make_engine_fixtures.py`: relative. The project asks for 1e-8 or better; the
 /// two sides compute the same quantities from the same coefficients in a different order, so
 /// they agree to a few hundred ulps, and 1e-10 leaves room for summation order only.
 pub const ENGINE_VS_STATSMODELS: f64 = 1e-10;
@@ -14,7 +14,7 @@ pub const ENGINE_VS_STATSMODELS: f64 = 1e-10;
 pub const ENGINE_ABSOLUTE_FLOOR: f64 = 1e-6;
 
 /// Link functions against scipy and mpmath: relative, wherever the reference value is a normal
-/// double (the issue's "relative 1e-12 where representable").
+/// double (the project's "relative 1e-12 where representable").
 pub const LINK_VS_SCIPY: f64 = 1e-12;
 
 /// Abramowitz & Stegun (1964) Table 26.1 as recalled here: ten decimals, so half a unit in the

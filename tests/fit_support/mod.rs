@@ -10,25 +10,25 @@ use std::path::{Path, PathBuf};
 use ogive::fit::{self, FitRequest, Fitted, Silent};
 use serde_json::Value as Json;
 
-/// Coefficients against statsmodels: relative (the issue's 1e-6). Both sides iterate to a
+/// Coefficients against statsmodels: relative (the project's 1e-6). Both sides iterate to a
 /// gradient far below this, so the agreement is usually near 1e-10.
 pub const COEFFICIENT_VS_STATSMODELS: f64 = 1e-6;
 
-/// Classical and HC0 standard errors against statsmodels: relative (the issue's 1e-5).
+/// Classical and HC0 standard errors against statsmodels: relative (the project's 1e-5).
 pub const STD_ERROR_VS_STATSMODELS: f64 = 1e-5;
 
 /// Log-likelihoods against statsmodels: relative. The same sum over the same data in a
 /// different order, at an estimate equal to ~1e-10.
 pub const LOG_LIKELIHOOD_VS_STATSMODELS: f64 = 1e-9;
 
-/// A number printed to three decimals (Greene's tables, the Newton-vs-IRLS check of the issue):
+/// A number printed to three decimals (Greene's tables, the Newton-vs-IRLS check):
 /// half a unit in the third decimal, absolute.
 pub const PRINTED_THREE_DECIMALS: f64 = 5e-4;
 
-/// Estimates in a simulation: within this many standard errors of the truth (the issue's 4).
+/// Estimates in a simulation: within this many standard errors of the truth (the project's 4).
 pub const SIMULATION_STANDARD_ERRORS: f64 = 4.0;
 
-/// Coverage of nominal 95% intervals over 200 simulated datasets: the issue's band.
+/// Coverage of nominal 95% intervals over 200 simulated datasets: the project's band.
 pub const COVERAGE_BAND: (f64, f64) = (0.92, 0.98);
 
 /// Amemiya (1981): logit coefficients are about 1.6 times probit ones; the loose band used

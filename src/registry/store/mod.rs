@@ -1,4 +1,4 @@
-//! The model directory on disk (design brief §6): where each file lives, how to read it, and
+//! The model directory on disk: where each file lives, how to read it, and
 //! (through [`ModelLock`]) how to write it crash-safely.
 //!
 //! ```text
