@@ -60,8 +60,8 @@ fn model() -> Arc<Model> {
         "terms": [
             {"term": "intercept", "coefficient": -1.0}, {"term": "amount", "coefficient": 0.03},
             {"term": "years", "coefficient": -0.05}, {"term": "years^2", "coefficient": 0.001},
-            {"term": "sector[farming]", "coefficient": 0.4}, {"term": "sector[transport]", "coefficient": -0.3},
-            {"term": "sector[services]", "coefficient": 0.1}, {"term": "guarantor", "coefficient": -0.5}
+            {"term": "sector=farming", "coefficient": 0.4}, {"term": "sector=transport", "coefficient": -0.3},
+            {"term": "sector=services", "coefficient": 0.1}, {"term": "guarantor", "coefficient": -0.5}
         ],
         "covariance": (0..8).map(|r| (0..8).map(|c| if r == c { 0.01 } else { 0.001 }).collect::<Vec<f64>>()).collect::<Vec<_>>(),
         "fitted_probabilities": {"edges": [0.0, 0.2, 0.4, 0.6, 0.8, 1.0], "counts": [300, 300, 200, 150, 50]},

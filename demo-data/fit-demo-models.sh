@@ -6,8 +6,10 @@
 #   model-files/NAME/history.jsonl           empty: no promotion has happened yet
 #
 # Usage (from anywhere):  bash demo-data/fit-demo-models.sh
-# Uses $OGIVE if set, otherwise builds the release binary. The fit time recorded in the files
-# is fixed (SOURCE_DATE_EPOCH), so a rerun reproduces the committed files byte for byte.
+# Uses $OGIVE if set, otherwise builds the release binary (under $CARGO_TARGET_DIR when set).
+# The fit time recorded in the files is fixed (SOURCE_DATE_EPOCH), so a rerun reproduces the
+# committed files byte for byte. Both models are fitted and checked in a scratch directory
+# first: if anything fails, model-files/ is left exactly as it was.
 set -euo pipefail
 
 root="$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)"
@@ -17,19 +19,14 @@ python3 demo-data/generate.py
 
 if [[ -z "${OGIVE:-}" ]]; then
     cargo build --release --quiet --bin ogive
-    OGIVE="$root/target/release/ogive"
+    OGIVE="${CARGO_TARGET_DIR:-$root/target}/release/ogive"
 fi
 export SOURCE_DATE_EPOCH=1767225600 # 2026-01-01T00:00:00Z
 VERSION=1.0.0
 
-layout() {
-    local name="$1"
-    mkdir -p "model-files/$name/versions"
-    printf '%s\n' "$VERSION" >"model-files/$name/live"
-    : >"model-files/$name/history.jsonl"
-}
+scratch="$(mktemp -d)"
+trap 'rm -rf "$scratch"' EXIT
 
-layout lease-arrears
 "$OGIVE" fit \
     --data demo-data/lease-arrears.csv \
     --outcome arrears_60d \
@@ -41,9 +38,8 @@ layout lease-arrears
     --threshold 0.3 --band low=0.08 --band medium=0.2 --band high=1 \
     --name lease-arrears --version "$VERSION" \
     --description "Invented demo: a fictional equipment lessor's probability that a small-business lease falls 60+ days behind within a year." \
-    --out "model-files/lease-arrears/versions/$VERSION.json"
+    --out "$scratch/lease-arrears.json"
 
-layout rebate-uptake
 "$OGIVE" fit \
     --data demo-data/rebate-uptake.csv \
     --outcome took_rebate \
@@ -54,7 +50,17 @@ layout rebate-uptake
     --link probit \
     --name rebate-uptake --version "$VERSION" \
     --description "Invented demo: a fictional energy office's probability that a household takes up an offered rebate." \
-    --out "model-files/rebate-uptake/versions/$VERSION.json"
+    --out "$scratch/rebate-uptake.json"
 
-"$OGIVE" check model-files/lease-arrears/versions/$VERSION.json model-files/rebate-uptake/versions/$VERSION.json >/dev/null
+"$OGIVE" check "$scratch/lease-arrears.json" "$scratch/rebate-uptake.json" >/dev/null
+
+install_model() {
+    local name="$1"
+    mkdir -p "model-files/$name/versions"
+    mv "$scratch/$name.json" "model-files/$name/versions/$VERSION.json"
+    printf '%s\n' "$VERSION" >"model-files/$name/live"
+    : >"model-files/$name/history.jsonl"
+}
+install_model lease-arrears
+install_model rebate-uptake
 echo "demo models written and checked"

@@ -37,10 +37,10 @@ LEASE_TRUTH = {
     "prior_arrears": 0.42,  # earlier leases that fell 30+ days behind (count)
     "guarantor": -0.55,  # a personal guarantee was given (0/1)
     "years_trading*guarantor": 0.025,
-    "sector[hospitality]": 0.35,
-    "sector[logistics]": 0.15,
-    "sector[manufacturing]": -0.2,
-    "sector[retail]": 0.25,
+    "sector=hospitality": 0.35,
+    "sector=logistics": 0.15,
+    "sector=manufacturing": -0.2,
+    "sector=retail": 0.25,
 }
 LEASE_SECTORS = [
     ("construction", 0.22),
@@ -58,9 +58,9 @@ REBATE_TRUTH = {
     "occupants": 0.08,  # people living in the household (count, at least 1)
     "owner_occupied": 0.45,  # the household owns the dwelling (0/1)
     "energy_audit": 0.6,  # the household had a free energy audit (0/1)
-    "heating[district]": -0.3,
-    "heating[electric]": 0.2,
-    "heating[oil]": 0.35,
+    "heating=district": -0.3,
+    "heating=electric": 0.2,
+    "heating=oil": 0.35,
 }
 REBATE_HEATING = [("district", 0.15), ("electric", 0.25), ("gas", 0.45), ("oil", 0.15)]
 
@@ -111,7 +111,7 @@ def lease_arrears(rng):
             + b["prior_arrears"] * arrears
             + b["guarantor"] * guarantor
             + b["years_trading*guarantor"] * years * guarantor
-            + b.get("sector[%s]" % sector, 0.0)
+            + b.get("sector=%s" % sector, 0.0)
         )
         y = 1 if rng.random() < logistic(z) else 0
         rows.append((y, revenue, years, arrears, guarantor, sector))
@@ -136,7 +136,7 @@ def rebate_uptake(rng):
             + b["occupants"] * occupants
             + b["owner_occupied"] * owner
             + b["energy_audit"] * audit
-            + b.get("heating[%s]" % heating, 0.0)
+            + b.get("heating=%s" % heating, 0.0)
         )
         y = 1 if rng.random() < normal_cdf(z) else 0
         rows.append((y, income, int(age), occupants, owner, audit, heating))

@@ -91,9 +91,9 @@ fn model(link: Link) -> Model {
             { "term": "years^2", "coefficient": 0.001 },
             { "term": "arrears", "coefficient": 0.3 },
             { "term": "guarantor", "coefficient": -0.6 },
-            { "term": "sector[farm]", "coefficient": 0.2 },
-            { "term": "sector[haulage]", "coefficient": 0.4 },
-            { "term": "years*sector[haulage]", "coefficient": -0.02 },
+            { "term": "sector=farm", "coefficient": 0.2 },
+            { "term": "sector=haulage", "coefficient": 0.4 },
+            { "term": "years*sector=haulage", "coefficient": -0.02 },
             { "term": "arrears*guarantor", "coefficient": 0.1 }
         ],
         "covariance": (0..10).map(|r| (0..10).map(|c| {

@@ -108,7 +108,7 @@ fn factor_pool(covariates: &[CovariatePart]) -> Vec<String> {
             CovariateKind::Categorical => {
                 let reference = c.reference.as_deref().unwrap_or_default();
                 for l in c.levels.iter().filter(|l| l.as_str() != reference) {
-                    pool.push(format!("{}[{l}]", c.name));
+                    pool.push(format!("{}={l}", c.name));
                 }
             }
             _ => pool.push(c.name.clone()),
@@ -179,7 +179,7 @@ fn build(plan: &Plan) -> Case {
         let counts: Vec<u64> = (0..levels).map(|_| rng.gen_range(1..50)).collect();
         let part = CovariatePart::categorical(&name, &refs, refs[reference], &counts);
         for l in names.iter().filter(|l| **l != names[reference]) {
-            terms.push((format!("{name}[{l}]"), coefficient(&mut rng, 1.0)));
+            terms.push((format!("{name}={l}"), coefficient(&mut rng, 1.0)));
         }
         covariates.push(part);
     }

@@ -82,7 +82,7 @@ fn quasi_complete_separation_of_a_level_names_the_level() {
     });
     assert_eq!(
         e,
-        "quasi-complete separation: term 'group[c]' predicts the outcome: every observation with group[c] > 0 has outcome 0 (its coefficient runs to −∞); the maximum-likelihood estimate does not exist (drop or merge the term, or collect more varied data)"
+        "quasi-complete separation: term 'group=c' predicts the outcome: every observation with group=c > 0 has outcome 0 (its coefficient runs to −∞); the maximum-likelihood estimate does not exist (drop or merge the term, or collect more varied data)"
     );
 }
 
@@ -192,7 +192,7 @@ fn a_reference_level_with_no_observations() {
 
 #[test]
 fn a_level_term_with_no_observations() {
-    let e = failure(&healthy_rows(), "x, group[z]", |_| {});
+    let e = failure(&healthy_rows(), "x, group=z", |_| {});
     assert_eq!(
         e,
         "covariate 'group' has no observations at level 'z' (levels seen: a, b)"
@@ -237,7 +237,7 @@ fn term_syntax_and_kind_errors_point_at_the_item() {
     let e = failure(&healthy_rows(), "x, x+group", |_| {});
     assert_eq!(
         e,
-        "--terms item 2 ('x+group'): 'x+group' is not a term: write name, name^k, log(name), name[level] or a*b"
+        "--terms item 2 ('x+group'): 'x+group' is not a term: write name, name^k, log(name), name=level or a*b"
     );
     let e = failure(&healthy_rows(), "log(group)", |_| {});
     assert_eq!(

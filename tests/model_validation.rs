@@ -35,7 +35,7 @@ fn base() -> Value {
             {"term": "age", "coefficient": 0.02},
             {"term": "age^2", "coefficient": -0.0001},
             {"term": "guarantor", "coefficient": -0.5},
-            {"term": "region[south]", "coefficient": 0.2},
+            {"term": "region=south", "coefficient": 0.2},
             {"term": "age*guarantor", "coefficient": 0.004}
         ],
         "covariance": diagonal(7, 0.01),
@@ -190,7 +190,7 @@ fn reference_level_not_among_the_levels() {
 #[test]
 fn a_level_indicator_of_an_unknown_level() {
     let mut v = base();
-    v["terms"][5]["term"] = json!("region[west]");
+    v["terms"][5]["term"] = json!("region=west");
     let e = refused(&v);
     assert_eq!(e.field, "terms[5].term");
     assert!(

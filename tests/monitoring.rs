@@ -73,8 +73,8 @@ fn drift_model(version: &str) -> Arc<Model> {
         "terms": [
             { "term": "intercept", "coefficient": -1.0 },
             { "term": "amount", "coefficient": 0.05 },
-            { "term": "sector[farming]", "coefficient": 0.4 },
-            { "term": "sector[transport]", "coefficient": -0.3 },
+            { "term": "sector=farming", "coefficient": 0.4 },
+            { "term": "sector=transport", "coefficient": -0.3 },
             { "term": "guarantor", "coefficient": -0.5 },
             { "term": "visits", "coefficient": 0.1 }
         ],

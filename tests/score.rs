@@ -249,10 +249,10 @@ fn effect_columns_are_named_per_covariate_and_level() {
             "effect_arrears_se",
             "effect_guarantor",
             "effect_guarantor_se",
-            "effect_sector.light manufacturing",
-            "effect_sector.light manufacturing_se",
-            "effect_sector.transport",
-            "effect_sector.transport_se",
+            "effect_sector=light manufacturing",
+            "effect_sector=light manufacturing_se",
+            "effect_sector=transport",
+            "effect_sector=transport_se",
             "warnings",
         ]
     );

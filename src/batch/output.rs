@@ -19,9 +19,8 @@
 //!                                                     any training observation
 //! ```
 //!
-//! The level is joined with a dot (`effect_sector.retail`) rather than brackets so the column
-//! name needs no quoting in most tools; covariate names cannot contain a dot, so the split is
-//! unambiguous. Numbers are written in the shortest form that reads back to the same `f64`.
+//! A level's column carries the term notation (`effect_sector=retail`); covariate names cannot
+//! contain `=`, so the split is unambiguous and the name needs no quoting in CSV. Numbers are written in the shortest form that reads back to the same `f64`.
 //! A model without a covariance leaves the interval and `_se` cells empty.
 //!
 //! This module formats; it does not compute anything.
@@ -52,7 +51,7 @@ pub const WARNINGS_COLUMN: &str = "warnings";
 pub fn effect_column(model: &Model, slot: &EffectSlot) -> String {
     let covariate = &model.covariates[slot.covariate];
     match slot.level {
-        Some(level) => format!("effect_{}.{}", covariate.name, covariate.levels[level]),
+        Some(level) => format!("effect_{}={}", covariate.name, covariate.levels[level]),
         None => format!("effect_{}", covariate.name),
     }
 }

@@ -40,7 +40,7 @@ pub struct FitArgs {
     #[arg(long, env = "OGIVE_OUTCOME_MEANING", value_name = "TEXT")]
     pub outcome_meaning: Option<String>,
     /// The terms, comma-separated, each exactly one term: name, name^k, log(name), a*b,
-    /// name[level]. A bare categorical expands into its non-reference level indicators; in a
+    /// name=level. A bare categorical expands into its non-reference level indicators; in a
     /// product, into one product per non-reference level.
     #[arg(long, env = "OGIVE_TERMS", value_name = "LIST")]
     pub terms: String,

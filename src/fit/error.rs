@@ -102,8 +102,8 @@ pub enum FitError {
         /// The column.
         column: String,
     },
-    /// A categorical level that cannot be written inside a term such as `sector[level]`.
-    #[error("column '{column}': level {level:?} cannot be named in a term (levels may not contain '[', ']', '*', '^' or ',' or start or end with a space)")]
+    /// A categorical level that cannot be written inside a term such as `sector=level`.
+    #[error("column '{column}': level {level:?} cannot be named in a term (levels may not contain '*' or ',' or start or end with a space)")]
     LevelNotNameable {
         /// The column.
         column: String,

@@ -257,12 +257,12 @@ fn check_flag_columns(request: &FitRequest, names: &[String]) -> Result<(), FitE
     Ok(())
 }
 
-/// A level must survive being written as `name[level]` and read back.
+/// A level must survive being written as `name=level` and read back, alone and in a product.
 fn check_level_nameable(column: &str, level: &str) -> Result<(), FitError> {
-    let written = format!("{column}[{level}]");
+    let written = format!("{column}={level}");
     let round_trip = TermText::parse(&written);
     let fine = level.trim() == level
-        && !level.contains(['[', ']'])
+        && !level.contains(['*', ','])
         && round_trip == Ok(TermText::Level(column.to_string(), level.to_string()));
     if fine {
         Ok(())

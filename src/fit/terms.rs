@@ -5,9 +5,9 @@
 //! Expansion rules (documented in `ogive fit --help`):
 //!
 //! ```text
-//! sector                 one indicator per non-reference level: sector[b], sector[c], …
-//! sector[retail]         that level's indicator alone (the level must occur in the data)
-//! years*sector           one product per non-reference level: years*sector[b], years*sector[c], …
+//! sector                 one indicator per non-reference level: sector=b, sector=c, …
+//! sector=retail          that level's indicator alone (the level must occur in the data)
+//! years*sector           one product per non-reference level: years*sector=b, years*sector=c, …
 //! sector*region          every pair of non-reference levels
 //! ```
 //!
@@ -285,7 +285,7 @@ mod tests {
     fn a_bare_categorical_expands_into_its_non_reference_levels() {
         assert_eq!(
             labels("years, sector"),
-            ["intercept", "years", "sector[retail]", "sector[transport]"]
+            ["intercept", "years", "sector=retail", "sector=transport"]
         );
     }
 
@@ -295,8 +295,8 @@ mod tests {
             labels("years*sector, years^2"),
             [
                 "intercept",
-                "years*sector[retail]",
-                "years*sector[transport]",
+                "years*sector=retail",
+                "years*sector=transport",
                 "years^2"
             ]
         );
@@ -304,7 +304,7 @@ mod tests {
 
     #[test]
     fn commas_inside_brackets_do_not_split() {
-        let terms = parse_term_list("log(years), sector[retail]").expect("parses");
+        let terms = parse_term_list("log(years), sector=retail").expect("parses");
         assert_eq!(terms.len(), 2);
         assert_eq!(covariate_names(&terms), ["years", "sector"]);
     }
@@ -317,7 +317,7 @@ mod tests {
             e.to_string(),
             "term 'sector^2': 'sector' is categorical and has no powers"
         );
-        let terms = parse_term_list("sector[mining]").expect("parses");
+        let terms = parse_term_list("sector=mining").expect("parses");
         let e = expand(&terms, &shapes(), true).unwrap_err();
         assert_eq!(
             e.to_string(),

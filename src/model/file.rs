@@ -167,7 +167,7 @@ pub struct Histogram {
 #[serde(deny_unknown_fields)]
 pub struct TermSpec {
     /// The term in the syntax of `ogive fit --terms`: `intercept`, `x`, `x^2`, `log(x)`,
-    /// `sector[retail]` or a product such as `x*sector[retail]`.
+    /// `sector=retail` or a product such as `x*sector=retail`.
     pub term: String,
     /// Its coefficient β.
     pub coefficient: f64,

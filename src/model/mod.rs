@@ -473,13 +473,13 @@ fn validate_covariates(file: &ModelFile) -> Result<Vec<Covariate>, ModelError> {
             }
             let mut seen_levels = HashSet::new();
             for (l, level) in levels.iter().enumerate() {
-                if level.is_empty() || level.contains(['[', ']']) || level.trim() != level {
+                if level.is_empty() || level.contains(['*', ',']) || level.trim() != level {
                     return Err(err(
                         format!("covariates[{i}].levels[{l}]"),
                         ModelProblem::BadName {
                             name: level.clone(),
                             rule:
-                                "a level is non-empty text without '[', ']' or surrounding spaces",
+                                "a level is non-empty text without '*', ',' or surrounding spaces",
                         },
                     ));
                 }
@@ -640,7 +640,7 @@ fn resolve_factor(
                 return Err(ModelProblem::TermKind {
                     term: label.to_string(),
                     problem: format!(
-                        "'{n}' is categorical and cannot be used as a number; name a level, as in {n}[{}]",
+                        "'{n}' is categorical and cannot be used as a number; name a level, as in {n}={}",
                         covariates[c].levels.get(1).map(String::as_str).unwrap_or("level")
                     ),
                 });

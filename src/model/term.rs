@@ -9,10 +9,13 @@
 //! years_trading             a covariate itself
 //! years_trading^2           an integer power (exponent 2 to 9)
 //! log(annual_revenue)       the natural log (training range must be > 0)
-//! sector[retail]            the indicator of one level of a categorical covariate
+//! sector=retail            the indicator of one level of a categorical covariate
 //! years_trading*guarantor   a product of two or more factors; a factor is a covariate or a
-//!                           level indicator such as sector[retail]
+//!                           level indicator such as sector=retail
 //! ```
+//!
+//! A level indicator is `name=level`: everything after the first `=` is the level, so a level may
+//! hold spaces (`sector=light manufacturing`) but not `*` or `,`, which separate factors and terms.
 //!
 //! This module parses and evaluates; it does not check that names exist (the model does that
 //! once, at load, and then hands out [`Term`] values whose indices are known to be valid).
@@ -52,7 +55,7 @@ pub enum TermText {
     Intercept,
     /// `name`
     Name(String),
-    /// `name[level]`
+    /// `name=level`
     Level(String, String),
     /// `name^k`
     Power(String, i32),
@@ -75,8 +78,16 @@ pub enum TermSyntaxError {
     #[error("in '{0}': the exponent must be an integer from 2 to 9")]
     BadExponent(String),
     /// Parentheses, brackets or operators the grammar does not allow.
-    #[error("'{0}' is not a term: write name, name^k, log(name), name[level] or a*b")]
+    #[error("'{0}' is not a term: write name, name^k, log(name), name=level or a*b")]
     Unrecognised(String),
+    /// A level indicator written with brackets; the notation is `name=level`.
+    #[error("'{text}' is not a term: a level indicator is written {suggestion}")]
+    Bracketed {
+        /// The term as given.
+        text: String,
+        /// The same indicator in `name=level` notation.
+        suggestion: String,
+    },
 }
 
 /// The largest exponent a power term may have. Higher powers are numerically fragile and a sign
@@ -98,23 +109,30 @@ fn parse_name(s: &str) -> Result<String, TermSyntaxError> {
     }
 }
 
-/// Parse a factor: `name` or `name[level]`.
+/// Parse a factor: `name` or `name=level`.
 fn parse_factor(s: &str) -> Result<TermText, TermSyntaxError> {
-    if let Some(open) = s.find('[') {
-        let Some(inner) = s[open + 1..].strip_suffix(']') else {
-            return Err(TermSyntaxError::Unrecognised(s.to_string()));
-        };
-        let level = inner.trim();
-        if level.is_empty() || level.contains(['[', ']']) {
+    if let Some((name, level)) = s.split_once('=') {
+        let level = level.trim();
+        if level.is_empty() {
             return Err(TermSyntaxError::Unrecognised(s.to_string()));
         }
-        Ok(TermText::Level(
-            parse_name(s[..open].trim())?,
-            level.to_string(),
-        ))
+        Ok(TermText::Level(parse_name(name.trim())?, level.to_string()))
+    } else if let Some(suggestion) = bracketed_level(s) {
+        Err(TermSyntaxError::Bracketed {
+            text: s.to_string(),
+            suggestion,
+        })
     } else {
         Ok(TermText::Name(parse_name(s)?))
     }
+}
+
+/// `name=level` for a factor written `name[level]`, so the refusal can show the notation.
+fn bracketed_level(s: &str) -> Option<String> {
+    let (name, rest) = s.split_once('[')?;
+    let level = rest.strip_suffix(']')?.trim();
+    (is_covariate_name(name.trim()) && !level.is_empty())
+        .then(|| format!("{}={level}", name.trim()))
 }
 
 impl TermText {
@@ -137,6 +155,9 @@ impl TermText {
                 .collect::<Result<Vec<_>, _>>()?;
             return Ok(TermText::Product(factors));
         }
+        if s.contains('=') {
+            return parse_factor(s);
+        }
         if let Some((base, exponent)) = s.split_once('^') {
             let k: i32 = exponent
                 .trim()
@@ -147,7 +168,8 @@ impl TermText {
             }
             return Ok(TermText::Power(parse_name(base.trim())?, k));
         }
-        if s.contains(['(', ')', '+', '-', '/', ' ', '^']) && !s.contains('[') {
+        if bracketed_level(s).is_none() && s.contains(['(', ')', '+', '-', '/', ' ', '^', '[', ']'])
+        {
             return Err(TermSyntaxError::Unrecognised(s.to_string()));
         }
         parse_factor(s)
@@ -174,7 +196,7 @@ impl fmt::Display for TermText {
         match self {
             TermText::Intercept => f.write_str("intercept"),
             TermText::Name(n) => f.write_str(n),
-            TermText::Level(n, l) => write!(f, "{n}[{l}]"),
+            TermText::Level(n, l) => write!(f, "{n}={l}"),
             TermText::Power(n, k) => write!(f, "{n}^{k}"),
             TermText::Log(n) => write!(f, "log({n})"),
             TermText::Product(fs) => {
@@ -304,9 +326,9 @@ mod tests {
             "years_trading",
             "years_trading^2",
             "log(annual_revenue)",
-            "sector[retail]",
+            "sector=retail",
             "years_trading*guarantor",
-            "a*sector[light manufacturing]*b",
+            "a*sector=light manufacturing*b",
         ] {
             let parsed = TermText::parse(text).expect(text);
             assert_eq!(parsed.to_string(), text);
@@ -315,6 +337,34 @@ mod tests {
             TermText::parse(" x ^ 3 "),
             Ok(TermText::Power("x".into(), 3))
         );
+        assert_eq!(
+            TermText::parse(" sector = light manufacturing "),
+            Ok(TermText::Level(
+                "sector".into(),
+                "light manufacturing".into()
+            ))
+        );
+        assert_eq!(
+            TermText::parse("grade=a=b"),
+            Ok(TermText::Level("grade".into(), "a=b".into()))
+        );
+    }
+
+    #[test]
+    fn a_bracketed_level_is_refused_with_the_notation_to_use() {
+        let e = TermText::parse("x*sector[retail]").expect_err("brackets");
+        assert_eq!(
+            e.to_string(),
+            "'sector[retail]' is not a term: a level indicator is written sector=retail"
+        );
+        assert!(matches!(
+            TermText::parse("sector="),
+            Err(TermSyntaxError::Unrecognised(_))
+        ));
+        assert!(matches!(
+            TermText::parse("=retail"),
+            Err(TermSyntaxError::BadName(_))
+        ));
     }
 
     #[test]

@@ -104,7 +104,7 @@ fn effect_table(rows: &[EffectRow]) -> Table {
     ]);
     for e in rows {
         let name = match &e.level {
-            Some(level) => format!("{}[{level}]", e.covariate),
+            Some(level) => format!("{}={level}", e.covariate),
             None => e.covariate.clone(),
         };
         table.push(vec![

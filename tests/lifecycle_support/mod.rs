@@ -66,8 +66,8 @@ pub fn base(name: &str, version: &str) -> ModelFile {
         ("tenure", 0.05),
         ("tenure^2", -0.001),
         ("guarantor", -0.5),
-        ("region[south]", 0.2),
-        ("region[east]", -0.1),
+        ("region=south", 0.2),
+        ("region=east", -0.1),
         ("income*guarantor", 0.002),
     ]
     .into_iter()
@@ -159,7 +159,7 @@ pub fn without_covariate(mut file: ModelFile, covariate: &str) -> ModelFile {
 /// Add a covariate with a linear term (for numeric kinds) or one level term (categorical).
 pub fn with_covariate(mut file: ModelFile, spec: CovariateSpec) -> ModelFile {
     let term = match &spec.levels {
-        Some(levels) => format!("{}[{}]", spec.name, levels[levels.len() - 1]),
+        Some(levels) => format!("{}={}", spec.name, levels[levels.len() - 1]),
         None => spec.name.clone(),
     };
     file.terms.push(TermSpec {

@@ -121,8 +121,8 @@ pub fn portfolio_json(with_covariance: bool) -> Value {
         ("years^2", 0.0021),
         ("arrears", 0.42),
         ("guarantor", -0.6),
-        ("sector[light manufacturing]", 0.25),
-        ("sector[transport]", 0.55),
+        ("sector=light manufacturing", 0.25),
+        ("sector=transport", 0.55),
         ("years*guarantor", 0.018),
     ];
     // Typical size of each term, so that every coefficient's standard error is a plausible

@@ -123,8 +123,8 @@ def simulated_categorical():
         "Intercept": "intercept",
         "income": "income",
         "tenure": "tenure",
-        "C(region)[T.north]": "region[north]",
-        "C(region)[T.south]": "region[south]",
+        "C(region)[T.north]": "region=north",
+        "C(region)[T.south]": "region=south",
     }
     names = [rename[p] for p in result.params.index]
     out = {
