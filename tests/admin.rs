@@ -27,7 +27,7 @@ use lifecycle_support::{
     tampered_bytes, with_covariate, without_covariate,
 };
 use ogive::model::CovariateKind;
-use ogive::registry::gate::covariate_changes;
+use ogive::registry::gate::contract_changes;
 use ogive::registry::lifecycle;
 use ogive::service::shadow::{Share, DIFFERENCE_BUCKETS};
 use serde_json::{json, Value as Json};
@@ -403,7 +403,7 @@ fn a_breaking_candidate_needs_allow_breaking_and_the_answer_lists_the_changes() 
         {"change": "removed", "covariate": "guarantor", "kind": "binary"},
         {"change": "added", "covariate": "seasonal", "kind": "count"},
     ]);
-    let library = covariate_changes(&model_of(&v1), &model_of(&candidate));
+    let library = contract_changes(&model_of(&v1), &model_of(&candidate));
     let check_changes = |changes: &Json| {
         let changes = changes.as_array().expect("a list of changes");
         assert_eq!(changes.len(), 2, "{changes:?}");
@@ -416,6 +416,7 @@ fn a_breaking_candidate_needs_allow_breaking_and_the_answer_lists_the_changes() 
                 assert_eq!(change[key], expected[key], "{change}");
             }
             assert_eq!(change["callers_must"], from_library.to_string());
+            assert_eq!(change["to_keep"], from_library.to_keep());
         }
     };
 
@@ -425,6 +426,11 @@ fn a_breaking_candidate_needs_allow_breaking_and_the_answer_lists_the_changes() 
     check_changes(&problem["changes"]);
     assert_eq!(problem["live"], "v1");
     assert_eq!(problem["candidate"], "v9");
+    let to_override = problem["to_override"].as_str().expect("how to override");
+    assert!(
+        to_override.contains("?allow_breaking=true"),
+        "{to_override}"
+    );
     let detail = problem["detail"].as_str().expect("detail");
     assert!(
         detail.contains("guarantor") && detail.contains("seasonal"),
@@ -739,6 +745,49 @@ fn assert_report(report: &Json, expected: &Expected) {
         .collect();
     assert_eq!(bins, expected.bins, "{report}");
     assert_eq!(report["thresholds"], json!({"live": 0.5, "shadow": 0.5}));
+    assert_eq!(
+        report["notes"],
+        json!([]),
+        "same thresholds, nothing to note"
+    );
+}
+
+#[test]
+fn a_shadow_with_another_threshold_says_disagreements_may_come_from_the_thresholds() {
+    let d = three_versions(Share::ALL);
+    let contract = Contract::fetch(&d);
+    let mut file = base(NAME, "v7");
+    file.decision = Some(ogive::model::file::DecisionSpec {
+        threshold: Some(0.3),
+        bands: Vec::new(),
+    });
+    let candidate = bytes_of(file);
+    d.upload(NAME, "v7", &candidate, "?allow_breaking=true")
+        .expect(201);
+    let reply = d.set_shadow(NAME, "v7");
+    contract.check("/models/{name}/shadow", "put", &reply);
+    let set = reply.expect(200);
+    let changes = set["changes"].as_array().expect("changes");
+    assert_eq!(changes.len(), 1, "{set}");
+    assert_eq!(changes[0]["change"], "threshold_changed");
+    assert_eq!(changes[0]["to_keep"], "no --threshold");
+    let notes = set["notes"].as_array().expect("notes");
+    assert_eq!(notes.len(), 1, "{set}");
+    let note = notes[0].as_str().expect("a sentence");
+    assert!(
+        note.contains("live 'v1' at 0.5") && note.contains("shadow 'v7' at 0.3"),
+        "{note}"
+    );
+    d.post(
+        &format!("/models/{NAME}/probability"),
+        &json!({"observations": observations(5)}),
+    )
+    .expect(200);
+    let reply = d.shadow_report(NAME);
+    contract.check("/models/{name}/shadow", "get", &reply);
+    let report = reply.expect(200);
+    assert_eq!(report["thresholds"], json!({"live": 0.5, "shadow": 0.3}));
+    assert_eq!(report["notes"], json!([note]));
 }
 
 #[test]

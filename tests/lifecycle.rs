@@ -16,7 +16,7 @@ use std::time::{Duration, Instant};
 
 use lifecycle_support as support;
 use ogive::model::{CovariateKind, Model};
-use ogive::registry::gate::{self, CovariateChange, GateError, Novelty};
+use ogive::registry::gate::{self, ContractChange, GateError, Novelty};
 use ogive::registry::lifecycle::{self, LifecycleError, ViewWarning};
 use ogive::registry::store::{Action, HistoryWarning, ModelDir};
 use ogive::registry::watch::{WatchEvent, Watcher};
@@ -275,7 +275,7 @@ fn an_upload_with_other_covariates_than_the_live_version_needs_allow_breaking() 
     assert_eq!(uploaded.compared_with.as_deref(), Some("v1"));
     assert_eq!(
         uploaded.changes,
-        vec![CovariateChange::Removed {
+        vec![ContractChange::Removed {
             covariate: "tenure".into(),
             kind: CovariateKind::Count
         }]
@@ -385,10 +385,17 @@ fn a_breaking_promotion_is_refused_with_what_callers_must_change_unless_allowed(
         .expect_err("breaking promotion refused");
     assert_eq!(
         message(&error),
-        "version 'v2' of 'arrears' changes what callers send compared with live version 'v1', \
-         so it is refused unless breaking changes are allowed; callers must:\n  \
+        "version 'v2' of 'arrears' changes the contract with callers of live version 'v1', \
+         so it is refused unless breaking changes are allowed; if it went live, callers would \
+         have to:\n  \
          - stop sending 'guarantor': the candidate has no such covariate and refuses the field\n  \
-         - send the new count covariate 'arrears_count' in every observation"
+         - send the new count covariate 'arrears_count' in every observation\n\
+         to keep the contract instead, refit the candidate:\n  \
+         - keep 'guarantor' in --terms\n  \
+         - leave 'arrears_count' out of --terms (callers do not send it yet)\n\
+         to put it live anyway and change the callers, allow breaking changes: \
+         '?allow_breaking=true' on an upload, '\"allow_breaking\": true' in a promotion's body, \
+         or 'ogive promote --allow-breaking'"
     );
     assert_eq!(live(root.path()).as_deref(), Some("v1"));
     let moved = lifecycle::promote(root.path(), NAME, "v2", true, "t", None).expect("allowed");
@@ -409,7 +416,7 @@ fn a_promotion_over_an_unloadable_live_version_needs_allow_breaking() {
     assert!(matches!(error, LifecycleError::LiveUnreadable { .. }));
     assert!(
         message(&error).starts_with(
-            "the live version 'v1' of 'arrears' cannot be loaded to compare covariates"
+            "the live version 'v1' of 'arrears' cannot be loaded to compare contracts"
         ),
         "{error}"
     );
@@ -422,7 +429,7 @@ fn a_promotion_over_an_unloadable_live_version_needs_allow_breaking() {
 fn changes_to(candidate: ogive::model::ModelFile) -> Vec<String> {
     let live = Model::from_file(support::finished(support::base(NAME, "v1"))).expect("live");
     let candidate = Model::from_file(support::finished(candidate)).expect("candidate");
-    gate::covariate_changes(&live, &candidate)
+    gate::contract_changes(&live, &candidate)
         .iter()
         .map(ToString::to_string)
         .collect()
@@ -482,6 +489,166 @@ fn the_gate_lists_every_kind_of_covariate_change() {
         changes_to(no_unit),
         ["send 'tenure' in no stated unit instead of 'years'"]
     );
+}
+
+fn decided(
+    mut file: ogive::model::ModelFile,
+    threshold: Option<f64>,
+    bands: &[(&str, f64)],
+) -> ogive::model::ModelFile {
+    file.decision = Some(ogive::model::file::DecisionSpec {
+        threshold,
+        bands: bands
+            .iter()
+            .map(|(name, below)| ogive::model::file::Band {
+                name: (*name).into(),
+                below: *below,
+            })
+            .collect(),
+    });
+    file
+}
+
+fn contract_between(
+    live: ogive::model::ModelFile,
+    candidate: ogive::model::ModelFile,
+) -> Vec<ContractChange> {
+    let live = Model::from_file(support::finished(live)).expect("live");
+    let candidate = Model::from_file(support::finished(candidate)).expect("candidate");
+    gate::contract_changes(&live, &candidate)
+}
+
+#[test]
+fn a_refit_that_drops_the_threshold_and_bands_is_a_contract_change() {
+    let bands = [("low", 0.1), ("medium", 0.3), ("high", 1.0)];
+    let live = decided(support::base(NAME, "v1"), Some(0.3), &bands);
+    // The routine refit that forgot --threshold and --band: answers would lose both fields.
+    let changes = contract_between(live.clone(), support::base(NAME, "v2"));
+    let said: Vec<String> = changes.iter().map(ToString::to_string).collect();
+    assert_eq!(
+        said,
+        [
+            "expect no 'above_threshold' in answers (the live version flags p ≥ 0.3; the candidate has no threshold)",
+            "expect no 'band' in answers (the live version's bands are low below 0.1, medium below 0.3, high below 1; the candidate has none)",
+        ]
+    );
+    let keep: Vec<String> = changes.iter().map(ContractChange::to_keep).collect();
+    assert_eq!(
+        keep,
+        [
+            "--threshold 0.3",
+            "--band low=0.1 --band medium=0.3 --band high=1"
+        ]
+    );
+    // Moved bounds and a moved threshold are changes too; the same decision is none.
+    let moved = decided(
+        support::base(NAME, "v2"),
+        Some(0.5),
+        &[("low", 0.2), ("high", 1.0)],
+    );
+    let said: Vec<String> = contract_between(live.clone(), moved)
+        .iter()
+        .map(ToString::to_string)
+        .collect();
+    assert_eq!(
+        said,
+        [
+            "read 'above_threshold' as p ≥ 0.5 instead of p ≥ 0.3",
+            "read 'band' as low below 0.2, high below 1 instead of low below 0.1, medium below 0.3, high below 1",
+        ]
+    );
+    let same = decided(support::base(NAME, "v2"), Some(0.3), &bands);
+    assert!(contract_between(live.clone(), same).is_empty());
+    // A candidate that adds a decision the live version lacks changes answers as well.
+    let added = contract_between(support::base(NAME, "v1"), live);
+    assert_eq!(
+        added.iter().map(ToString::to_string).collect::<Vec<_>>(),
+        [
+            "expect 'above_threshold' in answers, true when p ≥ 0.3",
+            "expect 'band' in answers: low below 0.1, medium below 0.3, high below 1",
+        ]
+    );
+    assert_eq!(
+        added
+            .iter()
+            .map(ContractChange::to_keep)
+            .collect::<Vec<_>>(),
+        ["no --threshold", "no --band"]
+    );
+}
+
+#[test]
+fn a_refit_that_changes_what_the_outcome_means_is_a_contract_change() {
+    let mut candidate = support::base(NAME, "v2");
+    candidate.outcome.meaning = "event = 1 means event = 1".into();
+    let changes = contract_between(support::base(NAME, "v1"), candidate);
+    assert_eq!(changes.len(), 1);
+    assert_eq!(
+        changes[0].to_string(),
+        "read the probability as that of 'event = 1 means event = 1' instead of 'the event happened'"
+    );
+    assert_eq!(
+        changes[0].to_keep(),
+        "--outcome-meaning 'the event happened'"
+    );
+    // Surrounding space is not a change of meaning.
+    let mut spaced = support::base(NAME, "v2");
+    spaced.outcome.meaning = " the event happened ".into();
+    assert!(contract_between(support::base(NAME, "v1"), spaced).is_empty());
+}
+
+#[test]
+fn every_covariate_change_says_how_a_refit_keeps_the_contract() {
+    let mut unit = support::base(NAME, "v2");
+    unit.covariates[0].unit = None;
+    let reference = support::replaced_covariate(
+        support::base(NAME, "v2"),
+        support::categorical("region", &["north", "south", "east"], "south"),
+    );
+    let keep: Vec<String> = [unit, reference]
+        .into_iter()
+        .flat_map(|c| contract_between(support::base(NAME, "v1"), c))
+        .map(|c| c.to_keep())
+        .collect();
+    assert_eq!(
+        keep,
+        ["--unit 'income=thousand EUR'", "--categorical region=north"]
+    );
+}
+
+#[test]
+fn a_breaking_upload_is_refused_with_the_threshold_and_bands_it_drops() {
+    let root = root();
+    let bands = [("low", 0.1), ("high", 1.0)];
+    let v1 = support::bytes_of(decided(support::base(NAME, "v1"), Some(0.3), &bands));
+    try_upload(root.path(), "v1", &v1, false).expect("first upload");
+    promote(root.path(), "v1");
+    let v2 = support::bytes_of(support::base(NAME, "v2"));
+    let error = try_upload(root.path(), "v2", &v2, false).expect_err("refused");
+    let LifecycleError::Gate(GateError::Breaking { changes, .. }) = &error else {
+        panic!("expected a breaking-change refusal, got {error}");
+    };
+    assert!(matches!(
+        changes.as_slice(),
+        [
+            ContractChange::ThresholdChanged {
+                from: Some(_),
+                to: None
+            },
+            ContractChange::BandsChanged { .. }
+        ]
+    ));
+    assert!(
+        message(&error).contains("'?allow_breaking=true' on an upload"),
+        "{error}"
+    );
+    let stored = ModelDir::new(root.path(), NAME)
+        .expect("name")
+        .read_version("v2")
+        .expect("read");
+    assert_eq!(stored, None, "a refused upload stores nothing");
+    let uploaded = try_upload(root.path(), "v2", &v2, true).expect("allowed");
+    assert_eq!(uploaded.changes.len(), 2);
 }
 
 #[test]
@@ -621,7 +788,7 @@ fn a_rollback_across_a_breaking_change_reports_the_changes() {
     let back = lifecycle::rollback(root.path(), NAME, "t", None).expect("rollback");
     assert_eq!(
         back.changes,
-        vec![CovariateChange::Added {
+        vec![ContractChange::Added {
             covariate: "tenure".into(),
             kind: CovariateKind::Count
         }]
@@ -977,8 +1144,10 @@ fn the_cli_lists_breaking_changes_and_promotes_them_only_when_allowed() {
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(
         stderr.contains(
-            "callers must:\n  - send 'tenure' as a continuous value instead of a count one"
-        ),
+            "callers would have to:\n  - send 'tenure' as a continuous value instead of a count one\n\
+             to keep the contract instead, refit the candidate:\n  \
+             - fit 'tenure' as a count covariate again (not named with --categorical)\n"
+        ) && stderr.contains("'ogive promote --allow-breaking'"),
         "{stderr}"
     );
     let out = ogive(&[

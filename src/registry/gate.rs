@@ -10,16 +10,24 @@
 //!    ([`Model::from_json`]);
 //! 3. it does not overwrite a stored version with different bytes ([`check_new_version`]);
 //!    identical bytes are accepted as a repeat of the same upload;
-//! 4. its covariates are those of the live version ([`check_compatible`]), unless the caller
-//!    allows breaking changes.
+//! 4. its contract with callers is that of the live version ([`check_compatible`]), unless
+//!    the caller allows breaking changes.
 //!
-//! A covariate *change* is anything that makes a caller's observation or its reading of the
-//! answer wrong: a covariate added (callers must send it), removed (the old field is now
-//! refused as unknown), changed in kind (the accepted values change), in levels (a removed
-//! level is refused; an added one appears in effects), in reference level (every level effect
-//! is measured from a different level), or in unit (the same field now means a different
-//! number). Training ranges, terms, coefficients and the link may change freely: callers send
-//! the same observations and read the same fields.
+//! The *contract* is what a caller sends and how it reads the answer. A contract change is
+//! anything that makes a caller's observation or its reading of the answer wrong: a covariate
+//! added (callers must send it), removed (the old field is now refused as unknown), changed in
+//! kind (the accepted values change), in levels (a removed level is refused; an added one
+//! appears in effects), in reference level (every level effect is measured from a different
+//! level), or in unit (the same field now means a different number); a decision threshold
+//! changed, added or dropped (`above_threshold` flips, appears or disappears); bands changed
+//! (`band` names or bounds move, or `band` disappears); and the outcome's meaning (the
+//! probability is of something else). Training ranges, terms, coefficients, the link, the
+//! description and the provenance may change freely: callers send the same observations and
+//! read the same fields.
+//!
+//! Each change says what callers must do if it goes live ([`ContractChange`]'s `Display`)
+//! and how a refit keeps the contract instead ([`ContractChange::to_keep`]); a refusal adds
+//! how to override it ([`OVERRIDE`]).
 //!
 //! This module is pure: bytes and models in, verdicts out. It does no I/O.
 
@@ -27,7 +35,11 @@ use std::fmt;
 
 use serde::Serialize;
 
+use crate::model::file::Band;
 use crate::model::{is_model_name, is_version_label, CovariateKind, Model, ModelError};
+
+/// How to put a breaking candidate live anyway, on each surface that can.
+pub const OVERRIDE: &str = "to put it live anyway and change the callers, allow breaking changes: '?allow_breaking=true' on an upload, '\"allow_breaking\": true' in a promotion's body, or 'ogive promote --allow-breaking'";
 
 /// Why a candidate was refused.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -72,8 +84,8 @@ pub enum GateError {
         /// The label.
         version: String,
     },
-    /// The candidate's covariates differ from the live version's.
-    #[error("version '{candidate}' of '{name}' changes what callers send compared with live version '{live}', so it is refused unless breaking changes are allowed; callers must:{}", bullet_list(.changes))]
+    /// The candidate's contract with callers differs from the live version's.
+    #[error("version '{candidate}' of '{name}' changes the contract with callers of live version '{live}', so it is refused unless breaking changes are allowed; if it went live, callers would have to:{}\nto keep the contract instead, refit the candidate:{}\n{OVERRIDE}", bullet_list(.changes), keep_list(.changes))]
     Breaking {
         /// The model.
         name: String,
@@ -81,21 +93,27 @@ pub enum GateError {
         live: String,
         /// The candidate's label.
         candidate: String,
-        /// Every difference, in covariate order of the live version, then the candidate's
-        /// new covariates.
-        changes: Vec<CovariateChange>,
+        /// Every difference, in the order of [`contract_changes`].
+        changes: Vec<ContractChange>,
     },
 }
 
-fn bullet_list(changes: &[CovariateChange]) -> String {
+fn bullet_list(changes: &[ContractChange]) -> String {
     changes.iter().map(|c| format!("\n  - {c}")).collect()
 }
 
-/// One difference between the covariates of the live version and a candidate. Its `Display`
-/// says what callers must change.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+fn keep_list(changes: &[ContractChange]) -> String {
+    changes
+        .iter()
+        .map(|c| format!("\n  - {}", c.to_keep()))
+        .collect()
+}
+
+/// One difference between the contract of the live version and a candidate's. Its `Display`
+/// says what callers must change; [`ContractChange::to_keep`] how a refit avoids it.
+#[derive(Debug, Clone, PartialEq, Serialize)]
 #[serde(tag = "change", rename_all = "snake_case")]
-pub enum CovariateChange {
+pub enum ContractChange {
     /// The candidate has a covariate the live version lacks.
     Added {
         /// The covariate.
@@ -151,6 +169,27 @@ pub enum CovariateChange {
         /// The candidate's unit.
         to: Option<String>,
     },
+    /// The decision threshold differs, or only one version has one.
+    ThresholdChanged {
+        /// The live version's threshold.
+        from: Option<f64>,
+        /// The candidate's threshold.
+        to: Option<f64>,
+    },
+    /// The named bands differ (names, bounds or their number), or only one version has them.
+    BandsChanged {
+        /// The live version's bands (empty: none).
+        from: Vec<Band>,
+        /// The candidate's bands (empty: none).
+        to: Vec<Band>,
+    },
+    /// The outcome's stated meaning differs.
+    OutcomeChanged {
+        /// The live version's meaning.
+        from: String,
+        /// The candidate's meaning.
+        to: String,
+    },
 }
 
 fn unit_text(unit: &Option<String>) -> String {
@@ -168,43 +207,148 @@ fn quoted(levels: &[String]) -> String {
         .join(", ")
 }
 
-impl fmt::Display for CovariateChange {
+fn bands_text(bands: &[Band]) -> String {
+    bands
+        .iter()
+        .map(|b| format!("{} below {}", b.name, b.below))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+fn band_flags(bands: &[Band]) -> String {
+    bands
+        .iter()
+        .map(|b| format!("--band {}={}", b.name, b.below))
+        .collect::<Vec<_>>()
+        .join(" ")
+}
+
+impl ContractChange {
+    /// How a refit of the candidate keeps this part of the contract, naming the `ogive fit`
+    /// flag that does it.
+    pub fn to_keep(&self) -> String {
+        match self {
+            ContractChange::Added { covariate, .. } => {
+                format!("leave '{covariate}' out of --terms (callers do not send it yet)")
+            }
+            ContractChange::Removed { covariate, .. } => {
+                format!("keep '{covariate}' in --terms")
+            }
+            ContractChange::KindChanged {
+                covariate, from, ..
+            } => match from {
+                CovariateKind::Categorical => format!("name '{covariate}' with --categorical"),
+                _ => format!(
+                    "fit '{covariate}' as a {} covariate again (not named with --categorical)",
+                    from.name()
+                ),
+            },
+            ContractChange::LevelsAdded { covariate, levels } => format!(
+                "fit on data in which '{covariate}' takes no level(s) {}",
+                quoted(levels)
+            ),
+            ContractChange::LevelsRemoved { covariate, levels } => format!(
+                "fit on data in which '{covariate}' still takes level(s) {}",
+                quoted(levels)
+            ),
+            ContractChange::ReferenceChanged {
+                covariate, from, ..
+            } => {
+                format!("--categorical {covariate}={from}")
+            }
+            ContractChange::UnitChanged {
+                covariate, from, ..
+            } => match from {
+                Some(unit) => format!("--unit '{covariate}={unit}'"),
+                None => format!("no --unit for '{covariate}'"),
+            },
+            ContractChange::ThresholdChanged { from, .. } => match from {
+                Some(t) => format!("--threshold {t}"),
+                None => "no --threshold".into(),
+            },
+            ContractChange::BandsChanged { from, .. } if from.is_empty() => "no --band".into(),
+            ContractChange::BandsChanged { from, .. } => band_flags(from),
+            ContractChange::OutcomeChanged { from, .. } => {
+                format!("--outcome-meaning '{from}'")
+            }
+        }
+    }
+}
+
+impl fmt::Display for ContractChange {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
-            CovariateChange::Added { covariate, kind } => write!(
+            ContractChange::Added { covariate, kind } => write!(
                 f,
                 "send the new {} covariate '{covariate}' in every observation",
                 kind.name()
             ),
-            CovariateChange::Removed { covariate, .. } => write!(
+            ContractChange::Removed { covariate, .. } => write!(
                 f,
                 "stop sending '{covariate}': the candidate has no such covariate and refuses the field"
             ),
-            CovariateChange::KindChanged { covariate, from, to } => write!(
+            ContractChange::KindChanged { covariate, from, to } => write!(
                 f,
                 "send '{covariate}' as a {} value instead of a {} one",
                 to.name(),
                 from.name()
             ),
-            CovariateChange::LevelsAdded { covariate, levels } => write!(
+            ContractChange::LevelsAdded { covariate, levels } => write!(
                 f,
                 "expect new level(s) {} of '{covariate}' in answers (and send them where they apply)",
                 quoted(levels)
             ),
-            CovariateChange::LevelsRemoved { covariate, levels } => write!(
+            ContractChange::LevelsRemoved { covariate, levels } => write!(
                 f,
                 "stop sending level(s) {} of '{covariate}': the candidate refuses them",
                 quoted(levels)
             ),
-            CovariateChange::ReferenceChanged { covariate, from, to } => write!(
+            ContractChange::ReferenceChanged { covariate, from, to } => write!(
                 f,
                 "read the effects of '{covariate}' as changes from level '{to}' instead of '{from}'"
             ),
-            CovariateChange::UnitChanged { covariate, from, to } => write!(
+            ContractChange::UnitChanged { covariate, from, to } => write!(
                 f,
                 "send '{covariate}' in {} instead of {}",
                 unit_text(to),
                 unit_text(from)
+            ),
+            ContractChange::ThresholdChanged { from, to } => match (from, to) {
+                (Some(from), Some(to)) => write!(
+                    f,
+                    "read 'above_threshold' as p ≥ {to} instead of p ≥ {from}"
+                ),
+                (Some(from), None) => write!(
+                    f,
+                    "expect no 'above_threshold' in answers (the live version flags p ≥ {from}; the candidate has no threshold)"
+                ),
+                (None, Some(to)) => write!(
+                    f,
+                    "expect 'above_threshold' in answers, true when p ≥ {to}"
+                ),
+                (None, None) => write!(f, "expect no change of threshold"),
+            },
+            ContractChange::BandsChanged { from, to } => match (from.is_empty(), to.is_empty()) {
+                (false, true) => write!(
+                    f,
+                    "expect no 'band' in answers (the live version's bands are {}; the candidate has none)",
+                    bands_text(from)
+                ),
+                (true, false) => write!(
+                    f,
+                    "expect 'band' in answers: {}",
+                    bands_text(to)
+                ),
+                _ => write!(
+                    f,
+                    "read 'band' as {} instead of {}",
+                    bands_text(to),
+                    bands_text(from)
+                ),
+            },
+            ContractChange::OutcomeChanged { from, to } => write!(
+                f,
+                "read the probability as that of '{to}' instead of '{from}'"
             ),
         }
     }
@@ -276,21 +420,58 @@ pub fn check_new_version(
     }
 }
 
+/// Every contract difference between `live` and `candidate`: [`covariate_changes`], then the
+/// threshold, the bands and the outcome's meaning. Empty when callers need change nothing.
+pub fn contract_changes(live: &Model, candidate: &Model) -> Vec<ContractChange> {
+    let mut changes = covariate_changes(live, candidate);
+    changes.extend(decision_changes(live, candidate));
+    let (from, to) = (&live.file.outcome.meaning, &candidate.file.outcome.meaning);
+    if from.trim() != to.trim() {
+        changes.push(ContractChange::OutcomeChanged {
+            from: from.clone(),
+            to: to.clone(),
+        });
+    }
+    changes
+}
+
+/// The threshold and band differences between `live` and `candidate`.
+fn decision_changes(live: &Model, candidate: &Model) -> Vec<ContractChange> {
+    let threshold = |m: &Model| m.file.decision.as_ref().and_then(|d| d.threshold);
+    let bands = |m: &Model| {
+        m.file
+            .decision
+            .as_ref()
+            .map(|d| d.bands.clone())
+            .unwrap_or_default()
+    };
+    let mut changes = Vec::new();
+    let (from, to) = (threshold(live), threshold(candidate));
+    if from != to {
+        changes.push(ContractChange::ThresholdChanged { from, to });
+    }
+    let (from, to) = (bands(live), bands(candidate));
+    if from != to {
+        changes.push(ContractChange::BandsChanged { from, to });
+    }
+    changes
+}
+
 /// Every covariate difference between `live` and `candidate`: the live version's covariates in
 /// order (removed, or changed in kind, unit, levels or reference), then the candidate's new
-/// ones in order. Empty when callers need change nothing.
-pub fn covariate_changes(live: &Model, candidate: &Model) -> Vec<CovariateChange> {
+/// ones in order.
+pub fn covariate_changes(live: &Model, candidate: &Model) -> Vec<ContractChange> {
     let mut changes = Vec::new();
     for old in &live.covariates {
         let Some(new) = candidate.covariates.iter().find(|c| c.name == old.name) else {
-            changes.push(CovariateChange::Removed {
+            changes.push(ContractChange::Removed {
                 covariate: old.name.clone(),
                 kind: old.kind,
             });
             continue;
         };
         if old.kind != new.kind {
-            changes.push(CovariateChange::KindChanged {
+            changes.push(ContractChange::KindChanged {
                 covariate: old.name.clone(),
                 from: old.kind,
                 to: new.kind,
@@ -311,27 +492,27 @@ pub fn covariate_changes(live: &Model, candidate: &Model) -> Vec<CovariateChange
                 .cloned()
                 .collect();
             if !removed.is_empty() {
-                changes.push(CovariateChange::LevelsRemoved {
+                changes.push(ContractChange::LevelsRemoved {
                     covariate: old.name.clone(),
                     levels: removed,
                 });
             }
             if !added.is_empty() {
-                changes.push(CovariateChange::LevelsAdded {
+                changes.push(ContractChange::LevelsAdded {
                     covariate: old.name.clone(),
                     levels: added,
                 });
             }
             let (from, to) = (&old.levels[old.reference], &new.levels[new.reference]);
             if from != to {
-                changes.push(CovariateChange::ReferenceChanged {
+                changes.push(ContractChange::ReferenceChanged {
                     covariate: old.name.clone(),
                     from: from.clone(),
                     to: to.clone(),
                 });
             }
         } else if old.unit != new.unit {
-            changes.push(CovariateChange::UnitChanged {
+            changes.push(ContractChange::UnitChanged {
                 covariate: old.name.clone(),
                 from: old.unit.clone(),
                 to: new.unit.clone(),
@@ -340,7 +521,7 @@ pub fn covariate_changes(live: &Model, candidate: &Model) -> Vec<CovariateChange
     }
     for new in &candidate.covariates {
         if live.covariate_index(&new.name).is_none() {
-            changes.push(CovariateChange::Added {
+            changes.push(ContractChange::Added {
                 covariate: new.name.clone(),
                 kind: new.kind,
             });
@@ -349,14 +530,14 @@ pub fn covariate_changes(live: &Model, candidate: &Model) -> Vec<CovariateChange
     changes
 }
 
-/// Step 4 of the gate. Returns the changes (empty, or allowed because `allow_breaking`), or
-/// [`GateError::Breaking`] listing every one of them.
+/// Step 4 of the gate. Returns the contract changes (empty, or allowed because
+/// `allow_breaking`), or [`GateError::Breaking`] listing every one of them.
 pub fn check_compatible(
     live: &Model,
     candidate: &Model,
     allow_breaking: bool,
-) -> Result<Vec<CovariateChange>, GateError> {
-    let changes = covariate_changes(live, candidate);
+) -> Result<Vec<ContractChange>, GateError> {
+    let changes = contract_changes(live, candidate);
     if changes.is_empty() || allow_breaking {
         return Ok(changes);
     }

@@ -33,7 +33,7 @@
 //! then refuse; a rollback is not undone by another rollback, but by promoting again.
 //!
 //! A rollback does not apply the covariate check (it returns to a contract callers already
-//! met), but it does validate the target file, and reports the covariate changes it makes.
+//! met), but it does validate the target file, and reports the contract changes it makes.
 //! Promoting the version that is already live changes nothing and records nothing.
 //!
 //! Uploads are recorded in the history too (`action: "upload"`), so that it says who stored
@@ -50,7 +50,7 @@ use std::time::Duration;
 
 use serde::Serialize;
 
-use super::gate::{self, CovariateChange, GateError, Novelty};
+use super::gate::{self, ContractChange, GateError, Novelty};
 use super::store::{Action, HistoryRecord, HistoryWarning, ModelDir, ModelLock, StoreError};
 use crate::model::Model;
 
@@ -99,7 +99,7 @@ pub enum LifecycleError {
         live: String,
     },
     /// The live version could not be loaded, so the candidate cannot be compared with it.
-    #[error("the live version '{live}' of '{name}' cannot be loaded to compare covariates ({problem}); allow breaking changes to promote without the comparison")]
+    #[error("the live version '{live}' of '{name}' cannot be loaded to compare contracts ({problem}); allow breaking changes to promote without the comparison")]
     LiveUnreadable {
         /// The model.
         name: String,
@@ -141,8 +141,8 @@ pub struct Uploaded {
     pub novelty: Novelty,
     /// The live version it was compared with, if any.
     pub compared_with: Option<String>,
-    /// Covariate changes from the live version, allowed by `allow_breaking` (else empty).
-    pub changes: Vec<CovariateChange>,
+    /// Contract changes from the live version, allowed by `allow_breaking` (else empty).
+    pub changes: Vec<ContractChange>,
 }
 
 /// The result of [`promote`] or [`rollback`].
@@ -158,8 +158,8 @@ pub struct Moved {
     pub to: String,
     /// `false` when the version was already live and nothing was written.
     pub changed: bool,
-    /// Covariate changes from the old live version (allowed, or made by a rollback).
-    pub changes: Vec<CovariateChange>,
+    /// Contract changes from the old live version (allowed, or made by a rollback).
+    pub changes: Vec<ContractChange>,
     /// The history record written, if any.
     pub record: Option<HistoryRecord>,
     /// The validated model now live, for a caller that serves it to swap in at once.
@@ -362,7 +362,7 @@ fn compare_with_live(
     live: Option<&str>,
     candidate: &Model,
     allow_breaking: bool,
-) -> Result<Vec<CovariateChange>, LifecycleError> {
+) -> Result<Vec<ContractChange>, LifecycleError> {
     let Some(live) = live else {
         return Ok(Vec::new());
     };
@@ -383,7 +383,7 @@ fn compare_with_live(
 
 /// Store `bytes` as version `version` of model `name` under `root`, after the gate: valid,
 /// check cases reproduce, name and version match, no different file under the label, and the
-/// same covariates as the live version unless `allow_breaking`. Creates the model's directory
+/// the same contract as the live version unless `allow_breaking`. Creates the model's directory
 /// for its first version. Identical bytes already stored are accepted without writing
 /// ([`Novelty::AlreadyStored`]) and without comparing covariates again: the promotion will.
 pub fn upload(
@@ -452,7 +452,7 @@ fn record_unrecorded_upload(
 }
 
 /// Make stored version `version` the live version of model `name`, after the gate (valid,
-/// check cases reproduce, same covariates as the live version unless `allow_breaking`).
+/// check cases reproduce, same contract as the live version unless `allow_breaking`).
 /// Promoting the live version again succeeds with `changed: false` and writes nothing.
 pub fn promote(
     root: &Path,
@@ -497,7 +497,7 @@ pub fn promote(
 
 /// Return model `name` to the version that was live before the latest promotion still in
 /// effect (see the module docs for the exact rule). The target must pass steps 1–2 of the
-/// gate; its covariate changes are reported, not refused.
+/// gate; its contract changes are reported, not refused.
 pub fn rollback(
     root: &Path,
     name: &str,
@@ -530,7 +530,7 @@ pub fn rollback(
     let model = load_stored(&dir, &target).map_err(invalid)?;
     // For the report only: a live file that no longer loads does not block going back.
     let changes = load_stored(&dir, &live)
-        .map(|live_model| gate::covariate_changes(&live_model, &model))
+        .map(|live_model| gate::contract_changes(&live_model, &model))
         .unwrap_or_default();
     let record = HistoryRecord::now(Action::Rollback, Some(&live), &target, who, reason);
     move_pointer(&lock, &record)?;

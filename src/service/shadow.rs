@@ -11,7 +11,8 @@
 //! ```
 //!
 //! Each version decides by its own threshold, because that is the decision it would make if
-//! it were live. The candidate takes the probability-only path of the engine
+//! it were live; when the two differ, the report's `notes` say so, since a disagreement may
+//! then come from the thresholds alone. The candidate takes the probability-only path of the engine
 //! ([`Scorer::probability`]): no effects, intervals or warnings, so the added cost per
 //! observation is one term vector and one link evaluation.
 //!
@@ -370,6 +371,8 @@ pub struct ShadowReport {
     pub disagreement_rate: Option<f64>,
     /// The thresholds of each version's decision.
     pub thresholds: Thresholds,
+    /// What to keep in mind reading these figures (different thresholds, for one).
+    pub notes: Vec<String>,
 }
 
 impl Shadowing {
@@ -586,8 +589,22 @@ impl Shadowing {
                 live: threshold(live),
                 shadow: threshold(candidate),
             },
+            notes: threshold_note(live, candidate).into_iter().collect(),
         })
     }
+}
+
+/// A sentence for the report when the two versions decide by different thresholds: then a
+/// disagreement may come from the thresholds alone, with both probabilities close.
+pub fn threshold_note(live: &Model, candidate: &Model) -> Option<String> {
+    let (t_live, t_candidate) = (threshold(live), threshold(candidate));
+    (t_live != t_candidate).then(|| {
+        format!(
+            "the versions decide by different thresholds (live '{}' at {t_live}, shadow '{}' at {t_candidate}): a probability between the two counts as a disagreement even when both versions agree on it, so read the disagreement rate beside mean_abs_difference",
+            live.version(),
+            candidate.version()
+        )
+    })
 }
 
 #[cfg(test)]

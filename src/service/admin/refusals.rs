@@ -9,7 +9,8 @@
 //!                               reproduce also stored and computed
 //! label-mismatch           422  pointer /name or /version, expected, in_file
 //! version-exists           409  a different file is stored under the label
-//! breaking-change          422  changes: [{change, covariate, …, callers_must}], live, candidate
+//! breaking-change          422  changes: [{change, …, callers_must, to_keep}], live, candidate,
+//!                               to_override
 //! unknown-model            404  no such model directory
 //! unknown-version          404  stored: the versions there are
 //! no-live-version          409  a rollback of a model nothing is live for
@@ -25,24 +26,25 @@
 use serde_json::{json, Value as Json};
 
 use crate::model::ModelProblem;
-use crate::registry::gate::{CovariateChange, GateError};
+use crate::registry::gate::{ContractChange, GateError, OVERRIDE};
 use crate::registry::lifecycle::LifecycleError;
 use crate::registry::store::StoreError;
 use crate::service::problem::{escape_pointer_token, Kind, Problem};
 use crate::service::shadow::CannotShadow;
 
-/// One covariate change as JSON: the gate's own fields plus `callers_must`, the sentence that
-/// says what callers must change.
-pub fn change_json(change: &CovariateChange) -> Json {
+/// One contract change as JSON: the gate's own fields plus `callers_must`, the sentence that
+/// says what callers must change if it goes live, and `to_keep`, how a refit avoids it.
+pub fn change_json(change: &ContractChange) -> Json {
     let mut value = serde_json::to_value(change).unwrap_or_else(|_| json!({}));
     if let Some(map) = value.as_object_mut() {
         map.insert("callers_must".into(), json!(change.to_string()));
+        map.insert("to_keep".into(), json!(change.to_keep()));
     }
     value
 }
 
 /// Every change as JSON.
-pub fn changes_json(changes: &[CovariateChange]) -> Json {
+pub fn changes_json(changes: &[ContractChange]) -> Json {
     Json::Array(changes.iter().map(change_json).collect())
 }
 
@@ -128,7 +130,8 @@ pub fn gate_problem(error: &GateError) -> Problem {
         } => Problem::new(Kind::BreakingChange, detail)
             .extension("live", json!(live))
             .extension("candidate", json!(candidate))
-            .extension("changes", changes_json(changes)),
+            .extension("changes", changes_json(changes))
+            .extension("to_override", json!(OVERRIDE)),
     }
 }
 

@@ -443,7 +443,7 @@ pub async fn set_shadow(
     })
     .await?;
     check_shadowable(&entry.live, &candidate).map_err(|e| shadow_problem(&e))?;
-    let changes = gate::covariate_changes(&entry.live, &candidate);
+    let changes = gate::contract_changes(&entry.live, &candidate);
     let candidate = Arc::new(candidate);
     shadow.begin(&name, entry.live.version(), &version);
     let before = state
@@ -465,6 +465,7 @@ pub async fn set_shadow(
         "replaced": replaced,
         "share": shadow.share().get(),
         "changes": changes_json(&changes),
+        "notes": crate::service::shadow::threshold_note(&entry.live, &candidate).into_iter().collect::<Vec<_>>(),
     })))
 }
 
