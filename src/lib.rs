@@ -5,6 +5,7 @@
 //! link      F, f, f′ for each link, accurate in both tails
 //! model     the model file, its validation, covariates and terms
 //! engine    probability, effects, intervals, warnings, contributions, averages
+//! evaluate  discrimination and calibration on labelled rows; paired comparison of two models
 //! fit       maximum-likelihood estimation and the model file it writes
 //! registry  the model directory, live versions, promotion, rollback, history, watching
 //!           and the atomic snapshot
@@ -20,6 +21,7 @@
 pub mod batch;
 pub mod cli;
 pub mod engine;
+pub mod evaluate;
 pub mod fit;
 pub mod link;
 pub mod metrics;

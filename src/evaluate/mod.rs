@@ -1,0 +1,148 @@
+//! Evaluation on labelled rows: how well a model's probabilities discriminate and how well
+//! they are calibrated, and, beside a second model scored on the same rows, whether the
+//! differences between the two are larger than their uncertainty.
+//!
+//! ```text
+//! rows.rs         the per-model accumulator: streamed sums and the stored logits
+//! auc.rs          placement values, the AUC and DeLong's variance (alone and paired)
+//! calibration.rs  calibration intercept (logit(p) as offset) and slope, by Newton's method
+//! bins.rs         the reliability table (Wilson intervals) and Murphy's Brier decomposition
+//! hosmer.rs       the Hosmer–Lemeshow statistic over deciles of risk
+//! paired.rs       per-row Brier and log-loss differences, the paired AUC test, the verdict
+//! ```
+//!
+//! Memory: each model keeps one `f64` a row (the logit of its probability, in two vectors by
+//! outcome, in row order), so two models keep 16 bytes a row; at the end, ranking and the
+//! deciles of risk take one transient sorted copy of one model's scores at a time (8 bytes a
+//! row). Everything else is a fixed set of sums.
+//!
+//! This module computes; it reads no files, parses no CSV and prints nothing. The caller
+//! scores the rows and feeds each row's probability, its complement and the outcome.
+
+mod auc;
+mod bins;
+mod calibration;
+mod hosmer;
+mod paired;
+mod rows;
+
+pub use auc::{Auc, AucDifference};
+pub use bins::{wilson, BrierDecomposition, ReliabilityBin, RELIABILITY_BINS};
+pub use calibration::CalibrationFit;
+pub use hosmer::{HosmerLemeshow, RiskGroup, RISK_GROUPS};
+pub use paired::{compare, Comparison, Favours, MeanDifference, Names, PairedRows, Verdict};
+pub use rows::{Forecast, ModelRows, PROBABILITY_EDGE};
+
+use serde::Serialize;
+
+/// Why an evaluation cannot be computed.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum EvaluateError {
+    /// The rows hold no event or no non-event, so neither the AUC nor the calibration
+    /// fits exist.
+    #[error("the outcome takes only one value ({events} events in {rows} rows); evaluation needs both 0 and 1")]
+    OneClass {
+        /// Rows evaluated.
+        rows: u64,
+        /// Rows with outcome 1.
+        events: u64,
+    },
+    /// The interval level is not strictly between 0 and 1.
+    #[error("the interval level must lie strictly between 0 and 1, got {0}")]
+    Level(f64),
+    /// Two models were compared on different rows.
+    #[error("the two models were given different rows ({first} and {second})")]
+    DifferentRows {
+        /// Rows of the first model.
+        first: u64,
+        /// Rows of the second model.
+        second: u64,
+    },
+}
+
+/// A two-sided interval.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Bounds {
+    /// Lower end.
+    pub lower: f64,
+    /// Upper end.
+    pub upper: f64,
+}
+
+impl Bounds {
+    /// `estimate ± quantile · std_error`.
+    pub fn normal(estimate: f64, std_error: f64, quantile: f64) -> Bounds {
+        Bounds {
+            lower: estimate - quantile * std_error,
+            upper: estimate + quantile * std_error,
+        }
+    }
+
+    /// Whether the interval holds `value`.
+    pub fn contains(&self, value: f64) -> bool {
+        self.lower <= value && value <= self.upper
+    }
+}
+
+/// The two-sided normal quantile for `level`, checked.
+pub fn quantile_for(level: f64) -> Result<f64, EvaluateError> {
+    if !(level > 0.0 && level < 1.0) {
+        return Err(EvaluateError::Level(level));
+    }
+    Ok(crate::link::normal_quantile(0.5 + level / 2.0))
+}
+
+/// The two-sided p-value of a standard normal statistic.
+pub fn two_sided_p(z: f64) -> f64 {
+    2.0 * crate::link::normal_cdf(-z.abs())
+}
+
+/// Every figure for one model on the labelled rows.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ModelEvaluation {
+    /// Rows evaluated.
+    pub rows: u64,
+    /// Rows with outcome 1.
+    pub events: u64,
+    /// Mean predicted probability.
+    pub mean_probability: f64,
+    /// Observed event rate.
+    pub event_rate: f64,
+    /// Mean of (p − y)².
+    pub brier: f64,
+    /// Murphy's decomposition of the Brier score over the reliability bins.
+    pub brier_decomposition: BrierDecomposition,
+    /// Mean of −[y ln p + (1 − y) ln(1 − p)].
+    pub log_loss: f64,
+    /// Area under the ROC curve with DeLong's standard error.
+    pub auc: Auc,
+    /// Calibration-in-the-large: the intercept a of logit P(y) = a + logit(p).
+    pub calibration_intercept: CalibrationFit,
+    /// Calibration slope: b of logit P(y) = a + b · logit(p).
+    pub calibration_slope: CalibrationFit,
+    /// Hosmer–Lemeshow over deciles of risk.
+    pub hosmer_lemeshow: HosmerLemeshow,
+    /// The reliability table: bins of predicted probability.
+    pub reliability: Vec<ReliabilityBin>,
+}
+
+/// Evaluate one model's rows at interval `level`.
+pub fn evaluate(rows: &ModelRows, level: f64) -> Result<ModelEvaluation, EvaluateError> {
+    let quantile = quantile_for(level)?;
+    rows.check_both_classes()?;
+    let n = rows.rows() as f64;
+    Ok(ModelEvaluation {
+        rows: rows.rows(),
+        events: rows.events(),
+        mean_probability: rows.sum_probability() / n,
+        event_rate: rows.events() as f64 / n,
+        brier: rows.sum_squared_error() / n,
+        brier_decomposition: bins::decompose(rows),
+        log_loss: rows.sum_log_loss() / n,
+        auc: auc::auc(rows, quantile),
+        calibration_intercept: calibration::intercept(rows, quantile),
+        calibration_slope: calibration::slope(rows, quantile),
+        hosmer_lemeshow: hosmer::hosmer_lemeshow(rows),
+        reliability: bins::reliability(rows, quantile),
+    })
+}
