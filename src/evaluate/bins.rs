@@ -42,10 +42,26 @@ pub struct BinSums {
     bins: [BinSum; RELIABILITY_BINS],
 }
 
+/// The upper edge of bin `k`, k/B, rounded once (so 3/10 is the double nearest 0.3).
+fn upper_edge(k: usize) -> f64 {
+    (k + 1) as f64 / RELIABILITY_BINS as f64
+}
+
 /// The bin of probability `p`: (k/B, (k+1)/B], with 0 in the first.
+///
+/// `ceil(p·B) − 1` alone puts p = 0.3 in the fourth bin (0.3·10 rounds up to
+/// 3.0000000000000004), so the guess is checked against the edges themselves: a probability
+/// equal to an edge's double belongs to the bin below it.
 fn bin_of(p: f64) -> usize {
-    let scaled = (p * RELIABILITY_BINS as f64).ceil() as i64 - 1;
-    scaled.clamp(0, RELIABILITY_BINS as i64 - 1) as usize
+    let last = RELIABILITY_BINS - 1;
+    let guess = ((p * RELIABILITY_BINS as f64).ceil() as i64 - 1).clamp(0, last as i64) as usize;
+    if guess > 0 && p <= upper_edge(guess - 1) {
+        guess - 1
+    } else if guess < last && p > upper_edge(guess) {
+        guess + 1
+    } else {
+        guess
+    }
 }
 
 impl BinSums {
@@ -165,5 +181,18 @@ mod tests {
         assert_eq!(bin_of(0.1), 0);
         assert_eq!(bin_of(0.1000001), 1);
         assert_eq!(bin_of(1.0), RELIABILITY_BINS - 1);
+    }
+
+    #[test]
+    fn a_probability_on_an_edge_whose_product_rounds_up_stays_below_it() {
+        // 0.3 · 10, 0.6 · 10 and 0.7 · 10 each round above the integer.
+        for (p, bin) in [(0.3, 2), (0.6, 5), (0.7, 6), (0.9, 8)] {
+            assert_eq!(bin_of(p), bin, "p = {p}");
+            assert_eq!(
+                bin_of(f64::from_bits(f64::to_bits(p) + 1)),
+                bin + 1,
+                "just above {p}"
+            );
+        }
     }
 }

@@ -5,7 +5,15 @@
 //! group g holding sorted rows ⌊gN/G⌋ … ⌊(g+1)N/G⌋ − 1
 //! Oᵍ = events in g,  Eᵍ = Σ p in g,  nᵍ = rows in g
 //! H  = Σ_g (Oᵍ − Eᵍ)² / (Eᵍ (1 − Eᵍ/nᵍ))     ~ χ² with G − 2 degrees of freedom
+//!    = Σ_g (Oᵍ − Eᵍ)² · nᵍ / (Eᵍ Fᵍ)            Fᵍ = Σ (1 − p) in g
 //! ```
+//!
+//! The second form is the one computed: Fᵍ is summed from each row's own complement, so a
+//! group of near-certain events keeps a positive denominator where `1 − Eᵍ/nᵍ` would round
+//! to 0 and the term would become 0/0. Every stored probability lies inside
+//! [`PROBABILITY_EDGE`](super::PROBABILITY_EDGE), so E and F are positive; a group whose
+//! denominator still underflows adds nothing when it observed what it predicted and makes
+//! the statistic infinite otherwise (a model that called an outcome impossible saw it).
 //!
 //! A small p-value says the observed events depart from the predicted ones somewhere along
 //! the range of risk; with very many rows even a slight miscalibration earns one, so the
@@ -41,10 +49,27 @@ pub struct RiskGroup {
     pub observed: u64,
     /// Events expected, Σp.
     pub expected: f64,
+    /// Non-events expected, Σ(1 − p).
+    pub expected_non_events: f64,
 }
 
-/// The rows' probabilities sorted by risk, each with its outcome.
-fn by_risk(rows: &ModelRows) -> impl Iterator<Item = (f64, bool)> {
+impl RiskGroup {
+    /// This group's term of H.
+    fn term(&self) -> f64 {
+        let gap = self.observed as f64 - self.expected;
+        let denominator = self.expected * self.expected_non_events;
+        if denominator > 0.0 {
+            gap * gap * self.rows as f64 / denominator
+        } else if gap.abs() < 0.5 {
+            0.0
+        } else {
+            f64::INFINITY
+        }
+    }
+}
+
+/// The rows sorted by risk: (p, 1 − p, outcome).
+fn by_risk(rows: &ModelRows) -> impl Iterator<Item = (f64, f64, bool)> {
     let mut events = rows.event_logits().to_vec();
     let mut non_events = rows.non_event_logits().to_vec();
     events.sort_unstable_by(f64::total_cmp);
@@ -59,10 +84,12 @@ fn by_risk(rows: &ModelRows) -> impl Iterator<Item = (f64, bool)> {
         };
         if take_event {
             i += 1;
-            Some((logistic(events[i - 1]), true))
+            let x = events[i - 1];
+            Some((logistic(x), logistic(-x), true))
         } else {
             j += 1;
-            Some((logistic(non_events[j - 1]), false))
+            let x = non_events[j - 1];
+            Some((logistic(x), logistic(-x), false))
         }
     })
 }
@@ -74,11 +101,12 @@ pub(super) fn hosmer_lemeshow(rows: &ModelRows) -> HosmerLemeshow {
             rows: 0,
             observed: 0,
             expected: 0.0,
+            expected_non_events: 0.0,
         };
         RISK_GROUPS
     ];
     let mut group = 0;
-    for (index, (p, event)) in by_risk(rows).enumerate() {
+    for (index, (p, complement, event)) in by_risk(rows).enumerate() {
         while index >= (group + 1) * total / RISK_GROUPS {
             group += 1;
         }
@@ -86,16 +114,10 @@ pub(super) fn hosmer_lemeshow(rows: &ModelRows) -> HosmerLemeshow {
         g.rows += 1;
         g.observed += u64::from(event);
         g.expected += p;
+        g.expected_non_events += complement;
     }
     groups.retain(|g| g.rows > 0);
-    let statistic = groups
-        .iter()
-        .map(|g| {
-            let n = g.rows as f64;
-            let variance = g.expected * (1.0 - g.expected / n);
-            (g.observed as f64 - g.expected).powi(2) / variance
-        })
-        .sum();
+    let statistic = groups.iter().map(RiskGroup::term).sum();
     let degrees_of_freedom = groups.len().saturating_sub(2);
     let p_value = ChiSquared::new(degrees_of_freedom as f64)
         .map(|d| d.sf(statistic))
@@ -105,5 +127,29 @@ pub(super) fn hosmer_lemeshow(rows: &ModelRows) -> HosmerLemeshow {
         degrees_of_freedom,
         p_value,
         groups,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn group(observed: u64, expected: f64, expected_non_events: f64) -> RiskGroup {
+        RiskGroup {
+            rows: 10,
+            observed,
+            expected,
+            expected_non_events,
+        }
+    }
+
+    #[test]
+    fn a_group_whose_denominator_underflows_adds_nothing_only_when_it_saw_what_it_predicted() {
+        assert_eq!(group(10, 10.0, 0.0).term(), 0.0);
+        assert_eq!(group(0, 0.0, 10.0).term(), 0.0);
+        assert_eq!(group(9, 10.0, 0.0).term(), f64::INFINITY);
+        assert_eq!(group(1, 0.0, 10.0).term(), f64::INFINITY);
+        // The ordinary case: (O − E)² n / (E F) = 4 · 10 / (5 · 5).
+        assert_eq!(group(7, 5.0, 5.0).term(), 1.6);
     }
 }

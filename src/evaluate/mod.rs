@@ -9,6 +9,8 @@
 //! bins.rs         the reliability table (Wilson intervals) and Murphy's Brier decomposition
 //! hosmer.rs       the Hosmer–Lemeshow statistic over deciles of risk
 //! paired.rs       per-row Brier and log-loss differences, the paired AUC test, the verdict
+//! labelled.rs     one pass over a labelled CSV: outcome and covariates read as `ogive score`
+//!                 reads them, scored by one or two models, fed to the accumulators
 //! ```
 //!
 //! Memory: each model keeps one `f64` a row (the logit of its probability, in two vectors by
@@ -16,8 +18,9 @@
 //! deciles of risk take one transient sorted copy of one model's scores at a time (8 bytes a
 //! row). Everything else is a fixed set of sums.
 //!
-//! This module computes; it reads no files, parses no CSV and prints nothing. The caller
-//! scores the rows and feeds each row's probability, its complement and the outcome.
+//! The statistics files compute; they read nothing and print nothing, and are fed each row's
+//! probability, its complement and the outcome. `labelled.rs` is the one reader, over any
+//! `Read`; it opens no files (the command does).
 
 mod auc;
 mod bins;
@@ -84,6 +87,25 @@ impl Bounds {
     }
 }
 
+/// The standard error of a mean over rows and its normal interval.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Spread {
+    /// Standard error of the mean: the rows' standard deviation over √N.
+    pub std_error: f64,
+    /// mean ± q · std_error.
+    pub interval: Bounds,
+}
+
+impl Spread {
+    fn of(running: &rows::Running, quantile: f64) -> Spread {
+        let std_error = running.std_error();
+        Spread {
+            std_error,
+            interval: Bounds::normal(running.mean(), std_error, quantile),
+        }
+    }
+}
+
 /// The two-sided normal quantile for `level`, checked.
 pub fn quantile_for(level: f64) -> Result<f64, EvaluateError> {
     if !(level > 0.0 && level < 1.0) {
@@ -110,10 +132,16 @@ pub struct ModelEvaluation {
     pub event_rate: f64,
     /// Mean of (p − y)².
     pub brier: f64,
+    /// Standard error of that mean over rows, and the normal interval.
+    pub brier_interval: Spread,
     /// Murphy's decomposition of the Brier score over the reliability bins.
     pub brier_decomposition: BrierDecomposition,
     /// Mean of −[y ln p + (1 − y) ln(1 − p)].
     pub log_loss: f64,
+    /// Standard error of that mean over rows, and the normal interval.
+    pub log_loss_interval: Spread,
+    /// Wilson interval of the observed event rate.
+    pub event_rate_interval: Bounds,
     /// Area under the ROC curve with DeLong's standard error.
     pub auc: Auc,
     /// Calibration-in-the-large: the intercept a of logit P(y) = a + logit(p).
@@ -136,9 +164,12 @@ pub fn evaluate(rows: &ModelRows, level: f64) -> Result<ModelEvaluation, Evaluat
         events: rows.events(),
         mean_probability: rows.sum_probability() / n,
         event_rate: rows.events() as f64 / n,
-        brier: rows.sum_squared_error() / n,
+        brier: rows.squared_error().mean(),
+        brier_interval: Spread::of(rows.squared_error(), quantile),
         brier_decomposition: bins::decompose(rows),
-        log_loss: rows.sum_log_loss() / n,
+        log_loss: rows.log_loss().mean(),
+        log_loss_interval: Spread::of(rows.log_loss(), quantile),
+        event_rate_interval: wilson(rows.events(), rows.rows(), quantile),
         auc: auc::auc(rows, quantile),
         calibration_intercept: calibration::intercept(rows, quantile),
         calibration_slope: calibration::slope(rows, quantile),

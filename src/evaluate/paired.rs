@@ -11,42 +11,8 @@
 use serde::Serialize;
 
 use super::auc::{self, AucDifference};
-use super::rows::{Forecast, ModelRows};
+use super::rows::{Forecast, ModelRows, Running};
 use super::{quantile_for, two_sided_p, Bounds, EvaluateError};
-
-/// Running mean and sum of squared deviations (Welford), so a million near-equal
-/// differences keep their digits.
-#[derive(Debug, Clone, Copy, Default)]
-struct Running {
-    count: u64,
-    mean: f64,
-    squares: f64,
-}
-
-impl Running {
-    fn add(&mut self, x: f64) {
-        self.count += 1;
-        let delta = x - self.mean;
-        self.mean += delta / self.count as f64;
-        self.squares += delta * (x - self.mean);
-    }
-
-    fn summary(&self, quantile: f64) -> MeanDifference {
-        let n = self.count as f64;
-        let std_error = if self.count > 1 {
-            (self.squares / (n - 1.0) / n).sqrt()
-        } else {
-            f64::NAN
-        };
-        let z = self.mean / std_error;
-        MeanDifference {
-            mean: self.mean,
-            std_error,
-            interval: Bounds::normal(self.mean, std_error, quantile),
-            p_value: two_sided_p(z),
-        }
-    }
-}
 
 /// The mean of per-row differences with its standard error.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
@@ -59,6 +25,16 @@ pub struct MeanDifference {
     pub interval: Bounds,
     /// Two-sided p-value of mean / std_error.
     pub p_value: f64,
+}
+
+fn summary(running: &Running, quantile: f64) -> MeanDifference {
+    let std_error = running.std_error();
+    MeanDifference {
+        mean: running.mean(),
+        std_error,
+        interval: Bounds::normal(running.mean(), std_error, quantile),
+        p_value: two_sided_p(running.mean() / std_error),
+    }
 }
 
 /// The paired accumulator: per-row loss differences, fed with both models' forecasts.
@@ -225,8 +201,8 @@ pub fn compare(
     }
     first.check_both_classes()?;
     let auc = auc::paired(first, second, quantile);
-    let brier = differences.brier.summary(quantile);
-    let log_loss = differences.log_loss.summary(quantile);
+    let brier = summary(&differences.brier, quantile);
+    let log_loss = summary(&differences.log_loss, quantile);
     let verdict = verdict(&auc, &brier, &log_loss, level, names);
     Ok(Comparison {
         auc,

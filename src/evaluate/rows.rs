@@ -73,8 +73,8 @@ pub struct ModelRows {
     event_logits: Vec<f64>,
     non_event_logits: Vec<f64>,
     sum_probability: f64,
-    sum_squared_error: f64,
-    sum_log_loss: f64,
+    squared_error: Running,
+    log_loss: Running,
     bins: BinSums,
 }
 
@@ -103,8 +103,8 @@ impl ModelRows {
             self.non_event_logits.push(logit);
         }
         self.sum_probability += forecast.probability;
-        self.sum_squared_error += forecast.squared_error(event);
-        self.sum_log_loss += forecast.log_loss(event);
+        self.squared_error.add(forecast.squared_error(event));
+        self.log_loss.add(forecast.log_loss(event));
         self.bins.add(forecast.probability, event);
     }
 
@@ -142,12 +142,14 @@ impl ModelRows {
         self.sum_probability
     }
 
-    pub(super) fn sum_squared_error(&self) -> f64 {
-        self.sum_squared_error
+    /// The rows' squared errors (p − y)²: mean and spread.
+    pub(super) fn squared_error(&self) -> &Running {
+        &self.squared_error
     }
 
-    pub(super) fn sum_log_loss(&self) -> f64 {
-        self.sum_log_loss
+    /// The rows' log losses: mean and spread.
+    pub(super) fn log_loss(&self) -> &Running {
+        &self.log_loss
     }
 
     pub(super) fn bins(&self) -> &BinSums {
@@ -156,6 +158,42 @@ impl ModelRows {
 
     /// Bytes held per row (the stored logit).
     pub const BYTES_PER_ROW: usize = std::mem::size_of::<f64>();
+}
+
+/// Running mean and sum of squared deviations (Welford), so a million near-equal terms keep
+/// their digits and the standard error of their mean needs no second pass.
+///
+/// ```text
+/// SE = √( Σ (xᵢ − x̄)² / (N − 1) / N )
+/// ```
+#[derive(Debug, Clone, Copy, Default)]
+pub(super) struct Running {
+    count: u64,
+    mean: f64,
+    squares: f64,
+}
+
+impl Running {
+    #[inline]
+    pub(super) fn add(&mut self, x: f64) {
+        self.count += 1;
+        let delta = x - self.mean;
+        self.mean += delta / self.count as f64;
+        self.squares += delta * (x - self.mean);
+    }
+
+    pub(super) fn mean(&self) -> f64 {
+        self.mean
+    }
+
+    /// The standard error of the mean (NaN for fewer than two terms).
+    pub(super) fn std_error(&self) -> f64 {
+        if self.count < 2 {
+            return f64::NAN;
+        }
+        let n = self.count as f64;
+        (self.squares / (n - 1.0) / n).sqrt()
+    }
 }
 
 /// The logistic function, split by sign so neither side overflows.
