@@ -8,6 +8,7 @@
 //! concurrency.rs  many concurrent clients get exactly the engine's answers
 //! contract.rs     live answers validated against the served OpenAPI document; metric names
 //! operation.rs    request ids, panics, header limits, draining and shutdown, the binary itself
+//! strict.rs       strict body reading (repeated keys, empty, BOM, compression) and the echo rule
 //! ```
 
 #[path = "http/concurrency.rs"]
@@ -22,3 +23,5 @@ mod malformed;
 mod operation;
 #[path = "http/routes.rs"]
 mod routes;
+#[path = "http/strict.rs"]
+mod strict;

@@ -1,8 +1,19 @@
-//! Reading a JSON request body: the content type (415), the size limit (413, checked against
-//! `Content-Length` before reading and against the bytes while reading), and the parse (400 for
-//! malformed JSON with line and column; 422 `non-finite` for a number too large for a double,
-//! with the JSON Pointer of where it stands), all within the body timeout (408 for a body that
-//! stops arriving: actix times only the request head).
+//! The one reader of JSON request bodies. Every route that takes a body reads it with
+//! [`read_json`] (or [`read_optional_json`] where the body may be left out), which checks, in
+//! this order:
+//!
+//! ```text
+//! content type       application/json or application/*+json, else 415
+//! content encoding   none or identity, else 415 (a compressed body is refused, never inflated)
+//! size               Content-Length against the limit before reading, the bytes while reading: 413
+//! time               the whole body within the body timeout, else 408 (actix times only the head)
+//! empty              400 "the body is empty"
+//! byte-order mark    a UTF-8 or UTF-16 BOM, 415 (RFC 8259 §8.1: JSON text carries none)
+//! syntax             400 with line and column
+//! numbers            one too large for a double: 422 non-finite, with its JSON Pointer
+//! duplicate keys     the same key twice in any object: 422 duplicate-key, naming the key and
+//!                    the JSON Pointer of the second occurrence
+//! ```
 //!
 //! This module knows nothing of models; the routes interpret the parsed value.
 
@@ -15,11 +26,12 @@ use actix_web::dev::ServiceResponse;
 use actix_web::http::header;
 use actix_web::web::{self, Bytes, Payload};
 use actix_web::{HttpMessage, HttpRequest};
+use serde::de::{DeserializeSeed, Deserializer, MapAccess, SeqAccess, Visitor};
 use serde_json::Value as Json;
 use tokio::time::{timeout_at, Instant};
 
 use super::config::Limits;
-use super::problem::{escape_pointer_token, Kind, Problem};
+use super::problem::{echo, escape_pointer_token, Kind, Problem};
 
 /// How long a client may take to send a request body once its head has arrived. Each listener
 /// registers its configured value as app data; where none is registered,
@@ -49,7 +61,95 @@ pub fn is_json_content_type(req: &HttpRequest) -> bool {
         || (essence.starts_with("application/") && essence.ends_with("+json"))
 }
 
-/// Read the body of a JSON request within `limit` bytes and the body timeout.
+/// A JSON body as it arrived and as parsed.
+#[derive(Debug, Clone)]
+pub struct JsonBody {
+    /// The bytes as sent.
+    pub bytes: Bytes,
+    /// The parsed value (no object in it has a key twice).
+    pub value: Json,
+}
+
+/// Read and parse a JSON request body within `limit` bytes and the body timeout: every check
+/// of the module comment, in its order.
+pub async fn read_json(
+    req: &HttpRequest,
+    payload: Payload,
+    limit: usize,
+) -> Result<JsonBody, Problem> {
+    let bytes = read_json_body(req, payload, limit).await?;
+    let value = parse_json(&bytes)?;
+    Ok(JsonBody { bytes, value })
+}
+
+/// Read a body that is a document with a validator of its own (a model file): every check of
+/// [`read_json`], except that a syntax error or an overflowing number is left to that
+/// validator, which reports it in the document's own terms. An empty body, a byte-order mark and
+/// a repeated key are still refused here: a validator built on serde_json would keep the last
+/// of two repeated keys without a word.
+pub async fn read_json_document(
+    req: &HttpRequest,
+    payload: Payload,
+    limit: usize,
+) -> Result<Bytes, Problem> {
+    let bytes = read_json_body(req, payload, limit).await?;
+    match parse_json(&bytes) {
+        Ok(_) => Ok(bytes),
+        Err(problem) if problem.position.is_some() || problem.kind == Kind::NonFinite => Ok(bytes),
+        Err(problem) => Err(problem),
+    }
+}
+
+/// Read a body that may be left out: `None` when the request declares no body (no
+/// Content-Type, no Transfer-Encoding, no or a zero Content-Length) or sends only whitespace;
+/// otherwise as [`read_json`].
+pub async fn read_optional_json(
+    req: &HttpRequest,
+    payload: Payload,
+    limit: usize,
+) -> Result<Option<JsonBody>, Problem> {
+    let headers = req.headers();
+    let declared_empty = headers.get(header::CONTENT_TYPE).is_none()
+        && headers.get(header::TRANSFER_ENCODING).is_none()
+        && headers
+            .get(header::CONTENT_LENGTH)
+            .is_none_or(|v| v.as_bytes() == b"0");
+    if declared_empty {
+        return Ok(None);
+    }
+    let bytes = read_json_body(req, payload, limit).await?;
+    if bytes.iter().all(u8::is_ascii_whitespace) {
+        return Ok(None);
+    }
+    let value = parse_json(&bytes)?;
+    Ok(Some(JsonBody { bytes, value }))
+}
+
+/// Refuse a compressed body: the limits are on the bytes the service would parse, and a small
+/// compressed body can inflate past any of them.
+fn check_encoding(req: &HttpRequest) -> Result<(), Problem> {
+    for value in req.headers().get_all(header::CONTENT_ENCODING) {
+        let text = String::from_utf8_lossy(value.as_bytes());
+        let compressed = text
+            .split(',')
+            .map(str::trim)
+            .any(|coding| !coding.is_empty() && !coding.eq_ignore_ascii_case("identity"));
+        if compressed {
+            return Err(Problem::new(
+                Kind::UnsupportedMediaType,
+                format!(
+                    "the body is sent with Content-Encoding {}; send it uncompressed",
+                    echo(&text)
+                ),
+            ));
+        }
+    }
+    Ok(())
+}
+
+/// Read the raw bytes of a JSON request (content type, encoding, size and time checks; no
+/// parse). Routes use [`read_json`]; this is for callers that parse with [`parse_json`]
+/// themselves.
 pub async fn read_json_body(
     req: &HttpRequest,
     payload: Payload,
@@ -59,14 +159,19 @@ pub async fn read_json_body(
         let sent = req
             .headers()
             .get(header::CONTENT_TYPE)
-            .and_then(|v| v.to_str().ok())
-            .map(|s| format!("'{}'", s.chars().take(100).collect::<String>()))
+            .map(|v| {
+                format!(
+                    "Content-Type {}",
+                    echo(&String::from_utf8_lossy(v.as_bytes()))
+                )
+            })
             .unwrap_or_else(|| "no Content-Type".to_string());
         return Err(Problem::new(
             Kind::UnsupportedMediaType,
             format!("send the body as application/json; the request has {sent}"),
         ));
     }
+    check_encoding(req)?;
     let timeout = req
         .app_data::<BodyTimeout>()
         .copied()
@@ -190,9 +295,49 @@ impl MessageBody for HoldingUnread {
     }
 }
 
-/// Parse a body as JSON.
+/// The byte-order marks refused at the start of a body: UTF-8, UTF-16 big- and little-endian.
+const BYTE_ORDER_MARKS: [(&[u8], &str); 3] = [
+    (b"\xEF\xBB\xBF", "UTF-8"),
+    (b"\xFE\xFF", "UTF-16 big-endian"),
+    (b"\xFF\xFE", "UTF-16 little-endian"),
+];
+
+/// Parse a body as JSON, strictly: an empty body, a byte-order mark and a key repeated in any
+/// object are refused (see the module comment for the problems).
 pub fn parse_json(bytes: &[u8]) -> Result<Json, Problem> {
-    serde_json::from_slice(bytes).map_err(|error| {
+    if bytes.iter().all(u8::is_ascii_whitespace) {
+        let detail = if bytes.is_empty() {
+            "the body is empty; send a JSON object".to_string()
+        } else {
+            format!(
+                "the body is empty ({} bytes of whitespace); send a JSON object",
+                bytes.len()
+            )
+        };
+        return Err(Problem::new(Kind::MalformedJson, detail));
+    }
+    if let Some((_, name)) = BYTE_ORDER_MARKS
+        .iter()
+        .find(|(bom, _)| bytes.starts_with(bom))
+    {
+        return Err(Problem::new(
+            Kind::UnsupportedMediaType,
+            format!("the body starts with a {name} byte-order mark; send UTF-8 JSON without one"),
+        ));
+    }
+    let mut duplicate: Option<Duplicate> = None;
+    let mut path: Vec<String> = Vec::new();
+    let mut deserializer = serde_json::Deserializer::from_slice(bytes);
+    let parsed = StrictValue {
+        path: &mut path,
+        duplicate: &mut duplicate,
+    }
+    .deserialize(&mut deserializer)
+    .and_then(|value| deserializer.end().map(|()| value));
+    parsed.map_err(|error| {
+        if let Some(duplicate) = duplicate {
+            return duplicate.problem();
+        }
         let (line, column) = (error.line(), error.column());
         let message = error.to_string();
         if message.starts_with("number out of range") {
@@ -211,6 +356,133 @@ pub fn parse_json(bytes: &[u8]) -> Result<Json, Problem> {
             problem
         }
     })
+}
+
+/// A key met twice in one object, and where.
+struct Duplicate {
+    /// The reference tokens of the object holding the key (unescaped).
+    object: Vec<String>,
+    key: String,
+}
+
+impl Duplicate {
+    fn problem(self) -> Problem {
+        let object: String = self
+            .object
+            .iter()
+            .map(|t| format!("/{}", escape_pointer_token(t)))
+            .collect();
+        let pointer = format!("{object}/{}", escape_pointer_token(&self.key));
+        let place = if object.is_empty() {
+            "the body's top-level object".to_string()
+        } else {
+            format!("the object at {}", echo(&object))
+        };
+        Problem::new(
+            Kind::DuplicateKey,
+            format!(
+                "the key {} appears more than once in {place}; send each key once",
+                echo(&self.key)
+            ),
+        )
+        .at(pointer)
+    }
+}
+
+/// A `serde_json::Value` built by a visitor that refuses a repeated key, remembering where it
+/// stood (serde_json's own `Value` keeps the last of repeated keys silently). serde_json's
+/// nesting limit (128) still applies: the deserializer counts depth, not the visitor.
+struct StrictValue<'a> {
+    path: &'a mut Vec<String>,
+    duplicate: &'a mut Option<Duplicate>,
+}
+
+impl<'de> DeserializeSeed<'de> for StrictValue<'_> {
+    type Value = Json;
+
+    fn deserialize<D: Deserializer<'de>>(self, deserializer: D) -> Result<Json, D::Error> {
+        deserializer.deserialize_any(self)
+    }
+}
+
+impl<'de> Visitor<'de> for StrictValue<'_> {
+    type Value = Json;
+
+    fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+        f.write_str("any JSON value")
+    }
+
+    fn visit_bool<E>(self, v: bool) -> Result<Json, E> {
+        Ok(Json::Bool(v))
+    }
+
+    fn visit_i64<E>(self, v: i64) -> Result<Json, E> {
+        Ok(Json::from(v))
+    }
+
+    fn visit_u64<E>(self, v: u64) -> Result<Json, E> {
+        Ok(Json::from(v))
+    }
+
+    fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<Json, E> {
+        serde_json::Number::from_f64(v)
+            .map(Json::Number)
+            .ok_or_else(|| E::custom("number out of range"))
+    }
+
+    fn visit_str<E>(self, v: &str) -> Result<Json, E> {
+        Ok(Json::String(v.to_string()))
+    }
+
+    fn visit_string<E>(self, v: String) -> Result<Json, E> {
+        Ok(Json::String(v))
+    }
+
+    fn visit_unit<E>(self) -> Result<Json, E> {
+        Ok(Json::Null)
+    }
+
+    fn visit_none<E>(self) -> Result<Json, E> {
+        Ok(Json::Null)
+    }
+
+    fn visit_seq<A: SeqAccess<'de>>(self, mut seq: A) -> Result<Json, A::Error> {
+        let mut items = Vec::with_capacity(seq.size_hint().unwrap_or(0).min(4096));
+        loop {
+            self.path.push(items.len().to_string());
+            let next = seq.next_element_seed(StrictValue {
+                path: &mut *self.path,
+                duplicate: &mut *self.duplicate,
+            })?;
+            self.path.pop();
+            match next {
+                Some(item) => items.push(item),
+                None => break,
+            }
+        }
+        Ok(Json::Array(items))
+    }
+
+    fn visit_map<A: MapAccess<'de>>(self, mut access: A) -> Result<Json, A::Error> {
+        let mut map = serde_json::Map::new();
+        while let Some(key) = access.next_key::<String>()? {
+            if map.contains_key(&key) {
+                *self.duplicate = Some(Duplicate {
+                    object: self.path.clone(),
+                    key,
+                });
+                return Err(serde::de::Error::custom("a key is repeated"));
+            }
+            self.path.push(key);
+            let value = access.next_value_seed(StrictValue {
+                path: &mut *self.path,
+                duplicate: &mut *self.duplicate,
+            })?;
+            let key = self.path.pop().unwrap_or_default();
+            map.insert(key, value);
+        }
+        Ok(Json::Object(map))
+    }
 }
 
 fn byte_offset(bytes: &[u8], line: usize, column: usize) -> usize {
@@ -314,6 +586,41 @@ mod tests {
         let problem = parse_json(body).expect_err("1e999 overflows");
         assert_eq!(problem.kind, Kind::NonFinite);
         assert_eq!(problem.pointer.as_deref(), Some("/observations/1/a~1c"));
+    }
+
+    #[test]
+    fn a_repeated_key_is_refused_at_any_depth_with_the_pointer_of_its_second_occurrence() {
+        for (body, pointer) in [
+            (&br#"{"a": 1, "a": 2}"#[..], "/a"),
+            (br#"{"x": [{"b": 1}, {"c": {"d": 1, "d": 1}}]}"#, "/x/1/c/d"),
+            (br#"[[], {"~k": 1, "~k": 1}]"#, "/1/~0k"),
+        ] {
+            let problem = parse_json(body).expect_err("a repeated key");
+            assert_eq!(problem.kind, Kind::DuplicateKey);
+            assert_eq!(problem.pointer.as_deref(), Some(pointer));
+        }
+    }
+
+    #[test]
+    fn the_strict_parse_builds_the_same_value_as_serde_json() {
+        let body = br#"{"a": [1, -2, 3.5, 1e300, "t", null, true, {}], "b": {"c": [[]]}}"#;
+        let strict = parse_json(body).expect("well formed");
+        let plain: Json = serde_json::from_slice(body).expect("well formed");
+        assert_eq!(strict, plain);
+        // Keys that differ only after escaping are different keys.
+        assert!(parse_json(br#"{"a": 1, "\u0061b": 2, "ab": 3}"#).is_err());
+        assert!(parse_json(br#"{"a": 1, "A": 2}"#).is_ok());
+    }
+
+    #[test]
+    fn empty_and_byte_order_marked_bodies_are_refused_in_their_own_words() {
+        let problem = parse_json(b"").expect_err("empty");
+        assert_eq!(problem.kind, Kind::MalformedJson);
+        assert!(problem.detail.starts_with("the body is empty"));
+        for bom in [&b"\xEF\xBB\xBF{}"[..], b"\xFE\xFF{}", b"\xFF\xFE{}"] {
+            let problem = parse_json(bom).expect_err("a mark");
+            assert_eq!(problem.kind, Kind::UnsupportedMediaType);
+        }
     }
 
     #[test]

@@ -21,7 +21,7 @@ use serde::{Serialize, Serializer};
 
 use super::dto::{parse_level, IntervalView};
 use super::observations::{check_bounds, MAX_MAGNITUDE, MIN_LOG_ARGUMENT};
-use super::problem::{Kind, Problem};
+use super::problem::{echo, observation_detail, Kind, Problem};
 use crate::engine::{Answer, EffectKind, Interval, Options, Scorer};
 use crate::model::{CovariateKind, Model, Value};
 
@@ -55,14 +55,14 @@ fn number(name: &str, text: &str) -> Result<f64, Problem> {
     let x: f64 = text.trim().parse().map_err(|_| {
         Problem::new(
             Kind::InvalidQuery,
-            format!("'{name}' must be a number, got {text:?}"),
+            format!("'{name}' must be a number, got {}", echo(text)),
         )
         .parameter(name)
     })?;
     if !x.is_finite() {
         return Err(Problem::new(
             Kind::NonFinite,
-            format!("'{name}' must be finite, got {text:?}"),
+            format!("'{name}' must be finite, got {}", echo(text)),
         )
         .parameter(name));
     }
@@ -79,7 +79,10 @@ pub fn parse_curve_request(
         if pairs[..i].iter().any(|(k, _)| k == key) {
             return Err(Problem::new(
                 Kind::InvalidQuery,
-                format!("'{key}' is given more than once"),
+                format!(
+                    "{} is given more than once; give each parameter once",
+                    echo(key)
+                ),
             )
             .parameter(key.as_str()));
         }
@@ -87,7 +90,8 @@ pub fn parse_curve_request(
             return Err(Problem::new(
                 Kind::UnknownField,
                 format!(
-                    "'{key}' is neither a curve parameter ({}) nor a covariate of {}",
+                    "{} is neither a curve parameter ({}) nor a covariate of {}",
+                    echo(key),
                     RESERVED.join(", "),
                     model.name()
                 ),
@@ -112,7 +116,8 @@ pub fn parse_curve_request(
         Problem::new(
             Kind::UnknownField,
             format!(
-                "'over' is {over_name:?}, which is not a covariate of {}",
+                "'over' is {}, which is not a covariate of {}",
+                echo(over_name),
                 model.name()
             ),
         )
@@ -124,7 +129,7 @@ pub fn parse_curve_request(
             let n: i64 = text.trim().parse().map_err(|_| {
                 Problem::new(
                     Kind::InvalidQuery,
-                    format!("'points' must be a whole number, got {text:?}"),
+                    format!("'points' must be a whole number, got {}", echo(text)),
                 )
                 .parameter("points")
             })?;
@@ -171,12 +176,13 @@ pub fn parse_curve_request(
         if covariate.kind == CovariateKind::Binary && !matches!(text.trim(), "0" | "1") {
             return Err(Problem::new(
                 Kind::NotBinary,
-                format!("'{key}' is binary: send 0 or 1, got {text:?}"),
+                format!("'{key}' is binary: send 0 or 1, got {}", echo(text)),
             )
             .parameter(key.as_str()));
         }
         let value = model.parse_text_value(j, text).map_err(|e| {
-            Problem::new(Kind::of_observation(&e), e.to_string()).parameter(key.as_str())
+            Problem::new(Kind::of_observation(&e), observation_detail(&e, None))
+                .parameter(key.as_str())
         })?;
         given[j] = true;
         if j == over {
@@ -206,7 +212,10 @@ pub fn parse_curve_request(
     });
     given[over] = false;
     if let Err(e) = model.check_values(&probe) {
-        return Err(Problem::new(Kind::of_observation(&e), e.to_string()).parameter(e.field()));
+        return Err(
+            Problem::new(Kind::of_observation(&e), observation_detail(&e, None))
+                .parameter(e.field()),
+        );
     }
     if let Err((j, problem)) = check_bounds(model, &probe) {
         return Err(problem.parameter(model.covariates[j].name.as_str()));

@@ -22,7 +22,7 @@ use serde::ser::{SerializeMap, SerializeSeq};
 use serde::{Serialize, Serializer};
 use serde_json::{Map, Value as Json};
 
-use super::problem::{Kind, Problem};
+use super::problem::{echo, echo_json, echo_number, Kind, Problem};
 use crate::engine::{
     Answer, Average, Contribution, Effect, EffectSlot, Interval, Options, Warning,
 };
@@ -88,7 +88,7 @@ fn boolean(body: &Map<String, Json>, name: &str, default: bool) -> Result<bool, 
         Some(Json::Bool(b)) => Ok(*b),
         Some(other) => Err(Problem::new(
             Kind::InvalidOption,
-            format!("'{name}' must be true or false, got {other}"),
+            format!("'{name}' must be true or false, got {}", echo_json(other)),
         )
         .at(format!("/{name}"))),
     }
@@ -110,7 +110,8 @@ pub fn parse_probability_request(
         return Err(Problem::new(
             Kind::UnknownField,
             format!(
-                "'{key}' is not a field of a probability request (fields: {})",
+                "{} is not a field of a probability request (fields: {})",
+                echo(key),
                 REQUEST_FIELDS.join(", ")
             ),
         )
@@ -179,7 +180,7 @@ pub fn parse_probability_request(
         Some(other) => {
             return Err(Problem::new(
                 Kind::InvalidOption,
-                format!("'level' must be a number, got {other}"),
+                format!("'level' must be a number, got {}", echo_json(other)),
             )
             .at("/level"))
         }
@@ -202,10 +203,21 @@ pub fn parse_level(level: f64) -> Result<Options, Problem> {
     if level > MAX_LEVEL {
         return Err(Problem::new(
             Kind::InvalidOption,
-            format!("the interval level must be at most {MAX_LEVEL}, got {level}"),
+            format!(
+                "the interval level must be at most {MAX_LEVEL}, got {}",
+                echo_number(level)
+            ),
         ));
     }
-    Options::new(level).map_err(|e| Problem::new(Kind::InvalidOption, e.to_string()))
+    Options::new(level).map_err(|e| {
+        Problem::new(
+            Kind::InvalidOption,
+            format!(
+                "the interval level must lie strictly between 0 and 1, got {}",
+                echo_number(e.0)
+            ),
+        )
+    })
 }
 
 /// A short description of a JSON value's type, for messages.
@@ -368,7 +380,10 @@ impl Serialize for WarningView<'_> {
                 map.serialize_entry(
                     "message",
                     &format!(
-                        "{name} = {value} lies outside the training range [{min}, {max}]: the model is extrapolating"
+                        "{name} = {} lies outside the training range [{}, {}]: the model is extrapolating",
+                        echo_number(value),
+                        echo_number(min),
+                        echo_number(max)
                     ),
                 )?;
             }

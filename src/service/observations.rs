@@ -11,10 +11,10 @@
 //! A batch is checked in full before anything is scored: the first fault is the problem's
 //! pointer, and up to [`MAX_LISTED_ERRORS`] faults are listed in its `errors` member.
 
-use serde_json::Value as Json;
+use serde_json::{Map, Value as Json};
 
 use super::dto::{json_kind, Observations};
-use super::problem::{escape_pointer_token, FieldError, Kind, Problem};
+use super::problem::{echo, echo_number, escape_pointer_token, FieldError, Kind, Problem};
 use crate::model::{Model, ObservationError, Value};
 
 /// The largest magnitude of a numeric covariate.
@@ -32,8 +32,9 @@ fn bound_error(model: &Model, values: &[Value]) -> Option<(Kind, String, usize)>
                 return Some((
                     Kind::OutsideDomain,
                     format!(
-                        "covariate '{}' is {x}; the service takes numbers within ±{MAX_MAGNITUDE:e}",
-                        covariate.name
+                        "covariate {} is {}; the service takes numbers within ±{MAX_MAGNITUDE:e}",
+                        echo(&covariate.name),
+                        echo_number(x)
                     ),
                     j,
                 ));
@@ -46,8 +47,10 @@ fn bound_error(model: &Model, values: &[Value]) -> Option<(Kind, String, usize)>
             return Some((
                 Kind::OutsideDomain,
                 format!(
-                    "term '{}' needs {} ≥ {MIN_LOG_ARGUMENT:e}, got {x}",
-                    model.term_labels[term], model.covariates[j].name
+                    "term '{}' needs {} ≥ {MIN_LOG_ARGUMENT:e}, got {}",
+                    model.term_labels[term],
+                    model.covariates[j].name,
+                    echo_number(x)
                 ),
                 j,
             ));
@@ -56,7 +59,8 @@ fn bound_error(model: &Model, values: &[Value]) -> Option<(Kind, String, usize)>
     None
 }
 
-/// Parse one observation object into `values`; the problem's pointer is under `base`.
+/// Parse one observation (a JSON value that must be an object) into `values`; the problem's
+/// pointer is under `base`.
 pub fn parse_one(
     model: &Model,
     observation: &Json,
@@ -73,9 +77,19 @@ pub fn parse_one(
         )
         .at(base));
     };
+    parse_object(model, object, base, values)
+}
+
+/// Parse one observation object into `values`: the model's checks, then the service bounds.
+fn parse_object(
+    model: &Model,
+    object: &Map<String, Json>,
+    base: &str,
+    values: &mut Vec<Value>,
+) -> Result<(), Problem> {
     model
         .parse_observation(object, values)
-        .map_err(|e: ObservationError| Problem::observation(&e, base))?;
+        .map_err(|e| observation_problem(model, object, &e, base))?;
     if let Some((kind, detail, j)) = bound_error(model, values) {
         return Err(Problem::new(kind, detail).at(format!(
             "{base}/{}",
@@ -83,6 +97,36 @@ pub fn parse_one(
         )));
     }
     Ok(())
+}
+
+/// The problem of an observation error, echoing the value sent for the field; a missing
+/// covariate is reported with every other covariate the observation lacks, so that a caller
+/// fixes them in one round (the pointer names the first, `missing` lists them all).
+fn observation_problem(
+    model: &Model,
+    object: &Map<String, Json>,
+    error: &ObservationError,
+    base: &str,
+) -> Problem {
+    let ObservationError::Missing(_) = error else {
+        return Problem::observation(error, base, object.get(error.field()));
+    };
+    let missing: Vec<&str> = model
+        .covariates
+        .iter()
+        .map(|c| c.name.as_str())
+        .filter(|name| !object.contains_key(*name))
+        .collect();
+    let mut problem = Problem::observation(error, base, None);
+    if missing.len() > 1 {
+        let names: Vec<String> = missing.iter().map(|name| echo(name)).collect();
+        problem.detail = format!(
+            "{} covariates are missing: {}",
+            missing.len(),
+            names.join(", ")
+        );
+    }
+    problem.extension("missing", serde_json::json!(missing))
 }
 
 /// Check a whole value vector against the service bounds (for values that did not come from
@@ -101,15 +145,7 @@ pub fn parse_all(model: &Model, observations: Observations<'_>) -> Result<Vec<Va
     let mut one = Vec::with_capacity(width);
     match observations {
         Observations::One(object) => {
-            model
-                .parse_observation(object, &mut one)
-                .map_err(|e| Problem::observation(&e, "/observation"))?;
-            if let Some((kind, detail, j)) = bound_error(model, &one) {
-                return Err(Problem::new(kind, detail).at(format!(
-                    "/observation/{}",
-                    escape_pointer_token(&model.covariates[j].name)
-                )));
-            }
+            parse_object(model, object, "/observation", &mut one)?;
             values.extend_from_slice(&one);
         }
         Observations::Many(list) => {

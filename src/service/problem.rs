@@ -15,11 +15,22 @@
 //! index     the observation's position in a batch
 //! parameter the query parameter at fault (curve route)
 //! errors    in a batch, every faulty observation (up to 100), each {pointer, index, type, detail}
+//! missing   missing-covariate: every covariate the observation lacks (the pointer names the first)
 //! …         extension members of the admin routes (see `service::admin::refusals`)
 //! ```
 //!
 //! Client mistakes map to 4xx; anything unexpected is [`Kind::Internal`] (500) whose cause is
 //! logged, never sent. This module does not decide what is a mistake: the routes do.
+//!
+//! What a client sent is echoed in a detail by one rule, so that no answer grows with a hostile
+//! input and no number changes on the way back:
+//!
+//! ```text
+//! text     echo: 'as sent' when at most 64 characters, else 'the first 64…' (N characters)
+//! numbers  echo_number: the shortest digits that read back as the same double (0.1, 1e-13,
+//!          2000000000000, 1.5e300), never rounded for display
+//! values   echo_json: numbers and text as above; an array or object by its size only
+//! ```
 
 use actix_web::http::{header, StatusCode};
 use actix_web::{HttpResponse, ResponseError};
@@ -76,6 +87,7 @@ kinds! {
     UnsupportedMediaType => "unsupported-media-type", 415, "The body must be sent as application/json";
     HeadersTooLarge => "headers-too-large", 431, "The request headers are larger than the configured limit";
     InvalidBody => "invalid-body", 422, "The body does not have the expected shape";
+    DuplicateKey => "duplicate-key", 422, "An object in the body has the same key more than once";
     MissingObservation => "missing-observation", 422, "Send either observation or observations";
     ConflictingFields => "conflicting-fields", 422, "Fields that cannot be sent together";
     EmptyBatch => "empty-batch", 422, "The batch has no observations";
@@ -253,9 +265,13 @@ impl Problem {
     }
 
     /// The problem for an observation error at `base` (the observation's own pointer, such as
-    /// `/observation` or `/observations/3`).
-    pub fn observation(error: &ObservationError, base: &str) -> Problem {
-        Problem::new(Kind::of_observation(error), error.to_string())
+    /// `/observation` or `/observations/3`); `sent` is the value the client sent for the field.
+    pub fn observation(
+        error: &ObservationError,
+        base: &str,
+        sent: Option<&serde_json::Value>,
+    ) -> Problem {
+        Problem::new(Kind::of_observation(error), observation_detail(error, sent))
             .at(format!("{base}/{}", escape_pointer_token(error.field())))
     }
 
@@ -285,6 +301,131 @@ impl Problem {
             extensions: &self.extensions,
         };
         serde_json::to_vec(&body).unwrap_or_else(|_| b"{}".to_vec())
+    }
+}
+
+/// The most characters of a client's text that a detail echoes.
+pub const MAX_ECHO_CHARS: usize = 64;
+
+/// A client's text as a detail echoes it: quoted whole when at most [`MAX_ECHO_CHARS`]
+/// characters, else its first [`MAX_ECHO_CHARS`] characters, an ellipsis and its full length.
+pub fn echo(text: &str) -> String {
+    let count = text.chars().count();
+    if count <= MAX_ECHO_CHARS {
+        format!("'{text}'")
+    } else {
+        let head: String = text.chars().take(MAX_ECHO_CHARS).collect();
+        format!("'{head}…' ({count} characters)")
+    }
+}
+
+/// A number as a detail echoes it: the shortest decimal that parses back to the same double
+/// (Rust's `Display` and `LowerExp` both print those digits), in positional form for magnitudes
+/// from 1e-5 to below 1e16 and in exponent form outside, so that no echo runs to hundreds of
+/// zeros.
+pub fn echo_number(x: f64) -> String {
+    let magnitude = x.abs();
+    if x == 0.0 || !x.is_finite() || (1e-5..1e16).contains(&magnitude) {
+        format!("{x}")
+    } else {
+        format!("{x:e}")
+    }
+}
+
+/// A JSON value as a detail echoes it: `null`, `true`, a number by [`echo_number`], text by
+/// [`echo`], an array or object by its size.
+pub fn echo_json(value: &serde_json::Value) -> String {
+    use serde_json::Value as Json;
+    match value {
+        Json::Null => "null".to_string(),
+        Json::Bool(b) => b.to_string(),
+        Json::Number(n) => match (n.as_i64(), n.as_u64(), n.as_f64()) {
+            (Some(i), _, _) => i.to_string(),
+            (_, Some(u), _) => u.to_string(),
+            (_, _, Some(x)) => echo_number(x),
+            _ => n.to_string(),
+        },
+        Json::String(s) => format!("the text {}", echo(s)),
+        Json::Array(a) => format!("an array of {} items", a.len()),
+        Json::Object(o) => format!("an object of {} members", o.len()),
+    }
+}
+
+/// The detail of an observation error, with the client's values echoed by the rule above
+/// (the model's own messages, written for files and the command line, echo them whole).
+/// `sent` is the JSON value the client sent for the field, where there is one.
+pub fn observation_detail(error: &ObservationError, sent: Option<&serde_json::Value>) -> String {
+    let found = |described: &str| sent.map_or_else(|| shorten(described), echo_json);
+    match error {
+        ObservationError::Missing(name) => format!("covariate {} is missing", echo(name)),
+        ObservationError::UnknownField(name) => {
+            format!("field {} is not a covariate of this model", echo(name))
+        }
+        ObservationError::NotANumber {
+            covariate,
+            found: described,
+        } => {
+            format!(
+                "covariate {} must be a number, got {}",
+                echo(covariate),
+                found(described)
+            )
+        }
+        ObservationError::NonFinite { covariate, value } => format!(
+            "covariate {} must be finite, got {}",
+            echo(covariate),
+            echo_number(*value)
+        ),
+        ObservationError::NotBinary {
+            covariate,
+            found: described,
+        } => format!(
+            "covariate {} is binary: send 0 or 1 (or false/true), got {}",
+            echo(covariate),
+            found(described)
+        ),
+        ObservationError::NotCount { covariate, value } => format!(
+            "covariate {} is a count: send a whole number ≥ 0, got {}",
+            echo(covariate),
+            echo_number(*value)
+        ),
+        ObservationError::NotALevel {
+            covariate,
+            found: described,
+        } => format!(
+            "covariate {} is categorical: send one of its levels as text, got {}",
+            echo(covariate),
+            found(described)
+        ),
+        ObservationError::UnknownLevel {
+            covariate,
+            level,
+            levels,
+        } => format!(
+            "covariate {} has no level {} (levels: {levels})",
+            echo(covariate),
+            echo(level)
+        ),
+        ObservationError::LogOfNonPositive {
+            term,
+            covariate,
+            value,
+        } => format!(
+            "term '{term}' needs {covariate} > 0, got {}",
+            echo_number(*value)
+        ),
+    }
+}
+
+/// A description of a sent value that the model module wrote (which may quote the value
+/// whole), cut by the echo rule.
+fn shorten(described: &str) -> String {
+    let count = described.chars().count();
+    if count <= MAX_ECHO_CHARS {
+        described.to_string()
+    } else {
+        let head: String = described.chars().take(MAX_ECHO_CHARS).collect();
+        format!("{head}… ({count} characters)")
     }
 }
 
@@ -344,6 +485,45 @@ mod tests {
         slugs.dedup();
         assert_eq!(slugs.len(), n);
         assert!(Kind::ALL.iter().all(|k| k.status() >= 400));
+    }
+
+    #[test]
+    fn echoed_text_is_cut_at_the_limit_with_an_ellipsis_and_its_length() {
+        assert_eq!(echo("short"), "'short'");
+        let exact = "é".repeat(MAX_ECHO_CHARS);
+        assert_eq!(echo(&exact), format!("'{exact}'"));
+        let long = "é".repeat(MAX_ECHO_CHARS + 1);
+        assert_eq!(
+            echo(&long),
+            format!(
+                "'{}…' ({} characters)",
+                "é".repeat(MAX_ECHO_CHARS),
+                MAX_ECHO_CHARS + 1
+            )
+        );
+    }
+
+    #[test]
+    fn echoed_numbers_read_back_as_the_same_double() {
+        for x in [
+            0.1,
+            0.1 + 0.2,
+            -2.5e-300,
+            1.5e-13,
+            2e12,
+            1e16,
+            f64::MAX,
+            f64::MIN_POSITIVE,
+            5e-324,
+            123_456.789,
+        ] {
+            let text = echo_number(x);
+            assert_eq!(text.parse::<f64>(), Ok(x), "{text}");
+            assert!(text.len() <= 24, "{text} is not short");
+        }
+        assert_eq!(echo_number(1.5e-13), "1.5e-13");
+        assert_eq!(echo_number(0.30000000000000004), "0.30000000000000004");
+        assert_eq!(echo_number(2e12), "2000000000000");
     }
 
     #[test]

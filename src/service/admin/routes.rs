@@ -34,10 +34,10 @@ use super::AdminState;
 use crate::registry::gate::{self, Novelty};
 use crate::registry::lifecycle::{self, LifecycleError, Moved};
 use crate::registry::store::ModelDir;
-use crate::service::body::{parse_json, read_json_body};
+use crate::service::body::{read_json, read_json_document, read_optional_json};
 use crate::service::dto::json_kind;
 use crate::service::middleware::Guarded;
-use crate::service::problem::{Kind, Problem};
+use crate::service::problem::{echo, Kind, Problem};
 use crate::service::routes::models::find;
 use crate::service::routes::{method_not_allowed, not_found};
 use crate::service::shadow::{check_shadowable, Shadowing};
@@ -169,20 +169,14 @@ async fn object_body(
     allowed: &[&str],
     required: bool,
 ) -> Result<Map<String, Json>, Problem> {
-    let headers = req.headers();
-    let declared_empty = headers.get(header::CONTENT_TYPE).is_none()
-        && headers.get(header::TRANSFER_ENCODING).is_none()
-        && headers
-            .get(header::CONTENT_LENGTH)
-            .is_none_or(|v| v.as_bytes() == b"0");
-    if !required && declared_empty {
-        return Ok(Map::new());
-    }
-    let bytes = read_json_body(req, payload, limit).await?;
-    if !required && bytes.iter().all(u8::is_ascii_whitespace) {
-        return Ok(Map::new());
-    }
-    let body = parse_json(&bytes)?;
+    let body = if required {
+        read_json(req, payload, limit).await?.value
+    } else {
+        match read_optional_json(req, payload, limit).await? {
+            Some(body) => body.value,
+            None => return Ok(Map::new()),
+        }
+    };
     let Json::Object(map) = body else {
         return Err(Problem::new(
             Kind::InvalidBody,
@@ -194,8 +188,8 @@ async fn object_body(
         return Err(Problem::new(
             Kind::UnknownField,
             format!(
-                "'{}' is not a member of this body; it takes {}",
-                unknown.chars().take(60).collect::<String>(),
+                "{} is not a member of this body; it takes {}",
+                echo(unknown),
                 allowed.join(", ")
             ),
         )
@@ -287,7 +281,7 @@ pub async fn upload(
     let (name, version) = path.into_inner();
     let (allow_breaking, reason) = upload_options(&req)?;
     let limit = state.app.settings.limits.max_body_bytes;
-    let bytes = read_json_body(&req, payload, limit).await?;
+    let bytes = read_json_document(&req, payload, limit).await?;
     let who = state.token.who();
     let root = state.follower.root().to_path_buf();
     let uploaded = blocking(move || {

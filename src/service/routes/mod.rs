@@ -13,7 +13,7 @@ pub mod probability;
 use actix_web::{web, HttpResponse};
 
 use super::middleware::{Guarded, RouteTemplate};
-use super::problem::{Kind, Problem};
+use super::problem::{echo, Kind, Problem};
 
 /// The handler of a resource's other methods: 405 with `Allow: allow` (the admin routes use
 /// it too).
@@ -29,10 +29,9 @@ pub fn method_not_allowed(
 
 /// The answer to a path that matches no route.
 pub async fn not_found(req: actix_web::HttpRequest) -> Result<HttpResponse, Problem> {
-    let path: String = req.path().chars().take(200).collect();
     Err(Problem::new(
         Kind::NotFound,
-        format!("there is no route {path}"),
+        format!("there is no route {}", echo(req.path())),
     ))
 }
 

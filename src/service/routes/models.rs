@@ -8,7 +8,7 @@ use serde_json::{json, Value as Json};
 
 use crate::model::{CovariateKind, Model};
 use crate::registry::Entry;
-use crate::service::problem::{Kind, Problem};
+use crate::service::problem::{echo, Kind, Problem};
 use crate::service::state::AppState;
 
 /// The entry serving `name`, or 404 `unknown-model`.
@@ -20,10 +20,9 @@ pub fn find(state: &AppState, name: &str) -> Result<Arc<Entry>, Problem> {
         .get(name)
         .cloned()
         .ok_or_else(|| {
-            let shown: String = name.chars().take(100).collect();
             Problem::new(
                 Kind::UnknownModel,
-                format!("no model called '{shown}' is being served"),
+                format!("no model called {} is being served", echo(name)),
             )
         })
 }

@@ -5,7 +5,7 @@ use actix_web::http::header;
 use actix_web::{web, HttpMessage, HttpRequest, HttpResponse};
 
 use super::models::find;
-use crate::service::body::{parse_json, read_json_body};
+use crate::service::body::read_json;
 use crate::service::dto::{parse_probability_request, Observations};
 use crate::service::middleware::Scored;
 use crate::service::observations::parse_all;
@@ -24,8 +24,7 @@ pub async fn probability(
     let entry = find(&state, &name)?;
     let model = &entry.live;
     let limits = &state.settings.limits;
-    let bytes = read_json_body(&req, payload, limits.max_body_bytes).await?;
-    let body = parse_json(&bytes)?;
+    let body = read_json(&req, payload, limits.max_body_bytes).await?.value;
     let request = parse_probability_request(&body, limits.max_batch)?;
     let observations = state
         .settings
