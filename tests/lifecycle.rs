@@ -758,8 +758,10 @@ fn a_rollback_with_nothing_live_or_no_model_is_refused() {
 #[test]
 fn a_rollback_to_a_file_that_no_longer_validates_keeps_the_live_version() {
     let root = root();
-    upload(root.path(), "v1");
-    promote(root.path(), "v1");
+    // Placed by hand, so no upload digest stands before the validation this test is about (an
+    // uploaded file changed later is refused for that first, see the tests at the end).
+    support::place_version(root.path(), NAME, "v1", &support::model_bytes(NAME, "v1"));
+    support::place_live(root.path(), NAME, "v1");
     upload(root.path(), "v2");
     promote(root.path(), "v2");
     std::fs::write(
@@ -1406,4 +1408,143 @@ fn setting_a_live_version_keeps_the_shadow_and_the_other_models() {
     assert_eq!(entry.live.version(), "v2");
     assert_eq!(entry.shadow.as_ref().map(|s| s.version()), Some("v3"));
     assert_eq!(snapshot.models["uptake"].live.version(), "a");
+}
+
+// ---------------------------------------------------------------- content under a label
+
+/// Valid bytes for version `version` that differ from the stored ones (another description).
+fn other_content(version: &str) -> Vec<u8> {
+    let mut other = support::base(NAME, version);
+    other.description = "another fit written over the stored file".into();
+    support::bytes_of(other)
+}
+
+/// The SHA-256 of a file as `sha256sum` (GNU coreutils) prints it, when the tool is there.
+fn sha256sum(path: &Path) -> Option<String> {
+    let out = Command::new("sha256sum").arg(path).output().ok()?;
+    let text = String::from_utf8(out.stdout).ok()?;
+    text.split_whitespace().next().map(str::to_string)
+}
+
+#[test]
+fn an_upload_records_the_sha256_of_the_bytes_stored() {
+    let root = root();
+    upload(root.path(), "v1");
+    let digest = records(root.path())[0]
+        .sha256
+        .clone()
+        .expect("the upload carries a digest");
+    // Reference: GNU coreutils `sha256sum` of the stored file, exact; without the tool, the
+    // digest of the uploaded bytes (the function itself is checked against FIPS 180-2).
+    let file = root.path().join("arrears/versions/v1.json");
+    let expected = sha256sum(&file)
+        .unwrap_or_else(|| ogive::registry::store::sha256_hex(&support::model_bytes(NAME, "v1")));
+    assert_eq!(digest, expected);
+    assert_eq!(digest.len(), 64);
+    // Promotions carry none; the line format stays the same for them.
+    promote(root.path(), "v1");
+    assert_eq!(records(root.path())[1].sha256, None);
+}
+
+#[test]
+fn a_stored_file_changed_under_its_label_is_refused_and_the_stored_content_keeps_serving() {
+    let root = root();
+    upload(root.path(), "v1");
+    upload(root.path(), "v2");
+    promote(root.path(), "v1");
+    let registry = Registry::default();
+    let mut watcher = Watcher::new(root.path());
+    assert_eq!(watcher.poll(&registry).len(), 1);
+    let stored = support::model_bytes(NAME, "v1");
+    let recorded = ogive::registry::store::sha256_hex(&stored);
+    let changed = other_content("v1");
+    let found = ogive::registry::store::sha256_hex(&changed);
+    support::place_version(root.path(), NAME, "v1", &changed);
+
+    // The watcher refuses it, naming the file and both digests; the stored content serves on.
+    let events = watcher.poll(&registry);
+    match events.as_slice() {
+        [WatchEvent::Refused { serving, error, .. }] => {
+            assert_eq!(serving.as_deref(), Some("v1"));
+            let text = error.to_string();
+            assert!(text.contains("arrears/versions/v1.json"), "{text}");
+            assert!(text.contains(&recorded) && text.contains(&found), "{text}");
+        }
+        other => panic!("expected one refusal, got {other:?}"),
+    }
+    assert_eq!(
+        registry.snapshot().models[NAME].live.file,
+        Model::from_json(&stored).expect("valid").file,
+        "the content stored under v1 keeps serving"
+    );
+    assert!(watcher.poll(&registry).is_empty(), "reported once");
+
+    // A fresh start refuses to load it too.
+    let report = ogive::registry::load::load_directory(root.path()).expect("load");
+    assert!(report.snapshot.models.is_empty());
+    assert!(
+        matches!(
+            report.failures.as_slice(),
+            [(_, ogive::registry::load::LoadError::ContentChanged(c))] if c.recorded == recorded && c.found == found
+        ),
+        "{:?}",
+        report.failures
+    );
+
+    // No promotion compares with it or goes back to it.
+    let error = lifecycle::promote(root.path(), NAME, "v2", false, "t", None)
+        .expect_err("the live file cannot be compared");
+    assert!(message(&error).contains(&found), "{error}");
+    support::place_version(root.path(), NAME, "v2", &other_content("v2"));
+    let error = lifecycle::promote(root.path(), NAME, "v2", true, "t", None)
+        .expect_err("a changed candidate is refused");
+    assert!(
+        matches!(&error, LifecycleError::Store(ogive::registry::store::StoreError::ContentChanged(c)) if c.version == "v2"),
+        "{error}"
+    );
+    // Nor is the changed file accepted as a repeat of its upload.
+    let error = try_upload(root.path(), "v2", &other_content("v2"), true)
+        .expect_err("the repeat of a changed file is refused");
+    assert!(
+        message(&error).contains("no longer holds version 'v2'"),
+        "{error}"
+    );
+
+    // Putting the stored bytes back serves again.
+    support::place_version(root.path(), NAME, "v1", &stored);
+    let events = watcher.poll(&registry);
+    assert!(
+        matches!(events.as_slice(), [WatchEvent::Served { version, .. }] if version == "v1"),
+        "{events:?}"
+    );
+}
+
+#[test]
+fn a_hand_placed_version_is_held_to_the_content_first_served_under_its_label() {
+    let root = root();
+    support::place_version(root.path(), NAME, "v1", &support::model_bytes(NAME, "v1"));
+    support::place_live(root.path(), NAME, "v1");
+    let registry = Registry::default();
+    let mut watcher = Watcher::new(root.path());
+    assert_eq!(watcher.poll(&registry).len(), 1);
+    // A redeploy ships other content under the same label: refused, v1 as first served stays.
+    support::place_version(root.path(), NAME, "v1", &other_content("v1"));
+    let events = watcher.poll(&registry);
+    assert!(
+        matches!(events.as_slice(), [WatchEvent::Refused { serving: Some(v), error, .. }]
+            if v == "v1" && error.to_string().contains("a new version label")),
+        "{events:?}"
+    );
+    assert_eq!(
+        registry.snapshot().models[NAME].live.file.description,
+        support::base(NAME, "v1").description
+    );
+    // New content under a new label is served.
+    support::place_version(root.path(), NAME, "v2", &support::model_bytes(NAME, "v2"));
+    support::place_live(root.path(), NAME, "v2");
+    let events = watcher.poll(&registry);
+    assert!(
+        matches!(events.as_slice(), [WatchEvent::Served { version, .. }] if version == "v2"),
+        "{events:?}"
+    );
 }

@@ -37,7 +37,9 @@
 //! Promoting the version that is already live changes nothing and records nothing.
 //!
 //! Uploads are recorded in the history too (`action: "upload"`), so that it says who stored
-//! each version; an upload repeated with identical bytes writes nothing.
+//! each version and with which SHA-256; an upload repeated with identical bytes writes nothing.
+//! Every version a promotion, rollback or comparison reads is checked against that digest
+//! first, so a file changed under its label after it was stored is refused, never promoted.
 //!
 //! This module knows nothing of HTTP and nothing of the in-memory [`crate::registry::Registry`]:
 //! callers that serve models may swap in the [`Model`] an outcome carries at once
@@ -343,16 +345,17 @@ fn existing_dir(root: &Path, name: &str) -> Result<ModelDir, LifecycleError> {
     Ok(dir)
 }
 
-/// Read and gate a stored version (steps 1–2).
+/// Read a stored version, checked against the digest recorded when it was stored, and gate it
+/// (steps 1–2).
 fn load_stored(dir: &ModelDir, version: &str) -> Result<Model, LifecycleError> {
     gate::check_labels(dir.name(), version)?;
-    let bytes = dir
-        .read_version(version)?
-        .ok_or_else(|| LifecycleError::UnknownVersion {
-            name: dir.name().to_string(),
-            version: version.to_string(),
-            stored: dir.list_versions().unwrap_or_default(),
-        })?;
+    let bytes =
+        dir.read_version_verified(version)?
+            .ok_or_else(|| LifecycleError::UnknownVersion {
+                name: dir.name().to_string(),
+                version: version.to_string(),
+                stored: dir.list_versions().unwrap_or_default(),
+            })?;
     Ok(gate::check_file(dir.name(), version, &bytes)?)
 }
 
@@ -411,42 +414,31 @@ pub fn upload(
         changes: Vec::new(),
     };
     if novelty == Novelty::AlreadyStored {
-        record_unrecorded_upload(&lock, version, who, reason)?;
+        // The bytes match the file; the file must still match what was stored.
+        dir.verify_version(version, bytes)?;
+        record_unrecorded_upload(&lock, version, bytes, who, reason)?;
         return Ok(uploaded);
     }
     uploaded.changes = compare_with_live(&dir, live.as_deref(), &candidate, allow_breaking)?;
     lock.create_version(version, bytes)?;
-    lock.append_history(&HistoryRecord::now(
-        Action::Upload,
-        None,
-        version,
-        who,
-        reason,
-    ))?;
+    lock.append_history(&HistoryRecord::upload(version, bytes, who, reason))?;
     Ok(uploaded)
 }
 
 /// A version is stored before its upload record is appended; if a crash came between the two,
-/// the repeated upload (which writes no file) writes the missing record.
+/// the repeated upload (which writes no file) writes the missing record. So does the upload of
+/// a version whose record carries no digest (placed by hand, or stored by an older build), so
+/// that later loads are checked against it.
 fn record_unrecorded_upload(
     lock: &ModelLock,
     version: &str,
+    bytes: &[u8],
     who: &str,
     reason: Option<&str>,
 ) -> Result<(), LifecycleError> {
     let history = lock.dir().read_history()?;
-    let recorded = history
-        .records
-        .iter()
-        .any(|r| r.action == Action::Upload && r.to == version);
-    if !recorded {
-        lock.append_history(&HistoryRecord::now(
-            Action::Upload,
-            None,
-            version,
-            who,
-            reason,
-        ))?;
+    if history.recorded_digest(version).is_none() {
+        lock.append_history(&HistoryRecord::upload(version, bytes, who, reason))?;
     }
     Ok(())
 }

@@ -15,6 +15,10 @@
 //! promoter killed between the two writes, see [`crate::registry::lifecycle`]), so that a
 //! server never starts on a version its history says was replaced. A directory it cannot
 //! write is loaded as it is, and the repair reported as failed.
+//!
+//! A version file is also checked against the SHA-256 its history recorded when it was stored
+//! (see [`crate::registry::store`]): a file changed under its label is refused with
+//! [`LoadError::ContentChanged`], naming the file and both digests.
 
 use std::fs;
 use std::path::{Path, PathBuf};
@@ -22,7 +26,7 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use super::lifecycle;
-use super::store::HistoryRecord;
+use super::store::{history, sha256_hex, ContentChanged, HistoryRecord, HISTORY_FILE};
 use super::{Entry, Snapshot};
 use crate::model::{is_model_name, is_version_label, Model, ModelError};
 
@@ -65,6 +69,18 @@ pub enum LoadError {
         path: PathBuf,
         /// What is wrong inside it (boxed: it is large and rare).
         error: Box<ModelError>,
+    },
+    /// The version file's bytes are not those recorded when it was stored.
+    #[error(transparent)]
+    ContentChanged(#[from] ContentChanged),
+    /// The history, which holds the digests the version file is checked against, is
+    /// unreadable.
+    #[error("cannot read the history {path} to check the live version file against it: {source}")]
+    History {
+        /// The history file.
+        path: PathBuf,
+        /// The I/O error.
+        source: std::io::Error,
     },
     /// The file's own name or version differs from where it is stored.
     #[error("{path} declares model '{found_name}' version '{found_version}', but its place in the directory says '{expected_name}' version '{expected_version}'")]
@@ -175,8 +191,15 @@ pub fn load_directory(dir: &Path) -> Result<LoadReport, DirectoryError> {
     Ok(report)
 }
 
-/// Load the version that `model_dir/live` names, checking that the file belongs there.
+/// Load the version that `model_dir/live` names, checking that the file belongs there and
+/// holds the bytes stored under its label.
 pub fn load_live(model_dir: &Path, name: &str) -> Result<Model, LoadError> {
+    load_live_with_digest(model_dir, name).map(|(model, _)| model)
+}
+
+/// [`load_live`], also returning the SHA-256 of the file's bytes (for a caller that remembers
+/// what it served under each label).
+pub fn load_live_with_digest(model_dir: &Path, name: &str) -> Result<(Model, String), LoadError> {
     let pointer = model_dir.join(LIVE_FILE);
     let content = fs::read_to_string(&pointer).map_err(|source| LoadError::LivePointer {
         path: pointer.clone(),
@@ -194,6 +217,29 @@ pub fn load_live(model_dir: &Path, name: &str) -> Result<Model, LoadError> {
         path: path.clone(),
         source,
     })?;
+    let found = sha256_hex(&bytes);
+    let history_path = model_dir.join(HISTORY_FILE);
+    let records = match fs::read(&history_path) {
+        Ok(bytes) => history::parse(&bytes),
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => history::History::default(),
+        Err(source) => {
+            return Err(LoadError::History {
+                path: history_path,
+                source,
+            })
+        }
+    };
+    if let Some(recorded) = records.recorded_digest(version) {
+        if recorded != found {
+            return Err(ContentChanged {
+                path,
+                version: version.to_string(),
+                recorded: recorded.to_string(),
+                found,
+            }
+            .into());
+        }
+    }
     let model = Model::from_json(&bytes).map_err(|error| LoadError::Invalid {
         path: path.clone(),
         error: Box::new(error),
@@ -207,5 +253,5 @@ pub fn load_live(model_dir: &Path, name: &str) -> Result<Model, LoadError> {
             found_version: model.version().to_string(),
         });
     }
-    Ok(model)
+    Ok((model, found))
 }

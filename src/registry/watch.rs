@@ -16,6 +16,12 @@
 //! the caller's callback (the library never logs). The watcher does not apply the gate's
 //! covariate check: the promotion that moved the pointer did, or was told not to.
 //!
+//! A version label names one content for good. The loader refuses a file whose SHA-256 differs
+//! from the one its upload recorded; for a version with no such record (placed by hand, or by
+//! a ConfigMap), the watcher remembers the digest of what it first served under each label and
+//! refuses different bytes under that label later ([`LoadError::ContentChanged`]). A changed
+//! deployment ships its new content under a new label.
+//!
 //! This module knows nothing of HTTP. The service runs [`Watcher::spawn`] after its startup
 //! load (or calls [`Watcher::poll`] itself from a task of its own).
 
@@ -28,8 +34,8 @@ use std::sync::{Arc, Mutex};
 use std::thread::JoinHandle;
 use std::time::Duration;
 
-use super::load::{load_live, LoadError};
-use super::store::{model_names, FileStamp, ModelDir, StoreError};
+use super::load::{load_live_with_digest, LoadError};
+use super::store::{model_names, sha256_hex, ContentChanged, FileStamp, ModelDir, StoreError};
 use super::Registry;
 
 /// How often [`Watcher::spawn`] polls unless told otherwise.
@@ -94,6 +100,8 @@ struct Watched {
     fingerprint: Option<Fingerprint>,
     /// The last refusal reported, so an unchanged failure is reported once.
     last_refusal: Option<String>,
+    /// The SHA-256 of what this process served under each version label.
+    served_digests: BTreeMap<String, String>,
 }
 
 /// Polls one model directory and keeps a [`Registry`] in step with it.
@@ -197,10 +205,31 @@ impl Watcher {
         if settled {
             watched.fingerprint = fingerprint;
             watched.last_refusal = None;
+            if let Some(version) = pointed.filter(|v| !watched.served_digests.contains_key(v)) {
+                // Adopted, not loaded here: remember what the label holds now.
+                if let Ok(Some(bytes)) = dir.read_version(&version) {
+                    watched.served_digests.insert(version, sha256_hex(&bytes));
+                }
+            }
             return None;
         }
-        match load_live(dir.path(), name) {
-            Ok(model) => {
+        let loaded = load_live_with_digest(dir.path(), name).and_then(|(model, digest)| {
+            match watched.served_digests.get(model.version()) {
+                Some(recorded) if *recorded != digest => Err(ContentChanged {
+                    path: dir.version_path(model.version()).unwrap_or_default(),
+                    version: model.version().to_string(),
+                    recorded: recorded.clone(),
+                    found: digest,
+                }
+                .into()),
+                _ => Ok((model, digest)),
+            }
+        });
+        match loaded {
+            Ok((model, digest)) => {
+                watched
+                    .served_digests
+                    .insert(model.version().to_string(), digest);
                 let version = model.version().to_string();
                 registry.set_live(Arc::new(model));
                 watched.fingerprint = fingerprint;
@@ -335,9 +364,9 @@ fn pointer_label(fingerprint: &Fingerprint) -> Option<String> {
 /// An I/O failure other than a missing file: worth retrying at every poll.
 fn is_transient(error: &LoadError) -> bool {
     match error {
-        LoadError::LivePointer { source, .. } | LoadError::VersionFile { source, .. } => {
-            source.kind() != io::ErrorKind::NotFound
-        }
+        LoadError::LivePointer { source, .. }
+        | LoadError::VersionFile { source, .. }
+        | LoadError::History { source, .. } => source.kind() != io::ErrorKind::NotFound,
         _ => false,
     }
 }

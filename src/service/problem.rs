@@ -113,6 +113,7 @@ kinds! {
     InvalidModelFile => "invalid-model-file", 422, "The model file is not valid, or its check cases do not reproduce";
     LabelMismatch => "label-mismatch", 422, "The file names another model or version than the route";
     VersionExists => "version-exists", 409, "A different file is already stored under this version label";
+    VersionChanged => "version-changed", 409, "A stored version's file no longer holds the bytes stored under its label";
     BreakingChange => "breaking-change", 422, "The candidate changes the contract with callers";
     UnknownVersion => "unknown-version", 404, "The model has no such stored version";
     NoLiveVersion => "no-live-version", 409, "The model has no live version";

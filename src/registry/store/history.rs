@@ -6,8 +6,14 @@
 //! ```
 //!
 //! `when` is RFC 3339 in UTC with milliseconds, `from` is `null` when nothing was live, and
-//! `reason` is left out when none was given. Readers ignore fields they do not know, so later
-//! builds may add some.
+//! `reason` is left out when none was given. An upload record also carries `sha256`, the
+//! lower-case hex SHA-256 of the bytes stored: what every later load of that version compares
+//! the file with ([`History::recorded_digest`]). Readers ignore fields they do not know, so
+//! later builds may add some.
+//!
+//! ```text
+//! {"when":"2026-05-04T09:10:02.004Z","action":"upload","from":null,"to":"v2","who":"cli:ana","sha256":"9f86d081…"}
+//! ```
 //!
 //! Reading never fails on content: a last line cut short by a crash is skipped with
 //! [`HistoryWarning::TornLastLine`], any other unreadable line with
@@ -60,6 +66,9 @@ pub struct HistoryRecord {
     /// Why, if they said.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reason: Option<String>,
+    /// For an upload: the SHA-256 of the bytes stored, as 64 lower-case hex digits.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sha256: Option<String>,
 }
 
 impl HistoryRecord {
@@ -78,6 +87,16 @@ impl HistoryRecord {
             to: to.to_string(),
             who: who.to_string(),
             reason: reason.map(str::to_string),
+            sha256: None,
+        }
+    }
+
+    /// The upload record of `bytes` stored as version `to`, stamped with the current time and
+    /// carrying their SHA-256.
+    pub fn upload(to: &str, bytes: &[u8], who: &str, reason: Option<&str>) -> HistoryRecord {
+        HistoryRecord {
+            sha256: Some(super::sha256_hex(bytes)),
+            ..HistoryRecord::now(Action::Upload, None, to, who, reason)
         }
     }
 }
@@ -110,6 +129,18 @@ pub struct History {
     pub records: Vec<HistoryRecord>,
     /// One warning per skipped line.
     pub warnings: Vec<HistoryWarning>,
+}
+
+impl History {
+    /// The SHA-256 recorded when `version` was stored: that of its last upload record carrying
+    /// one. `None` for a version placed by hand or stored by a build that did not record it.
+    pub fn recorded_digest(&self, version: &str) -> Option<&str> {
+        self.records
+            .iter()
+            .rev()
+            .filter(|r| r.action == Action::Upload && r.to == version)
+            .find_map(|r| r.sha256.as_deref())
+    }
 }
 
 /// Parse the bytes of a `history.jsonl`. Blank lines are ignored. A last line without its

@@ -8,6 +8,10 @@
 //! ROOT/NAME/.lock                   the promoters' lock (see `lock`)
 //! ```
 //!
+//! "Never changed" is checked, not assumed: each upload record carries the SHA-256 of the bytes
+//! stored, and [`ModelDir::read_version_verified`] refuses a file whose digest is no longer
+//! that one ([`ContentChanged`], naming the file and both digests).
+//!
 //! Every reader skips entries whose names start with `.`: temporary files (`.…tmp`, see
 //! `atomic`), the lock, and the `..data` links a Kubernetes ConfigMap volume adds. A
 //! [`ModelDir`] can only be built for a valid model name and only builds paths for valid
@@ -25,6 +29,8 @@ use std::fs;
 use std::io;
 use std::path::{Path, PathBuf};
 use std::time::{Duration, SystemTime};
+
+use sha2::{Digest, Sha256};
 
 pub use history::{Action, History, HistoryRecord, HistoryWarning};
 pub use lock::ModelLock;
@@ -67,6 +73,9 @@ pub enum StoreError {
         /// What it holds (at most 100 characters of it).
         content: String,
     },
+    /// A stored version's file no longer holds the bytes recorded when it was stored.
+    #[error(transparent)]
+    ContentChanged(#[from] ContentChanged),
     /// Another holder kept the model's lock for longer than the caller would wait.
     #[error("{} is held by another promoter; gave up after {waited_ms} ms", path.display())]
     Busy {
@@ -87,8 +96,33 @@ impl StoreError {
     }
 }
 
+/// A version file whose content differs from what was stored (or first served) under its label.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("{} no longer holds version '{version}' as it was stored: its SHA-256 was {recorded} and is {found} now; a stored version never changes, so put the stored file back, or store the new content under a new version label", path.display())]
+pub struct ContentChanged {
+    /// The version file.
+    pub path: PathBuf,
+    /// The version label.
+    pub version: String,
+    /// The digest recorded when the version was stored (or first served).
+    pub recorded: String,
+    /// The digest of the file's bytes now.
+    pub found: String,
+}
+
+/// The SHA-256 of `bytes` as 64 lower-case hex digits, as history records store it.
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    use std::fmt::Write as _;
+    let digest = Sha256::digest(bytes);
+    let mut hex = String::with_capacity(64);
+    for byte in digest {
+        let _ = write!(hex, "{byte:02x}");
+    }
+    hex
+}
+
 /// The size and modification time of a version file: what a watcher compares to notice that a
-/// file under the same label was replaced (as a redeployed ConfigMap does).
+/// file under the same label was replaced (which it then refuses, see [`ContentChanged`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct FileStamp {
     /// Length in bytes.
@@ -196,6 +230,37 @@ impl ModelDir {
             Err(e) if e.kind() == io::ErrorKind::NotFound => Ok(None),
             Err(e) => Err(StoreError::io("read", &path, e)),
         }
+    }
+
+    /// The bytes of a version file, as [`read_version`](ModelDir::read_version), after checking
+    /// them against the SHA-256 its history recorded when it was stored; a version with no
+    /// recorded digest (placed by hand) is returned unchecked.
+    pub fn read_version_verified(&self, version: &str) -> Result<Option<Vec<u8>>, StoreError> {
+        let Some(bytes) = self.read_version(version)? else {
+            return Ok(None);
+        };
+        self.verify_version(version, &bytes)?;
+        Ok(Some(bytes))
+    }
+
+    /// Check `bytes`, read from version `version`'s file, against the digest its history
+    /// recorded when it was stored.
+    pub fn verify_version(&self, version: &str, bytes: &[u8]) -> Result<(), StoreError> {
+        let history = self.read_history()?;
+        let Some(recorded) = history.recorded_digest(version) else {
+            return Ok(());
+        };
+        let found = sha256_hex(bytes);
+        if found != recorded {
+            return Err(ContentChanged {
+                path: self.version_path(version)?,
+                version: version.to_string(),
+                recorded: recorded.to_string(),
+                found,
+            }
+            .into());
+        }
+        Ok(())
     }
 
     /// The stamp of a version file, or `None` if the version is not stored. Follows symlinks.
@@ -314,6 +379,20 @@ mod tests {
             dir.read_live(),
             Err(StoreError::BadPointer { .. })
         ));
+    }
+
+    #[test]
+    fn digests_match_the_published_sha256_test_vectors() {
+        // Reference: FIPS 180-2, appendix B.1 ("abc") and the empty-message value published
+        // with it (also `printf '' | sha256sum`); exact.
+        assert_eq!(
+            sha256_hex(b"abc"),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+        );
+        assert_eq!(
+            sha256_hex(b""),
+            "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855"
+        );
     }
 
     #[test]

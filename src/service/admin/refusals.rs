@@ -9,6 +9,7 @@
 //!                               reproduce also stored and computed
 //! label-mismatch           422  pointer /name or /version, expected, in_file
 //! version-exists           409  a different file is stored under the label
+//! version-changed          409  a stored file no longer holds what was stored under its label
 //! breaking-change          422  changes: [{change, …, callers_must, to_keep}], live, candidate,
 //!                               to_override
 //! unknown-model            404  no such model directory
@@ -142,6 +143,10 @@ pub fn store_problem(error: &StoreError) -> Problem {
         StoreError::BadModelName(_) => label_problem(detail, "name"),
         StoreError::BadVersionLabel(_) => label_problem(detail, "version"),
         StoreError::BadPointer { .. } => Problem::new(Kind::LiveUnreadable, detail),
+        StoreError::ContentChanged(changed) => Problem::new(Kind::VersionChanged, detail)
+            .extension("version", json!(changed.version))
+            .extension("recorded_sha256", json!(changed.recorded))
+            .extension("found_sha256", json!(changed.found)),
         StoreError::Busy { .. } => Problem::new(
             Kind::ModelBusy,
             format!("{detail}; try again when the other change has finished"),
