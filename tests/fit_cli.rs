@@ -125,3 +125,145 @@ fn a_failed_fit_exits_non_zero_with_the_reason_and_writes_nothing() {
     );
     assert!(!out.exists());
 }
+
+fn fit_spector_to(out: &std::path::Path, extra: &[&str]) -> std::process::Output {
+    ogive()
+        .args(["fit", "--outcome", "GRADE", "--terms", "GPA, TUCE, PSI"])
+        .args(["--name", "spector", "--version", "v1"])
+        .arg("--data")
+        .arg(spector())
+        .arg("--out")
+        .arg(out)
+        .args(extra)
+        .env_remove("OGIVE_FORCE")
+        .output()
+        .expect("run ogive fit")
+}
+
+#[test]
+fn fit_does_not_overwrite_a_file_without_force_nor_a_stored_version_ever() {
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let out = dir.path().join("candidate.json");
+    std::fs::write(&out, b"kept").expect("write");
+    let run = fit_spector_to(&out, &[]);
+    assert!(!run.status.success());
+    let stderr = String::from_utf8_lossy(&run.stderr);
+    assert!(
+        stderr.contains("already exists") && stderr.contains("--force"),
+        "{stderr}"
+    );
+    assert_eq!(std::fs::read(&out).expect("read"), b"kept");
+    let run = fit_spector_to(&out, &["--force"]);
+    assert!(
+        run.status.success(),
+        "{}",
+        String::from_utf8_lossy(&run.stderr)
+    );
+    assert_ne!(std::fs::read(&out).expect("read"), b"kept");
+
+    let stored = dir.path().join("spector/versions/v1.json");
+    std::fs::create_dir_all(stored.parent().expect("parent")).expect("mkdir");
+    std::fs::write(&stored, b"stored").expect("write");
+    let run = fit_spector_to(&stored, &["--force"]);
+    assert!(!run.status.success());
+    let stderr = String::from_utf8_lossy(&run.stderr);
+    assert!(stderr.contains("stored version never changes"), "{stderr}");
+    assert_eq!(std::fs::read(&stored).expect("read"), b"stored");
+}
+
+fn demo(path: &str) -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR")).join(path)
+}
+
+fn model_at(path: &std::path::Path) -> ogive::model::Model {
+    ogive::model::Model::from_json(&std::fs::read(path).expect("read")).expect("valid model")
+}
+
+#[test]
+fn a_refit_like_the_live_file_keeps_the_whole_contract() {
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let live = demo("model-files/lease-arrears/versions/1.0.0.json");
+    let out = dir.path().join("candidate.json");
+    let run = ogive()
+        .args(["fit", "--version", "1.1.0"])
+        .arg("--like")
+        .arg(&live)
+        .arg("--data")
+        .arg(demo("demo-data/lease-arrears.csv"))
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .expect("run ogive fit");
+    assert!(
+        run.status.success(),
+        "{}",
+        String::from_utf8_lossy(&run.stderr)
+    );
+    let (live, candidate) = (model_at(&live), model_at(&out));
+    let changes = ogive::registry::gate::contract_changes(&live, &candidate);
+    assert!(changes.is_empty(), "{changes:?}");
+    assert_eq!(candidate.file.description, live.file.description);
+    assert_eq!(candidate.file.link, live.file.link);
+    let terms = |m: &ogive::model::Model| {
+        m.file
+            .terms
+            .iter()
+            .map(|t| t.term.clone())
+            .collect::<Vec<_>>()
+    };
+    assert_eq!(terms(&candidate), terms(&live));
+
+    // A flag beside --like overrides the file, and the gate shows exactly that change.
+    let out = dir.path().join("lower-threshold.json");
+    let run = ogive()
+        .args(["fit", "--version", "1.1.1", "--threshold", "0.25"])
+        .arg("--like")
+        .arg(demo("model-files/lease-arrears/versions/1.0.0.json"))
+        .arg("--data")
+        .arg(demo("demo-data/lease-arrears.csv"))
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .expect("run ogive fit");
+    assert!(
+        run.status.success(),
+        "{}",
+        String::from_utf8_lossy(&run.stderr)
+    );
+    let changes = ogive::registry::gate::contract_changes(&live, &model_at(&out));
+    assert!(
+        matches!(
+            changes.as_slice(),
+            [ogive::registry::gate::ContractChange::ThresholdChanged { .. }]
+        ),
+        "{changes:?}"
+    );
+}
+
+#[test]
+fn without_like_the_terms_outcome_and_name_are_required() {
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let run = ogive()
+        .args([
+            "fit",
+            "--outcome",
+            "GRADE",
+            "--name",
+            "spector",
+            "--version",
+            "1",
+        ])
+        .arg("--data")
+        .arg(spector())
+        .arg("--out")
+        .arg(dir.path().join("m.json"))
+        .env_remove("OGIVE_TERMS")
+        .output()
+        .expect("run ogive fit");
+    assert!(!run.status.success());
+    let stderr = String::from_utf8_lossy(&run.stderr);
+    assert!(
+        stderr.contains("--terms is required") && stderr.contains("--like"),
+        "{stderr}"
+    );
+}

@@ -2,7 +2,7 @@
 //! The work is [`crate::fit::fit`]; this file holds the flags and the progress bar.
 
 use std::io::IsTerminal;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 use std::time::Duration;
 
@@ -11,6 +11,9 @@ use indicatif::{ProgressBar, ProgressStyle};
 use crate::fit::{self, CategoricalSpec, CovarianceType, FitRequest, Progress};
 use crate::link::Link;
 use crate::model::file::{Band, DecisionSpec};
+use crate::registry::store::VERSIONS_DIR;
+
+use super::like::Template;
 
 /// The covariance estimator, as a flag value.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
@@ -33,17 +36,22 @@ pub struct FitArgs {
     /// The training data: a CSV file with a header line.
     #[arg(long, env = "OGIVE_DATA", value_name = "CSV")]
     pub data: PathBuf,
-    /// The outcome column (0/1, or false/true).
+    /// Take the terms, covariate kinds, units, reference levels, outcome, name, link,
+    /// threshold, bands and description from this model file (a refit that keeps its contract
+    /// with callers); the flags given beside it override what it says.
+    #[arg(long, env = "OGIVE_LIKE", value_name = "MODEL_FILE")]
+    pub like: Option<PathBuf>,
+    /// The outcome column (0/1, or false/true). Required unless --like gives it.
     #[arg(long, env = "OGIVE_OUTCOME", value_name = "COL")]
-    pub outcome: String,
+    pub outcome: Option<String>,
     /// What outcome = 1 means, in a sentence (stored in the model file).
     #[arg(long, env = "OGIVE_OUTCOME_MEANING", value_name = "TEXT")]
     pub outcome_meaning: Option<String>,
     /// The terms, comma-separated, each exactly one term: name, name^k, log(name), a*b,
     /// name=level. A bare categorical expands into its non-reference level indicators; in a
-    /// product, into one product per non-reference level.
+    /// product, into one product per non-reference level. Required unless --like gives them.
     #[arg(long, env = "OGIVE_TERMS", value_name = "LIST")]
-    pub terms: String,
+    pub terms: Option<String>,
     /// A categorical covariate, optionally with its reference level (default: the first level in
     /// sorted order). Repeat for several.
     #[arg(long, value_name = "COL[=REF]")]
@@ -57,9 +65,9 @@ pub struct FitArgs {
     /// The unit of a covariate, stored in the model file (e.g. years_trading=years). Repeatable.
     #[arg(long, value_name = "COL=UNIT", value_parser = parse_pair)]
     pub unit: Vec<(String, String)>,
-    /// The link.
-    #[arg(long, env = "OGIVE_LINK", default_value = "logit")]
-    pub link: Link,
+    /// The link [default: logit, or the --like file's].
+    #[arg(long, env = "OGIVE_LINK")]
+    pub link: Option<Link>,
     /// The coefficient covariance.
     #[arg(
         long,
@@ -78,15 +86,15 @@ pub struct FitArgs {
     /// The Newton–Raphson iteration cap.
     #[arg(long, env = "OGIVE_MAX_ITERATIONS", default_value_t = 100)]
     pub max_iterations: u32,
-    /// The model's name (lower-case letters, digits and '-').
+    /// The model's name (lower-case letters, digits and '-'). Required unless --like gives it.
     #[arg(long, env = "OGIVE_NAME")]
-    pub name: String,
+    pub name: Option<String>,
     /// The version label.
     #[arg(long, env = "OGIVE_VERSION")]
     pub version: String,
     /// What the model is for, in a sentence or two.
-    #[arg(long, env = "OGIVE_DESCRIPTION", default_value = "")]
-    pub description: String,
+    #[arg(long, env = "OGIVE_DESCRIPTION")]
+    pub description: Option<String>,
     /// A decision threshold: probabilities at or above it are flagged.
     #[arg(long, env = "OGIVE_THRESHOLD", value_name = "P")]
     pub threshold: Option<f64>,
@@ -94,9 +102,14 @@ pub struct FitArgs {
     /// must be 1 (e.g. --band low=0.05 --band medium=0.2 --band high=1).
     #[arg(long, value_name = "NAME=BELOW", value_parser = parse_band)]
     pub band: Vec<Band>,
-    /// Where to write the model file (written atomically).
+    /// Where to write the model file (written atomically). An existing file is not replaced
+    /// unless --force is given, and a version file inside a model directory
+    /// (NAME/versions/VERSION.json) never is: a stored version does not change.
     #[arg(long, env = "OGIVE_OUT", value_name = "FILE")]
     pub out: PathBuf,
+    /// Replace the file --out names if it exists (never a stored version file).
+    #[arg(long, env = "OGIVE_FORCE")]
+    pub force: bool,
     /// Record this time (seconds since the Unix epoch) as the fit time instead of now, for
     /// reproducible files.
     #[arg(long, env = "SOURCE_DATE_EPOCH", value_name = "SECONDS")]
@@ -163,39 +176,159 @@ impl Progress for Bar {
     }
 }
 
-/// Run `ogive fit`.
-pub fn run(args: FitArgs) -> anyhow::Result<ExitCode> {
-    let decision = (args.threshold.is_some() || !args.band.is_empty()).then(|| DecisionSpec {
-        threshold: args.threshold,
-        bands: args.band.clone(),
-    });
-    let request = FitRequest {
-        data: args.data,
-        outcome: args.outcome,
-        outcome_meaning: args.outcome_meaning,
-        terms: args.terms,
-        categorical: args.categorical,
-        count: args.count,
-        continuous: args.continuous,
-        units: args.unit,
-        link: args.link,
+/// The fit request of the command line, completed from the --like file if there is one.
+fn request_of(args: &FitArgs) -> anyhow::Result<FitRequest> {
+    let mut like = args.like.as_deref().map(Template::read).transpose()?;
+    if let (Some(template), Some(terms)) = (like.as_mut(), &args.terms) {
+        template.restrict_to(terms);
+    }
+    let from_like = |what: &str| {
+        anyhow::anyhow!("--{what} is required (or take it from a model file with --like FILE)")
+    };
+    let terms = match (&args.terms, &like) {
+        (Some(terms), _) => terms.clone(),
+        (None, Some(template)) => template.terms.clone(),
+        (None, None) => return Err(from_like("terms")),
+    };
+    let intercept =
+        !args.no_intercept && (args.terms.is_some() || like.as_ref().is_none_or(|t| t.intercept));
+    let outcome = args
+        .outcome
+        .clone()
+        .or_else(|| like.as_ref().map(|t| t.outcome.clone()))
+        .ok_or_else(|| from_like("outcome"))?;
+    let name = args
+        .name
+        .clone()
+        .or_else(|| like.as_ref().map(|t| t.name.clone()))
+        .ok_or_else(|| from_like("name"))?;
+    // A column's kind or unit on the command line replaces the file's for that column.
+    let kind_given = |c: &str| {
+        args.categorical.iter().any(|s| s.column == c)
+            || args.count.iter().any(|n| n == c)
+            || args.continuous.iter().any(|n| n == c)
+    };
+    let mut categorical = Vec::new();
+    let mut count = Vec::new();
+    let mut continuous = Vec::new();
+    let mut units = Vec::new();
+    if let Some(template) = &like {
+        categorical.extend(
+            template
+                .categorical
+                .iter()
+                .filter(|s| !kind_given(&s.column))
+                .cloned(),
+        );
+        count.extend(template.count.iter().filter(|c| !kind_given(c)).cloned());
+        continuous.extend(
+            template
+                .continuous
+                .iter()
+                .filter(|c| !kind_given(c))
+                .cloned(),
+        );
+        units.extend(
+            template
+                .units
+                .iter()
+                .filter(|(c, _)| !args.unit.iter().any(|(given, _)| given == c))
+                .cloned(),
+        );
+    }
+    categorical.extend(args.categorical.iter().cloned());
+    count.extend(args.count.iter().cloned());
+    continuous.extend(args.continuous.iter().cloned());
+    units.extend(args.unit.iter().cloned());
+    let threshold = args
+        .threshold
+        .or_else(|| like.as_ref().and_then(|t| t.threshold));
+    let bands = if args.band.is_empty() {
+        like.as_ref().map(|t| t.bands.clone()).unwrap_or_default()
+    } else {
+        args.band.clone()
+    };
+    let decision =
+        (threshold.is_some() || !bands.is_empty()).then_some(DecisionSpec { threshold, bands });
+    Ok(FitRequest {
+        data: args.data.clone(),
+        outcome,
+        outcome_meaning: args
+            .outcome_meaning
+            .clone()
+            .or_else(|| like.as_ref().map(|t| t.outcome_meaning.clone())),
+        terms,
+        categorical,
+        count,
+        continuous,
+        units,
+        link: args
+            .link
+            .or_else(|| like.as_ref().map(|t| t.link))
+            .unwrap_or(Link::Logit),
         covariance: match args.covariance {
             CovarianceFlag::Classical => CovarianceType::Classical,
             CovarianceFlag::Robust => CovarianceType::Robust,
         },
-        intercept: !args.no_intercept,
+        intercept,
         drop_missing: args.drop_missing,
         max_iterations: args.max_iterations,
-        name: args.name,
-        version: args.version,
-        description: args.description,
+        name,
+        version: args.version.clone(),
+        description: args
+            .description
+            .clone()
+            .or_else(|| like.as_ref().map(|t| t.description.clone()))
+            .unwrap_or_default(),
         decision,
         fitted_at_unix: args.fitted_at,
-    };
+    })
+}
+
+/// Whether `path` is a version file of a model directory: `NAME/versions/FILE` where NAME is a
+/// model name.
+fn is_stored_version(path: &Path) -> bool {
+    let absolute = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
+    let mut parents = absolute.ancestors().skip(1);
+    let versions = parents.next().and_then(Path::file_name);
+    let model = parents.next().and_then(Path::file_name);
+    versions.is_some_and(|v| v == VERSIONS_DIR)
+        && model
+            .and_then(|m| m.to_str())
+            .is_some_and(crate::model::is_model_name)
+}
+
+/// Refuse to write over an existing `out`: always for a stored version file, else without
+/// `force`. Checked before the fit (so a long fit is not wasted) and again before writing.
+fn check_out(out: &Path, force: bool) -> anyhow::Result<()> {
+    if !out.exists() {
+        return Ok(());
+    }
+    if is_stored_version(out) {
+        anyhow::bail!(
+            "--out {} is a stored version file of a model directory, and a stored version never \
+             changes: write the new fit elsewhere with a new --version and upload it",
+            out.display()
+        );
+    }
+    if !force {
+        anyhow::bail!(
+            "--out {} already exists; choose another file, or add --force to replace it",
+            out.display()
+        );
+    }
+    Ok(())
+}
+
+/// Run `ogive fit`.
+pub fn run(args: FitArgs) -> anyhow::Result<ExitCode> {
+    check_out(&args.out, args.force)?;
+    let request = request_of(&args)?;
     let bar = Bar::new();
     let fitted = fit::fit(&request, &bar);
     bar.0.finish_and_clear();
     let fitted = fitted?;
+    check_out(&args.out, args.force)?;
     fit::write_model_file(&args.out, &fitted.file)?;
     print!("{}", fitted.report);
     println!(
@@ -206,4 +339,22 @@ pub fn run(args: FitArgs) -> anyhow::Result<ExitCode> {
         fitted.file.check_cases.len()
     );
     Ok(ExitCode::SUCCESS)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn only_files_in_a_model_directorys_versions_folder_are_stored_versions() {
+        assert!(is_stored_version(Path::new(
+            "/srv/models/lease-arrears/versions/1.0.0.json"
+        )));
+        assert!(is_stored_version(Path::new("m/versions/v1.json")));
+        assert!(!is_stored_version(Path::new("/tmp/versions.json")));
+        assert!(!is_stored_version(Path::new(
+            "/tmp/Not_A_Model/versions/v1.json"
+        )));
+        assert!(!is_stored_version(Path::new("candidate.json")));
+    }
 }

@@ -10,6 +10,7 @@ pub mod check;
 pub mod describe;
 pub mod fit;
 pub mod lifecycle;
+pub mod like;
 pub mod score;
 pub mod serve;
 
