@@ -349,8 +349,32 @@ fn symmetric_product(covariance: &[f64], t: &[f64], out: &mut Vec<f64>) -> f64 {
 /// trust its last digits, and the direct quadratic form is used instead.
 const CANCELLATION: f64 = 1e-3;
 
+/// What the interval of every effect of one observation shares: V, `w = V·t` and `a = tᵀVt`.
+#[derive(Clone, Copy)]
+struct IndexUncertainty<'a> {
+    covariance: &'a [f64],
+    covariance_terms: &'a [f64],
+    index_variance: f64,
+}
+
+/// An effect's gradient in the form `∇ = c·t + e`, with e given on the `involved` terms only.
+#[derive(Clone, Copy)]
+struct SparseGradient<'a> {
+    c: f64,
+    involved: &'a [usize],
+    e: &'a [f64],
+}
+
+impl SparseGradient<'_> {
+    /// `∇ = c·t + e` as a full vector, into `out`.
+    #[inline]
+    fn expand(&self, terms: &[f64], out: &mut [f64]) {
+        full_gradient(self.c, terms, self.involved, self.e, out);
+    }
+}
+
 /// The delta-method variance `∇ᵀV∇` of an effect whose gradient is `∇ = c·t + e`, where e is
-/// nonzero only on the `involved` terms, from the already computed `w = V·t`, `a = tᵀVt`:
+/// nonzero only on the `involved` terms, from the already computed `w = V·t`, `a = tᵀVt` of `u`:
 ///
 /// ```text
 /// ∇ᵀV∇ = c²·a + 2c·eᵀw + eᵀVe          (V symmetric; e has a handful of entries)
@@ -360,19 +384,15 @@ const CANCELLATION: f64 = 1e-3;
 /// is about ε·(c²a + eᵀVe); when the result is smaller than [`CANCELLATION`] times that, the
 /// gradient is formed and its quadratic form taken directly, which keeps the error relative to
 /// the result.
-#[allow(clippy::too_many_arguments)]
 #[inline]
 fn effect_variance(
-    covariance: &[f64],
-    covariance_terms: &[f64],
-    index_variance: f64,
+    u: IndexUncertainty<'_>,
     terms: &[f64],
-    c: f64,
-    involved: &[usize],
-    e: &[f64],
-    gradient: &mut [f64],
+    g: SparseGradient<'_>,
+    scratch: &mut [f64],
 ) -> f64 {
     let k = terms.len();
+    let SparseGradient { c, involved, e } = g;
     let mut cross = 0.0;
     let mut own = 0.0;
     for (m, &i) in involved.iter().enumerate() {
@@ -380,18 +400,18 @@ fn effect_variance(
         if ei == 0.0 {
             continue;
         }
-        cross += ei * covariance_terms[i];
-        let row = &covariance[i * k..(i + 1) * k];
+        cross += ei * u.covariance_terms[i];
+        let row = &u.covariance[i * k..(i + 1) * k];
         let inner: f64 = involved.iter().zip(e).map(|(&i2, e2)| row[i2] * e2).sum();
         own += ei * inner;
     }
-    let scale = c * c * index_variance + own;
-    let variance = c * c * index_variance + 2.0 * c * cross + own;
+    let scale = c * c * u.index_variance + own;
+    let variance = c * c * u.index_variance + 2.0 * c * cross + own;
     if variance >= CANCELLATION * scale {
         return variance.max(0.0);
     }
-    full_gradient(c, terms, involved, e, gradient);
-    quadratic_form(covariance, gradient)
+    g.expand(terms, scratch);
+    quadratic_form(u.covariance, scratch)
 }
 
 /// `∇ = c·t + e` into `out`, with e given on the involved terms.
@@ -402,6 +422,63 @@ fn full_gradient(c: f64, terms: &[f64], involved: &[usize], e: &[f64], out: &mut
     }
     for (&i, ei) in involved.iter().zip(e) {
         out[i] += ei;
+    }
+}
+
+/// The observation's linear index and its link values.
+#[derive(Debug, Clone, Copy)]
+struct Evaluated {
+    z: f64,
+    link: LinkValues,
+}
+
+/// What a change of one covariate reads of the observation being scored.
+struct Observation<'a> {
+    model: &'a Model,
+    values: &'a [Value],
+    terms: &'a [f64],
+    index: Evaluated,
+}
+
+impl Observation<'_> {
+    /// The index and link values with covariate `j` set to `value`, and t(x′) − t(x) on the
+    /// terms that involve `j` into `shift`. `alternative` holds the observation's values and is
+    /// put back before returning. When `value` is what the observation already has, that is the
+    /// observation itself: its index and link values are reused.
+    #[inline]
+    fn shifted(
+        &self,
+        j: usize,
+        shapes: &[Shape],
+        value: Value,
+        alternative: &mut [Value],
+        shift: &mut Vec<f64>,
+    ) -> Evaluated {
+        let model = self.model;
+        let involved = model.terms_of_covariate[j].as_slice();
+        shift.clear();
+        if self.values[j] == value {
+            shift.resize(involved.len(), 0.0);
+            return self.index;
+        }
+        alternative[j] = value;
+        let mut z = self.index.z;
+        for (&i, &shape) in involved.iter().zip(shapes) {
+            let t = match (shape, value) {
+                (Shape::Linear, Value::Number(x)) => x,
+                (Shape::Square, Value::Number(x)) => x * x,
+                (Shape::TimesOther(other), Value::Number(x)) => x * self.values[other].number(),
+                _ => model.terms[i].value(alternative, &model.level_shares),
+            };
+            let d = t - self.terms[i];
+            z += model.coefficients[i] * d;
+            shift.push(d);
+        }
+        alternative[j] = self.values[j];
+        Evaluated {
+            z,
+            link: model.link.evaluate(z),
+        }
     }
 }
 
@@ -530,8 +607,9 @@ impl Scorer {
             self.alternative.extend_from_slice(values);
         }
         if options.effects || averaging {
-            let uncertainty = covariance.map(|v| (v, index_variance));
-            self.compute_effects(model, values, z, at, options, uncertainty, averaging);
+            let index = Evaluated { z, link: at };
+            let covariance = covariance.map(|v| (v, index_variance));
+            self.compute_effects(model, values, index, options, covariance, averaging);
         }
         if warn {
             self.compute_warnings(model, values);
@@ -573,19 +651,24 @@ impl Scorer {
 
     /// Every effect of the observation. Each effect's gradient is kept in the form c·t + e
     /// (e on the involved terms only); it is expanded to a full vector only for averaging.
-    #[allow(clippy::too_many_arguments)]
+    /// `covariance` is V with the index variance tᵀVt when intervals are asked for.
     fn compute_effects(
         &mut self,
         model: &Model,
         values: &[Value],
-        z: f64,
-        at: LinkValues,
+        index: Evaluated,
         options: &Options,
-        uncertainty: Option<(&[f64], f64)>,
+        covariance: Option<(&[f64], f64)>,
         keep_gradients: bool,
     ) {
+        let uncertainty = covariance.map(|(v, index_variance)| IndexUncertainty {
+            covariance: v,
+            covariance_terms: &self.covariance_terms,
+            index_variance,
+        });
         let link = model.link;
         let k = self.terms.len();
+        let Evaluated { z, link: at } = index;
         let density = at.density;
         let need_gradient = uncertainty.is_some() || keep_gradients;
         let density_slope = if need_gradient {
@@ -624,8 +707,27 @@ impl Scorer {
                         Some(l) => (Value::Level(l), Value::Level(model.covariates[j].reference)),
                         None => (Value::Number(1.0), Value::Number(0.0)),
                     };
-                    let (z_high, high) = self.shifted(model, values, j, to, z, at, true);
-                    let (z_low, low) = self.shifted(model, values, j, from, z, at, false);
+                    let observation = Observation {
+                        model,
+                        values,
+                        terms: &self.terms,
+                        index,
+                    };
+                    let shapes = self.shapes[j].as_slice();
+                    let Evaluated { z: z_high, link: high } = observation.shifted(
+                        j,
+                        shapes,
+                        to,
+                        &mut self.alternative,
+                        &mut self.shift_high,
+                    );
+                    let Evaluated { z: z_low, link: low } = observation.shifted(
+                        j,
+                        shapes,
+                        from,
+                        &mut self.alternative,
+                        &mut self.shift_low,
+                    );
                     // ∇ = f(z_b)·t_b − f(z_a)·t_a = (f_b − f_a)·t + f_b·(t_b − t) − f_a·(t_a − t)
                     if need_gradient {
                         for (b, a) in self.shift_high.iter().zip(&self.shift_low) {
@@ -641,26 +743,21 @@ impl Scorer {
                     (effect, high.density - low.density)
                 }
             };
+            let gradient = SparseGradient {
+                c,
+                involved,
+                e: &self.sparse,
+            };
             if keep_gradients {
                 self.effect_values[s] = effect;
-                let out = &mut self.effect_gradients[s * k..(s + 1) * k];
-                full_gradient(c, &self.terms, involved, &self.sparse, out);
+                gradient.expand(&self.terms, &mut self.effect_gradients[s * k..(s + 1) * k]);
             }
             if !options.effects {
                 continue;
             }
             let (std_error, interval) = match uncertainty {
-                Some((v, index_variance)) => {
-                    let variance = effect_variance(
-                        v,
-                        &self.covariance_terms,
-                        index_variance,
-                        &self.terms,
-                        c,
-                        involved,
-                        &self.sparse,
-                        &mut self.gradient,
-                    );
+                Some(u) => {
+                    let variance = effect_variance(u, &self.terms, gradient, &mut self.gradient);
                     let se = variance.sqrt();
                     (
                         Some(se),
@@ -683,49 +780,6 @@ impl Scorer {
                 elasticity,
             });
         }
-    }
-
-    /// The index and link values with covariate `j` set to `value`, and t(x′) − t(x) on the
-    /// involved terms in `shift_high` (or `shift_low`). When `value` is what the observation
-    /// already has, that is the observation itself: z and its link values are reused.
-    #[allow(clippy::too_many_arguments)]
-    #[inline]
-    fn shifted(
-        &mut self,
-        model: &Model,
-        values: &[Value],
-        j: usize,
-        value: Value,
-        z: f64,
-        at: LinkValues,
-        high: bool,
-    ) -> (f64, LinkValues) {
-        let involved = model.terms_of_covariate[j].as_slice();
-        let shift = if high {
-            &mut self.shift_high
-        } else {
-            &mut self.shift_low
-        };
-        shift.clear();
-        if values[j] == value {
-            shift.resize(involved.len(), 0.0);
-            return (z, at);
-        }
-        self.alternative[j] = value;
-        let mut shifted_index = z;
-        for (&i, &shape) in involved.iter().zip(&self.shapes[j]) {
-            let t = match (shape, value) {
-                (Shape::Linear, Value::Number(x)) => x,
-                (Shape::Square, Value::Number(x)) => x * x,
-                (Shape::TimesOther(other), Value::Number(x)) => x * values[other].number(),
-                _ => model.terms[i].value(&self.alternative, &model.level_shares),
-            };
-            let d = t - self.terms[i];
-            shifted_index += model.coefficients[i] * d;
-            shift.push(d);
-        }
-        self.alternative[j] = values[j];
-        (shifted_index, model.link.evaluate(shifted_index))
     }
 
     fn compute_warnings(&mut self, model: &Model, values: &[Value]) {
@@ -820,7 +874,17 @@ mod tests {
             (-1.2, vec![0, 2], vec![0.1, -0.4]),
             (0.0, vec![2], vec![0.25]),
         ] {
-            let fast = effect_variance(&v, &w, a, &t, c, &involved, &e, &mut scratch);
+            let u = IndexUncertainty {
+                covariance: &v,
+                covariance_terms: &w,
+                index_variance: a,
+            };
+            let g = SparseGradient {
+                c,
+                involved: &involved,
+                e: &e,
+            };
+            let fast = effect_variance(u, &t, g, &mut scratch);
             let expected = direct(&v, &t, c, &involved, &e);
             assert!(
                 (fast - expected).abs() <= 1e-14 * expected,
@@ -838,7 +902,17 @@ mod tests {
         let a = symmetric_product(&v, &t, &mut w);
         let e = [-1.0 + 1e-9];
         let mut scratch = [0.0; 2];
-        let variance = effect_variance(&v, &w, a, &t, 1.0, &[0], &e, &mut scratch);
+        let u = IndexUncertainty {
+            covariance: &v,
+            covariance_terms: &w,
+            index_variance: a,
+        };
+        let g = SparseGradient {
+            c: 1.0,
+            involved: &[0],
+            e: &e,
+        };
+        let variance = effect_variance(u, &t, g, &mut scratch);
         let expected = direct(&v, &t, 1.0, &[0], &e);
         assert!(
             (variance - expected).abs() <= 1e-12 * expected,
