@@ -714,14 +714,20 @@ impl Scorer {
                         index,
                     };
                     let shapes = self.shapes[j].as_slice();
-                    let Evaluated { z: z_high, link: high } = observation.shifted(
+                    let Evaluated {
+                        z: z_high,
+                        link: high,
+                    } = observation.shifted(
                         j,
                         shapes,
                         to,
                         &mut self.alternative,
                         &mut self.shift_high,
                     );
-                    let Evaluated { z: z_low, link: low } = observation.shifted(
+                    let Evaluated {
+                        z: z_low,
+                        link: low,
+                    } = observation.shifted(
                         j,
                         shapes,
                         from,
