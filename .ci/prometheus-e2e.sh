@@ -112,7 +112,8 @@ wait_for "http://127.0.0.1:$prometheus_port/-/ready" "prometheus"
 note "ogive on $base, prometheus on 127.0.0.1:$prometheus_port"
 
 # Traffic: 40 single observations, amounts 5, 15, 25, 35 in turn, then one batch of 60 with
-# amounts in the first bin. Each answer's probability is kept for the expected figures.
+# amounts in the first bin. Each answer's probability is kept for the expected figures, and its
+# receipt for the outcome report.
 sectors=(retail farming transport retail)
 : >"$work/answers.tsv"
 for i in $(seq 0 39); do
@@ -120,7 +121,7 @@ for i in $(seq 0 39); do
   body="{\"observation\": {\"amount\": $amount, \"sector\": \"${sectors[i % 4]}\", \"guarantor\": $((i % 2))}}"
   answer=$(curl -fsS --max-time 5 -H 'Content-Type: application/json' -H "X-Request-Id: e2e-$i" \
     -d "$body" "$base/models/e2e-lease/probability") || fail "probability request $i"
-  printf 'e2e-%s\t%s\n' "$i" "$(python3 -c 'import json, sys; print(repr(json.load(sys.stdin)["probability"]))' <<<"$answer")" \
+  printf 'e2e-%s\t%s\n' "$i" "$(python3 -c 'import json, sys; a = json.load(sys.stdin); print("%r\t%s" % (a["probability"], a["receipt"]))' <<<"$answer")" \
     >>"$work/answers.tsv"
 done
 batch=$(python3 -c '
@@ -132,23 +133,27 @@ answer=$(curl -fsS --max-time 10 -H 'Content-Type: application/json' -H 'X-Reque
 python3 -c '
 import json, sys
 for r in json.load(sys.stdin)["results"]:
-    print("e2e-batch/%d\t%r" % (r["index"], r["probability"]))' <<<"$answer" >>"$work/answers.tsv"
+    print("e2e-batch/%d\t%r\t%s" % (r["index"], r["probability"], r["receipt"]))' <<<"$answer" >>"$work/answers.tsv"
 
 # Outcomes: 30 single answers one report each (outcome i mod 2, skipping i ≡ 3 mod 4) and the
 # first 20 batch answers in one list (outcome 1 when i is a multiple of 3).
+receipt_of() { awk -F'\t' -v k="$1" '$1 == k { print $3 }' "$work/answers.tsv"; }
 : >"$work/outcomes.tsv"
 for i in $(seq 0 39); do
   [ $((i % 4)) -eq 3 ] && continue
   outcome=$((i % 2))
+  receipt=$(receipt_of "e2e-$i")
   curl -fsS --max-time 5 -o /dev/null -H 'Content-Type: application/json' \
-    -d "{\"answer_id\": \"e2e-$i\", \"outcome\": $outcome}" "$base/models/e2e-lease/outcomes" \
+    -d "{\"receipt\": \"$receipt\", \"outcome\": $outcome}" "$base/models/e2e-lease/outcomes" \
     || fail "outcome report for e2e-$i"
   printf 'e2e-%s\t%s\n' "$i" "$outcome" >>"$work/outcomes.tsv"
 done
 reports=$(python3 -c '
-import json
+import json, sys
+receipts = {k: r for k, _, r in (line.split("\t") for line in open(sys.argv[1]).read().splitlines())}
 print(json.dumps({"outcomes": [
-    {"answer_id": "e2e-batch/%d" % i, "outcome": int(i % 3 == 0)} for i in range(20)]}))')
+    {"receipt": receipts["e2e-batch/%d" % i], "outcome": int(i % 3 == 0)} for i in range(20)]}))' \
+  "$work/answers.tsv")
 recorded=$(curl -fsS --max-time 5 -H 'Content-Type: application/json' -d "$reports" \
   "$base/models/e2e-lease/outcomes" | python3 -c 'import json, sys; print(json.load(sys.stdin)["recorded"])') \
   || fail "batch outcome report"
@@ -156,19 +161,19 @@ recorded=$(curl -fsS --max-time 5 -H 'Content-Type: application/json' -d "$repor
 for i in $(seq 0 19); do
   printf 'e2e-batch/%s\t%s\n' "$i" "$((i % 3 == 0 ? 1 : 0))" >>"$work/outcomes.tsv"
 done
-# A second outcome for an answer is refused with 409, an unknown id with 404.
+# A second outcome for an answer is refused with 409, a receipt that does not open with 422.
 status=$(curl -sS --max-time 5 -o /dev/null -w '%{http_code}' -H 'Content-Type: application/json' \
-  -d '{"answer_id": "e2e-0", "outcome": 1}' "$base/models/e2e-lease/outcomes")
+  -d "{\"receipt\": \"$(receipt_of e2e-0)\", \"outcome\": 1}" "$base/models/e2e-lease/outcomes")
 [ "$status" = 409 ] || fail "a second outcome for e2e-0 answered $status, expected 409"
 status=$(curl -sS --max-time 5 -o /dev/null -w '%{http_code}' -H 'Content-Type: application/json' \
-  -d '{"answer_id": "e2e-none", "outcome": 1}' "$base/models/e2e-lease/outcomes")
-[ "$status" = 404 ] || fail "an unknown answer id answered $status, expected 404"
+  -d '{"receipt": "not-a-receipt", "outcome": 1}' "$base/models/e2e-lease/outcomes")
+[ "$status" = 422 ] || fail "a receipt that does not open answered $status, expected 422"
 
 # The expected values, computed here from the answers and outcomes above.
 python3 - "$work/answers.tsv" "$work/outcomes.tsv" >"$work/expected.tsv" <<'EOF'
 import bisect, math, sys
 
-answers = dict(line.split("\t") for line in open(sys.argv[1]).read().splitlines())
+answers = {k: p for k, p, _ in (line.split("\t") for line in open(sys.argv[1]).read().splitlines())}
 outcomes = dict(line.split("\t") for line in open(sys.argv[2]).read().splitlines())
 floor = 1e-4
 
@@ -197,7 +202,6 @@ negatives = [p for p, y in pairs if y == 0]
 wins = sum(1.0 if a > b else 0.5 if a == b else 0.0 for a in positives for b in negatives)
 print("roc_auc\t%r" % (wins / (len(positives) * len(negatives))))
 print("observations_scored\t%d" % len(probabilities))
-print("answers_held\t%d" % len(answers))
 EOF
 expected() { awk -F'\t' -v k="$1" '$1 == k { print $2 }' "$work/expected.tsv"; }
 
@@ -223,12 +227,11 @@ checks=(
   "sum(ogive_http_requests_total{route=\"/models/{name}/probability\",status=\"200\"})|41|0"
   "sum(ogive_http_requests_total{route=\"/models/{name}/outcomes\",status=\"200\"})|31|0"
   "sum(ogive_http_requests_total{route=\"/models/{name}/outcomes\",status=\"409\"})|1|0"
-  "sum(ogive_http_requests_total{route=\"/models/{name}/outcomes\",status=\"404\"})|1|0"
+  "sum(ogive_http_requests_total{route=\"/models/{name}/outcomes\",status=\"422\"})|1|0"
   "ogive_observations_scored_total{$model}|$(expected observations_scored)|0"
   "ogive_drift_window_observations{$model}|$(expected observations_scored)|0"
   "ogive_input_psi{$model,covariate=\"amount\"}|$(expected input_psi_amount)|1e-12"
   "ogive_prediction_psi{$model}|$(expected prediction_psi)|1e-12"
-  "ogive_answers_held|$(expected answers_held)|0"
   "ogive_outcomes_total{$model}|$(expected outcomes_total)|0"
   "ogive_calibration_window_outcomes{$model}|$(expected outcomes_total)|0"
   "ogive_brier_score{$model}|$(expected brier_score)|1e-12"

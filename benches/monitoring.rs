@@ -5,10 +5,12 @@
 //! score     Scorer::score with Options::default() (effects, intervals, contributions,
 //!           warnings): the engine's work for one observation of a request
 //! drift     DriftMonitor::record: find the version, try the lock, bin 4 values, move counts
-//! store     AnswerStore::keep_single with a fresh 36-character id (the ring full, so each
-//!           call also evicts the oldest request)
-//! request   Monitor::record_scored for a single-observation request: drift + store
+//! seal      ReceiptKeys::seal_all for one observation: random id, HMAC-SHA-256, base64
+//! request   Monitor::record_scored for a single-observation request: drift + seal
 //! batch     Monitor::record_scored for requests of 100 observations, per observation
+//! open      ReceiptKeys::open of one receipt: base64, key lookup, HMAC check, fields
+//! outcome   OutcomeBook::report of one outcome: open, model and age checks, the seen set,
+//!           the calibration window
 //! ```
 //!
 //! A plain timing loop runs them round-robin over many repetitions and prints each one's
@@ -25,10 +27,12 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use ogive::engine::{Options, Scorer};
+use ogive::metrics::calibration::CalibrationMonitor;
 use ogive::metrics::drift::DriftMonitor;
 use ogive::metrics::monitor::{Monitor, MonitorSettings};
-use ogive::metrics::outcomes::{AnswerStore, StoredAnswer};
+use ogive::metrics::outcomes::{OutcomeBook, SeenReceipts};
 use ogive::model::{Model, Value};
+use ogive::receipt::{now_ms, ReceiptKeys, DEFAULT_MAX_AGE};
 use prometheus::Registry;
 use serde_json::json;
 
@@ -102,36 +106,52 @@ fn main() {
     let mut scorer = Scorer::new(&model);
     let registry = Registry::new();
     let drift = DriftMonitor::new(10_000, 1, &registry).expect("drift");
-    let store = AnswerStore::new(50_000, &Registry::new()).expect("store");
-    let monitor = Monitor::new(MonitorSettings::default(), &Registry::new()).expect("monitor");
+    let keys = Arc::new(ReceiptKeys::ephemeral().expect("a random key"));
+    let monitor = Monitor::new(
+        MonitorSettings::default(),
+        Arc::clone(&keys),
+        &Registry::new(),
+    )
+    .expect("monitor");
     let probabilities: Vec<f64> = batch
         .iter()
         .map(|v| scorer.score(&model, v, &options).probability)
         .collect();
-    let ids: Vec<String> = (0..REPETITIONS * BATCH)
-        .map(|i| format!("{:08x}-0000-4000-8000-{:012x}", i, i))
-        .collect();
-    // Fill the store and the windows first, so that every timed call also evicts.
-    for (i, id) in ids.iter().take(60_000).enumerate() {
+    // Fill the windows first.
+    for (i, values) in batch.iter().cycle().take(20_000).enumerate() {
         let p = probabilities[i % BATCH];
-        store.keep_single(id, &model, StoredAnswer::new(p, 0.0));
-        let values = &batch[i % BATCH];
-        monitor.record_scored(&model, id, true, values, [(p, 0.0)].into_iter());
+        let _ = monitor.record_scored(&model, values, [p].into_iter());
         drift.record(&model, values, p);
     }
+    // The receipts each repetition reports outcomes for: fresh ones, so none is a repeat.
+    let receipts: Vec<String> = keys
+        .seal_all(
+            model.name(),
+            model.version(),
+            now_ms(),
+            (0..REPETITIONS * BATCH).map(|i| probabilities[i % BATCH]),
+        )
+        .expect("sealed");
+    let calibration = CalibrationMonitor::new(10_000, &Registry::new()).expect("calibration");
+    let seen = SeenReceipts::new(REPETITIONS * BATCH);
+    let book = OutcomeBook {
+        keys: &keys,
+        seen: &seen,
+        calibration: &calibration,
+        max_age: DEFAULT_MAX_AGE,
+    };
 
-    let names = ["score", "drift", "store", "request", "batch"];
+    let names = [
+        "score", "drift", "seal", "request", "batch", "open", "outcome",
+    ];
     // The batch rows, flat, as the service hands them over: 1024 observations in requests of 100
     // (and one of 24).
     let flat: Vec<Value> = batch.iter().flatten().copied().collect();
     let width = model.covariates.len();
-    let answers: Vec<(f64, f64)> = probabilities.iter().map(|&p| (p, 0.0)).collect();
-    let batch_ids: Vec<String> = (0..REPETITIONS * BATCH.div_ceil(100))
-        .map(|i| format!("batch-{i:08}-0000-4000-8000-000000000000"))
-        .collect();
+    let now = now_ms();
     let mut samples: Vec<Vec<Duration>> = vec![Vec::with_capacity(REPETITIONS); names.len()];
     for repetition in 0..REPETITIONS {
-        let ids = &ids[repetition * BATCH..(repetition + 1) * BATCH];
+        let receipts = &receipts[repetition * BATCH..(repetition + 1) * BATCH];
         let started = Instant::now();
         for values in &batch {
             black_box(
@@ -147,25 +167,39 @@ fn main() {
         }
         samples[1].push(started.elapsed());
         let started = Instant::now();
-        for (id, &p) in ids.iter().zip(&probabilities) {
-            store.keep_single(black_box(id), &model, StoredAnswer::new(p, 0.0));
+        for &p in &probabilities {
+            let sealed = keys.seal_all(
+                model.name(),
+                model.version(),
+                now,
+                [black_box(p)].into_iter(),
+            );
+            black_box(sealed.expect("sealed"));
         }
         samples[2].push(started.elapsed());
         let started = Instant::now();
-        for ((values, &p), id) in batch.iter().zip(&probabilities).zip(ids) {
-            monitor.record_scored(&model, id, true, black_box(values), [(p, 0.0)].into_iter());
+        for (values, &p) in batch.iter().zip(&probabilities) {
+            let sealed = monitor.record_scored(&model, black_box(values), [p].into_iter());
+            black_box(sealed.expect("sealed"));
         }
         samples[3].push(started.elapsed());
         let started = Instant::now();
-        for (k, (rows, answers)) in flat
-            .chunks(100 * width)
-            .zip(answers.chunks(100))
-            .enumerate()
-        {
-            let id = &batch_ids[repetition * BATCH.div_ceil(100) + k];
-            monitor.record_scored(&model, id, false, black_box(rows), answers.iter().copied());
+        for (rows, ps) in flat.chunks(100 * width).zip(probabilities.chunks(100)) {
+            let sealed = monitor.record_scored(&model, black_box(rows), ps.iter().copied());
+            black_box(sealed.expect("sealed"));
         }
         samples[4].push(started.elapsed());
+        let started = Instant::now();
+        for receipt in receipts {
+            black_box(keys.open(black_box(receipt)).expect("opens"));
+        }
+        samples[5].push(started.elapsed());
+        let started = Instant::now();
+        for (i, receipt) in receipts.iter().enumerate() {
+            let recorded = book.report(model.name(), black_box(receipt), i % 3 == 0, now);
+            black_box(recorded.expect("recorded"));
+        }
+        samples[6].push(started.elapsed());
     }
     let medians: Vec<f64> = samples.iter_mut().map(|s| median(s)).collect();
     println!("per observation (median of {REPETITIONS} batches of {BATCH}):");

@@ -14,6 +14,7 @@
 //! service   the public and admin HTTP listeners: routes, problem details, limits, shadow,
 //!           shutdown
 //! metrics   the Prometheus registry; request metrics, drift windows, outcomes, calibration
+//! receipt   the sealed receipt on every answer: keys, sealing, opening
 //! cli       the subcommands of the binary, one file each
 //! ```
 #![warn(missing_docs)]
@@ -26,6 +27,7 @@ pub mod fit;
 pub mod link;
 pub mod metrics;
 pub mod model;
+pub mod receipt;
 pub mod registry;
 pub mod report;
 pub mod service;

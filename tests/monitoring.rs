@@ -1,5 +1,5 @@
-//! Monitoring with known answers: drift (the PSI of known shifts, computed by hand here), the
-//! answer store (ids, eviction, repeated outcomes), and live calibration against scikit-learn
+//! Monitoring with known answers: drift (the PSI of known shifts, computed by hand here),
+//! receipts and outcomes (models, ages, repeats, tampering), and live calibration against scikit-learn
 //! and statsmodels fixtures made by `tests/reference/monitoring/make_fixtures.py`. Values are
 //! read back through the Prometheus text exposition, as a scraper would see them.
 
@@ -8,8 +8,9 @@ use std::sync::Arc;
 
 use ogive::metrics::calibration::{self, CalibrationMonitor, Figures};
 use ogive::metrics::drift::{DriftBand, DriftMonitor, SHARE_FLOOR};
-use ogive::metrics::outcomes::{report_outcome, AnswerStore, OutcomeError, StoredAnswer};
+use ogive::metrics::outcomes::{OutcomeBook, OutcomeError, SeenReceipts};
 use ogive::model::{Model, Value};
+use ogive::receipt::{ReceiptKeys, DEFAULT_MAX_AGE};
 use prometheus::{Encoder, Registry, TextEncoder};
 use serde_json::{json, Value as Json};
 
@@ -629,165 +630,92 @@ fn the_calibration_window_keeps_the_most_recent_outcomes() {
 }
 
 // ---------------------------------------------------------------------------------------------
-// Answers and outcomes
+// Receipts and outcomes
 // ---------------------------------------------------------------------------------------------
 
-#[test]
-fn outcomes_find_single_and_batch_answers_by_id() {
-    let registry = Registry::new();
-    let store = AnswerStore::new(100, &registry).expect("store");
-    let model = drift_model("1");
-    store.keep_single("req-a", &model, StoredAnswer::new(0.3, -0.85));
-    store.keep_batch(
-        "req-b",
-        &model,
-        (0..5)
-            .map(|i| StoredAnswer::new(0.1 * f64::from(i), f64::from(i)))
-            .collect(),
-    );
-    let a = store
-        .claim("lease-test", "req-a", true)
-        .expect("single answer");
-    assert_eq!(
-        (a.version.as_str(), a.probability, a.linear_index, a.outcome),
-        ("1", 0.3, -0.85, 1)
-    );
-    let b3 = store
-        .claim("lease-test", "req-b/3", false)
-        .expect("4th of the batch");
-    assert_eq!(
-        (b3.probability, b3.linear_index, b3.outcome),
-        (0.1 * 3.0, 3.0, 0)
-    );
+const DAY_MS: u64 = 86_400_000;
 
-    let second = store.claim("lease-test", "req-b/3", true);
+/// An outcome book over `keys`, a fresh seen set of `seen` ids, `calibration`, and 400 days.
+fn book<'a>(
+    keys: &'a ReceiptKeys,
+    seen: &'a SeenReceipts,
+    calibration: &'a CalibrationMonitor,
+) -> OutcomeBook<'a> {
+    OutcomeBook {
+        keys,
+        seen,
+        calibration,
+        max_age: DEFAULT_MAX_AGE,
+    }
+}
+
+#[test]
+fn receipts_of_another_model_or_past_the_maximum_age_are_refused() {
+    let registry = Registry::new();
+    let calibration = CalibrationMonitor::new(100, &registry).expect("monitor");
+    let keys = ReceiptKeys::ephemeral().expect("key");
+    let seen = SeenReceipts::new(100);
+    let book = book(&keys, &seen, &calibration);
+    let scored_at = 1_700_000_000_000;
+    let receipts = keys
+        .seal_all("lease-test", "1", scored_at, [0.25, 0.5, 0.75].into_iter())
+        .expect("sealed");
     assert_eq!(
-        second,
-        Err(OutcomeError::AlreadyReported {
-            answer_id: "req-b/3".into(),
-            outcome: 0
+        book.report("rebate-test", &receipts[0], true, scored_at),
+        Err(OutcomeError::OtherModel {
+            receipt_model: "lease-test".into(),
+            route_model: "rebate-test".into(),
         })
     );
-    for (model, id) in [
-        ("lease-test", "req-b/5"),  // past the batch
-        ("lease-test", "req-b"),    // a batch answer needs its index
-        ("lease-test", "req-a/0"),  // a single answer has none
-        ("lease-test", "req-b/03"), // not a canonical index
-        ("lease-test", "never-given"),
-        ("other-model", "req-b/1"), // another model's answer
-    ] {
-        assert!(
-            matches!(
-                store.claim(model, id, true),
-                Err(OutcomeError::NotFound { .. })
-            ),
-            "{model} {id} must be NotFound"
-        );
-    }
-    // A request id containing '/' still resolves whole.
-    store.keep_single("tenant/7", &model, StoredAnswer::new(0.5, 0.0));
-    assert!(store.claim("lease-test", "tenant/7", true).is_ok());
+    // Exactly 400 days is still taken; 400 days and a second is not.
+    let recorded = book
+        .report("lease-test", &receipts[1], false, scored_at + 400 * DAY_MS)
+        .expect("taken on the last day");
+    assert_eq!((recorded.probability, recorded.outcome), (0.5, 0));
+    assert_eq!(recorded.scored_at, "2023-11-14T22:13:20Z");
+    let late = book.report(
+        "lease-test",
+        &receipts[2],
+        true,
+        scored_at + 400 * DAY_MS + 1_000,
+    );
+    assert!(
+        matches!(&late, Err(OutcomeError::Expired { age_seconds, .. }) if *age_seconds == 400 * 86_400 + 1),
+        "{late:?}"
+    );
+    // A refusal records nothing and remembers nothing: the receipt is still good for its model.
+    assert_eq!(seen.len(), 1);
+    assert!(book
+        .report("lease-test", &receipts[0], true, scored_at)
+        .is_ok());
+    let report = calibration.report("lease-test");
+    assert_eq!(report[0].outcomes_total, 2);
 }
 
 #[test]
-fn the_oldest_requests_are_evicted_and_counted() {
+fn a_repeat_is_refused_while_remembered_and_taken_once_forgotten() {
     let registry = Registry::new();
-    let store = AnswerStore::new(5, &registry).expect("store");
-    let model = drift_model("1");
-    for id in ["r1", "r2", "r3"] {
-        store.keep_single(id, &model, StoredAnswer::new(0.2, 0.0));
-    }
-    // 3 + 3 = 6 > 5: r1 goes.
-    store.keep_batch("r4", &model, vec![StoredAnswer::new(0.2, 0.0); 3]);
+    let calibration = CalibrationMonitor::new(100, &registry).expect("monitor");
+    let keys = ReceiptKeys::ephemeral().expect("key");
+    let seen = SeenReceipts::new(2);
+    let book = book(&keys, &seen, &calibration);
+    let receipts = keys
+        .seal_all("lease-test", "1", 0, [0.1, 0.2, 0.3].into_iter())
+        .expect("sealed");
+    book.report("lease-test", &receipts[0], true, 0)
+        .expect("first report");
     assert!(matches!(
-        store.claim("lease-test", "r1", true),
-        Err(OutcomeError::NotFound { .. })
+        book.report("lease-test", &receipts[0], true, 0),
+        Err(OutcomeError::AlreadyReported { .. })
     ));
-    assert!(store.claim("lease-test", "r2", true).is_ok());
-    assert!(store.claim("lease-test", "r4/2", true).is_ok());
-    // A batch larger than the store keeps its first 5 answers and evicts everything else.
-    store.keep_batch("r5", &model, vec![StoredAnswer::new(0.2, 0.0); 7]);
-    assert!(store.claim("lease-test", "r5/4", true).is_ok());
-    assert!(matches!(
-        store.claim("lease-test", "r5/5", true),
-        Err(OutcomeError::NotFound { .. })
-    ));
-    let summary = store.summary();
-    // Evicted: r1 (1), then r2, r3, r4 (1 + 1 + 3) to make room, and r5's last 2.
-    assert_eq!((summary.held, summary.evicted_total), (5, 8));
-    let samples = scrape(&registry);
-    assert_eq!(
-        series(&samples, "ogive_answers_evicted_total", &[]),
-        Some(8.0)
-    );
-    assert_eq!(series(&samples, "ogive_answers_held", &[]), Some(5.0));
-}
-
-#[test]
-fn concurrent_answers_are_all_found_later() {
-    let registry = Registry::new();
-    let store = AnswerStore::new(100_000, &registry).expect("store");
-    let model = drift_model("1");
-    let (threads, per_thread) = (4, 3_000);
-    std::thread::scope(|scope| {
-        for t in 0..threads {
-            let (store, model) = (&store, &model);
-            scope.spawn(move || {
-                for i in 0..per_thread {
-                    let answer = StoredAnswer::new(0.5, f64::from(t * per_thread + i));
-                    store.keep_single(&format!("t{t}-{i}"), model, answer);
-                }
-            });
-        }
-    });
-    for t in 0..threads {
-        for i in 0..per_thread {
-            let matched = store
-                .claim("lease-test", &format!("t{t}-{i}"), true)
-                .expect("every answer is kept");
-            assert_eq!(matched.linear_index, f64::from(t * per_thread + i));
-        }
-    }
-    let summary = store.summary();
-    assert_eq!((summary.held, summary.evicted_total), (12_000, 0));
-}
-
-#[test]
-fn a_reused_request_id_replaces_the_earlier_answers() {
-    let registry = Registry::new();
-    let store = AnswerStore::new(10, &registry).expect("store");
-    let model = drift_model("1");
-    store.keep_batch("same", &model, vec![StoredAnswer::new(0.2, 0.0); 4]);
-    store.keep_single("same", &model, StoredAnswer::new(0.7, 1.0));
-    let matched = store
-        .claim("lease-test", "same", true)
-        .expect("the newer answer");
-    assert_eq!(matched.probability, 0.7);
-    assert!(matches!(
-        store.claim("lease-test", "same/0", true),
-        Err(OutcomeError::NotFound { .. })
-    ));
-    assert_eq!(
-        (store.summary().held, store.summary().evicted_total),
-        (1, 4)
-    );
-    // Each reuse leaves an empty slot, and slots count toward the capacity, so reusing one id
-    // a thousand times pushes "same" out of a store of 10 but keeps only the last "again".
-    for i in 0..1_000 {
-        store.keep_single("again", &model, StoredAnswer::new(0.1, f64::from(i)));
-    }
-    assert_eq!(store.summary().held, 1);
-    assert!(matches!(
-        store.claim("lease-test", "same", true),
-        Err(OutcomeError::NotFound { .. })
-    ));
-    assert_eq!(
-        store
-            .claim("lease-test", "again", false)
-            .expect("last")
-            .linear_index,
-        999.0
-    );
+    book.report("lease-test", &receipts[1], true, 0)
+        .expect("second");
+    book.report("lease-test", &receipts[2], true, 0)
+        .expect("third");
+    // The set holds two ids, so the first has been forgotten: a replay past it is counted
+    // again. This is the documented limit: callers report each outcome once.
+    assert!(book.report("lease-test", &receipts[0], true, 0).is_ok());
+    assert_eq!(calibration.report("lease-test")[0].outcomes_total, 4);
 }
 
 #[test]
@@ -795,23 +723,19 @@ fn reported_outcomes_reach_the_calibration_gauges() {
     let cases = calibration_cases();
     let case = &cases[2];
     let registry = Registry::new();
-    let store = AnswerStore::new(10_000, &registry).expect("store");
     let monitor = CalibrationMonitor::new(10_000, &registry).expect("monitor");
-    let model = drift_model("7");
-    store.keep_batch(
-        "batch-1",
-        &model,
-        case.predictions
-            .iter()
-            .map(|&p| StoredAnswer::new(p, 0.0))
-            .collect(),
-    );
-    for (i, y) in case.outcomes.iter().enumerate() {
-        let id = format!("batch-1/{i}");
-        report_outcome(&store, &monitor, "lease-test", &id, *y).expect("a stored answer");
+    let keys = ReceiptKeys::ephemeral().expect("key");
+    let seen = SeenReceipts::new(10_000);
+    let book = book(&keys, &seen, &monitor);
+    let receipts = keys
+        .seal_all("lease-test", "7", 0, case.predictions.iter().copied())
+        .expect("sealed");
+    for (receipt, y) in receipts.iter().zip(&case.outcomes) {
+        book.report("lease-test", receipt, *y, 0)
+            .expect("a good receipt");
     }
     assert!(matches!(
-        report_outcome(&store, &monitor, "lease-test", "batch-1/0", true),
+        book.report("lease-test", &receipts[0], true, 0),
         Err(OutcomeError::AlreadyReported { .. })
     ));
     let samples = scrape(&registry);
@@ -867,6 +791,7 @@ mod http {
 
     use ogive::metrics::monitor::{Monitor, MonitorSettings};
     use ogive::metrics::Metrics;
+    use ogive::receipt::ReceiptKeys;
     use ogive::registry::Registry;
     use ogive::service::admin::{self, AdminState, AdminToken};
     use ogive::service::follow::Follower;
@@ -893,8 +818,14 @@ mod http {
     }
 
     /// A real server on 127.0.0.1:0 (public and admin listeners) serving the drift test model,
-    /// monitoring on or off.
+    /// monitoring on (with an ephemeral receipt key) or off.
     fn server(monitoring: bool) -> Served {
+        let keys = ReceiptKeys::ephemeral().expect("key");
+        server_with(monitoring.then(|| Arc::new(keys)))
+    }
+
+    /// As [`server`], monitoring on when given receipt keys.
+    fn server_with(keys: Option<Arc<ReceiptKeys>>) -> Served {
         let model = Arc::try_unwrap(drift_model("1")).unwrap_or_else(|m| (*m).clone());
         let registry = Arc::new(Registry::from_models([model]));
         let settings = Settings {
@@ -906,15 +837,17 @@ mod http {
         };
         let metrics = Metrics::new().expect("metrics");
         let state = AppState::new(registry, metrics, settings, true);
-        let state = if monitoring {
-            let windows = MonitorSettings {
-                answer_capacity: 1_000,
-                ..MonitorSettings::default()
-            };
-            let monitor = Monitor::new(windows, &state.metrics.registry).expect("monitor");
-            state.with_monitor(monitor)
-        } else {
-            state
+        let state = match keys {
+            Some(keys) => {
+                let windows = MonitorSettings {
+                    seen_receipts: 1_000,
+                    ..MonitorSettings::default()
+                };
+                let monitor =
+                    Monitor::new(windows, keys, &state.metrics.registry).expect("monitor");
+                state.with_monitor(monitor)
+            }
+            None => state,
         };
         let models = tempfile::tempdir().expect("tempdir");
         let follower = Arc::new(Follower::new(models.path(), &state));
@@ -1007,42 +940,47 @@ mod http {
         );
         assert_eq!(status, 200);
 
+        let receipt = |answer: &Json| answer["receipt"].as_str().expect("a receipt").to_string();
         let outcomes = "/models/lease-test/outcomes";
         let (status, matched) = post(
             &server,
             outcomes,
             None,
-            &json!({"answer_id": "one", "outcome": 1}),
+            &json!({"receipt": receipt(&single), "outcome": 1}),
         );
         assert_eq!(status, 200, "{matched}");
         assert_eq!(matched["probability"], single["probability"]);
         assert_eq!(matched["version"], "1");
+        assert_eq!(matched["receipt_id"].as_str().map(str::len), Some(32));
         let (status, problem) = post(
             &server,
             outcomes,
             None,
-            &json!({"answer_id": "one", "outcome": 0}),
+            &json!({"receipt": receipt(&single), "outcome": 0}),
         );
         assert_eq!(
             (status, problem["type"].as_str()),
             (409, Some("urn:ogive:problem:outcome-already-reported"))
         );
-        let (status, problem) = post(
+        // The caller's request id decides nothing: a second answer under the same id has its
+        // own receipt.
+        let (_, again) = post(
             &server,
-            outcomes,
-            None,
-            &json!({"answer_id": "never", "outcome": 0}),
+            probability,
+            Some("one"),
+            &json!({"observation": observation(6.0)}),
         );
-        assert_eq!(
-            (status, problem["type"].as_str()),
-            (404, Some("urn:ogive:problem:unknown-answer"))
-        );
+        assert_eq!(again["request_id"], "one");
+        assert_ne!(again["receipt"], single["receipt"]);
 
+        let mut altered = receipt(&batch["results"][2]).into_bytes();
+        altered[10] = if altered[10] == b'A' { b'B' } else { b'A' };
+        let altered = String::from_utf8(altered).expect("ascii");
         let reports = json!({"outcomes": [
-            {"answer_id": "many/0", "outcome": 0},
-            {"answer_id": "many/1", "outcome": true},
-            {"answer_id": "many/3", "outcome": 1},
-            {"answer_id": "many/4", "outcome": 1},
+            {"receipt": receipt(&batch["results"][0]), "outcome": 0},
+            {"receipt": receipt(&batch["results"][1]), "outcome": true},
+            {"receipt": receipt(&batch["results"][3]), "outcome": 1},
+            {"receipt": altered, "outcome": 1},
         ]});
         let (status, results) = post(&server, outcomes, None, &reports);
         assert_eq!(status, 200, "{results}");
@@ -1053,7 +991,11 @@ mod http {
             .iter()
             .map(|r| r["status"].as_u64().expect("status"))
             .collect();
-        assert_eq!(statuses, [200, 200, 200, 404]);
+        assert_eq!(statuses, [200, 200, 200, 422]);
+        assert_eq!(
+            results["results"][3]["type"],
+            "urn:ogive:problem:invalid-receipt"
+        );
         assert_eq!(
             results["results"][2]["probability"],
             batch["results"][3]["probability"]
@@ -1082,7 +1024,7 @@ mod http {
         };
         assert_eq!(line("ogive_outcomes_total{"), 4.0);
         assert!((line("ogive_brier_score{") - brier).abs() <= 1e-15);
-        assert_eq!(line("ogive_drift_window_observations{"), 5.0);
+        assert_eq!(line("ogive_drift_window_observations{"), 6.0);
         assert!(line("ogive_input_psi{covariate=\"amount\"") > 0.0);
 
         let (status, report) = admin_get(&server, "/models/lease-test/monitoring", true);
@@ -1093,14 +1035,15 @@ mod http {
             (version["version"].as_str(), version["live"].as_bool()),
             (Some("1"), Some(true))
         );
-        assert_eq!(version["drift"]["window_observations"], 5);
+        assert_eq!(version["drift"]["window_observations"], 6);
         assert_eq!(version["calibration"]["figures"]["count"], 4);
         assert_eq!(version["calibration"]["outcomes_total"], 4);
         let reported_brier = version["calibration"]["figures"]["brier_score"]
             .as_f64()
             .expect("brier");
         assert!((reported_brier - brier).abs() <= 1e-15);
-        assert_eq!(report["answers"]["held"], 5);
+        assert_eq!(report["receipts"]["seen"], 4);
+        assert_eq!(report["receipts"]["ephemeral_key"], true);
         server.stop().expect("stops");
     }
 
@@ -1137,26 +1080,29 @@ mod http {
             "an admin route"
         );
         let probability = "/models/lease-test/probability";
-        post(
+        let (_, one) = post(
             &server,
             probability,
             Some("doc-1"),
             &json!({"observation": observation(5.0)}),
         );
-        post(
+        let (_, two) = post(
             &server,
             probability,
             Some("doc-2"),
             &json!({"observations": [observation(1.0), observation(39.0)]}),
         );
-        let single = json!({"answer_id": "doc-1", "outcome": 1});
-        let batch = json!({"outcomes": [{"answer_id": "doc-2/0", "outcome": 0}, {"answer_id": "doc-2/9", "outcome": 1}]});
+        let single = json!({"receipt": one["receipt"], "outcome": 1});
+        let batch = json!({"outcomes": [
+            {"receipt": two["results"][0]["receipt"], "outcome": 0},
+            {"receipt": "not-a-receipt", "outcome": 1},
+        ]});
         assert_valid(&doc, "OutcomeReport", &single);
         assert_valid(&doc, "OutcomeReports", &batch);
         for bad in [
-            json!({"answer_id": "x", "outcome": 2}),
-            json!({"answer_id": "x"}),
-            json!({"answer_id": "x", "outcome": 1, "extra": 0}),
+            json!({"receipt": "x", "outcome": 2}),
+            json!({"receipt": "x"}),
+            json!({"receipt": "x", "outcome": 1, "extra": 0}),
         ] {
             assert!(
                 !schema(&doc, "OutcomeReport").is_valid(&bad),
@@ -1165,7 +1111,7 @@ mod http {
         }
         let (status, matched) = post(&server, "/models/lease-test/outcomes", None, &single);
         assert_eq!(status, 200);
-        assert_valid(&doc, "MatchedAnswer", &matched);
+        assert_valid(&doc, "RecordedOutcome", &matched);
         let (status, results) = post(&server, "/models/lease-test/outcomes", None, &batch);
         assert_eq!(status, 200);
         assert_valid(&doc, "OutcomeBatchResponse", &results);
@@ -1192,52 +1138,64 @@ mod http {
         let outcomes = "/models/lease-test/outcomes";
         let cases = [
             (
-                json!({"answer_id": "x", "outcome": 2}),
+                json!({"receipt": "x", "outcome": 2}),
                 422,
                 "invalid-body",
                 "/outcome",
             ),
             (
-                json!({"answer_id": "x", "outcome": "1"}),
+                json!({"receipt": "x", "outcome": "1"}),
                 422,
                 "invalid-body",
                 "/outcome",
             ),
-            (json!({"answer_id": "x"}), 422, "invalid-body", ""),
+            (json!({"receipt": "x"}), 422, "invalid-body", ""),
             (json!({"outcome": 1}), 422, "invalid-body", ""),
             (
-                json!({"answer_id": 7, "outcome": 1}),
+                json!({"receipt": 7, "outcome": 1}),
                 422,
                 "invalid-body",
-                "/answer_id",
+                "/receipt",
             ),
             (
-                json!({"answer_id": "", "outcome": 1}),
+                json!({"receipt": "", "outcome": 1}),
                 422,
-                "invalid-body",
-                "/answer_id",
+                "invalid-receipt",
+                "/receipt",
             ),
             (
-                json!({"answer_id": "x", "outcome": 1, "note": "late"}),
+                json!({"receipt": "x", "outcome": 1}),
+                422,
+                "invalid-receipt",
+                "/receipt",
+            ),
+            (
+                json!({"receipt": "x".repeat(2_000), "outcome": 1}),
+                422,
+                "invalid-receipt",
+                "/receipt",
+            ),
+            (
+                json!({"receipt": "x", "outcome": 1, "note": "late"}),
                 422,
                 "unknown-field",
                 "/note",
             ),
             (json!({"outcomes": []}), 422, "empty-batch", "/outcomes"),
             (
-                json!({"outcomes": {"answer_id": "x"}}),
+                json!({"outcomes": {"receipt": "x"}}),
                 422,
                 "invalid-body",
                 "/outcomes",
             ),
             (
-                json!({"outcomes": [{"answer_id": "x", "outcome": 1}, {"answer_id": "y", "outcome": -1}]}),
+                json!({"outcomes": [{"receipt": "x", "outcome": 1}, {"receipt": "y", "outcome": -1}]}),
                 422,
                 "invalid-body",
                 "/outcomes/1/outcome",
             ),
             (
-                json!({"outcomes": [], "answer_id": "x"}),
+                json!({"outcomes": [], "receipt": "x"}),
                 422,
                 "conflicting-fields",
                 "",
@@ -1258,7 +1216,7 @@ mod http {
             &server,
             "/models/no-such/outcomes",
             None,
-            &json!({"answer_id": "x", "outcome": 1}),
+            &json!({"receipt": "x", "outcome": 1}),
         );
         assert_eq!(
             (status, problem["type"].as_str()),
@@ -1271,21 +1229,75 @@ mod http {
         server.stop().expect("stops");
     }
 
+    /// A key file of `lines` in `dir`, readable by its owner only.
+    fn key_file(dir: &std::path::Path, name: &str, lines: &[&str]) -> Arc<ReceiptKeys> {
+        use std::os::unix::fs::PermissionsExt;
+        let path = dir.join(name);
+        std::fs::write(&path, lines.join("\n")).expect("written");
+        std::fs::set_permissions(&path, std::fs::Permissions::from_mode(0o600)).expect("chmod");
+        Arc::new(ReceiptKeys::from_file(&path).expect("keys"))
+    }
+
+    #[test]
+    fn a_receipt_opens_on_any_replica_with_the_key_and_survives_rotation_until_retired() {
+        let dir = tempfile::tempdir().expect("tempdir");
+        let old_key = "old-key-0123456789abcdef0123456789abcdef";
+        let new_key = "new-key-0123456789abcdef0123456789abcdef";
+        let scoring = server_with(Some(key_file(dir.path(), "before", &[old_key])));
+        let (_, answer) = post(
+            &scoring,
+            "/models/lease-test/probability",
+            None,
+            &json!({"observation": observation(12.0)}),
+        );
+        scoring.stop().expect("stops");
+        let report = json!({"receipt": answer["receipt"], "outcome": 1});
+        // A replica that has rotated (new key first, old one kept) takes it.
+        let rotated = server_with(Some(key_file(dir.path(), "rotated", &[new_key, old_key])));
+        let (status, recorded) = post(&rotated, "/models/lease-test/outcomes", None, &report);
+        assert_eq!(status, 200, "{recorded}");
+        assert_eq!(recorded["probability"], answer["probability"]);
+        rotated.stop().expect("stops");
+        // Once the old key is retired, its receipts no longer open.
+        let retired = server_with(Some(key_file(dir.path(), "retired", &[new_key])));
+        let (status, problem) = post(&retired, "/models/lease-test/outcomes", None, &report);
+        assert_eq!(
+            (
+                status,
+                problem["type"].as_str(),
+                problem["pointer"].as_str()
+            ),
+            (
+                422,
+                Some("urn:ogive:problem:invalid-receipt"),
+                Some("/receipt")
+            )
+        );
+        assert!(
+            problem["detail"]
+                .as_str()
+                .is_some_and(|d| d.contains("key this server does not hold")),
+            "{problem}"
+        );
+        retired.stop().expect("stops");
+    }
+
     #[test]
     fn with_monitoring_off_the_routes_say_so_and_export_nothing() {
         let server = server(false);
-        let (status, _) = post(
+        let (status, answer) = post(
             &server,
             "/models/lease-test/probability",
             None,
             &json!({"observation": observation(5.0)}),
         );
         assert_eq!(status, 200);
+        assert!(answer.get("receipt").is_none(), "{answer}");
         let (status, problem) = post(
             &server,
             "/models/lease-test/outcomes",
             None,
-            &json!({"answer_id": "x", "outcome": 1}),
+            &json!({"receipt": "x", "outcome": 1}),
         );
         assert_eq!(
             (status, problem["type"].as_str()),
@@ -1296,7 +1308,7 @@ mod http {
         assert!(body.contains("monitoring-off"));
         let (_, metrics) = get(&server, "/metrics");
         assert!(!metrics.contains("ogive_input_psi"));
-        assert!(!metrics.contains("ogive_answers_held"));
+        assert!(!metrics.contains("ogive_outcomes_total"));
         server.stop().expect("stops");
     }
 }

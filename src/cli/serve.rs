@@ -10,11 +10,13 @@ use std::net::SocketAddr;
 use std::path::PathBuf;
 use std::process::ExitCode;
 use std::sync::Arc;
+use std::time::Duration;
 
 use anyhow::Context;
 
 use crate::metrics::monitor::{Monitor, MonitorSettings};
 use crate::metrics::Metrics;
+use crate::receipt::{parse_max_age, ReceiptKeys};
 use crate::registry::load::load_directory;
 use crate::registry::watch::DEFAULT_INTERVAL;
 use crate::registry::Registry;
@@ -113,9 +115,38 @@ pub struct ServeArgs {
     /// Outcomes per model version in each calibration window.
     #[arg(long, env = "OGIVE_CALIBRATION_WINDOW", default_value_t = MonitorSettings::default().calibration_window)]
     pub calibration_window: usize,
-    /// Answers kept for outcome reports, across all models (the oldest are evicted first).
-    #[arg(long, env = "OGIVE_ANSWER_CAPACITY", default_value_t = MonitorSettings::default().answer_capacity)]
-    pub answer_capacity: usize,
+    /// File of receipt keys, one a line (at least 32 bytes each, mode 600): the first seals
+    /// receipts, all open them. Without it, an ephemeral key is made and receipts stop opening
+    /// when the process ends.
+    #[arg(long, env = "OGIVE_RECEIPT_KEY_FILE", value_name = "FILE")]
+    pub receipt_key_file: Option<PathBuf>,
+    /// The oldest receipt whose outcome is taken: a whole number and d, h, m or s.
+    #[arg(long, env = "OGIVE_RECEIPT_MAX_AGE", default_value = "400d", value_name = "AGE",
+          value_parser = parse_max_age)]
+    pub receipt_max_age: Duration,
+    /// Receipt ids this process remembers to refuse a repeated outcome (oldest forgotten first).
+    #[arg(long, env = "OGIVE_SEEN_RECEIPTS", default_value_t = MonitorSettings::default().seen_receipts)]
+    pub seen_receipts: usize,
+}
+
+/// The receipt keys of `file`, or an ephemeral key with one warning that its receipts will not
+/// open after a restart or on another replica.
+fn receipt_keys(file: Option<&std::path::Path>) -> anyhow::Result<ReceiptKeys> {
+    match file {
+        Some(path) => {
+            let keys = ReceiptKeys::from_file(path)?;
+            tracing::info!(file = %path.display(), keys = keys.len(), "receipt keys loaded");
+            Ok(keys)
+        }
+        None => {
+            let keys = ReceiptKeys::ephemeral()?;
+            tracing::warn!(
+                "no receipt key file (--receipt-key-file or OGIVE_RECEIPT_KEY_FILE): receipts are \
+                 sealed with an ephemeral key and will not verify after a restart or on another replica"
+            );
+            Ok(keys)
+        }
+    }
 }
 
 impl ServeArgs {
@@ -212,9 +243,11 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
             drift_window: args.drift_window,
             drift_shards: settings.worker_count(),
             calibration_window: args.calibration_window,
-            answer_capacity: args.answer_capacity,
+            seen_receipts: args.seen_receipts,
+            receipt_max_age: args.receipt_max_age,
         };
-        let monitor = Monitor::new(windows, &state.metrics.registry)?;
+        let keys = Arc::new(receipt_keys(args.receipt_key_file.as_deref())?);
+        let monitor = Monitor::new(windows, keys, &state.metrics.registry)?;
         state.with_monitor(monitor)
     } else {
         state

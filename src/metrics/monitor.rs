@@ -1,16 +1,14 @@
 //! The monitoring a serving process does beside scoring, in one handle: the drift windows, the
-//! answer store and the calibration windows, their sizes, and the report that combines them.
+//! receipt keys and the recently reported receipts, the calibration windows, their sizes, and
+//! the report that combines them.
 //!
 //! The service holds one [`Monitor`] (or none, when started with monitoring off) and makes two
-//! calls: [`Monitor::record_scored`] after scoring a request, and [`report_outcome`] when an
-//! outcome arrives. Everything here is bounded in memory by [`MonitorSettings`]; nothing here
-//! knows HTTP.
+//! calls: [`Monitor::record_scored`] after scoring a request (it records drift and seals one
+//! receipt per answer), and [`Monitor::report_outcome`] when an outcome arrives. Everything here
+//! is bounded in memory by [`MonitorSettings`]; nothing here knows HTTP.
 //!
-//! Cost, measured on the demo models: recording takes about 0.4 µs for a single-observation
-//! request and 66 ns per observation of a batch (`cargo bench --bench monitoring`); profiled in
-//! `ogive serve` under wrk load, these functions are about 1.3% (single observations) and 1.0%
-//! (batches of 100) of the process's CPU. `benches/monitoring_cost.sh` compares throughput with
-//! monitoring on and off.
+//! Cost: `cargo bench --bench monitoring` measures recording drift and sealing receipts per
+//! observation; `benches/monitoring_cost.sh` compares throughput with monitoring on and off.
 
 use std::collections::BTreeSet;
 use std::sync::Arc;
@@ -23,12 +21,11 @@ use super::calibration::{
     self, CalibrationMonitor, CalibrationSetupError, VersionCalibrationReport,
 };
 use super::drift::{self, DriftMonitor, DriftSetupError, VersionDriftReport};
-use super::outcomes::{
-    self, AnswerStore, MatchedAnswer, OutcomeError, StoreSetupError, StoreSummary, StoredAnswer,
-};
+use super::outcomes::{self, OutcomeBook, OutcomeError, RecordedOutcome, SeenReceipts};
 use crate::model::{Model, Value};
+use crate::receipt::{self, RandomError, ReceiptKeys};
 
-/// How much each monitoring window keeps.
+/// How much each monitoring window keeps, and how old a receipt may be.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct MonitorSettings {
     /// Observations per model version in the drift window.
@@ -37,8 +34,10 @@ pub struct MonitorSettings {
     pub drift_shards: usize,
     /// Outcomes per model version in the calibration window.
     pub calibration_window: usize,
-    /// Answers kept for outcomes, across all models.
-    pub answer_capacity: usize,
+    /// Receipt ids remembered to refuse a repeated outcome, across all models.
+    pub seen_receipts: usize,
+    /// The oldest receipt whose outcome is taken.
+    pub receipt_max_age: std::time::Duration,
 }
 
 impl Default for MonitorSettings {
@@ -47,7 +46,8 @@ impl Default for MonitorSettings {
             drift_window: drift::DEFAULT_WINDOW,
             drift_shards: std::thread::available_parallelism().map_or(1, |n| n.get()),
             calibration_window: calibration::DEFAULT_WINDOW,
-            answer_capacity: outcomes::DEFAULT_CAPACITY,
+            seen_receipts: outcomes::DEFAULT_SEEN_CAPACITY,
+            receipt_max_age: receipt::DEFAULT_MAX_AGE,
         }
     }
 }
@@ -61,20 +61,33 @@ pub enum MonitorSetupError {
     /// The calibration monitor.
     #[error(transparent)]
     Calibration(#[from] CalibrationSetupError),
-    /// The answer store.
-    #[error(transparent)]
-    Answers(#[from] StoreSetupError),
 }
 
-/// Drift, answers and calibration of a serving process.
+/// Drift, receipts and calibration of a serving process.
 #[derive(Debug, Clone)]
 pub struct Monitor {
     /// Input and prediction drift windows.
     pub drift: Arc<DriftMonitor>,
-    /// Recent answers awaiting outcomes.
-    pub answers: Arc<AnswerStore>,
+    /// The keys that seal and open receipts.
+    pub keys: Arc<ReceiptKeys>,
+    /// Receipts recently reported to this process.
+    pub seen: Arc<SeenReceipts>,
     /// Calibration windows.
     pub calibration: Arc<CalibrationMonitor>,
+    max_age: std::time::Duration,
+}
+
+/// This process's outcome bookkeeping, as the report shows it.
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct ReceiptSummary {
+    /// Receipt ids remembered to refuse repeats.
+    pub seen: usize,
+    /// The most remembered.
+    pub seen_capacity: usize,
+    /// The oldest receipt taken, in days.
+    pub max_age_days: f64,
+    /// Whether receipts are sealed with an ephemeral key (they stop opening on restart).
+    pub ephemeral_key: bool,
 }
 
 /// One version's monitoring, as the report shows it.
@@ -97,8 +110,8 @@ pub struct MonitorReport {
     pub model: String,
     /// Its versions seen by monitoring (and the live one), in label order.
     pub versions: Vec<VersionReport>,
-    /// The answer store, shared by all models.
-    pub answers: StoreSummary,
+    /// Receipts and repeated outcomes, shared by all models.
+    pub receipts: ReceiptSummary,
     /// How to read the figures.
     pub notes: Vec<&'static str>,
 }
@@ -112,59 +125,67 @@ const REPORT_NOTES: [&str; 3] = [
 ];
 
 impl Monitor {
-    /// Monitoring with these window sizes, its series registered in `registry`.
+    /// Monitoring with these window sizes, sealing and opening receipts with `keys`, its series
+    /// registered in `registry`.
     pub fn new(
         settings: MonitorSettings,
+        keys: Arc<ReceiptKeys>,
         registry: &Registry,
     ) -> Result<Monitor, MonitorSetupError> {
         Ok(Monitor {
             drift: DriftMonitor::new(settings.drift_window, settings.drift_shards, registry)?,
-            answers: AnswerStore::new(settings.answer_capacity, registry)?,
+            keys,
+            seen: Arc::new(SeenReceipts::new(settings.seen_receipts)),
             calibration: CalibrationMonitor::new(settings.calibration_window, registry)?,
+            max_age: settings.receipt_max_age,
         })
     }
 
     /// Record a scored request: each observation's values (`values` is `n × covariates`, in
-    /// order) and answer `(probability, linear index)` go into `model`'s drift window, and the
-    /// answers into the store under `request_id` — as `ID` when the request scored a single
-    /// observation, as `ID/0`, `ID/1`, … when it scored a batch.
+    /// order) and probability go into `model`'s drift window; returns one receipt per
+    /// probability, sealed now.
     pub fn record_scored(
         &self,
         model: &Model,
-        request_id: &str,
-        single: bool,
         values: &[Value],
-        answers: impl ExactSizeIterator<Item = (f64, f64)> + Clone,
-    ) {
+        probabilities: impl ExactSizeIterator<Item = f64> + Clone,
+    ) -> Result<Vec<String>, RandomError> {
         let width = model.covariates.len().max(1);
-        let probabilities = answers.clone().map(|(probability, _)| probability);
         self.drift
-            .record_many(model, values.chunks(width).zip(probabilities));
-        let mut kept =
-            answers.map(|(probability, linear_index)| StoredAnswer::new(probability, linear_index));
-        if single {
-            if let Some(answer) = kept.next() {
-                self.answers.keep_single(request_id, model, answer);
-            }
-        } else {
-            self.answers.keep_batch(request_id, model, kept.collect());
-        }
+            .record_many(model, values.chunks(width).zip(probabilities.clone()));
+        self.keys.seal_all(
+            model.name(),
+            model.version(),
+            receipt::now_ms(),
+            probabilities,
+        )
     }
 
-    /// Match an outcome to the answer `answer_id` of `model_name` and record it.
+    /// Check the receipt `token` for `model_name` and record `outcome` for the version it
+    /// names.
     pub fn report_outcome(
         &self,
         model_name: &str,
-        answer_id: &str,
+        token: &str,
         outcome: bool,
-    ) -> Result<MatchedAnswer, OutcomeError> {
-        outcomes::report_outcome(
-            &self.answers,
-            &self.calibration,
-            model_name,
-            answer_id,
-            outcome,
-        )
+    ) -> Result<RecordedOutcome, OutcomeError> {
+        OutcomeBook {
+            keys: &self.keys,
+            seen: &self.seen,
+            calibration: &self.calibration,
+            max_age: self.max_age,
+        }
+        .report(model_name, token, outcome, receipt::now_ms())
+    }
+
+    /// This process's receipt bookkeeping now.
+    pub fn receipt_summary(&self) -> ReceiptSummary {
+        ReceiptSummary {
+            seen: self.seen.len(),
+            seen_capacity: self.seen.capacity(),
+            max_age_days: self.max_age.as_secs_f64() / 86_400.0,
+            ephemeral_key: *self.keys.source() == receipt::KeySource::Ephemeral,
+        }
     }
 
     /// The report for `model_name`, marking `live_version` live.
@@ -193,7 +214,7 @@ impl Monitor {
         MonitorReport {
             model: model_name.to_string(),
             versions,
-            answers: self.answers.summary(),
+            receipts: self.receipt_summary(),
             notes: REPORT_NOTES.to_vec(),
         }
     }

@@ -531,6 +531,8 @@ pub struct AnswerView<'a> {
     pub shown: Shown,
     /// The observation's index in the batch.
     pub index: Option<usize>,
+    /// The answer's receipt, when monitoring sealed one.
+    pub receipt: Option<&'a str>,
 }
 
 impl Serialize for AnswerView<'_> {
@@ -540,6 +542,9 @@ impl Serialize for AnswerView<'_> {
             map.serialize_entry("index", &i)?;
         }
         put_answer(&mut map, self.model, self.answer, self.level, self.shown)?;
+        if let Some(receipt) = self.receipt {
+            map.serialize_entry("receipt", receipt)?;
+        }
         map.end()
     }
 }

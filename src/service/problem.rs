@@ -105,8 +105,10 @@ kinds! {
     NotComputable => "not-computable", 422, "The answer at these values is not a finite number";
     Internal => "internal", 500, "An unexpected error; it has been logged";
     Unavailable => "unavailable", 503, "The service is not ready";
-    UnknownAnswer => "unknown-answer", 404, "No answer of this model has this id (never given, or evicted)";
-    OutcomeAlreadyReported => "outcome-already-reported", 409, "The answer already has an outcome";
+    InvalidReceipt => "invalid-receipt", 422, "The receipt was altered, cut short, or sealed with a key this server does not hold";
+    ReceiptOfAnotherModel => "receipt-of-another-model", 422, "The receipt was given by another model than the route's";
+    ReceiptExpired => "receipt-expired", 422, "The receipt is older than the maximum age for outcomes";
+    OutcomeAlreadyReported => "outcome-already-reported", 409, "This replica has already recorded an outcome for the receipt";
     MonitoringOff => "monitoring-off", 404, "Monitoring is off in this process";
     Unauthorized => "unauthorized", 401, "The admin routes need a valid bearer token";
     InvalidLabel => "invalid-label", 422, "A model name or version label breaks its naming rule";

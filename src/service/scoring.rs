@@ -5,9 +5,12 @@
 //! finite (422 `not-computable`, never a `null` where a number is promised), and serializes.
 //!
 //! ```text
-//! one observation:  {request_id, model, version, link, level, <answer fields>, notes, [average_effects], [at_means]}
-//! a batch:          {request_id, model, version, link, level, count, results: [{index, <answer fields>}], notes, [average_effects], [at_means]}
+//! one observation:  {request_id, model, version, link, level, <answer fields>, [receipt], notes, [average_effects], [at_means]}
+//! a batch:          {request_id, model, version, link, level, count, results: [{index, <answer fields>, [receipt]}], notes, [average_effects], [at_means]}
 //! ```
+//!
+//! Receipts are sealed by monitoring ([`crate::metrics::monitor::Monitor::record_scored`]) and
+//! handed in with [`Scored::set_receipts`]; without monitoring an answer carries none.
 
 use serde::ser::{SerializeMap, SerializeSeq};
 use serde::{Serialize, Serializer};
@@ -67,6 +70,7 @@ pub struct Scored<'a> {
     answers: Vec<Answer>,
     averages: Option<(Average, Vec<Average>)>,
     at_means: Option<Answer>,
+    receipts: Vec<String>,
 }
 
 /// Score every observation (`values` is `n × covariates`, already checked).
@@ -159,6 +163,7 @@ pub fn score<'a>(
         answers,
         averages,
         at_means,
+        receipts: Vec::new(),
     })
 }
 
@@ -200,6 +205,7 @@ impl Serialize for Averages<'_> {
 struct Results<'a> {
     model: &'a Model,
     answers: &'a [Answer],
+    receipts: &'a [String],
     level: f64,
     shown: Shown,
 }
@@ -214,6 +220,7 @@ impl Serialize for Results<'_> {
                 level: self.level,
                 shown: self.shown,
                 index: Some(i),
+                receipt: self.receipts.get(i).map(String::as_str),
             })?;
         }
         seq.end()
@@ -266,6 +273,9 @@ impl Serialize for Scored<'_> {
                 if let Some(answer) = self.answers.first() {
                     put_answer(&mut map, model, answer, level, shown)?;
                 }
+                if let Some(receipt) = self.receipts.first() {
+                    map.serialize_entry("receipt", receipt)?;
+                }
             }
             Observations::Many(_) => {
                 map.serialize_entry("count", &self.answers.len())?;
@@ -274,6 +284,7 @@ impl Serialize for Scored<'_> {
                     &Results {
                         model,
                         answers: &self.answers,
+                        receipts: &self.receipts,
                         level,
                         shown,
                     },
@@ -317,12 +328,17 @@ impl Scored<'_> {
         &self.answers
     }
 
+    /// Give the answers their receipts, one per answer in order.
+    pub fn set_receipts(&mut self, receipts: Vec<String>) {
+        self.receipts = receipts;
+    }
+
     /// The answer's JSON bytes.
     pub fn to_json(&self) -> Result<Vec<u8>, Problem> {
         // Sized from the answer's shape (about 220 bytes per effect, 64 per contribution and
         // 160 per warning), so that a large batch is written without regrowing the buffer.
         let per_answer = self.answers.first().map_or(512, |a| {
-            320 + 220 * a.effects.len() + 64 * a.contributions.len() + 160 * a.warnings.len()
+            440 + 220 * a.effects.len() + 64 * a.contributions.len() + 160 * a.warnings.len()
         });
         let mut out = Vec::with_capacity(1024 + per_answer * self.answers.len());
         serde_json::to_writer(&mut out, self).map_err(|e| Problem::internal(&e))?;

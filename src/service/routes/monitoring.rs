@@ -1,7 +1,8 @@
 //! `GET /models/{name}/monitoring`, on the admin listener: the monitoring report of one model —
 //! for each version seen since the process started (and the live one), input drift per
 //! covariate and prediction drift with the bins behind them, and calibration over the outcomes
-//! reported so far — plus the size of the answer store.
+//! reported so far — plus this process's receipt bookkeeping (ids remembered, maximum age,
+//! whether the key is ephemeral).
 //!
 //! The report is built by [`crate::metrics::monitor::Monitor::report`]; this file only finds
 //! the model and serializes. The figures are this process's own: replicas each keep their own

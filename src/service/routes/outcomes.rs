@@ -1,20 +1,21 @@
-//! `POST /models/{name}/outcomes`: report the observed outcome of earlier answers, so that the
-//! answering version's live calibration can be measured.
+//! `POST /models/{name}/outcomes`: report the observed outcome of earlier answers, by their
+//! receipts, so that the answering version's live calibration can be measured. Any replica
+//! sharing the key file takes any receipt, up to the maximum age and across restarts.
 //!
 //! ```text
-//! one outcome   {"answer_id": "ID", "outcome": 1}
-//!               → 200 {answer_id, model, version, probability, linear_index, outcome}
-//!               → 404 unknown-answer (never given, or evicted), 409 outcome-already-reported
-//! a batch       {"outcomes": [{"answer_id": "ID/0", "outcome": 0}, ...]}
-//!               → 200 {model, recorded, results: [{answer_id, status, ...}]}, each result
-//!                 either the matched answer (status 200) or a problem's type and detail
-//!                 (status 404 or 409); the batch itself fails only if its shape is wrong
+//! one outcome   {"receipt": "...", "outcome": 1}
+//!               → 200 {receipt_id, model, version, probability, scored_at, outcome}
+//!               → 422 invalid-receipt (altered, cut, or an unknown key),
+//!                 422 receipt-of-another-model (naming both), 422 receipt-expired (its age),
+//!                 409 outcome-already-reported (a repeat this replica remembers)
+//! a batch       {"outcomes": [{"receipt": "...", "outcome": 0}, ...]}
+//!               → 200 {model, recorded, results: [{index, status, ...}]}, each result
+//!                 either the recorded outcome (status 200) or a problem's type and detail;
+//!                 the batch itself fails only if its shape is wrong
 //! ```
 //!
-//! An answer id is the request id of a single-observation answer, or `ID/i` for the i-th
-//! observation (from 0) of a batch answer; an outcome is 0 or 1 (`false` and `true` are taken
-//! too). The matching and the figures are [`crate::metrics::monitor`]'s; this file only parses
-//! and answers.
+//! An outcome is 0 or 1 (`false` and `true` are taken too). The checking and the figures are
+//! [`crate::metrics::monitor`]'s; this file only parses and answers.
 
 use actix_web::http::header;
 use actix_web::{web, HttpRequest, HttpResponse};
@@ -23,28 +24,25 @@ use serde_json::{json, Map, Value as Json};
 use super::models::find;
 use crate::metrics::monitor::Monitor;
 use crate::metrics::outcomes::OutcomeError;
+use crate::receipt::MAX_RECEIPT_CHARS;
 use crate::service::body::{parse_json, read_json_body};
 use crate::service::dto::json_kind;
 use crate::service::problem::{Kind, Problem};
-use crate::service::request_id::MAX_LENGTH;
 use crate::service::state::AppState;
-
-/// The longest answer id: a request id, `/`, and a batch index.
-const MAX_ANSWER_ID: usize = MAX_LENGTH + 1 + 20;
 
 /// The monitor, or 404 `monitoring-off`.
 pub fn monitor_of(state: &AppState) -> Result<&Monitor, Problem> {
     state.monitor.as_ref().ok_or_else(|| {
         Problem::new(
             Kind::MonitoringOff,
-            "this process was started with --monitoring off, so it keeps no answers, drift or calibration",
+            "this process was started with --monitoring off, so its answers carry no receipts and it keeps no drift or calibration",
         )
     })
 }
 
 /// One reported outcome, checked.
 struct Reported<'a> {
-    answer_id: &'a str,
+    receipt: &'a str,
     outcome: bool,
 }
 
@@ -58,44 +56,44 @@ fn parse_reported<'a>(value: &'a Json, base: &str) -> Result<Reported<'a>, Probl
     };
     if let Some(unknown) = fields
         .keys()
-        .find(|k| !matches!(k.as_str(), "answer_id" | "outcome"))
+        .find(|k| !matches!(k.as_str(), "receipt" | "outcome"))
     {
         let shown: String = unknown.chars().take(100).collect();
         return Err(Problem::new(
             Kind::UnknownField,
-            format!("'{shown}' is not a field of an outcome report (answer_id, outcome)"),
+            format!("'{shown}' is not a field of an outcome report (receipt, outcome)"),
         )
         .at(format!(
             "{base}/{}",
             crate::service::problem::escape_pointer_token(&shown)
         )));
     }
-    let answer_id = match fields.get("answer_id") {
-        Some(Json::String(s)) if !s.is_empty() && s.len() <= MAX_ANSWER_ID => s.as_str(),
+    let receipt = match fields.get("receipt") {
+        Some(Json::String(s)) if !s.is_empty() && s.len() <= MAX_RECEIPT_CHARS => s.as_str(),
         Some(Json::String(s)) => {
             return Err(Problem::new(
-                Kind::InvalidBody,
+                Kind::InvalidReceipt,
                 format!(
-                    "answer_id must have 1 to {MAX_ANSWER_ID} characters, got {}",
+                    "a receipt has 1 to {MAX_RECEIPT_CHARS} characters, got {}",
                     s.len()
                 ),
             )
-            .at(format!("{base}/answer_id")))
+            .at(format!("{base}/receipt")))
         }
         Some(other) => {
             return Err(Problem::new(
                 Kind::InvalidBody,
                 format!(
-                    "answer_id is the text id of an answer, got {}",
+                    "receipt is the text an answer carried as its receipt, got {}",
                     json_kind(other)
                 ),
             )
-            .at(format!("{base}/answer_id")))
+            .at(format!("{base}/receipt")))
         }
         None => {
             return Err(Problem::new(
                 Kind::InvalidBody,
-                "an outcome report needs answer_id: the request id of a single answer, or ID/i for the i-th observation of a batch",
+                "an outcome report needs receipt: the receipt the answer carried",
             )
             .at(base.to_string()))
         }
@@ -118,15 +116,18 @@ fn parse_reported<'a>(value: &'a Json, base: &str) -> Result<Reported<'a>, Probl
             )
         }
     };
-    Ok(Reported { answer_id, outcome })
+    Ok(Reported { receipt, outcome })
 }
 
-fn problem_of(error: &OutcomeError) -> Problem {
+/// The problem of a refused outcome; the pointer names the receipt of the report at `base`.
+fn problem_of(error: &OutcomeError, base: &str) -> Problem {
     let kind = match error {
-        OutcomeError::NotFound { .. } => Kind::UnknownAnswer,
+        OutcomeError::Receipt(_) => Kind::InvalidReceipt,
+        OutcomeError::OtherModel { .. } => Kind::ReceiptOfAnotherModel,
+        OutcomeError::Expired { .. } => Kind::ReceiptExpired,
         OutcomeError::AlreadyReported { .. } => Kind::OutcomeAlreadyReported,
     };
-    Problem::new(kind, error.to_string())
+    Problem::new(kind, error.to_string()).at(format!("{base}/receipt"))
 }
 
 fn ok_json(body: &Json) -> HttpResponse {
@@ -161,14 +162,14 @@ pub async fn report(
     let Some(list) = fields.get("outcomes") else {
         let reported = parse_reported(&body, "")?;
         let matched = monitor
-            .report_outcome(model, reported.answer_id, reported.outcome)
-            .map_err(|e| problem_of(&e))?;
+            .report_outcome(model, reported.receipt, reported.outcome)
+            .map_err(|e| problem_of(&e, ""))?;
         return Ok(ok_json(&json!(matched)));
     };
     if fields.len() > 1 {
         return Err(Problem::new(
             Kind::ConflictingFields,
-            "send either one report (answer_id, outcome) or a list under outcomes, not both",
+            "send either one report (receipt, outcome) or a list under outcomes, not both",
         )
         .at(""));
     }
@@ -202,27 +203,27 @@ pub async fn report(
     let mut recorded = 0;
     let results: Vec<Json> = reports
         .iter()
-        .map(
-            |r| match monitor.report_outcome(model, r.answer_id, r.outcome) {
+        .enumerate()
+        .map(|(i, r)| {
+            let mut item = Map::new();
+            item.insert("index".into(), json!(i));
+            match monitor.report_outcome(model, r.receipt, r.outcome) {
                 Ok(matched) => {
                     recorded += 1;
-                    let mut item = json!(matched);
-                    if let Some(map) = item.as_object_mut() {
-                        map.insert("status".into(), json!(200));
+                    item.insert("status".into(), json!(200));
+                    if let Json::Object(fields) = json!(matched) {
+                        item.extend(fields);
                     }
-                    item
                 }
                 Err(e) => {
-                    let problem = problem_of(&e);
-                    let mut item = Map::new();
-                    item.insert("answer_id".into(), json!(r.answer_id));
+                    let problem = problem_of(&e, &format!("/outcomes/{i}"));
                     item.insert("status".into(), json!(problem.kind.status()));
                     item.insert("type".into(), json!(problem.kind.type_uri()));
                     item.insert("detail".into(), json!(problem.detail));
-                    Json::Object(item)
                 }
-            },
-        )
+            }
+            Json::Object(item)
+        })
         .collect();
     Ok(ok_json(&json!({
         "model": model,

@@ -45,12 +45,13 @@ pub async fn probability(
         .cloned()
         .unwrap_or_else(RequestId::generate);
     let metrics = state.metrics.scoring(model);
-    let scored = score(model, &request, &values, request_id.as_str(), &metrics)?;
+    let mut scored = score(model, &request, &values, request_id.as_str(), &metrics)?;
     if let Some(monitor) = &state.monitor {
-        let single = matches!(request.observations, Observations::One(_));
-        let answers = scored.answers().iter();
-        let answers = answers.map(|a| (a.probability, a.linear_index));
-        monitor.record_scored(model, request_id.as_str(), single, &values, answers);
+        let probabilities = scored.answers().iter().map(|a| a.probability);
+        let receipts = monitor
+            .record_scored(model, &values, probabilities)
+            .map_err(|e| Problem::internal(&e))?;
+        scored.set_receipts(receipts);
     }
     let json = scored.to_json()?;
     if let Some(shadow) = &state.shadow {
