@@ -22,7 +22,10 @@
 //! Keys: a key file holds one key a line, each at least 32 bytes (blank lines are skipped);
 //! the first line seals, every line opens. To rotate, put the new key first and keep the old
 //! one below it until receipts sealed with it have passed their maximum age. A key file that
-//! its group or others may read or write is refused. Without a key file the server makes an
+//! others may read or write, or its group may write, is refused; its group may read it only
+//! when root owns it (how Kubernetes mounts a Secret for a pod with an `fsGroup`: root-owned,
+//! mode 0440, the pod's group; and how an administrator hands a root-owned key to a service's
+//! group). Without a key file the server makes an
 //! ephemeral key, and its receipts stop opening when the process ends. The fingerprint only
 //! picks which key to try (so "sealed with a key this server does not hold" reads apart from
 //! "altered"); the tag is checked in constant time by `hmac`. No key is ever logged or shown:
@@ -158,13 +161,20 @@ pub enum KeyFileError {
         /// The cause.
         source: std::io::Error,
     },
-    /// The file's group or others may read or write it.
-    #[error("the receipt key file {path} has mode {mode:03o}, so its group or others may read or change it; allow only its owner (chmod 600)")]
+    /// Others may read or write the file, or its group may write it, or its group may read a
+    /// file root does not own.
+    #[error("the receipt key file {path} has mode {mode:03o} and owner uid {owner}, so {who} may {what} it; allow only its owner (chmod 600), or, for a root-owned file, its group to read (chmod 440)")]
     Exposed {
         /// The file.
         path: PathBuf,
         /// Its permission bits.
         mode: u32,
+        /// The uid that owns it.
+        owner: u32,
+        /// Who has too much access: "others" or "its group".
+        who: &'static str,
+        /// What they may do: "read", "change" or "read and change".
+        what: &'static str,
     },
     /// A key is shorter than [`MIN_KEY_BYTES`].
     #[error("line {line} of the receipt key file {path} holds a {bytes}-byte key; a key has at least {MIN_KEY_BYTES} bytes (for example `head -c 32 /dev/urandom | base64`)")]
@@ -367,18 +377,42 @@ impl ReceiptKeys {
     }
 }
 
-/// Refuse a key file its group or others may read or write.
+/// Refuse a key file that others may read or write, that its group may write, or that its
+/// group may read when root does not own it.
 #[cfg(unix)]
 fn refuse_exposed(path: &Path, metadata: &std::fs::Metadata) -> Result<(), KeyFileError> {
-    use std::os::unix::fs::PermissionsExt;
-    let mode = metadata.permissions().mode() & 0o777;
-    if mode & 0o077 != 0 {
-        return Err(KeyFileError::Exposed {
+    use std::os::unix::fs::MetadataExt;
+    let mode = metadata.mode() & 0o777;
+    let owner = metadata.uid();
+    match exposure(mode, owner) {
+        None => Ok(()),
+        Some((who, what)) => Err(KeyFileError::Exposed {
             path: path.to_path_buf(),
             mode,
-        });
+            owner,
+            who,
+            what,
+        }),
     }
-    Ok(())
+}
+
+/// Who may do too much with a key file of permission bits `mode` owned by uid `owner`, and
+/// what: `None` when only its owner, or the group of a root-owned file, may read it.
+fn exposure(mode: u32, owner: u32) -> Option<(&'static str, &'static str)> {
+    let access = |bits: u32| match (bits & 0o4 != 0, bits & 0o2 != 0) {
+        (true, true) => Some("read and change"),
+        (true, false) => Some("read"),
+        (false, true) => Some("change"),
+        (false, false) => None,
+    };
+    if let Some(what) = access(mode & 0o7) {
+        return Some(("others", what));
+    }
+    let group = (mode >> 3) & 0o7;
+    if group & 0o2 != 0 || (group & 0o4 != 0 && owner != 0) {
+        return access(group).map(|what| ("its group", what));
+    }
+    None
 }
 
 #[cfg(not(unix))]
@@ -586,10 +620,38 @@ mod tests {
             std::fs::set_permissions(&open, std::fs::Permissions::from_mode(0o644)).expect("chmod");
             let refused = ReceiptKeys::from_file(&open);
             assert!(
-                matches!(refused, Err(KeyFileError::Exposed { mode: 0o644, .. })),
+                matches!(
+                    refused,
+                    Err(KeyFileError::Exposed {
+                        mode: 0o644,
+                        who: "others",
+                        ..
+                    })
+                ),
                 "{refused:?}"
             );
         }
+    }
+
+    #[test]
+    fn only_a_root_owned_key_file_may_be_read_by_its_group() {
+        // Owner-only modes, and the Kubernetes Secret of a pod with an fsGroup (root, 0440).
+        for (mode, owner) in [
+            (0o600, 1000),
+            (0o400, 1000),
+            (0o600, 0),
+            (0o440, 0),
+            (0o640, 0),
+        ] {
+            assert_eq!(exposure(mode, owner), None, "{mode:03o} owned by {owner}");
+        }
+        assert_eq!(exposure(0o640, 1000), Some(("its group", "read")));
+        assert_eq!(exposure(0o440, 65532), Some(("its group", "read")));
+        assert_eq!(exposure(0o660, 0), Some(("its group", "read and change")));
+        assert_eq!(exposure(0o620, 0), Some(("its group", "change")));
+        assert_eq!(exposure(0o604, 0), Some(("others", "read")));
+        assert_eq!(exposure(0o442, 0), Some(("others", "change")));
+        assert_eq!(exposure(0o446, 1000), Some(("others", "read and change")));
     }
 
     #[test]

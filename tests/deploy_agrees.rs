@@ -428,7 +428,11 @@ fn configmap_variant_checks_exactly_the_versions_it_mounts() {
     let ogive = container(spec, "ogive");
     let models = env_literal(ogive, "OGIVE_MODELS").expect("OGIVE_MODELS");
     let mut mounted = BTreeSet::new();
-    for volume in list(&spec["volumes"], "volumes") {
+    // The model volumes are the ConfigMap ones (the receipt keys are a Secret).
+    let model_volumes = list(&spec["volumes"], "volumes")
+        .iter()
+        .filter(|v| !v["configMap"].is_badvalue());
+    for volume in model_volumes {
         let name = text(&volume["name"], "volume name");
         let mount = list(&ogive["volumeMounts"], "volumeMounts")
             .iter()
@@ -481,6 +485,51 @@ fn configmap_variant_checks_exactly_the_versions_it_mounts() {
         checked, mounted,
         "files checked against version files mounted"
     );
+}
+
+/// Both server deployments give every replica the same receipt keys: OGIVE_RECEIPT_KEY_FILE
+/// names the file a read-only Secret volume places, mode 0400 (the kubelet adds group read for
+/// the fsGroup, which `ogive::receipt` accepts on a root-owned file), and the key file is read
+/// by the real parser's flag.
+#[test]
+fn every_server_deployment_mounts_the_shared_receipt_keys_owner_read_only() {
+    assert!(env_vars_of("serve").contains("OGIVE_RECEIPT_KEY_FILE"));
+    for file in SERVER_DEPLOYMENTS {
+        let deployment = manifest(file);
+        let spec = pod_spec(&deployment);
+        let ogive = container(spec, "ogive");
+        let key_file = env_literal(ogive, "OGIVE_RECEIPT_KEY_FILE")
+            .unwrap_or_else(|| panic!("{file}: OGIVE_RECEIPT_KEY_FILE is not set"));
+        let volume = list(&spec["volumes"], "volumes")
+            .iter()
+            .find(|v| v["secret"]["secretName"].as_str() == Some("ogive-receipt-keys"))
+            .unwrap_or_else(|| panic!("{file}: no volume of the Secret ogive-receipt-keys"));
+        let name = text(&volume["name"], "volume name");
+        let mount = list(&ogive["volumeMounts"], "volumeMounts")
+            .iter()
+            .find(|m| m["name"].as_str() == Some(name))
+            .unwrap_or_else(|| panic!("{file}: volume {name} is not mounted in the server"));
+        assert_eq!(mount["readOnly"].as_bool(), Some(true), "{file}: {name}");
+        let items = list(&volume["secret"]["items"], "secret items");
+        assert_eq!(items.len(), 1, "{file}: one key file");
+        assert_eq!(
+            format!(
+                "{}/{}",
+                text(&mount["mountPath"], "mountPath"),
+                text(&items[0]["path"], "item path")
+            ),
+            key_file,
+            "{file}: OGIVE_RECEIPT_KEY_FILE is the mounted file"
+        );
+        // Kubernetes reads `0400` as YAML 1.1 octal; this parser reads the digits as decimal.
+        let mode = integer(&volume["secret"]["defaultMode"], "defaultMode");
+        let mode = u32::from_str_radix(&mode.to_string(), 8).unwrap_or(u32::MAX);
+        assert_eq!(mode, 0o400, "{file}: the key Secret is owner-read only");
+        assert!(
+            !spec["securityContext"]["fsGroup"].is_badvalue(),
+            "{file}: without an fsGroup the server's user cannot read a root-owned 0400 file"
+        );
+    }
 }
 
 #[test]

@@ -1194,6 +1194,20 @@ mod http {
                 "invalid-body",
                 "/outcomes/1/outcome",
             ),
+            // Text outside the receipt alphabet is a malformed report: the whole batch is
+            // refused, not answered item by item.
+            (
+                json!({"outcomes": [{"receipt": "x", "outcome": 1}, {"receipt": "a+b", "outcome": 0}]}),
+                422,
+                "invalid-receipt",
+                "/outcomes/1/receipt",
+            ),
+            (
+                json!({"receipt": "abc=", "outcome": 1}),
+                422,
+                "invalid-receipt",
+                "/receipt",
+            ),
             (
                 json!({"outcomes": [], "receipt": "x"}),
                 422,

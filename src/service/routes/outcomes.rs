@@ -11,7 +11,9 @@
 //! a batch       {"outcomes": [{"receipt": "...", "outcome": 0}, ...]}
 //!               → 200 {model, recorded, results: [{index, status, ...}]}, each result
 //!                 either the recorded outcome (status 200) or a problem's type and detail;
-//!                 the batch itself fails only if its shape is wrong
+//!                 the batch itself fails only if its shape is wrong, a receipt's length or
+//!                 alphabet included (422 invalid-receipt at /outcomes/i/receipt, nothing
+//!                 recorded): text that cannot be a receipt is a malformed report
 //! ```
 //!
 //! An outcome is 0 or 1 (`false` and `true` are taken too). The checking and the figures are
@@ -69,7 +71,22 @@ fn parse_reported<'a>(value: &'a Json, base: &str) -> Result<Reported<'a>, Probl
         )));
     }
     let receipt = match fields.get("receipt") {
-        Some(Json::String(s)) if !s.is_empty() && s.len() <= MAX_RECEIPT_CHARS => s.as_str(),
+        Some(Json::String(s)) if !s.is_empty() && s.len() <= MAX_RECEIPT_CHARS => {
+            if let Some((at, c)) = s
+                .char_indices()
+                .find(|&(_, c)| !(c.is_ascii_alphanumeric() || c == '-' || c == '_'))
+            {
+                return Err(Problem::new(
+                    Kind::InvalidReceipt,
+                    format!(
+                        "a receipt is URL-safe base64 text (A–Z, a–z, 0–9, '-', '_'), but character {} is {c:?}",
+                        s[..at].chars().count() + 1
+                    ),
+                )
+                .at(format!("{base}/receipt")));
+            }
+            s.as_str()
+        }
         Some(Json::String(s)) => {
             return Err(Problem::new(
                 Kind::InvalidReceipt,
