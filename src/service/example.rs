@@ -1,7 +1,9 @@
-//! An example observation for a model, at its training means (numbers rounded to four
-//! significant digits and kept inside the training range; counts and binary covariates rounded
-//! to whole numbers; categorical covariates at their reference level), and the `curl` command
-//! that `ogive serve` prints at start-up.
+//! An example observation for a model, one training standard deviation above its training
+//! means (numbers rounded to three significant digits and kept inside the training range;
+//! counts rounded to whole numbers; a binary covariate at its less common value; a categorical
+//! covariate at its most frequent level other than the reference), and the `curl` command that
+//! `ogive serve` prints at start-up. Away from the means on purpose: contributions are measured
+//! from the training-mean profile, so at the means they would all be zero and show nothing.
 
 use serde_json::{json, Map, Value as Json};
 
@@ -16,24 +18,45 @@ fn round_significant(x: f64, digits: i32) -> f64 {
     (x * scale).round() / scale
 }
 
-/// A valid observation for `model` near the middle of its training data.
+/// A valid observation for `model`, inside its training data but away from its means.
 pub fn example_observation(model: &Model) -> Map<String, Json> {
     model
         .covariates
         .iter()
         .map(|c| {
+            let training = model
+                .file
+                .covariates
+                .iter()
+                .find(|spec| spec.name == c.name)
+                .map(|spec| &spec.training);
+            let spread = training
+                .and_then(|t| t.std_dev)
+                .filter(|s| s.is_finite() && *s > 0.0)
+                .unwrap_or((c.training_max - c.training_min) / 4.0);
             let value = match c.kind {
-                CovariateKind::Categorical => json!(c.levels[c.reference]),
-                CovariateKind::Count | CovariateKind::Binary => {
-                    json!(c
-                        .training_mean
-                        .round()
-                        .clamp(c.training_min.ceil(), c.training_max.floor())
-                        as i64)
+                CovariateKind::Categorical => {
+                    let counts = training.and_then(|t| t.level_counts.as_ref());
+                    let level = c
+                        .levels
+                        .iter()
+                        .enumerate()
+                        .filter(|(i, _)| *i != c.reference)
+                        .max_by_key(|(i, level)| {
+                            // Most frequent; among equals, the first in order.
+                            let count = counts.and_then(|m| m.get(*level)).copied().unwrap_or(0);
+                            (count, std::cmp::Reverse(*i))
+                        })
+                        .map_or(&c.levels[c.reference], |(_, level)| level);
+                    json!(level)
                 }
-                CovariateKind::Continuous => json!(
-                    round_significant(c.training_mean, 4).clamp(c.training_min, c.training_max)
-                ),
+                CovariateKind::Binary => json!(i64::from(c.training_mean < 0.5)),
+                CovariateKind::Count => json!((c.training_mean + spread)
+                    .round()
+                    .clamp(c.training_min.ceil(), c.training_max.floor())
+                    as i64),
+                CovariateKind::Continuous => json!(round_significant(c.training_mean + spread, 3)
+                    .clamp(c.training_min, c.training_max)),
             };
             (c.name.clone(), value)
         })
@@ -49,4 +72,27 @@ pub fn example_curl(model: &Model, base_url: &str) -> String {
         "curl -s -H 'Content-Type: application/json' -d '{quoted}' {base_url}/models/{}/probability",
         model.name()
     )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_example_applicant_is_away_from_every_training_mean() {
+        let path = concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/model-files/lease-arrears/versions/1.0.0.json"
+        );
+        let model = Model::from_json(&std::fs::read(path).expect("read")).expect("valid");
+        let example = example_observation(&model);
+        // The demo's training summaries: revenue mean 620.3, sd 583.8; years 9.252, sd 8.862;
+        // prior arrears mean 0.61, sd 0.78; guarantor mean 0.35; retail the most frequent
+        // non-reference sector (4,624 of 20,000).
+        assert_eq!(
+            serde_json::Value::Object(example),
+            json!({"annual_revenue": 1200.0, "years_trading": 18.1, "prior_arrears": 1,
+                   "guarantor": 1, "sector": "retail"})
+        );
+    }
 }
