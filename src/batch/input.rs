@@ -23,26 +23,22 @@ const READ_BUFFER_BYTES: usize = 64 * 1024;
 pub struct RowStream<R: Read> {
     reader: csv::Reader<R>,
     header: ByteRecord,
-    columns: Vec<usize>,
+    covariates: CovariateColumns,
     record: ByteRecord,
-    values: Vec<Value>,
     row: u64,
 }
 
-impl<R: Read> RowStream<R> {
-    /// Read the header of `input` and find each covariate's column.
-    pub fn new(model: &Model, input: R) -> Result<RowStream<R>, BatchError> {
-        let mut reader = csv::ReaderBuilder::new()
-            .has_headers(true)
-            // Rows of the wrong length are reported per row (and can be skipped), not as a
-            // read failure that ends the file.
-            .flexible(true)
-            .buffer_capacity(READ_BUFFER_BYTES)
-            .from_reader(input);
-        let header = reader.byte_headers().map_err(BatchError::Read)?.clone();
-        if header.iter().all(<[u8]>::is_empty) {
-            return Err(BatchError::NoHeader);
-        }
+/// Where each of one model's covariates sits in a header, with the value buffer its rows are
+/// parsed into. A [`RowStream`] holds one for its own model; [`RowStream::columns_for`] makes
+/// another for a second model read from the same rows.
+#[derive(Debug, Clone)]
+pub struct CovariateColumns {
+    columns: Vec<usize>,
+    values: Vec<Value>,
+}
+
+impl CovariateColumns {
+    fn find(model: &Model, header: &ByteRecord) -> Result<CovariateColumns, BatchError> {
         let names: Vec<String> = header
             .iter()
             .map(|f| String::from_utf8_lossy(f).trim().to_string())
@@ -67,14 +63,81 @@ impl<R: Read> RowStream<R> {
             }
             columns.push(first);
         }
+        Ok(CovariateColumns {
+            columns,
+            values: Vec::with_capacity(model.covariates.len()),
+        })
+    }
+
+    #[inline]
+    fn parse(
+        &mut self,
+        model: &Model,
+        header: &ByteRecord,
+        record: &ByteRecord,
+        row: u64,
+    ) -> Result<&[Value], RowError> {
+        let at = |problem| RowError {
+            row,
+            line: record.position().map_or(0, |p| p.line()),
+            problem,
+        };
+        if record.len() != header.len() {
+            return Err(at(RowProblem::FieldCount {
+                expected: header.len(),
+                found: record.len(),
+            }));
+        }
+        self.values.clear();
+        for (j, &column) in self.columns.iter().enumerate() {
+            let name = || model.covariates[j].name.clone();
+            let bytes = &record[column];
+            let text = std::str::from_utf8(bytes)
+                .map_err(|_| at(RowProblem::NotUtf8 { covariate: name() }))?
+                .trim();
+            if text.is_empty() {
+                return Err(at(RowProblem::Empty { covariate: name() }));
+            }
+            let value = model
+                .parse_text_value(j, text)
+                .map_err(|e| at(RowProblem::Value(e)))?;
+            self.values.push(value);
+        }
+        model
+            .check_values(&self.values)
+            .map_err(|e| at(RowProblem::Value(e)))?;
+        Ok(&self.values)
+    }
+}
+
+impl<R: Read> RowStream<R> {
+    /// Read the header of `input` and find each covariate's column.
+    pub fn new(model: &Model, input: R) -> Result<RowStream<R>, BatchError> {
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(true)
+            // Rows of the wrong length are reported per row (and can be skipped), not as a
+            // read failure that ends the file.
+            .flexible(true)
+            .buffer_capacity(READ_BUFFER_BYTES)
+            .from_reader(input);
+        let header = reader.byte_headers().map_err(BatchError::Read)?.clone();
+        if header.iter().all(<[u8]>::is_empty) {
+            return Err(BatchError::NoHeader);
+        }
+        let covariates = CovariateColumns::find(model, &header)?;
         Ok(RowStream {
             reader,
             header,
-            columns,
+            covariates,
             record: ByteRecord::new(),
-            values: Vec::with_capacity(model.covariates.len()),
             row: 0,
         })
+    }
+
+    /// Match another model's covariates against this input's header, so that each row can
+    /// also be parsed for that model with [`RowStream::parse_for`].
+    pub fn columns_for(&self, model: &Model) -> Result<CovariateColumns, BatchError> {
+        CovariateColumns::find(model, &self.header)
     }
 
     /// The header row as read.
@@ -119,35 +182,17 @@ impl<R: Read> RowStream<R> {
     /// check the model asks for (finite numbers, whole counts, log domains, known levels).
     #[inline]
     pub fn parse(&mut self, model: &Model) -> Result<&[Value], RowError> {
-        let at = |problem| RowError {
-            row: self.row,
-            line: self.record.position().map_or(0, |p| p.line()),
-            problem,
-        };
-        if self.record.len() != self.header.len() {
-            return Err(at(RowProblem::FieldCount {
-                expected: self.header.len(),
-                found: self.record.len(),
-            }));
-        }
-        self.values.clear();
-        for (j, &column) in self.columns.iter().enumerate() {
-            let name = || model.covariates[j].name.clone();
-            let bytes = &self.record[column];
-            let text = std::str::from_utf8(bytes)
-                .map_err(|_| at(RowProblem::NotUtf8 { covariate: name() }))?
-                .trim();
-            if text.is_empty() {
-                return Err(at(RowProblem::Empty { covariate: name() }));
-            }
-            let value = model
-                .parse_text_value(j, text)
-                .map_err(|e| at(RowProblem::Value(e)))?;
-            self.values.push(value);
-        }
-        model
-            .check_values(&self.values)
-            .map_err(|e| at(RowProblem::Value(e)))?;
-        Ok(&self.values)
+        self.covariates
+            .parse(model, &self.header, &self.record, self.row)
+    }
+
+    /// [`RowStream::parse`] for the model that `columns` was made for.
+    #[inline]
+    pub fn parse_for<'c>(
+        &self,
+        model: &Model,
+        columns: &'c mut CovariateColumns,
+    ) -> Result<&'c [Value], RowError> {
+        columns.parse(model, &self.header, &self.record, self.row)
     }
 }

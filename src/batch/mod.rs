@@ -29,7 +29,7 @@ pub mod tally;
 use std::collections::BTreeMap;
 use std::io::{Read, Write};
 
-pub use input::RowStream;
+pub use input::{CovariateColumns, RowStream};
 pub use output::{effect_column, output_columns, RowWriter};
 pub use pending::PendingFile;
 pub use shard::{BadShard, Shard};

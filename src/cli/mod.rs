@@ -8,6 +8,7 @@ use clap::{Parser, Subcommand};
 
 pub mod check;
 pub mod describe;
+pub mod evaluate;
 pub mod fit;
 pub mod lifecycle;
 pub mod like;
@@ -36,6 +37,9 @@ pub enum Command {
     Score(score::ScoreArgs),
     /// Print a reviewer's report on a model, optionally with plots.
     Describe(describe::DescribeArgs),
+    /// Measure a model's discrimination and calibration on labelled rows, alone or against a
+    /// second model on the same rows.
+    Evaluate(evaluate::EvaluateArgs),
     /// Make a stored version the live version of a model.
     Promote(lifecycle::PromoteArgs),
     /// Return a model to the version that was live before the last promotion.
@@ -73,6 +77,7 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Check(args) => check::run(args),
         Command::Score(args) => score::run(args),
         Command::Describe(args) => describe::run(args),
+        Command::Evaluate(args) => evaluate::run(args),
         Command::Promote(args) => lifecycle::promote(args),
         Command::Rollback(args) => lifecycle::rollback(args),
         Command::History(args) => lifecycle::history(args),

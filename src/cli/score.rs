@@ -138,7 +138,7 @@ pub fn run(args: ScoreArgs) -> anyhow::Result<ExitCode> {
 }
 
 /// A progress bar on standard error, only when standard error is a terminal.
-fn progress_bar(length: Option<u64>) -> Option<indicatif::ProgressBar> {
+pub(crate) fn progress_bar(length: Option<u64>) -> Option<indicatif::ProgressBar> {
     if !io::stderr().is_terminal() {
         return None;
     }

@@ -9,6 +9,7 @@
 //! bins.rs         the reliability table (Wilson intervals) and Murphy's Brier decomposition
 //! hosmer.rs       the Hosmer–Lemeshow statistic over deciles of risk
 //! paired.rs       per-row Brier and log-loss differences, the paired AUC test, the verdict
+//! report.rs       the report value, its text rendering and its JSON (the evidence)
 //! labelled.rs     one pass over a labelled CSV: outcome and covariates read as `ogive score`
 //!                 reads them, scored by one or two models, fed to the accumulators
 //! ```
@@ -26,13 +27,16 @@ mod auc;
 mod bins;
 mod calibration;
 mod hosmer;
+pub mod labelled;
 mod paired;
+pub mod report;
 mod rows;
 
 pub use auc::{Auc, AucDifference};
 pub use bins::{wilson, BrierDecomposition, ReliabilityBin, RELIABILITY_BINS};
 pub use calibration::CalibrationFit;
 pub use hosmer::{HosmerLemeshow, RiskGroup, RISK_GROUPS};
+pub use labelled::{read_labelled, Labelled, LabelledError, LabelledRowError, LabelledSummary};
 pub use paired::{compare, Comparison, Favours, MeanDifference, Names, PairedRows, Verdict};
 pub use rows::{Forecast, ModelRows, PROBABILITY_EDGE};
 

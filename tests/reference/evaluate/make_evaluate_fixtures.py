@@ -28,6 +28,11 @@ figures computed by libraries outside the project:
                    (mean, std(ddof=1)/sqrt(N)), and DeLong's paired test from the same
                    placements (covariance of the two AUCs), p-values from scipy.stats.norm
 
+A last section, "spector", evaluates statsmodels' own logit and probit fits of the Spector &
+Mazzeo (1980) data that statsmodels ships (GRADE on GPA, TUCE, PSI; the same fits as
+tests/reference/describe/spector.json) on their 32 training rows, logit against probit, so that
+`ogive evaluate` run as a process can be checked end to end.
+
 Intervals are at level 0.95 with scipy.stats.norm.ppf(0.975). No probability lies within 1e-15
 of 0 or 1, where ogive's clip bound and scikit-learn's would differ.
 
@@ -290,6 +295,23 @@ def main():
         "n = 2000; y ~ Bernoulli(min(p + 0.03, 1))",
         y, p))
 
+    data = sm.datasets.spector.load_pandas().data
+    X = sm.add_constant(data[["GPA", "TUCE", "PSI"]])
+    y = data["GRADE"].to_numpy(dtype=float)
+    fits = {
+        link: model(data["GRADE"], X).fit(disp=0, method="newton", tol=1e-14, maxiter=100)
+        for link, model in (("logit", sm.Logit), ("probit", sm.Probit))
+    }
+    logit_p, probit_p = (fits[k].predict(X).to_numpy() for k in ("logit", "probit"))
+    spector = {
+        "recipe": "statsmodels.datasets.spector; Logit and Probit of GRADE on const, GPA, TUCE, PSI "
+                  "(Newton, tol 1e-14); first = logit, second = probit; the 32 training rows",
+        "outcomes": [int(v) for v in y],
+        "first": {"probabilities": [float(v) for v in logit_p], "figures": figures(y, logit_p)},
+        "second": {"probabilities": [float(v) for v in probit_p], "figures": figures(y, probit_p)},
+        "paired": paired(y, logit_p, probit_p),
+    }
+
     out = {
         "generated_by": "tests/reference/evaluate/make_evaluate_fixtures.py",
         "level": LEVEL,
@@ -300,6 +322,7 @@ def main():
             "statsmodels": statsmodels.__version__,
         },
         "cases": cases,
+        "spector": spector,
     }
     path = pathlib.Path(__file__).with_name("evaluate.json")
     path.write_text(json.dumps(out, indent=1) + "\n")

@@ -1,0 +1,579 @@
+//! `ogive evaluate`, run as a process: statsmodels' logit and probit fits of the Spector &
+//! Mazzeo (1980) data evaluated on their training rows, logit against probit, with every figure
+//! checked against `tests/reference/evaluate/evaluate.json` (scikit-learn, statsmodels, scipy;
+//! see `make_evaluate_fixtures.py`); the identities of a logit fitted by maximum likelihood on
+//! its own data; the model directory's stored and live versions; and the errors a bad file or a
+//! bad request gets.
+
+#[path = "reference/describe/support.rs"]
+mod support;
+
+use serde_json::Value as Json;
+use sha2::{Digest, Sha256};
+use support::{data_path, model_json, run, write_model};
+
+/// Tolerances, each beside the source it compares with.
+mod tolerance {
+    /// Figures from the process against scikit-learn / statsmodels / numpy on the Spector rows:
+    /// relative. ogive's probabilities from the model file agree with statsmodels' `predict`
+    /// to about 1e-15 (the file carries the coefficients to the last digit), and the figures
+    /// are smooth in them; 1e-9 leaves room for the different summation orders on 32 rows.
+    pub const REFERENCE: f64 = 1e-9;
+    /// Below this a figure is compared absolutely (an intercept of 1e-16 is 0).
+    pub const FLOOR: f64 = 1e-6;
+    /// The likelihood equations of a logit with an intercept, at the statsmodels estimate
+    /// (Newton, tol 1e-14): Σ (y − p) = 0 and Σ (y − p) z = 0, so on the training rows the
+    /// calibration intercept is 0 and the slope 1 (common practice). Absolute.
+    pub const SCORE_EQUATIONS: f64 = 1e-7;
+}
+
+fn reference() -> Json {
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/evaluate/evaluate.json"
+    );
+    serde_json::from_str(&std::fs::read_to_string(path).expect("evaluate.json")).expect("JSON")
+}
+
+fn f(v: &Json) -> f64 {
+    v.as_f64().unwrap_or_else(|| panic!("not a number: {v}"))
+}
+
+#[track_caller]
+fn close(actual: &Json, expected: &Json, what: &str) {
+    let (a, e) = (f(actual), f(expected));
+    let scale = e.abs().max(tolerance::FLOOR);
+    assert!(
+        (a - e).abs() <= tolerance::REFERENCE * scale,
+        "{what}: got {a:e}, expected {e:e} (relative {:e})",
+        tolerance::REFERENCE
+    );
+}
+
+fn sha256_of(path: &std::path::Path) -> String {
+    let bytes = std::fs::read(path).expect("read");
+    Sha256::digest(&bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
+}
+
+struct Setup {
+    dir: tempfile::TempDir,
+    logit: std::path::PathBuf,
+    probit: std::path::PathBuf,
+}
+
+fn setup() -> Setup {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let logit = write_model(dir.path(), "logit.json", &model_json("logit"));
+    let probit = write_model(dir.path(), "probit.json", &model_json("probit"));
+    Setup { dir, logit, probit }
+}
+
+fn evaluate_json(args: &[&str]) -> Json {
+    let mut all = vec!["evaluate", "--format", "json"];
+    all.extend_from_slice(args);
+    let result = run(&all, None, &[]);
+    assert_eq!(result.code, 0, "{}", result.stderr);
+    serde_json::from_str(&result.stdout).expect("evaluate --format json prints JSON")
+}
+
+fn check_figures(got: &Json, want: &Json, who: &str) {
+    let what = |s: &str| format!("{who}: {s}");
+    close(&got["brier"], &want["brier"], &what("Brier (sklearn)"));
+    close(
+        &got["brier_interval"]["std_error"],
+        &want["brier_std_error"],
+        &what("Brier SE (numpy)"),
+    );
+    close(
+        &got["log_loss"],
+        &want["log_loss"],
+        &what("log loss (sklearn)"),
+    );
+    close(
+        &got["log_loss_interval"]["std_error"],
+        &want["log_loss_std_error"],
+        &what("log loss SE (numpy)"),
+    );
+    close(
+        &got["auc"]["estimate"],
+        &want["auc"],
+        &what("AUC (sklearn)"),
+    );
+    close(
+        &got["auc"]["std_error"],
+        &want["auc_std_error"],
+        &what("AUC SE (DeLong, numpy)"),
+    );
+    for key in ["calibration_intercept", "calibration_slope"] {
+        close(
+            &got[key]["estimate"],
+            &want[key]["estimate"],
+            &what(&format!("{key} (statsmodels GLM)")),
+        );
+        close(
+            &got[key]["std_error"],
+            &want[key]["std_error"],
+            &what(&format!("{key} SE (statsmodels GLM)")),
+        );
+    }
+    close(
+        &got["hosmer_lemeshow"]["statistic"],
+        &want["hosmer_lemeshow"]["statistic"],
+        &what("H (numpy)"),
+    );
+    close(
+        &got["hosmer_lemeshow"]["p_value"],
+        &want["hosmer_lemeshow"]["p_value"],
+        &what("H p (scipy)"),
+    );
+    let bins = got["reliability"].as_array().expect("reliability");
+    for (bin, reference) in bins
+        .iter()
+        .zip(want["reliability"].as_array().expect("bins"))
+    {
+        assert_eq!(bin["count"], reference["count"], "{who}: bin count");
+        assert_eq!(bin["events"], reference["events"], "{who}: bin events");
+        if reference["count"] != 0 {
+            close(
+                &bin["observed"],
+                &reference["observed"],
+                &what("bin observed (calibration_curve)"),
+            );
+            close(
+                &bin["observed_interval"]["lower"],
+                &reference["wilson"][0],
+                &what("Wilson lower"),
+            );
+            close(
+                &bin["observed_interval"]["upper"],
+                &reference["wilson"][1],
+                &what("Wilson upper"),
+            );
+        }
+    }
+}
+
+#[test]
+fn logit_against_probit_on_the_spector_rows_matches_the_reference_libraries() {
+    let s = setup();
+    let data = data_path();
+    let report = evaluate_json(&[
+        "--data",
+        data.to_str().unwrap(),
+        "--outcome",
+        "grade",
+        "--model",
+        s.logit.to_str().unwrap(),
+        "--against",
+        s.probit.to_str().unwrap(),
+    ]);
+    let want = &reference()["spector"];
+
+    assert_eq!(report["report"], "ogive-evaluation");
+    assert_eq!(report["data"]["sha256"], sha256_of(&data));
+    assert_eq!(
+        report["data"]["bytes"],
+        std::fs::metadata(&data).unwrap().len()
+    );
+    assert_eq!(report["data"]["rows_read"], 32);
+    assert_eq!(report["data"]["rows_evaluated"], 32);
+    assert_eq!(report["data"]["rows_skipped"], 0);
+    let models = report["models"].as_array().expect("models");
+    assert_eq!(models.len(), 2);
+    for (model, (path, name)) in models
+        .iter()
+        .zip([(&s.logit, "spector-logit"), (&s.probit, "spector-probit")])
+    {
+        assert_eq!(model["name"], name);
+        assert_eq!(model["version"], "1");
+        assert_eq!(model["sha256"], sha256_of(path));
+    }
+    assert_eq!(models[0]["role"], "evaluated");
+    assert_eq!(models[1]["role"], "against");
+    check_figures(&models[0]["figures"], &want["first"]["figures"], "logit");
+    check_figures(&models[1]["figures"], &want["second"]["figures"], "probit");
+
+    let (got, paired) = (&report["comparison"], &want["paired"]);
+    close(
+        &got["auc"]["difference"],
+        &paired["auc"]["difference"],
+        "AUC difference (sklearn)",
+    );
+    close(
+        &got["auc"]["std_error"],
+        &paired["auc"]["std_error"],
+        "paired AUC SE (DeLong)",
+    );
+    close(
+        &got["auc"]["p_value"],
+        &paired["auc"]["p_value"],
+        "paired AUC p (scipy)",
+    );
+    for key in ["brier", "log_loss"] {
+        close(
+            &got[key]["mean"],
+            &paired[key]["mean"],
+            &format!("{key} difference (numpy)"),
+        );
+        close(
+            &got[key]["std_error"],
+            &paired[key]["std_error"],
+            &format!("{key} difference SE"),
+        );
+    }
+    // Every reference interval holds 0, so the verdict may claim nothing.
+    assert_eq!(
+        got["verdict"]["favours"],
+        serde_json::json!(["not_shown", "not_shown", "not_shown"])
+    );
+}
+
+#[test]
+fn a_logit_on_its_own_training_rows_has_intercept_zero_and_slope_one() {
+    let s = setup();
+    let report = evaluate_json(&[
+        "--data",
+        data_path().to_str().unwrap(),
+        "--outcome",
+        "grade",
+        "--model",
+        s.logit.to_str().unwrap(),
+    ]);
+    let figures = &report["models"][0]["figures"];
+    let intercept = f(&figures["calibration_intercept"]["estimate"]);
+    let slope = f(&figures["calibration_slope"]["estimate"]);
+    assert!(
+        intercept.abs() < tolerance::SCORE_EQUATIONS,
+        "intercept {intercept:e}"
+    );
+    assert!(
+        (slope - 1.0).abs() < tolerance::SCORE_EQUATIONS,
+        "slope {slope}"
+    );
+    assert!(report.get("comparison").is_none());
+}
+
+#[test]
+fn text_report_gives_each_figure_with_its_interval_the_verdict_and_the_cautions() {
+    let s = setup();
+    let result = run(
+        &[
+            "evaluate",
+            "--data",
+            data_path().to_str().unwrap(),
+            "--outcome",
+            "grade",
+            "--model",
+            s.logit.to_str().unwrap(),
+            "--against",
+            s.probit.to_str().unwrap(),
+        ],
+        None,
+        &[],
+    );
+    assert_eq!(result.code, 0, "{}", result.stderr);
+    let text = &result.stdout;
+    let auc = f(&reference()["spector"]["first"]["figures"]["auc"]);
+    for needle in [
+        "95% intervals throughout".to_string(),
+        "32 read, 32 evaluated, 0 skipped".to_string(),
+        format!("AUC                    {auc:.4} ["),
+        "Model spector-logit 1 (logit, evaluated)".to_string(),
+        "Model spector-probit 1 (probit, compared against)".to_string(),
+        "Hosmer–Lemeshow".to_string(),
+        "verdict: no difference shown on AUC, Brier, log loss at 95%".to_string(),
+        "A model estimate is not a decision".to_string(),
+    ] {
+        assert!(text.contains(&needle), "missing {needle:?} in:\n{text}");
+    }
+}
+
+/// The Spector CSV with some cells replaced: (data row, column, new text).
+fn damaged(dir: &std::path::Path, changes: &[(usize, usize, &str)]) -> std::path::PathBuf {
+    let text = std::fs::read_to_string(data_path()).expect("spector.csv");
+    let mut lines: Vec<Vec<String>> = text
+        .lines()
+        .map(|l| l.split(',').map(str::to_string).collect())
+        .collect();
+    for &(row, column, cell) in changes {
+        lines[row][column] = cell.to_string();
+    }
+    let path = dir.join("damaged.csv");
+    let body: Vec<String> = lines.iter().map(|l| l.join(",")).collect();
+    std::fs::write(&path, body.join("\n") + "\n").expect("write");
+    path
+}
+
+#[test]
+fn a_bad_outcome_or_covariate_cell_stops_the_run_naming_row_line_and_column() {
+    let s = setup();
+    let data = damaged(s.dir.path(), &[(3, 3, "2")]);
+    let result = run(
+        &[
+            "evaluate",
+            "--data",
+            data.to_str().unwrap(),
+            "--outcome",
+            "grade",
+            "--model",
+            s.logit.to_str().unwrap(),
+        ],
+        None,
+        &[],
+    );
+    assert_ne!(result.code, 0);
+    assert!(
+        result
+            .stderr
+            .contains("row 3 (line 4): outcome 'grade' must be 0 or 1 (or false/true), got \"2\""),
+        "{}",
+        result.stderr
+    );
+
+    let data = damaged(s.dir.path(), &[(5, 1, "many")]);
+    let result = run(
+        &[
+            "evaluate",
+            "--data",
+            data.to_str().unwrap(),
+            "--outcome",
+            "grade",
+            "--model",
+            s.logit.to_str().unwrap(),
+        ],
+        None,
+        &[],
+    );
+    assert_ne!(result.code, 0);
+    assert!(
+        result.stderr.contains("row 5 (line 6)"),
+        "{}",
+        result.stderr
+    );
+    assert!(result.stderr.contains("tuce"), "{}", result.stderr);
+    assert!(
+        result.stderr.contains("for model spector-logit 1"),
+        "{}",
+        result.stderr
+    );
+}
+
+#[test]
+fn skipped_rows_are_left_out_for_both_models_and_counted_by_reason() {
+    let s = setup();
+    let data = damaged(
+        s.dir.path(),
+        &[(2, 3, "yes"), (7, 3, ""), (9, 0, "NaN"), (11, 2, "2")],
+    );
+    let report = evaluate_json(&[
+        "--data",
+        data.to_str().unwrap(),
+        "--outcome",
+        "grade",
+        "--on-error",
+        "skip",
+        "--model",
+        s.logit.to_str().unwrap(),
+        "--against",
+        s.probit.to_str().unwrap(),
+    ]);
+    let d = &report["data"];
+    assert_eq!(d["rows_read"], 32);
+    assert_eq!(d["rows_evaluated"], 28);
+    assert_eq!(d["rows_skipped"], 4);
+    assert_eq!(d["skipped_by_reason"]["outcome 'grade'"], 2, "{d}");
+    assert_eq!(d["skipped_by_reason"]["covariate 'gpa'"], 1, "{d}");
+    assert_eq!(d["skipped_by_reason"]["covariate 'psi'"], 1, "{d}");
+    for model in report["models"].as_array().unwrap() {
+        assert_eq!(model["figures"]["rows"], 28);
+    }
+}
+
+#[test]
+fn a_missing_outcome_column_is_named_with_the_columns_there_are() {
+    let s = setup();
+    let result = run(
+        &[
+            "evaluate",
+            "--data",
+            data_path().to_str().unwrap(),
+            "--outcome",
+            "passed",
+            "--model",
+            s.logit.to_str().unwrap(),
+        ],
+        None,
+        &[],
+    );
+    assert_ne!(result.code, 0);
+    assert!(
+        result
+            .stderr
+            .contains("no outcome column 'passed' (columns: gpa, tuce, psi, grade)"),
+        "{}",
+        result.stderr
+    );
+}
+
+#[test]
+fn rows_of_one_outcome_are_refused_with_the_counts() {
+    let s = setup();
+    let text = std::fs::read_to_string(data_path()).unwrap();
+    let ones: Vec<&str> = text
+        .lines()
+        .filter(|l| l.ends_with(",1") || l.starts_with("gpa"))
+        .collect();
+    let data = s.dir.path().join("ones.csv");
+    std::fs::write(&data, ones.join("\n") + "\n").unwrap();
+    let result = run(
+        &[
+            "evaluate",
+            "--data",
+            data.to_str().unwrap(),
+            "--outcome",
+            "grade",
+            "--model",
+            s.logit.to_str().unwrap(),
+        ],
+        None,
+        &[],
+    );
+    assert_ne!(result.code, 0);
+    assert!(
+        result
+            .stderr
+            .contains("only one value (11 events in 11 rows)"),
+        "{}",
+        result.stderr
+    );
+}
+
+/// A model directory holding spector-logit 1 (live) and 2 (the probit fit renamed: another
+/// model of the same outcome, standing in for a candidate).
+fn model_directory(root: &std::path::Path) -> std::path::PathBuf {
+    let versions = root.join("models/spector-logit/versions");
+    std::fs::create_dir_all(&versions).unwrap();
+    write_model(&versions, "1.json", &model_json("logit"));
+    let mut candidate = model_json("probit");
+    candidate["name"] = "spector-logit".into();
+    candidate["version"] = "2".into();
+    write_model(&versions, "2.json", &candidate);
+    std::fs::write(root.join("models/spector-logit/live"), "1\n").unwrap();
+    root.join("models")
+}
+
+#[test]
+fn a_stored_version_is_evaluated_against_the_live_one() {
+    let s = setup();
+    let models = model_directory(s.dir.path());
+    let report = evaluate_json(&[
+        "--data",
+        data_path().to_str().unwrap(),
+        "--outcome",
+        "grade",
+        "--models",
+        models.to_str().unwrap(),
+        "--name",
+        "spector-logit",
+        "--version",
+        "2",
+        "--against-live",
+    ]);
+    let list = report["models"].as_array().unwrap();
+    assert_eq!(
+        (&list[0]["version"], &list[1]["version"]),
+        (&"2".into(), &"1".into())
+    );
+    assert_eq!(
+        list[1]["sha256"],
+        sha256_of(&models.join("spector-logit/versions/1.json"))
+    );
+    // Version 2 is the probit fit, version 1 the logit: the comparison is the reference's
+    // with the sign turned.
+    let want = &reference()["spector"]["paired"];
+    let difference = f(&report["comparison"]["auc"]["difference"]);
+    close(
+        &(-difference).into(),
+        &want["auc"]["difference"],
+        "AUC difference, probit − logit",
+    );
+
+    // Without --version, --name means the live version; it cannot be compared with itself.
+    let result = run(
+        &[
+            "evaluate",
+            "--data",
+            data_path().to_str().unwrap(),
+            "--outcome",
+            "grade",
+            "--models",
+            models.to_str().unwrap(),
+            "--name",
+            "spector-logit",
+            "--against-live",
+        ],
+        None,
+        &[],
+    );
+    assert_ne!(result.code, 0);
+    assert!(
+        result
+            .stderr
+            .contains("spector-logit 1 is itself the live version"),
+        "{}",
+        result.stderr
+    );
+
+    let result = run(
+        &[
+            "evaluate",
+            "--data",
+            data_path().to_str().unwrap(),
+            "--outcome",
+            "grade",
+            "--models",
+            models.to_str().unwrap(),
+            "--name",
+            "spector-logit",
+            "--version",
+            "7",
+        ],
+        None,
+        &[],
+    );
+    assert_ne!(result.code, 0);
+    assert!(
+        result.stderr.contains("has no stored version '7'"),
+        "{}",
+        result.stderr
+    );
+}
+
+#[test]
+fn a_level_outside_zero_and_one_is_refused_before_reading() {
+    let s = setup();
+    let result = run(
+        &[
+            "evaluate",
+            "--data",
+            "/nonexistent.csv",
+            "--outcome",
+            "grade",
+            "--model",
+            s.logit.to_str().unwrap(),
+            "--level",
+            "95",
+        ],
+        None,
+        &[],
+    );
+    assert_ne!(result.code, 0);
+    assert!(
+        result.stderr.contains("strictly between 0 and 1, got 95"),
+        "{}",
+        result.stderr
+    );
+}
