@@ -8,7 +8,11 @@
 //! idle connections   hundreds of idle sockets: others are answered, the idle ones are closed
 //! oversized body     413 before the client has sent it all
 //! admin routes       absent from the public listener
-//! admin.rs           the binary: tokens on the admin listener, and never in the log
+//! admin.rs           the binary: tokens on the admin listener, and never in the log; two
+//!                    Authorization headers, a one-character token, the header limit, the
+//!                    request counts, a read-only model directory
+//! operation.rs       HEAD on the probes, Connection: close while draining, a live pointer
+//!                    naming a missing version, a saturated answer's note
 //! ```
 //!
 //! The public listener runs in-process with small timeouts (1.5 s) so the tests run fast. No assertion is about time: each wait has a generous deadline only so that a broken
@@ -19,6 +23,8 @@ mod admin;
 #[allow(dead_code)]
 #[path = "http/fixture.rs"]
 mod fixture;
+#[path = "hardening/operation.rs"]
+mod operation;
 
 use std::io::{ErrorKind, Read, Write};
 use std::net::{SocketAddr, TcpStream};
@@ -51,7 +57,19 @@ fn address(server: &Server) -> SocketAddr {
 /// A response read from a raw connection.
 struct Raw {
     status: u16,
+    /// The status line and headers.
+    head: String,
     body: String,
+}
+
+impl Raw {
+    /// A header's value (the name in any case).
+    fn header(&self, name: &str) -> Option<&str> {
+        self.head.lines().skip(1).find_map(|line| {
+            let (n, v) = line.split_once(':')?;
+            n.trim().eq_ignore_ascii_case(name).then(|| v.trim())
+        })
+    }
 }
 
 /// Send one request on a fresh connection (`Connection: close`) and read the whole response.
@@ -77,11 +95,12 @@ fn raw_request(addr: SocketAddr, method: &str, path: &str, headers: &str, body: 
 fn parse_response(bytes: &[u8]) -> Option<Raw> {
     let text = String::from_utf8_lossy(bytes);
     let status = text.strip_prefix("HTTP/1.1 ")?.get(..3)?.parse().ok()?;
-    let body = text
-        .split_once("\r\n\r\n")
-        .map_or("", |(_, b)| b)
-        .to_string();
-    Some(Raw { status, body })
+    let (head, body) = text.split_once("\r\n\r\n").unwrap_or((&text, ""));
+    Some(Raw {
+        status,
+        head: head.to_string(),
+        body: body.to_string(),
+    })
 }
 
 /// One scoring request by a well-behaved client: it must be answered with a probability.

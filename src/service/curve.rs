@@ -11,7 +11,8 @@
 //! categorical         one point per level; the effect is P(level) − P(reference)
 //! ```
 //!
-//! A value given for `over` itself is checked and then not used (the answer says so). The
+//! `from` above `to` is refused (422 naming `from`), as is any parameter given twice (400). A
+//! value given for `over` itself is checked and then not used (the answer says so). The
 //! reserved parameter names (`over`, `points`, `from`, `to`, `level`) win over covariates of
 //! the same name. The answer's ETag depends only on the model's name and live version
 //! ([`etag`]), so a dashboard's cached curve stays valid until a promotion.
@@ -21,7 +22,7 @@ use serde::{Serialize, Serializer};
 
 use super::dto::{parse_level, IntervalView};
 use super::observations::{check_bounds, MAX_MAGNITUDE, MIN_LOG_ARGUMENT};
-use super::problem::{echo, observation_detail, Kind, Problem};
+use super::problem::{echo, echo_number, observation_detail, Kind, Problem};
 use crate::engine::{Answer, EffectKind, Interval, Options, Scorer};
 use crate::model::{CovariateKind, Model, Value};
 
@@ -67,6 +68,23 @@ fn number(name: &str, text: &str) -> Result<f64, Problem> {
         .parameter(name));
     }
     Ok(x)
+}
+
+/// The refusal of a range that runs downwards; a missing end is the training range's.
+fn descending(from: Option<f64>, to: Option<f64>, low: f64, high: f64) -> Problem {
+    let end = |given: Option<f64>, value: f64| match given {
+        Some(_) => echo_number(value),
+        None => format!("{} (the training range's end)", echo_number(value)),
+    };
+    Problem::new(
+        Kind::InvalidOption,
+        format!(
+            "'from' is {}, above 'to' at {}; a curve runs from the lower value to the higher",
+            end(from, low),
+            end(to, high)
+        ),
+    )
+    .parameter(if from.is_some() { "from" } else { "to" })
 }
 
 /// Read and check the query of a curve request.
@@ -241,6 +259,9 @@ pub fn parse_curve_request(
             let clip = |x: f64| x.clamp(low, MAX_MAGNITUDE);
             let asked_from = from.unwrap_or(covariate.training_min);
             let asked_to = to.unwrap_or(covariate.training_max);
+            if asked_from > asked_to {
+                return Err(descending(from, to, asked_from, asked_to));
+            }
             let (a, b) = (clip(asked_from), clip(asked_to));
             let clipped = a != asked_from || b != asked_to;
             let mut grid: Vec<Value> = Vec::with_capacity(points);

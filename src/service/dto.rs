@@ -564,6 +564,13 @@ pub const NO_COVARIANCE: Note = Note {
     message: "this model version has no coefficient covariance, so answers carry no standard errors or intervals",
 };
 
+/// The note given when a probability interval has zero width: the probability is within
+/// rounding of 0 or 1, and so are both ends of its interval.
+pub const SATURATED: Note = Note {
+    code: "saturated_interval",
+    message: "a probability here is so close to 0 or 1 that both ends of its interval round to the same double: the zero width comes from the number format, not from certainty; the linear index and its standard error still show the uncertainty",
+};
+
 /// The note given with effects at the training means.
 pub const AT_MEANS: Note = Note {
     code: "at_means_profile",

@@ -75,6 +75,7 @@ impl Follower {
         let mut watcher = self.watcher.lock().unwrap_or_else(PoisonError::into_inner);
         let events = watcher.poll(&self.registry);
         self.health.set_models_loaded(watcher.unserved().is_empty());
+        self.health.set_failed(watcher.unserved());
         drop(watcher);
         for event in events {
             self.handle(event);

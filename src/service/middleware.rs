@@ -1,5 +1,8 @@
-//! The one middleware around every route: it assigns the request id, refuses oversized headers,
-//! records the request metrics and writes the request's single JSON log line. Beside it,
+//! The one middleware around every route of both listeners: it assigns the request id, refuses
+//! oversized headers, records the request metrics (an admin route's label is prefixed `admin:`),
+//! closes the connection after each answer while the process drains (`Connection: close`, so
+//! that keep-alive clients move to another replica instead of meeting a closed socket), and
+//! writes the request's single JSON log line. Beside it,
 //! [`Guarded`] wraps every handler so that a panic answers that one request with a 500 instead
 //! of taking down a worker and the connections it carries.
 //!
@@ -18,6 +21,7 @@ use std::time::Instant;
 use actix_web::body::{BoxBody, MessageBody};
 use actix_web::dev::{ServiceRequest, ServiceResponse};
 use actix_web::http::header::{HeaderName, HeaderValue};
+use actix_web::http::ConnectionType;
 use actix_web::middleware::Next;
 use actix_web::{web, Error, HttpMessage, ResponseError};
 
@@ -44,6 +48,14 @@ pub struct RouteTemplate(pub &'static str);
 
 /// The route label for requests that matched no route.
 pub const UNMATCHED_ROUTE: &str = "unmatched";
+
+/// The prefix of the admin listener's route labels (see [`AdminListener`]).
+pub const ADMIN_ROUTE_PREFIX: &str = "admin:";
+
+/// App data of the admin listener: its requests are counted with route labels prefixed
+/// [`ADMIN_ROUTE_PREFIX`], so that they never mix with the public traffic of the same path.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct AdminListener;
 
 /// Methods get their own metric label; anything else is counted as `OTHER`, so a client
 /// cannot grow the label set.
@@ -178,14 +190,23 @@ pub async fn observe(
             .headers_mut()
             .insert(HeaderName::from_static(HEADER), value);
     }
+    if state.as_ref().is_some_and(|s| s.health.draining()) {
+        response
+            .response_mut()
+            .head_mut()
+            .set_connection_type(ConnectionType::Close);
+    }
     let status = response.status().as_u16();
     let request = response.request();
-    let route: std::borrow::Cow<'static, str> = match request.app_data::<RouteTemplate>() {
+    let mut route: std::borrow::Cow<'static, str> = match request.app_data::<RouteTemplate>() {
         Some(template) => template.0.into(),
         None => request
             .match_pattern()
             .map_or(UNMATCHED_ROUTE.into(), Into::into),
     };
+    if request.app_data::<AdminListener>().is_some() {
+        route = format!("{ADMIN_ROUTE_PREFIX}{route}").into();
+    }
     let scored = request.extensions().get::<Scored>().cloned();
     record(
         state.as_ref(),

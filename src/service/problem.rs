@@ -123,6 +123,7 @@ kinds! {
     LiveUnreadable => "live-unreadable", 409, "The live version cannot be read";
     RollbackTargetInvalid => "rollback-target-invalid", 409, "The version a rollback would return to cannot go live";
     ModelBusy => "model-busy", 503, "Another change to this model holds its lock";
+    StoreUnwritable => "store-unwritable", 503, "The model directory cannot be written by this process";
     NoShadow => "no-shadow", 404, "The model has no shadow";
     CannotShadow => "cannot-shadow", 422, "This version cannot shadow the live version";
     ShadowOff => "shadow-off", 404, "Shadow scoring is off in this process";

@@ -7,6 +7,8 @@
 //! ```text
 //! one observation:  {request_id, model, version, link, level, <answer fields>, [receipt], notes, [average_effects], [at_means]}
 //! a batch:          {request_id, model, version, link, level, count, results: [{index, <answer fields>, [receipt]}], notes, [average_effects], [at_means]}
+//! notes             no_covariance (no intervals can be given), saturated_interval (a
+//!                   probability interval of zero width: within rounding of 0 or 1)
 //! ```
 //!
 //! Receipts are sealed by monitoring ([`crate::metrics::monitor::Monitor::record_scored`]) and
@@ -17,7 +19,7 @@ use serde::{Serialize, Serializer};
 
 use super::dto::{
     put_answer, AnswerView, AverageView, ListView, Note, Observations, ProbabilityRequest, Shown,
-    AT_MEANS, NO_COVARIANCE,
+    AT_MEANS, NO_COVARIANCE, SATURATED,
 };
 use super::problem::{Kind, Problem};
 use crate::engine::{effect_slots, Answer, Average, Averager, Scorer, Warning};
@@ -294,6 +296,10 @@ impl Serialize for Scored<'_> {
         let mut notes: Vec<Note> = Vec::new();
         if model.covariance.is_none() && options.intervals {
             notes.push(NO_COVARIANCE);
+        }
+        let zero_width = |a: &Answer| a.interval.is_some_and(|i| i.lower == i.upper);
+        if self.answers.iter().any(zero_width) {
+            notes.push(SATURATED);
         }
         map.serialize_entry("notes", &notes)?;
         if let Some((probability, effects)) = &self.averages {

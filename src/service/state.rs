@@ -16,6 +16,7 @@ use crate::registry::Registry;
 pub struct Health {
     models_loaded: AtomicBool,
     draining: AtomicBool,
+    failed: std::sync::RwLock<Vec<String>>,
 }
 
 impl Health {
@@ -24,7 +25,30 @@ impl Health {
         Health {
             models_loaded: AtomicBool::new(models_loaded),
             draining: AtomicBool::new(false),
+            failed: std::sync::RwLock::new(Vec::new()),
         }
+    }
+
+    /// Record which model directory entries failed to load (the directory watcher calls this
+    /// after each look): a live pointer naming a version that is not stored, an unreadable or
+    /// invalid version file.
+    pub fn set_failed(&self, names: &[String]) {
+        let mut failed = self.failed.write().unwrap_or_else(|e| e.into_inner());
+        if failed.as_slice() != names {
+            *failed = names.to_vec();
+        }
+    }
+
+    /// The model directory entries that failed to load, in name order.
+    pub fn failed(&self) -> Vec<String> {
+        self.failed.read().map(|f| f.clone()).unwrap_or_default()
+    }
+
+    /// Whether the model directory entry `name` failed to load.
+    pub fn has_failed(&self, name: &str) -> bool {
+        self.failed
+            .read()
+            .is_ok_and(|f| f.iter().any(|n| n == name))
     }
 
     /// Record whether every model directory entry now has a valid live version (the loader and,

@@ -15,7 +15,7 @@ use std::time::{Duration, Instant};
 
 use serde_json::{json, Value as Json};
 
-use crate::fixture::lease_file;
+use crate::fixture::{lease_file, lease_observation};
 use crate::{raw_request, Raw, DEADLINE};
 
 /// The admin token: 32 hex digits, as `openssl rand -hex 16` would make one.
@@ -201,6 +201,13 @@ fn admin_tokens_are_checked_on_the_admin_listener_only_and_never_logged() {
         bearer(""),
     ];
     refused.push(format!("Authorization: Basic {TOKEN}\r\n"));
+    // Two headers, even both with the token: no proxy and no server may disagree on which counts.
+    refused.push(format!("{}{}", bearer(TOKEN), bearer(TOKEN)));
+    refused.push(format!(
+        "{}{}",
+        bearer("wrong-but-long-enough"),
+        bearer(TOKEN)
+    ));
     refused.extend(near_misses().iter().map(|t| bearer(t)));
     for authorization in &refused {
         let headers = json_headers(authorization);
@@ -273,4 +280,143 @@ fn admin_tokens_are_checked_on_the_admin_listener_only_and_never_logged() {
             }
         }
     }
+}
+
+/// Make `dir` unwritable for this process, and writable again on drop: `chattr +i` where the
+/// tests run as root (root ignores permission bits), mode 0555 otherwise.
+struct Unwritable(std::path::PathBuf);
+
+impl Unwritable {
+    fn make(dir: &std::path::Path) -> Unwritable {
+        use std::os::unix::fs::PermissionsExt;
+        let immutable = Command::new("chattr")
+            .arg("+i")
+            .arg(dir)
+            .status()
+            .is_ok_and(|s| s.success());
+        if !immutable {
+            std::fs::set_permissions(dir, std::fs::Permissions::from_mode(0o555)).expect("chmod");
+        }
+        let guard = Unwritable(dir.to_path_buf());
+        let probe = dir.join(".probe");
+        assert!(
+            std::fs::write(&probe, b"x").is_err(),
+            "neither chattr +i nor mode 0555 made {} unwritable here, so this test cannot run",
+            dir.display()
+        );
+        guard
+    }
+}
+
+impl Drop for Unwritable {
+    fn drop(&mut self) {
+        use std::os::unix::fs::PermissionsExt;
+        let _ = Command::new("chattr").arg("-i").arg(&self.0).status();
+        let _ = std::fs::set_permissions(&self.0, std::fs::Permissions::from_mode(0o755));
+    }
+}
+
+#[test]
+fn the_admin_listener_keeps_the_header_limit_is_counted_and_names_an_unwritable_directory() {
+    let (serving, printed) = start();
+    let headers = json_headers(&bearer(TOKEN));
+
+    // The header limit of `ogive serve` (16 KiB by default) holds on the admin listener too,
+    // before the token is even looked at.
+    let padded = format!("{headers}X-Padding: {}\r\n", "p".repeat(20 * 1024));
+    let reply = raw_request(
+        serving.admin,
+        "GET",
+        "/models/lease-test/history",
+        &padded,
+        b"",
+    );
+    assert_eq!(reply.status, 431, "{}", reply.body);
+    assert_eq!(
+        body_json(&reply)["type"],
+        json!("urn:ogive:problem:headers-too-large")
+    );
+
+    // A model directory this process may not write: the upload names the cause.
+    let mut candidate = lease_file();
+    candidate["version"] = json!("2026-03");
+    let versions = serving._models.path().join("lease-test").join("versions");
+    let guard = Unwritable::make(&versions);
+    let reply = raw_request(
+        serving.admin,
+        "PUT",
+        "/models/lease-test/versions/2026-03",
+        &headers,
+        candidate.to_string().as_bytes(),
+    );
+    drop(guard);
+    assert_eq!(reply.status, 503, "{}", reply.body);
+    let problem = body_json(&reply);
+    assert_eq!(problem["type"], json!("urn:ogive:problem:store-unwritable"));
+    let detail = problem["detail"].as_str().expect("detail");
+    assert!(detail.contains("may not write"), "{detail}");
+    // Nothing changed for callers.
+    let body = json!({"observation": lease_observation()}).to_string();
+    let scored = raw_request(
+        serving.public,
+        "POST",
+        "/models/lease-test/probability",
+        "Content-Type: application/json\r\n",
+        body.as_bytes(),
+    );
+    assert_eq!(scored.status, 200, "{}", scored.body);
+
+    // A repeated key in an uploaded model file is refused before the file is looked at.
+    let file = candidate.to_string();
+    let twice = file.replacen("{", "{\"version\": \"2026-03\", ", 1);
+    let reply = raw_request(
+        serving.admin,
+        "PUT",
+        "/models/lease-test/versions/2026-03",
+        &headers,
+        twice.as_bytes(),
+    );
+    assert_eq!(reply.status, 422, "{}", reply.body);
+    assert_eq!(body_json(&reply)["pointer"], json!("/version"));
+
+    // Admin requests are counted, under labels of their own.
+    let metrics = raw_request(serving.public, "GET", "/metrics", "", b"");
+    let counted = metrics.body.lines().any(|line| {
+        line.starts_with("ogive_http_requests_total")
+            && line.contains("route=\"admin:/models/{name}/versions/{version}\"")
+            && line.contains("status=\"503\"")
+    });
+    assert!(counted, "no admin count in:\n{}", metrics.body);
+    serving.stop(printed);
+}
+
+#[test]
+fn a_one_character_admin_token_is_refused_at_start_stating_the_minimum() {
+    let models = tempfile::tempdir().expect("a temporary directory");
+    let token_file = models.path().join(".admin-token");
+    std::fs::write(&token_file, "x\n").expect("write the token file");
+    let output = Command::new(env!("CARGO_BIN_EXE_ogive"))
+        .args(["serve", "--models"])
+        .arg(models.path())
+        .args(["--listen", "127.0.0.1:0", "--admin-listen", "127.0.0.1:0"])
+        .arg("--admin-token-file")
+        .arg(&token_file)
+        .env_remove("OGIVE_ADMIN_TOKEN")
+        .env_remove("OGIVE_ADMIN_TOKEN_FILE")
+        .stdin(Stdio::null())
+        .output()
+        .expect("ogive serve runs");
+    assert!(
+        !output.status.success(),
+        "a one-character token was accepted"
+    );
+    let said = format!(
+        "{}{}",
+        String::from_utf8_lossy(&output.stdout),
+        String::from_utf8_lossy(&output.stderr)
+    );
+    assert!(
+        said.contains("has 1 characters; the minimum is 16"),
+        "{said}"
+    );
 }

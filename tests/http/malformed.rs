@@ -174,6 +174,8 @@ fn catalogue() -> Vec<Case> {
         get_case("curve held at an unseen level", &format!("{curve}?over=years_trading&sector=mining"), 422, "unseen-level", Parameter("sector")),
         get_case("curve with an unknown parameter", &format!("{curve}?over=years_trading&colour=red"), 422, "unknown-field", Parameter("colour")),
         get_case("curve from infinity", &format!("{curve}?over=years_trading&from=inf"), 422, "non-finite", Parameter("from")),
+        get_case("curve from above to", &format!("{curve}?over=years_trading&from=10&to=2"), 422, "invalid-option", Parameter("from")),
+        get_case("curve with a repeated covariate", &format!("{curve}?over=years_trading&sector=retail&sector=transport"), 400, "invalid-query", Parameter("sector")),
         get_case("curve with a repeated parameter", &format!("{curve}?over=years_trading&over=guarantor"), 400, "invalid-query", Parameter("over")),
         get_case("curve binary held at true", &format!("{curve}?over=years_trading&guarantor=true"), 422, "not-binary", Parameter("guarantor")),
         get_case("curve held below a log term's domain", &format!("{curve}?over=years_trading&annual_revenue=-5"), 422, "outside-domain", Parameter("annual_revenue")),

@@ -648,14 +648,29 @@ fn the_openapi_document_has_a_concrete_path_per_model() {
 }
 
 #[test]
-fn regression_a_descending_curve_ends_exactly_at_the_log_domain_edge() {
-    // The grid's last point was computed as a + (b − a)·1, which rounds to 0 for a = 1e12 and
-    // b = 1e-12; log(0) made the curve not computable.
+fn regression_a_curve_over_the_whole_domain_starts_exactly_at_the_log_domain_edge() {
+    // The grid's end points were computed as a + (b − a)·t, which rounds to 0 at the 1e-12
+    // edge; log(0) made the curve not computable. (A descending range, from above to, is now
+    // refused: see the catalogue.)
+    let server = Server::start();
+    let reply = server
+        .get("/models/lease-test/curve?over=annual_revenue&points=2&from=-1e12&to=999999999999");
+    assert_eq!(reply.status, 200, "{}", reply.text);
+    assert_eq!(reply.json()["points"][0]["value"], json!(1e-12));
+    assert_eq!(reply.json()["points"][1]["value"], json!(999999999999.0));
+}
+
+#[test]
+fn regression_a_descending_curve_is_refused_naming_from() {
     let server = Server::start();
     let reply = server
         .get("/models/lease-test/curve?over=annual_revenue&points=2&from=999999999999&to=-1e12");
-    assert_eq!(reply.status, 200, "{}", reply.text);
-    assert_eq!(reply.json()["points"][1]["value"], json!(1e-12));
+    assert_eq!(reply.status, 422, "{}", reply.text);
+    assert_eq!(reply.json()["parameter"], json!("from"));
+    // Against the training range when only one end is given: the training maximum is 5000.
+    let reply = server.get("/models/lease-test/curve?over=annual_revenue&from=6000");
+    assert_eq!(reply.status, 422, "{}", reply.text);
+    assert_eq!(reply.json()["parameter"], json!("from"));
 }
 
 #[test]

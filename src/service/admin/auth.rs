@@ -9,12 +9,15 @@
 //!                             (default label "admin")
 //! ```
 //!
-//! Setting both sources is refused, as is an empty token or one with characters other than
-//! visible ASCII (it could not be sent in a header as written). Without either source, no
+//! Setting both sources is refused, as is a token shorter than [`MIN_TOKEN`] characters (16:
+//! a one-character token can be guessed in under a hundred requests) or one with characters
+//! other than visible ASCII (it could not be sent in a header as written). A token shorter than
+//! [`SHORT_TOKEN`] starts with a warning. Without either source, no
 //! admin route starts ([`AdminToken::configured`] returns `None`, and `ogive serve` says so).
 //!
-//! Every request must carry `Authorization: Bearer TOKEN` (the scheme in any case, RFC 7235
-//! §2.1). The comparison takes the same time for every presented token of any content: it
+//! Every request must carry exactly one `Authorization: Bearer TOKEN` header (the scheme in any
+//! case, RFC 7235 §2.1); a request with two is refused whatever they hold, so that no proxy and
+//! no server can disagree over which one counts. The comparison takes the same time for every presented token of any content: it
 //! walks the configured token's bytes, comparing each with the presented byte at the same
 //! place (or 0 past its end) with `subtle`'s constant-time equality, and folds in the equality
 //! of the lengths. A missing header, another scheme, an empty token and a wrong token each get
@@ -42,6 +45,10 @@ pub const TOKEN_ENV: &str = "OGIVE_ADMIN_TOKEN";
 pub const DEFAULT_LABEL: &str = "admin";
 /// The longest label.
 pub const MAX_LABEL: usize = 64;
+/// Tokens shorter than this are refused at start: at 16 characters even a token of lower-case
+/// letters alone holds 75 bits, beyond guessing over a network; a shorter one is a typo or a
+/// placeholder.
+pub const MIN_TOKEN: usize = 16;
 /// Tokens shorter than this start with a warning (common practice: at least 128 bits of
 /// randomness, which base64 spells in 22 characters and hex in 32).
 pub const SHORT_TOKEN: usize = 22;
@@ -68,6 +75,14 @@ pub enum TokenError {
     Empty {
         /// Where it came from.
         origin: String,
+    },
+    /// The token is shorter than [`MIN_TOKEN`].
+    #[error("the admin token from {origin} has {length} characters; the minimum is {MIN_TOKEN} (make one with: head -c 24 /dev/urandom | base64)")]
+    TooShort {
+        /// Where it came from.
+        origin: String,
+        /// Its length.
+        length: usize,
     },
     /// The token has a character that is not visible ASCII.
     #[error("the admin token from {origin} has a character that is not visible ASCII (a space, a control character or non-ASCII) at byte {position}; it could not be sent in a header as written")]
@@ -134,6 +149,12 @@ impl AdminToken {
                 position,
             });
         }
+        if secret.len() < MIN_TOKEN {
+            return Err(TokenError::TooShort {
+                origin: source.to_string(),
+                length: secret.len(),
+            });
+        }
         Ok(AdminToken {
             secret: secret.to_vec(),
             label: label.to_string(),
@@ -190,6 +211,16 @@ impl AdminToken {
         same.into()
     }
 
+    /// Check a request's headers: exactly one `Authorization`, holding the token.
+    pub fn check_headers(&self, headers: &header::HeaderMap) -> Result<(), Refusal> {
+        let mut values = headers.get_all(header::AUTHORIZATION);
+        let first = values.next();
+        if values.next().is_some() {
+            return Err(Refusal::Several);
+        }
+        self.check(first)
+    }
+
     /// Check a request's `Authorization` header.
     pub fn check(&self, authorization: Option<&HeaderValue>) -> Result<(), Refusal> {
         let value = authorization.ok_or(Refusal::Missing)?.as_bytes();
@@ -224,6 +255,8 @@ pub enum Refusal {
     Empty,
     /// A token that is not the configured one.
     Wrong,
+    /// More than one `Authorization` header.
+    Several,
 }
 
 impl Refusal {
@@ -234,6 +267,7 @@ impl Refusal {
             Refusal::OtherScheme => "other-scheme",
             Refusal::Empty => "empty",
             Refusal::Wrong => "wrong",
+            Refusal::Several => "several",
         }
     }
 
@@ -246,6 +280,9 @@ impl Refusal {
             }
             Refusal::Empty => "the Authorization header has the Bearer scheme but no token",
             Refusal::Wrong => "the bearer token is not the admin token",
+            Refusal::Several => {
+                "the request has more than one Authorization header; send exactly one"
+            }
         };
         Problem::new(Kind::Unauthorized, detail)
     }
@@ -254,6 +291,7 @@ impl Refusal {
     pub fn challenge(self) -> &'static str {
         match self {
             Refusal::Missing | Refusal::OtherScheme => "Bearer realm=\"ogive-admin\"",
+            Refusal::Several => "Bearer realm=\"ogive-admin\", error=\"invalid_request\"",
             Refusal::Empty | Refusal::Wrong => {
                 "Bearer realm=\"ogive-admin\", error=\"invalid_token\""
             }
@@ -268,7 +306,7 @@ pub async fn require_token(
     next: Next<impl MessageBody + 'static>,
 ) -> Result<ServiceResponse<BoxBody>, Error> {
     let verdict = match req.app_data::<web::Data<AdminState>>() {
-        Some(state) => state.token.check(req.headers().get(header::AUTHORIZATION)),
+        Some(state) => state.token.check_headers(req.headers()),
         // The admin app always carries its state; refusing is the safe answer if it does not.
         None => Err(Refusal::Missing),
     };
@@ -303,8 +341,8 @@ mod tests {
 
     #[test]
     fn one_trailing_newline_is_removed_and_no_more() {
-        assert!(token("s3cret-token\n").matches(b"s3cret-token"));
-        assert!(token("s3cret-token\r\n").matches(b"s3cret-token"));
+        assert!(token("s3cret-token-0123\n").matches(b"s3cret-token-0123"));
+        assert!(token("s3cret-token-0123\r\n").matches(b"s3cret-token-0123"));
         assert!(matches!(
             AdminToken::new(b"s3cret\n\n", "ops", "a test"),
             Err(TokenError::NotVisibleAscii { position: 6, .. })
@@ -320,16 +358,37 @@ mod tests {
     }
 
     #[test]
+    fn a_token_shorter_than_the_minimum_is_refused_stating_the_minimum() {
+        for short in ["x", "x\n", "abcdef123456789"] {
+            let error = AdminToken::new(short.as_bytes(), "ops", "a test").expect_err(short);
+            assert!(matches!(error, TokenError::TooShort { .. }), "{short:?}");
+            assert!(error.to_string().contains("the minimum is 16"), "{error}");
+        }
+        assert!(AdminToken::new(b"abcdef1234567890", "ops", "a test").is_ok());
+    }
+
+    #[test]
+    fn two_authorization_headers_are_refused_even_when_one_holds_the_token() {
+        let t = token("abcdef1234567890");
+        let mut headers = header::HeaderMap::new();
+        let right = HeaderValue::from_static("Bearer abcdef1234567890");
+        headers.append(header::AUTHORIZATION, right.clone());
+        assert_eq!(t.check_headers(&headers), Ok(()));
+        headers.append(header::AUTHORIZATION, right);
+        assert_eq!(t.check_headers(&headers), Err(Refusal::Several));
+    }
+
+    #[test]
     fn only_the_exact_token_matches() {
-        let t = token("abcdef123456");
-        assert!(t.matches(b"abcdef123456"));
+        let t = token("abcdef1234567890");
+        assert!(t.matches(b"abcdef1234567890"));
         for other in [
             &b""[..],
-            b"abcdef12345",
-            b"abcdef1234567",
-            b"abcdef123457",
-            b"Abcdef123456",
-            b"abcdef123456\0",
+            b"abcdef123456789",
+            b"abcdef12345678901",
+            b"abcdef1234567891",
+            b"Abcdef1234567890",
+            b"abcdef1234567890\0",
         ] {
             assert!(!t.matches(other), "{other:?}");
         }
@@ -337,21 +396,21 @@ mod tests {
 
     #[test]
     fn the_header_needs_the_bearer_scheme_and_the_token() {
-        let t = token("abcdef123456");
+        let t = token("abcdef1234567890");
         let check = |v: &str| t.check(Some(&HeaderValue::from_str(v).expect("header")));
         assert_eq!(t.check(None), Err(Refusal::Missing));
-        assert_eq!(check("Bearer abcdef123456"), Ok(()));
-        assert_eq!(check("bearer abcdef123456"), Ok(()));
-        assert_eq!(check("Basic abcdef123456"), Err(Refusal::OtherScheme));
+        assert_eq!(check("Bearer abcdef1234567890"), Ok(()));
+        assert_eq!(check("bearer abcdef1234567890"), Ok(()));
+        assert_eq!(check("Basic abcdef1234567890"), Err(Refusal::OtherScheme));
         assert_eq!(check("Bearer"), Err(Refusal::Empty));
         assert_eq!(check("Bearer "), Err(Refusal::Empty));
         assert_eq!(check("Bearer abcdef"), Err(Refusal::Wrong));
-        assert_eq!(check("abcdef123456"), Err(Refusal::OtherScheme));
+        assert_eq!(check("abcdef1234567890"), Err(Refusal::OtherScheme));
     }
 
     #[test]
     fn debug_never_shows_the_secret() {
-        let shown = format!("{:?}", token("abcdef123456"));
+        let shown = format!("{:?}", token("abcdef1234567890"));
         assert!(!shown.contains("abcdef"), "{shown}");
         assert!(shown.contains("ops"));
     }
@@ -373,7 +432,7 @@ mod tests {
         ));
         for label in ["", "has space", "a:b", &"x".repeat(65)] {
             assert!(matches!(
-                AdminToken::new(b"abcdef123456", label, "a test"),
+                AdminToken::new(b"abcdef1234567890", label, "a test"),
                 Err(TokenError::BadLabel { .. })
             ));
         }

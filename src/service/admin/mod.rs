@@ -12,9 +12,10 @@
 //! The admin listener shares the public listener's [`AppState`] (the registry, the metrics,
 //! the shadow scoring and the limits) and its [`Follower`], and is stopped with it. It has
 //! no route without a token: [`AdminToken::configured`] returning `None` means `ogive serve`
-//! starts no admin listener at all and says so. Its requests go through the same request-id
-//! and log middleware as the public ones (the log line never holds a header), but are not
-//! counted in `ogive_http_requests_total`, which describes the traffic callers see.
+//! starts no admin listener at all and says so. Its requests go through the same middleware as
+//! the public ones: request id, the header size limit (`--max-header-bytes`), the log line
+//! (which never holds a header), and `ogive_http_requests_total` and the latency histogram,
+//! with route labels prefixed `admin:` so that they never mix with the callers' traffic.
 
 pub mod auth;
 pub mod refusals;
@@ -79,12 +80,16 @@ impl Listener {
     /// runs on the blocking pool.
     pub fn server(self) -> io::Result<actix_web::dev::Server> {
         let settings = Arc::clone(&self.state.app.settings);
+        // The public state too: the shared middleware reads its limits and metrics from it.
+        let app = web::Data::new(self.state.app.clone());
         let data = web::Data::new(self.state);
         let limits = &settings.limits;
         let body_timeout = crate::service::body::BodyTimeout::of(limits);
         let server = HttpServer::new(move || {
             App::new()
                 .app_data(data.clone())
+                .app_data(app.clone())
+                .app_data(middleware::AdminListener)
                 .app_data(body_timeout)
                 .wrap(from_fn(auth::require_token))
                 .wrap(from_fn(middleware::observe))

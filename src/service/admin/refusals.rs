@@ -151,7 +151,30 @@ pub fn store_problem(error: &StoreError) -> Problem {
             Kind::ModelBusy,
             format!("{detail}; try again when the other change has finished"),
         ),
-        StoreError::Io { .. } => Problem::internal(error),
+        StoreError::Io { cause, .. } => match unwritable_cause(cause) {
+            Some(why) => {
+                tracing::error!(error = %error, "the model directory cannot be written");
+                Problem::new(Kind::StoreUnwritable, format!("{detail}: {why}"))
+            }
+            None => Problem::internal(error),
+        },
+    }
+}
+
+/// Why a write failed, when the cause is the directory rather than a bug: what an operator
+/// must fix (a read-only mount, missing permissions, a full disk or quota).
+fn unwritable_cause(cause: &std::io::Error) -> Option<&'static str> {
+    const READ_ONLY_FILESYSTEM: i32 = 30; // EROFS
+    const NO_SPACE: i32 = 28; // ENOSPC
+    const QUOTA: i32 = 122; // EDQUOT
+    match (cause.kind(), cause.raw_os_error()) {
+        (_, Some(READ_ONLY_FILESYSTEM)) => Some("the model directory is on a read-only file system"),
+        (std::io::ErrorKind::PermissionDenied, _) => Some(
+            "this process may not write in the model directory (its permissions, or an immutable attribute)",
+        ),
+        (_, Some(NO_SPACE)) => Some("the file system of the model directory is full"),
+        (_, Some(QUOTA)) => Some("the disk quota of the model directory is used up"),
+        _ => None,
     }
 }
 
@@ -203,6 +226,36 @@ pub fn shadow_problem(error: &CannotShadow) -> Problem {
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn an_unwritable_directory_is_named_as_the_cause_not_an_internal_error() {
+        for (code, words) in [
+            (30, "read-only file system"),
+            (13, "may not write"),
+            (1, "may not write"),
+            (28, "full"),
+        ] {
+            let error = crate::registry::store::StoreError::Io {
+                action: "create",
+                path: "/models/lease/versions/.tmp".into(),
+                cause: std::io::Error::from_raw_os_error(code),
+            };
+            let problem = super::store_problem(&error);
+            assert_eq!(problem.kind, super::Kind::StoreUnwritable, "errno {code}");
+            assert!(problem.detail.contains(words), "{}", problem.detail);
+            assert!(
+                problem.detail.contains("/models/lease/versions"),
+                "{}",
+                problem.detail
+            );
+        }
+        let other = crate::registry::store::StoreError::Io {
+            action: "read",
+            path: "/models".into(),
+            cause: std::io::Error::from_raw_os_error(5),
+        };
+        assert_eq!(super::store_problem(&other).kind, super::Kind::Internal);
+    }
+
     use super::*;
 
     #[test]

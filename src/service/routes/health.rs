@@ -1,5 +1,6 @@
-//! `GET /livez` (the process answers), `GET /readyz` (every model loaded and not draining) and
-//! `GET /metrics` (the Prometheus text format).
+//! `GET /livez` (the process answers), `GET /readyz` (every model loaded and not draining; the
+//! entries that failed to load are named in `failed_to_load`) and `GET /metrics` (the Prometheus
+//! text format). Both probes also answer HEAD.
 
 use actix_web::http::header;
 use actix_web::{web, HttpResponse};
@@ -23,6 +24,7 @@ pub async fn readyz(state: web::Data<AppState>) -> HttpResponse {
         "status": if health.ready() { "ready" } else { "not_ready" },
         "models": models,
         "models_loaded": health.models_loaded(),
+        "failed_to_load": health.failed(),
         "draining": health.draining(),
     });
     if health.ready() {

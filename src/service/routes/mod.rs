@@ -51,6 +51,20 @@ where
         .default_service(web::to(method_not_allowed("GET")))
 }
 
+/// A resource answering GET and HEAD with `handler` (actix strips a HEAD answer's body and
+/// keeps its headers): for the probes, which load balancers often send as HEAD.
+fn get_and_head<F, Args>(path: &'static str, handler: F) -> actix_web::Resource
+where
+    F: actix_web::Handler<Args> + Clone,
+    Args: actix_web::FromRequest + 'static,
+    F::Output: actix_web::Responder + 'static,
+{
+    resource(path)
+        .route(web::get().to(Guarded(handler.clone())))
+        .route(web::head().to(Guarded(handler)))
+        .default_service(web::to(method_not_allowed("GET, HEAD")))
+}
+
 /// Mount every public route. The model routes come first, the busiest first: the router tries
 /// templated paths in order, each a pattern match.
 pub fn configure(cfg: &mut web::ServiceConfig) {
@@ -66,8 +80,8 @@ pub fn configure(cfg: &mut web::ServiceConfig) {
             .default_service(web::to(method_not_allowed("POST"))),
     )
     .service(get("/models/{name}", models::describe))
-    .service(get("/livez", health::livez))
-    .service(get("/readyz", health::readyz))
+    .service(get_and_head("/livez", health::livez))
+    .service(get_and_head("/readyz", health::readyz))
     .service(get("/metrics", health::metrics))
     .service(get("/openapi.json", openapi::document_route))
     .service(get("/models", models::list));

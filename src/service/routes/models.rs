@@ -20,6 +20,17 @@ pub fn find(state: &AppState, name: &str) -> Result<Arc<Entry>, Problem> {
         .get(name)
         .cloned()
         .ok_or_else(|| {
+            if state.health.has_failed(name) {
+                // In the directory but not loadable: the caller's request is right, the
+                // service is not, and another replica (or a later try) may answer it.
+                return Problem::new(
+                    Kind::Unavailable,
+                    format!(
+                        "model {} failed to load: its live pointer names a version that is missing or not valid; the service log says which",
+                        echo(name)
+                    ),
+                );
+            }
             Problem::new(
                 Kind::UnknownModel,
                 format!("no model called {} is being served", echo(name)),
