@@ -147,10 +147,9 @@ fn check_encoding(req: &HttpRequest) -> Result<(), Problem> {
     Ok(())
 }
 
-/// Read the raw bytes of a JSON request (content type, encoding, size and time checks; no
-/// parse). Routes use [`read_json`]; this is for callers that parse with [`parse_json`]
-/// themselves.
-pub async fn read_json_body(
+/// Read the raw bytes of a JSON request: the content type, encoding, size and time checks, no
+/// parse (the readers above parse).
+async fn read_json_body(
     req: &HttpRequest,
     payload: Payload,
     limit: usize,

@@ -27,7 +27,7 @@ use super::models::find;
 use crate::metrics::monitor::Monitor;
 use crate::metrics::outcomes::OutcomeError;
 use crate::receipt::MAX_RECEIPT_CHARS;
-use crate::service::body::{parse_json, read_json_body};
+use crate::service::body::read_json;
 use crate::service::dto::json_kind;
 use crate::service::problem::{Kind, Problem};
 use crate::service::state::AppState;
@@ -164,8 +164,7 @@ pub async fn report(
     let model = entry.live.name();
     let monitor = monitor_of(&state)?;
     let limits = &state.settings.limits;
-    let bytes = read_json_body(&req, payload, limits.max_body_bytes).await?;
-    let body = parse_json(&bytes)?;
+    let body = read_json(&req, payload, limits.max_body_bytes).await?.value;
     let Json::Object(fields) = &body else {
         return Err(Problem::new(
             Kind::InvalidBody,
