@@ -1,6 +1,6 @@
 //! `ogive score`, run as a process on temporary CSV files: its output equals the engine's
 //! answers row for row, bad rows stop or are skipped as asked, shards partition the rows, and
-//! standard input and output work.
+//! standard input and output work; any number of threads writes the bytes of one.
 
 #[path = "reference/describe/support.rs"]
 mod support;
@@ -8,7 +8,10 @@ mod support;
 use std::collections::HashMap;
 use std::path::Path;
 
-use ogive::batch::output_columns;
+use ogive::batch::{
+    output_columns, output_header, score_csv, ErrorPolicy, RowStream, ScoreOptions, Shard,
+    SKIPPED_EXAMPLES,
+};
 use ogive::engine::{Options, Scorer, Warning};
 use ogive::model::{Model, Value};
 use rand::{Rng, SeedableRng};
@@ -518,5 +521,208 @@ fn header_problems_are_refused_before_any_row() {
             "{input:?} wrote {}",
             result.stdout
         );
+    }
+}
+
+/// The scored text of `input` read as one stream by one reader and written by the csv crate's
+/// writer, the way a single-threaded run works: the reference the block-parallel run must
+/// reproduce. Numbers are written with ryu, the shortest text that reads back to the same f64.
+fn one_stream_reference(
+    model: &Model,
+    input: &[u8],
+    options: &ScoreOptions,
+) -> (Vec<u8>, Vec<(u64, u64, String)>) {
+    let mut rows = RowStream::new(model, input).expect("header");
+    let mut writer = csv::Writer::from_writer(Vec::new());
+    writer
+        .write_byte_record(&output_header(model, rows.header(), options.effects).expect("header"))
+        .expect("write");
+    let mut scorer = Scorer::new(model);
+    let mut engine = Options::new(options.level).unwrap();
+    engine.effects = options.effects;
+    engine.contributions = false;
+    engine.elasticities = false;
+    let mut skipped = Vec::new();
+    let mut number = ryu::Buffer::new();
+    while rows.advance().expect("read") {
+        if !options.shard.contains(rows.row(), options.block_rows) {
+            continue;
+        }
+        match rows.parse(model) {
+            Ok(values) => {
+                let values = values.to_vec();
+                let answer = scorer.score(model, &values, &engine);
+                let mut out = rows.record().clone();
+                let mut cells = vec![
+                    Some(answer.probability),
+                    answer.interval.map(|i| i.lower),
+                    answer.interval.map(|i| i.upper),
+                    Some(answer.linear_index),
+                ];
+                for effect in &answer.effects {
+                    cells.push(Some(effect.effect));
+                    cells.push(effect.std_error);
+                }
+                for cell in cells {
+                    out.push_field(cell.map_or("", |x| number.format(x)).as_bytes());
+                }
+                out.push_field(warning_codes(model, &answer.warnings).as_bytes());
+                writer.write_byte_record(&out).expect("write");
+            }
+            Err(e) => skipped.push((e.row, e.line, e.problem.to_string())),
+        }
+    }
+    (writer.into_inner().expect("bytes"), skipped)
+}
+
+/// Generated rows with everything that makes cutting a CSV stream hard: quoted fields with
+/// commas, doubled quotes and newlines, a stray quote inside an unquoted field, and bad rows.
+fn awkward_input(rows: usize, crlf: bool) -> Vec<u8> {
+    let mut rng = rand::rngs::StdRng::seed_from_u64(21);
+    let end = if crlf { "\r\n" } else { "\n" };
+    let mut text = format!("id,revenue,years,arrears,guarantor,sector,note{end}");
+    for i in 0..rows {
+        let note = match i % 6 {
+            0 => "\"two\nlines, and \"\"quotes\"\"\"".to_string(),
+            1 => "a stray\"quote".to_string(),
+            2 => "\"\"".to_string(),
+            _ => String::new(),
+        };
+        let arrears = if i % 53 == 7 {
+            "1.5".to_string()
+        } else {
+            rng.gen_range(0..8).to_string()
+        };
+        let sector = if i % 71 == 3 {
+            "shipping"
+        } else {
+            levels()[i % 3]
+        };
+        let sector = if sector.contains(' ') {
+            format!("\"{sector}\"")
+        } else {
+            sector.to_string()
+        };
+        text.push_str(&format!(
+            "r{i},{},{},{arrears},{},{sector},{note}{end}",
+            rng.gen_range(5.0..7000.0),
+            rng.gen_range(0.0..50.0),
+            rng.gen_range(0..2),
+        ));
+        if crlf && i % 40 == 9 {
+            // An empty line, which the parser skips.
+            text.push_str(end);
+        }
+        if i % 97 == 13 {
+            text.push_str(&format!("short,1,2{end}"));
+        }
+    }
+    text.into_bytes()
+}
+
+/// The block-parallel run writes exactly the bytes of a single reader and writer over the whole
+/// stream, for any number of threads and any block size (down to one byte, which puts a cut
+/// after every record), and reports the same skipped rows in the same order. Line numbers are
+/// checked against the single reader on the LF file; on the CRLF file (where that reader counts
+/// a record's line from the end of the one before) they are checked across thread counts.
+#[test]
+fn any_thread_count_and_block_size_give_the_bytes_of_one_stream() {
+    let model = Model::from_json(&serde_json::to_vec(&portfolio_json(true)).unwrap()).unwrap();
+    for crlf in [false, true] {
+        let input = awkward_input(700, crlf);
+        for shard in [Shard::ALL, Shard::new(1, 3).unwrap()] {
+            let base = ScoreOptions {
+                effects: true,
+                on_error: ErrorPolicy::Skip,
+                shard,
+                block_rows: 25,
+                ..ScoreOptions::default()
+            };
+            let (expected, expected_skipped) = one_stream_reference(&model, &input, &base);
+            assert!(expected_skipped.len() > 5, "the input should have bad rows");
+            let mut lines_seen: Option<Vec<u64>> = None;
+            for threads in [1, 2, 3, 8] {
+                for input_block_bytes in [1, 97, 4096, 1 << 20] {
+                    let options = ScoreOptions {
+                        threads,
+                        input_block_bytes,
+                        ..base
+                    };
+                    let mut output = Vec::new();
+                    let summary = score_csv(&model, &input[..], &mut output, &options, &mut |_| {})
+                        .expect("scored");
+                    let case = format!(
+                        "crlf {crlf}, shard {shard}, {threads} threads, blocks of {input_block_bytes} bytes"
+                    );
+                    assert!(output == expected, "{case}: output differs");
+                    let skipped: Vec<(u64, u64, String)> = summary
+                        .skipped_examples
+                        .iter()
+                        .map(|e| (e.row, e.line, e.problem.to_string()))
+                        .collect();
+                    let count = skipped.len();
+                    assert_eq!(
+                        count,
+                        expected_skipped.len().min(SKIPPED_EXAMPLES),
+                        "{case}"
+                    );
+                    assert_eq!(
+                        summary.rows_skipped,
+                        expected_skipped.len() as u64,
+                        "{case}"
+                    );
+                    for (got, want) in skipped.iter().zip(&expected_skipped) {
+                        assert_eq!(got.0, want.0, "{case}: row");
+                        assert_eq!(got.2, want.2, "{case}: problem");
+                        if !crlf {
+                            assert_eq!(got.1, want.1, "{case}: line");
+                        }
+                    }
+                    let lines: Vec<u64> = skipped.iter().map(|s| s.1).collect();
+                    assert_eq!(
+                        lines_seen.get_or_insert_with(|| lines.clone()),
+                        &lines,
+                        "{case}"
+                    );
+                }
+            }
+        }
+    }
+}
+
+/// A stopping row is reported with the file's row and line numbers whichever block and thread
+/// meets it, and what was written before it is the rows before it.
+#[test]
+fn a_stopping_row_is_numbered_in_the_file_whatever_the_blocks() {
+    let model = Model::from_json(&serde_json::to_vec(&portfolio_json(true)).unwrap()).unwrap();
+    let input = awkward_input(300, false);
+    let base = ScoreOptions::default();
+    // The first bad row, found by the single reader.
+    let (_, skipped) = one_stream_reference(
+        &model,
+        &input,
+        &ScoreOptions {
+            on_error: ErrorPolicy::Skip,
+            ..base
+        },
+    );
+    let (row, line, problem) = skipped[0].clone();
+    for threads in [1, 4] {
+        for input_block_bytes in [1, 300, 1 << 20] {
+            let options = ScoreOptions {
+                threads,
+                input_block_bytes,
+                ..base
+            };
+            let error = score_csv(&model, &input[..], &mut Vec::new(), &options, &mut |_| {})
+                .expect_err("a bad row stops the run");
+            let ogive::batch::BatchError::Row(e) = error else {
+                panic!("not a row error: {error}");
+            };
+            assert_eq!(
+                (e.row, e.line, e.problem.to_string()),
+                (row, line, problem.clone())
+            );
+        }
     }
 }

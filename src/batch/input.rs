@@ -39,32 +39,8 @@ pub struct CovariateColumns {
 
 impl CovariateColumns {
     fn find(model: &Model, header: &ByteRecord) -> Result<CovariateColumns, BatchError> {
-        let names: Vec<String> = header
-            .iter()
-            .map(|f| String::from_utf8_lossy(f).trim().to_string())
-            .collect();
-        let mut columns = Vec::with_capacity(model.covariates.len());
-        for covariate in &model.covariates {
-            let mut found = names
-                .iter()
-                .enumerate()
-                .filter(|(_, n)| **n == covariate.name)
-                .map(|(i, _)| i);
-            let first = found.next().ok_or_else(|| BatchError::MissingColumn {
-                covariate: covariate.name.clone(),
-                columns: names.join(", "),
-            })?;
-            if let Some(second) = found.next() {
-                return Err(BatchError::DuplicateColumn {
-                    covariate: covariate.name.clone(),
-                    first: first + 1,
-                    second: second + 1,
-                });
-            }
-            columns.push(first);
-        }
         Ok(CovariateColumns {
-            columns,
+            columns: covariate_columns(model, header)?,
             values: Vec::with_capacity(model.covariates.len()),
         })
     }
@@ -77,36 +53,14 @@ impl CovariateColumns {
         record: &ByteRecord,
         row: u64,
     ) -> Result<&[Value], RowError> {
-        let at = |problem| RowError {
-            row,
-            line: record.position().map_or(0, |p| p.line()),
-            problem,
-        };
-        if record.len() != header.len() {
-            return Err(at(RowProblem::FieldCount {
-                expected: header.len(),
-                found: record.len(),
-            }));
+        match parse_record(model, &self.columns, header.len(), record, &mut self.values) {
+            Ok(()) => Ok(&self.values),
+            Err(problem) => Err(RowError {
+                row,
+                line: record.position().map_or(0, |p| p.line()),
+                problem,
+            }),
         }
-        self.values.clear();
-        for (j, &column) in self.columns.iter().enumerate() {
-            let name = || model.covariates[j].name.clone();
-            let bytes = &record[column];
-            let text = std::str::from_utf8(bytes)
-                .map_err(|_| at(RowProblem::NotUtf8 { covariate: name() }))?
-                .trim();
-            if text.is_empty() {
-                return Err(at(RowProblem::Empty { covariate: name() }));
-            }
-            let value = model
-                .parse_text_value(j, text)
-                .map_err(|e| at(RowProblem::Value(e)))?;
-            self.values.push(value);
-        }
-        model
-            .check_values(&self.values)
-            .map_err(|e| at(RowProblem::Value(e)))?;
-        Ok(&self.values)
     }
 }
 
@@ -195,4 +149,71 @@ impl<R: Read> RowStream<R> {
     ) -> Result<&'c [Value], RowError> {
         columns.parse(model, &self.header, &self.record, self.row)
     }
+}
+
+/// Each covariate's column in `header`, in covariate order: by exact name, ignoring
+/// surrounding spaces. Refuses an empty header, a missing covariate and a covariate named
+/// twice.
+pub fn covariate_columns(model: &Model, header: &ByteRecord) -> Result<Vec<usize>, BatchError> {
+    if header.iter().all(<[u8]>::is_empty) {
+        return Err(BatchError::NoHeader);
+    }
+    let names: Vec<String> = header
+        .iter()
+        .map(|f| String::from_utf8_lossy(f).trim().to_string())
+        .collect();
+    let mut columns = Vec::with_capacity(model.covariates.len());
+    for covariate in &model.covariates {
+        let mut found = names
+            .iter()
+            .enumerate()
+            .filter(|(_, n)| **n == covariate.name)
+            .map(|(i, _)| i);
+        let first = found.next().ok_or_else(|| BatchError::MissingColumn {
+            covariate: covariate.name.clone(),
+            columns: names.join(", "),
+        })?;
+        if let Some(second) = found.next() {
+            return Err(BatchError::DuplicateColumn {
+                covariate: covariate.name.clone(),
+                first: first + 1,
+                second: second + 1,
+            });
+        }
+        columns.push(first);
+    }
+    Ok(columns)
+}
+
+/// Parse one record's covariate cells (at `columns`) into `values`, with every check the model
+/// asks for (finite numbers, whole counts, log domains, known levels). A record must have
+/// `header_len` fields.
+#[inline]
+pub fn parse_record(
+    model: &Model,
+    columns: &[usize],
+    header_len: usize,
+    record: &ByteRecord,
+    values: &mut Vec<Value>,
+) -> Result<(), RowProblem> {
+    if record.len() != header_len {
+        return Err(RowProblem::FieldCount {
+            expected: header_len,
+            found: record.len(),
+        });
+    }
+    values.clear();
+    for (j, &column) in columns.iter().enumerate() {
+        let name = || model.covariates[j].name.clone();
+        let bytes = &record[column];
+        let text = std::str::from_utf8(bytes)
+            .map_err(|_| RowProblem::NotUtf8 { covariate: name() })?
+            .trim();
+        if text.is_empty() {
+            return Err(RowProblem::Empty { covariate: name() });
+        }
+        let value = model.parse_text_value(j, text).map_err(RowProblem::Value)?;
+        values.push(value);
+    }
+    model.check_values(values).map_err(RowProblem::Value)
 }

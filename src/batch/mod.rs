@@ -1,11 +1,21 @@
 //! Batch scoring: stream a CSV file through a model and write it back with probabilities,
 //! intervals, effects and warnings added as columns.
 //!
-//! The whole run keeps one CSV reader, one CSV writer, one [`Scorer`] and a handful of reused
-//! buffers, so its memory is the same for a thousand rows or a billion. Rows are scored in
-//! input order and written as soon as they are scored.
+//! The calling thread reads the input in blocks of whole records (about
+//! [`DEFAULT_INPUT_BLOCK_BYTES`] each, cut where [`cut`] says a block parses on its own) and
+//! hands them to `threads` workers, which parse, score and format their block's rows into the
+//! block's output bytes; the calling thread writes finished blocks in input order. The output is
+//! therefore the same, byte for byte, whatever the number of threads.
+//!
+//! Memory is flat: at most `2·threads + 2` blocks are in flight (being read, waiting, being
+//! scored, or waiting to be written), and a block buffer is reused once its output is written.
+//! The bound is `(2·threads + 2) × (block input + its output)`, about 2.3 MB per thread with
+//! effect columns for ten covariates, plus the longest record when one is longer than a block,
+//! plus each worker's [`Scorer`](crate::engine::Scorer).
 //!
 //! ```text
+//! cut.rs      where the byte stream may be cut into blocks (quote-aware)
+//! block.rs    scoring one block on a worker; row offsets for sharded runs
 //! input.rs    the header → covariate column map, and parsing one row into values
 //! output.rs   the added columns, their names, and how cells are written
 //! shard.rs    which row blocks one machine takes when a file is split (--shard I/N)
@@ -20,29 +30,42 @@
 //!
 //! This module does not parse flags, draw progress bars or print: the command does.
 
+mod block;
+pub mod cut;
 pub mod input;
 pub mod output;
 pub mod pending;
 pub mod shard;
 pub mod tally;
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, HashMap};
 use std::io::{Read, Write};
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use std::sync::{mpsc, Mutex};
+use std::time::Duration;
 
+use csv::ByteRecord;
+
+use block::{BlockReport, BlockScorer, RowOffsets};
 pub use input::{CovariateColumns, RowStream};
-pub use output::{effect_column, output_columns, RowWriter};
+pub use output::{effect_column, output_columns, output_header, RowWriter};
 pub use pending::PendingFile;
 pub use shard::{BadShard, Shard};
 pub use tally::{RangeCounts, WarningTally};
 
-use crate::engine::{BadLevel, Options, Scorer};
+use crate::engine::{BadLevel, Options};
 use crate::model::{Model, ObservationError};
 
 /// How many skipped rows a [`Summary`] describes one by one (the rest are only counted).
 pub const SKIPPED_EXAMPLES: usize = 20;
 
-/// Rows scored between two progress reports.
-const PROGRESS_EVERY_ROWS: u64 = 8192;
+/// The default bytes of input in one block handed to a worker.
+pub const DEFAULT_INPUT_BLOCK_BYTES: usize = 128 * 1024;
+
+/// The number of worker threads when none is asked for: one per core.
+pub fn default_threads() -> usize {
+    std::thread::available_parallelism().map_or(1, |n| n.get())
+}
 
 /// The default number of rows in a shard block.
 pub const DEFAULT_BLOCK_ROWS: u64 = 10_000;
@@ -70,6 +93,11 @@ pub struct ScoreOptions {
     pub shard: Shard,
     /// Rows per shard block (at least 1).
     pub block_rows: u64,
+    /// Worker threads (at least 1).
+    pub threads: usize,
+    /// Bytes of input per block handed to a worker (at least 1; a block always holds whole
+    /// records, so one longer record makes a longer block).
+    pub input_block_bytes: usize,
 }
 
 impl Default for ScoreOptions {
@@ -80,6 +108,8 @@ impl Default for ScoreOptions {
             on_error: ErrorPolicy::Stop,
             shard: Shard::ALL,
             block_rows: DEFAULT_BLOCK_ROWS,
+            threads: default_threads(),
+            input_block_bytes: DEFAULT_INPUT_BLOCK_BYTES,
         }
     }
 }
@@ -130,6 +160,9 @@ pub enum BatchError {
     /// The output could not be written.
     #[error("cannot write the CSV output: {0}")]
     Write(#[source] csv::Error),
+    /// A scoring thread stopped unexpectedly (a bug; the run cannot go on).
+    #[error("a scoring thread stopped unexpectedly; nothing more can be scored")]
+    WorkerFailed,
 }
 
 /// A row that cannot be scored, and where it is.
@@ -204,13 +237,199 @@ pub struct Summary {
     pub intervals: bool,
 }
 
+/// A block buffer and its output, reused from block to block.
+struct Slot {
+    input: Vec<u8>,
+    output: Vec<u8>,
+}
+
+/// A block on its way to a worker.
+struct Job {
+    index: usize,
+    slot: Slot,
+}
+
+/// A block back from a worker; `report` is `None` for a block that was not scored because an
+/// earlier block stopped the run.
+struct Done {
+    index: usize,
+    slot: Slot,
+    report: Option<Result<BlockReport, BatchError>>,
+}
+
+/// Score one block on a worker. A sharded run first counts the block's records, publishes the
+/// count and waits for the number of rows before the block.
+fn score_job(
+    scorer: &mut BlockScorer<'_>,
+    offsets: &RowOffsets,
+    sharded: bool,
+    index: usize,
+    slot: &mut Slot,
+) -> Result<BlockReport, BatchError> {
+    let rows_before = if sharded {
+        let counted = scorer.count_records(&slot.input);
+        // Publish even a failed count, so that later blocks are not left waiting.
+        offsets.publish(index, *counted.as_ref().unwrap_or(&0));
+        counted?;
+        Some(offsets.wait(index).ok_or(BatchError::WorkerFailed)?)
+    } else {
+        None
+    };
+    scorer.score(&slot.input, &mut slot.output, rows_before)
+}
+
+fn read_error(error: std::io::Error) -> BatchError {
+    BatchError::Read(error.into())
+}
+
+/// Read up to `want` more bytes onto the end of `buffer`; `false` at the end of the input.
+fn read_more<R: Read>(
+    input: &mut R,
+    buffer: &mut Vec<u8>,
+    want: usize,
+) -> Result<bool, BatchError> {
+    let start = buffer.len();
+    buffer.resize(start + want.max(1), 0);
+    loop {
+        match input.read(&mut buffer[start..]) {
+            Ok(n) => {
+                buffer.truncate(start + n);
+                return Ok(n > 0);
+            }
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+            Err(e) => {
+                buffer.truncate(start);
+                return Err(read_error(e));
+            }
+        }
+    }
+}
+
+/// The input, read in blocks of whole records.
+struct BlockSource<R: Read> {
+    input: R,
+    /// Bytes read past the last cut: the start of the next block.
+    carry: Vec<u8>,
+    at_end: bool,
+    block_bytes: usize,
+}
+
+impl<R: Read> BlockSource<R> {
+    /// Read the header record, returning it and the bytes it took (with the empty lines
+    /// before it).
+    fn header(&mut self) -> Result<(ByteRecord, Vec<u8>), BatchError> {
+        let end = loop {
+            if let Some(end) = cut::first_record_end(&self.carry) {
+                break end;
+            }
+            if self.at_end {
+                break self.carry.len();
+            }
+            self.at_end = !read_more(&mut self.input, &mut self.carry, self.block_bytes)?;
+        };
+        let bytes: Vec<u8> = self.carry.drain(..end).collect();
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(false)
+            .flexible(true)
+            .from_reader(&bytes[..]);
+        let mut header = ByteRecord::new();
+        reader
+            .read_byte_record(&mut header)
+            .map_err(BatchError::Read)?;
+        Ok((header, bytes))
+    }
+
+    /// Fill `block` with the next whole records; `false` when the input is exhausted.
+    fn next_block(&mut self, block: &mut Vec<u8>) -> Result<bool, BatchError> {
+        block.clear();
+        block.append(&mut self.carry);
+        let mut target = self.block_bytes;
+        loop {
+            while !self.at_end && block.len() < target {
+                let want = target - block.len();
+                self.at_end = !read_more(&mut self.input, block, want)?;
+            }
+            if self.at_end {
+                return Ok(!block.is_empty());
+            }
+            match cut::last_record_end(block) {
+                Some(cut) => {
+                    self.carry.extend_from_slice(&block[cut..]);
+                    block.truncate(cut);
+                    return Ok(true);
+                }
+                // One record longer than the block so far: read on.
+                None => target += self.block_bytes,
+            }
+        }
+    }
+}
+
+/// Totals of the blocks written so far, and the numbers that turn a block's row and line
+/// numbers into the file's.
+struct Totals {
+    summary: Summary,
+    rows_before: u64,
+    newlines_before: u64,
+}
+
+impl Totals {
+    fn in_file(&self, error: RowError) -> RowError {
+        RowError {
+            row: self.rows_before + error.row,
+            line: self.newlines_before + error.line,
+            problem: error.problem,
+        }
+    }
+
+    /// Add a block's counts; the error that stops the run, if the block has one.
+    fn add(&mut self, report: BlockReport) -> Result<(), RowError> {
+        let summary = &mut self.summary;
+        summary.rows_in_shard += report.rows_in_shard;
+        summary.rows_scored += report.rows_scored;
+        summary.rows_skipped += report.rows_skipped;
+        summary.warnings.merge(&report.warnings);
+        for (covariate, count) in report.skipped_by_covariate {
+            *summary.skipped_by_covariate.entry(covariate).or_default() += count;
+        }
+        for error in report.skipped_examples {
+            if self.summary.skipped_examples.len() < SKIPPED_EXAMPLES {
+                let error = self.in_file(error);
+                self.summary.skipped_examples.push(error);
+            }
+        }
+        if let Some(error) = report.stopped {
+            return Err(self.in_file(error));
+        }
+        self.rows_before += report.records;
+        self.newlines_before += report.newlines;
+        Ok(())
+    }
+}
+
+/// Sets the flag and wakes every waiter if the worker holding it panics, so that no thread
+/// waits forever for a block that will never come.
+struct PanicAlarm<'a> {
+    panicked: &'a AtomicBool,
+    offsets: &'a RowOffsets,
+}
+
+impl Drop for PanicAlarm<'_> {
+    fn drop(&mut self) {
+        if std::thread::panicking() {
+            self.panicked.store(true, Ordering::SeqCst);
+            self.offsets.abandon();
+        }
+    }
+}
+
 /// Score every row of `input` in this shard and write them, with the added columns of
 /// [`output_columns`], to `output`. `progress` is called now and then with the input bytes
 /// consumed so far.
 pub fn score_csv<R: Read, W: Write>(
     model: &Model,
     input: R,
-    output: W,
+    mut output: W,
     options: &ScoreOptions,
     progress: &mut dyn FnMut(u64),
 ) -> Result<Summary, BatchError> {
@@ -220,54 +439,151 @@ pub fn score_csv<R: Read, W: Write>(
     engine_options.elasticities = false;
     engine_options.intervals = true;
 
-    let mut rows = RowStream::new(model, input)?;
-    let mut writer = RowWriter::new(model, output, rows.header(), options.effects)?;
-    let mut scorer = Scorer::new(model);
-    let mut summary = Summary {
-        rows_read: 0,
-        rows_in_shard: 0,
-        rows_scored: 0,
-        rows_skipped: 0,
-        skipped_examples: Vec::new(),
-        skipped_by_covariate: BTreeMap::new(),
-        warnings: WarningTally::new(model),
-        intervals: model.covariance.is_some(),
+    let block_bytes = options.input_block_bytes.max(1);
+    let mut source = BlockSource {
+        input,
+        carry: Vec::with_capacity(block_bytes),
+        at_end: false,
+        block_bytes,
     };
-    let block_rows = options.block_rows.max(1);
-    while rows.advance()? {
-        let row = rows.row();
-        if row % PROGRESS_EVERY_ROWS == 0 {
-            progress(rows.bytes_read());
-        }
-        if !options.shard.contains(row, block_rows) {
-            continue;
-        }
-        summary.rows_in_shard += 1;
-        let values = match rows.parse(model) {
-            Ok(values) => values,
-            Err(error) => match options.on_error {
-                ErrorPolicy::Stop => return Err(error.into()),
-                ErrorPolicy::Skip => {
-                    summary.rows_skipped += 1;
-                    let key = error.problem.covariate().unwrap_or("(row shape)");
-                    *summary
-                        .skipped_by_covariate
-                        .entry(key.to_string())
-                        .or_default() += 1;
-                    if summary.skipped_examples.len() < SKIPPED_EXAMPLES {
-                        summary.skipped_examples.push(error);
+    let (header, header_bytes) = source.header()?;
+    let columns = input::covariate_columns(model, &header)?;
+    let mut header_text = Vec::new();
+    RowWriter::new(model, options.effects).write_header(
+        &mut header_text,
+        &output_header(model, &header, options.effects)?,
+    );
+    output
+        .write_all(&header_text)
+        .map_err(|e| BatchError::Write(e.into()))?;
+
+    let mut totals = Totals {
+        summary: Summary {
+            rows_read: 0,
+            rows_in_shard: 0,
+            rows_scored: 0,
+            rows_skipped: 0,
+            skipped_examples: Vec::new(),
+            skipped_by_covariate: BTreeMap::new(),
+            warnings: WarningTally::new(model),
+            intervals: model.covariance.is_some(),
+        },
+        rows_before: 0,
+        newlines_before: memchr::memchr_iter(b'\n', &header_bytes).count() as u64,
+    };
+    let mut bytes_done = header_bytes.len() as u64;
+
+    let threads = options.threads.max(1);
+    let sharded = options.shard != Shard::ALL;
+    let offsets = RowOffsets::new();
+    let panicked = AtomicBool::new(false);
+    // Blocks after the first that stopped the run need not be scored.
+    let first_stopped = AtomicUsize::new(usize::MAX);
+    let (job_sender, job_receiver) = mpsc::channel::<Job>();
+    let job_receiver = Mutex::new(job_receiver);
+    let (done_sender, done_receiver) = mpsc::channel::<Done>();
+
+    std::thread::scope(|scope| {
+        for _ in 0..threads {
+            let done_sender = done_sender.clone();
+            let (job_receiver, offsets, panicked, first_stopped) =
+                (&job_receiver, &offsets, &panicked, &first_stopped);
+            let columns = &columns[..];
+            let header_len = header.len();
+            scope.spawn(move || {
+                let _alarm = PanicAlarm { panicked, offsets };
+                let mut scorer =
+                    BlockScorer::new(model, columns, header_len, options, engine_options);
+                loop {
+                    let next = job_receiver.lock().ok().and_then(|r| r.recv().ok());
+                    let Some(Job { index, mut slot }) = next else {
+                        break;
+                    };
+                    let report = (index <= first_stopped.load(Ordering::SeqCst))
+                        .then(|| score_job(&mut scorer, offsets, sharded, index, &mut slot));
+                    if matches!(&report, Some(Ok(r)) if r.stopped.is_none()) {
+                        // Scored to the end.
+                    } else if report.is_some() {
+                        first_stopped.fetch_min(index, Ordering::SeqCst);
                     }
-                    continue;
+                    if done_sender
+                        .send(Done {
+                            index,
+                            slot,
+                            report,
+                        })
+                        .is_err()
+                    {
+                        break;
+                    }
                 }
-            },
-        };
-        let answer = scorer.score(model, values, &engine_options);
-        summary.warnings.add(&answer.warnings);
-        writer.write(rows.record(), answer)?;
-        summary.rows_scored += 1;
-    }
-    summary.rows_read = rows.row();
-    progress(rows.bytes_read());
-    writer.finish()?;
-    Ok(summary)
+            });
+        }
+        drop(done_sender);
+
+        let result = (|| -> Result<(), BatchError> {
+            let mut free: Vec<Slot> = (0..2 * threads + 2)
+                .map(|_| Slot {
+                    input: Vec::with_capacity(block_bytes),
+                    output: Vec::new(),
+                })
+                .collect();
+            let mut waiting: HashMap<usize, Done> = HashMap::new();
+            let (mut next_read, mut next_write) = (0usize, 0usize);
+            let mut reading = true;
+            loop {
+                while reading {
+                    let Some(mut slot) = free.pop() else { break };
+                    if source.next_block(&mut slot.input)? {
+                        let job = Job {
+                            index: next_read,
+                            slot,
+                        };
+                        job_sender.send(job).map_err(|_| BatchError::WorkerFailed)?;
+                        next_read += 1;
+                    } else {
+                        reading = false;
+                        free.push(slot);
+                    }
+                }
+                if next_write == next_read {
+                    return Ok(());
+                }
+                let done = match done_receiver.recv_timeout(Duration::from_millis(200)) {
+                    Ok(done) => done,
+                    Err(mpsc::RecvTimeoutError::Timeout) => {
+                        if panicked.load(Ordering::SeqCst) {
+                            return Err(BatchError::WorkerFailed);
+                        }
+                        continue;
+                    }
+                    Err(mpsc::RecvTimeoutError::Disconnected) => {
+                        return Err(BatchError::WorkerFailed)
+                    }
+                };
+                waiting.insert(done.index, done);
+                while let Some(Done { slot, report, .. }) = waiting.remove(&next_write) {
+                    let mut slot = slot;
+                    output
+                        .write_all(&slot.output)
+                        .map_err(|e| BatchError::Write(e.into()))?;
+                    totals.add(report.ok_or(BatchError::WorkerFailed)??)?;
+                    bytes_done += slot.input.len() as u64;
+                    progress(bytes_done);
+                    slot.output.clear();
+                    free.push(slot);
+                    next_write += 1;
+                }
+            }
+        })();
+        // Let the workers finish: no more blocks, and nobody waits for offsets.
+        drop(job_sender);
+        first_stopped.store(0, Ordering::SeqCst);
+        offsets.abandon();
+        result
+    })?;
+    totals.summary.rows_read = totals.rows_before;
+    progress(bytes_done);
+    output.flush().map_err(|e| BatchError::Write(e.into()))?;
+    Ok(totals.summary)
 }

@@ -25,16 +25,11 @@
 //!
 //! This module formats; it does not compute anything.
 
-use std::io::Write;
-
 use csv::ByteRecord;
 
 use super::BatchError;
 use crate::engine::{effect_slots, Answer, EffectSlot, Warning};
 use crate::model::Model;
-
-/// Bytes the CSV writer buffers at a time.
-const WRITE_BUFFER_BYTES: usize = 256 * 1024;
 
 /// The four columns every scored row gets, before any effect columns.
 pub const PROBABILITY_COLUMNS: [&str; 4] = [
@@ -81,42 +76,78 @@ pub fn warning_code(model: &Model, warning: &Warning) -> String {
     }
 }
 
-/// Writes scored rows: the input fields, then the added columns.
-pub struct RowWriter<W: Write> {
-    writer: csv::Writer<W>,
-    out: ByteRecord,
+/// The output's header: the input's columns followed by [`output_columns`]. Refuses an input
+/// that already has a column of one of those names, so that no output is ambiguous.
+pub fn output_header(
+    model: &Model,
+    input_header: &ByteRecord,
+    effects: bool,
+) -> Result<ByteRecord, BatchError> {
+    let added = output_columns(model, effects);
+    for field in input_header {
+        let name = String::from_utf8_lossy(field);
+        if let Some(taken) = added.iter().find(|a| a.as_str() == name.trim()) {
+            return Err(BatchError::OutputColumnTaken(taken.clone()));
+        }
+    }
+    let mut header = input_header.clone();
+    for name in &added {
+        header.push_field(name.as_bytes());
+    }
+    Ok(header)
+}
+
+/// Whether a field must be quoted: it holds a comma, a quote, or a line break.
+#[inline]
+fn needs_quotes(field: &[u8]) -> bool {
+    field
+        .iter()
+        .any(|&b| matches!(b, b',' | b'"' | b'\n' | b'\r'))
+}
+
+/// Append one field, quoted (with inner quotes doubled) only where it must be.
+#[inline]
+fn push_field(out: &mut Vec<u8>, field: &[u8]) {
+    if !needs_quotes(field) {
+        out.extend_from_slice(field);
+        return;
+    }
+    out.push(b'"');
+    for &b in field {
+        if b == b'"' {
+            out.push(b'"');
+        }
+        out.push(b);
+    }
+    out.push(b'"');
+}
+
+/// Append a record's fields, comma-separated, without a terminator.
+fn push_fields(out: &mut Vec<u8>, record: &ByteRecord) {
+    for (i, field) in record.iter().enumerate() {
+        if i > 0 {
+            out.push(b',');
+        }
+        push_field(out, field);
+    }
+}
+
+/// Formats scored rows as CSV lines (`\n`-terminated, fields quoted only where they must be):
+/// the input fields, then the added columns.
+///
+/// An input record's text is copied as it stands when it has no quote at all: its fields then
+/// hold no comma, quote or line break, so the text is exactly its fields joined by commas,
+/// which is what field-by-field writing would give. Any other record is written field by field.
+pub struct RowWriter {
     number: ryu::Buffer,
     warnings: Vec<u8>,
     out_of_range_codes: Vec<Vec<u8>>,
     effects: bool,
 }
 
-impl<W: Write> RowWriter<W> {
-    /// Write the header: the input's columns followed by [`output_columns`]. Refuses an input
-    /// that already has a column of one of those names, so that no output is ambiguous.
-    pub fn new(
-        model: &Model,
-        output: W,
-        input_header: &ByteRecord,
-        effects: bool,
-    ) -> Result<RowWriter<W>, BatchError> {
-        let added = output_columns(model, effects);
-        for field in input_header {
-            let name = String::from_utf8_lossy(field);
-            if let Some(taken) = added.iter().find(|a| a.as_str() == name.trim()) {
-                return Err(BatchError::OutputColumnTaken(taken.clone()));
-            }
-        }
-        let mut writer = csv::WriterBuilder::new()
-            .buffer_capacity(WRITE_BUFFER_BYTES)
-            .from_writer(output);
-        let mut header = input_header.clone();
-        for name in &added {
-            header.push_field(name.as_bytes());
-        }
-        writer
-            .write_byte_record(&header)
-            .map_err(BatchError::Write)?;
+impl RowWriter {
+    /// A writer of rows scored by `model` (with effect columns if `effects`).
+    pub fn new(model: &Model, effects: bool) -> RowWriter {
         let out_of_range_codes = (0..model.covariates.len())
             .map(|j| {
                 warning_code(
@@ -131,31 +162,49 @@ impl<W: Write> RowWriter<W> {
                 .into_bytes()
             })
             .collect();
-        Ok(RowWriter {
-            writer,
-            out: ByteRecord::with_capacity(1024, header.len()),
+        RowWriter {
             number: ryu::Buffer::new(),
             warnings: Vec::with_capacity(256),
             out_of_range_codes,
             effects,
-        })
+        }
     }
 
-    /// Write one scored row: `input` unchanged, then the answer's columns.
+    /// Append a header record (see [`output_header`]) to `out`.
+    pub fn write_header(&mut self, out: &mut Vec<u8>, header: &ByteRecord) {
+        push_fields(out, header);
+        out.push(b'\n');
+    }
+
+    /// Append one scored row to `out`: the input fields unchanged, then the answer's columns.
+    /// `text` is the record's text as read, without its terminator, if the caller has it.
     #[inline]
-    pub fn write(&mut self, input: &ByteRecord, answer: &Answer) -> Result<(), BatchError> {
-        self.out.clear();
-        for field in input {
-            self.out.push_field(field);
+    pub fn write(
+        &mut self,
+        out: &mut Vec<u8>,
+        input: &ByteRecord,
+        text: Option<&[u8]>,
+        answer: &Answer,
+    ) {
+        match text {
+            // The length check confirms that the text holds exactly the fields and the commas
+            // between them (no terminator, no stray bytes).
+            Some(text)
+                if text.len() + 1 == input.as_slice().len() + input.len()
+                    && memchr::memchr(b'"', text).is_none() =>
+            {
+                out.extend_from_slice(text)
+            }
+            _ => push_fields(out, input),
         }
-        self.push_number(Some(answer.probability));
-        self.push_number(answer.interval.map(|i| i.lower));
-        self.push_number(answer.interval.map(|i| i.upper));
-        self.push_number(Some(answer.linear_index));
+        self.push_number(out, Some(answer.probability));
+        self.push_number(out, answer.interval.map(|i| i.lower));
+        self.push_number(out, answer.interval.map(|i| i.upper));
+        self.push_number(out, Some(answer.linear_index));
         if self.effects {
             for effect in &answer.effects {
-                self.push_number(Some(effect.effect));
-                self.push_number(effect.std_error);
+                self.push_number(out, Some(effect.effect));
+                self.push_number(out, effect.std_error);
             }
         }
         self.warnings.clear();
@@ -172,22 +221,17 @@ impl<W: Write> RowWriter<W> {
                 }
             }
         }
-        self.out.push_field(&self.warnings);
-        self.writer
-            .write_byte_record(&self.out)
-            .map_err(BatchError::Write)
+        out.push(b',');
+        push_field(out, &self.warnings);
+        out.push(b'\n');
     }
 
-    /// Flush everything written.
-    pub fn finish(mut self) -> Result<(), BatchError> {
-        self.writer.flush().map_err(|e| BatchError::Write(e.into()))
-    }
-
+    /// Append `,x` (or `,` alone for no value); a number never needs quotes.
     #[inline]
-    fn push_number(&mut self, x: Option<f64>) {
-        match x {
-            Some(x) => self.out.push_field(self.number.format(x).as_bytes()),
-            None => self.out.push_field(b""),
+    fn push_number(&mut self, out: &mut Vec<u8>, x: Option<f64>) {
+        out.push(b',');
+        if let Some(x) = x {
+            out.extend_from_slice(self.number.format(x).as_bytes());
         }
     }
 }

@@ -69,6 +69,19 @@ impl WarningTally {
         }
     }
 
+    /// Add another tally's counts (of the same model) to this one.
+    pub fn merge(&mut self, other: &WarningTally) {
+        self.rows += other.rows;
+        self.rows_with_warnings += other.rows_with_warnings;
+        for (total, part) in self.below.iter_mut().zip(&other.below) {
+            *total += part;
+        }
+        for (total, part) in self.above.iter_mut().zip(&other.above) {
+            *total += part;
+        }
+        self.unusual_combination += other.unusual_combination;
+    }
+
     /// Rows counted.
     pub fn rows(&self) -> u64 {
         self.rows

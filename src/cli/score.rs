@@ -45,6 +45,11 @@ pub struct ScoreArgs {
     #[arg(long, env = "OGIVE_BLOCK_ROWS", value_name = "R", default_value_t = batch::DEFAULT_BLOCK_ROWS,
           value_parser = clap::value_parser!(u64).range(1..))]
     pub block_rows: u64,
+    /// Worker threads that parse, score and format rows (default: one per core). The output is
+    /// the same, byte for byte, whatever the number.
+    #[arg(long, env = "OGIVE_THREADS", value_name = "N",
+          value_parser = clap::value_parser!(u64).range(1..))]
+    pub threads: Option<u64>,
 }
 
 /// The `--on-error` choices.
@@ -84,6 +89,10 @@ pub fn run(args: ScoreArgs) -> anyhow::Result<ExitCode> {
         },
         shard: args.shard,
         block_rows: args.block_rows,
+        threads: args
+            .threads
+            .map_or_else(batch::default_threads, |n| n as usize),
+        input_block_bytes: batch::DEFAULT_INPUT_BLOCK_BYTES,
     };
     if model.covariance.is_none() {
         eprintln!(
