@@ -577,3 +577,260 @@ fn a_level_outside_zero_and_one_is_refused_before_reading() {
         result.stderr
     );
 }
+
+/// A panel's mapping from pixels back to data, from its `data-*` attributes.
+struct Panel {
+    left: f64,
+    top: f64,
+    width: f64,
+    height: f64,
+}
+
+impl Panel {
+    fn read(node: roxmltree::Node) -> Panel {
+        let number = |key: &str| -> f64 {
+            node.attribute(key)
+                .unwrap_or_else(|| panic!("panel has no {key}"))
+                .parse()
+                .expect("number")
+        };
+        assert_eq!((number("data-x-min"), number("data-x-max")), (0.0, 1.0));
+        assert_eq!((number("data-y-min"), number("data-y-max")), (0.0, 1.0));
+        Panel {
+            left: number("data-left"),
+            top: number("data-top"),
+            width: number("data-width"),
+            height: number("data-height"),
+        }
+    }
+
+    fn data(&self, (px, py): (f64, f64)) -> (f64, f64) {
+        (
+            (px - self.left) / self.width,
+            1.0 - (py - self.top) / self.height,
+        )
+    }
+
+    /// Coordinates are written to 1/1000 pixel: half that over the panel's size.
+    fn tolerance(&self) -> f64 {
+        0.0005 / self.width.min(self.height) + 1e-12
+    }
+}
+
+fn vertices(d: &str) -> Vec<(f64, f64)> {
+    d.split(['M', 'L'])
+        .map(str::trim)
+        .filter(|s| !s.is_empty())
+        .map(|pair| {
+            let (x, y) = pair.split_once(',').expect("x,y");
+            (x.parse().expect("x"), y.parse().expect("y"))
+        })
+        .collect()
+}
+
+fn plots_of_logit_against_probit() -> (tempfile::TempDir, String, String) {
+    let s = setup();
+    let folder = s.dir.path().join("plots");
+    let report = evaluate_json(&[
+        "--data",
+        data_path().to_str().unwrap(),
+        "--outcome",
+        "grade",
+        "--model",
+        s.logit.to_str().unwrap(),
+        "--against",
+        s.probit.to_str().unwrap(),
+        "--plots",
+        folder.to_str().unwrap(),
+    ]);
+    let listed: Vec<&str> = report["plots"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p.as_str().unwrap())
+        .collect();
+    assert_eq!(listed.len(), 2, "{listed:?}");
+    let read = |name: &str| std::fs::read_to_string(folder.join(name)).expect("plot written");
+    let (reliability, roc) = (read("reliability.svg"), read("roc.svg"));
+    (s.dir, reliability, roc)
+}
+
+#[test]
+fn the_roc_plot_draws_every_point_of_sklearns_roc_curve_for_both_models() {
+    let (_dir, _, roc) = plots_of_logit_against_probit();
+    let document = roxmltree::Document::parse(&roc).expect("well-formed SVG");
+    let panel_node = document
+        .descendants()
+        .find(|n| n.attribute("id") == Some("roc-panel"))
+        .expect("roc panel");
+    let panel = Panel::read(panel_node);
+    let curves: Vec<_> = panel_node
+        .descendants()
+        .filter(|n| n.has_tag_name("path") && n.attribute("class") == Some("curve"))
+        .collect();
+    assert_eq!(curves.len(), 2);
+    let want = &reference()["spector"];
+    for (curve, (key, name)) in curves
+        .iter()
+        .zip([("first", "spector-logit 1"), ("second", "spector-probit 1")])
+    {
+        assert_eq!(curve.attribute("data-model"), Some(name));
+        let points: Vec<(f64, f64)> = vertices(curve.attribute("d").unwrap())
+            .into_iter()
+            .map(|p| panel.data(p))
+            .collect();
+        let expected = want["roc"][key].as_array().unwrap();
+        assert_eq!(
+            points.len(),
+            expected.len(),
+            "{name}: vertices against sklearn roc_curve"
+        );
+        for (got, reference) in points.iter().zip(expected) {
+            let (fpr, tpr) = (f(&reference[0]), f(&reference[1]));
+            assert!(
+                (got.0 - fpr).abs() <= panel.tolerance()
+                    && (got.1 - tpr).abs() <= panel.tolerance(),
+                "{name}: vertex {got:?}, sklearn roc_curve ({fpr}, {tpr})"
+            );
+        }
+        // The trapezoids under the drawn curve add up to the AUC (ties are diagonal steps).
+        let area: f64 = points
+            .windows(2)
+            .map(|w| (w[1].0 - w[0].0) * (w[1].1 + w[0].1) / 2.0)
+            .sum();
+        let auc = f(&want[key]["figures"]["auc"]);
+        assert!(
+            (area - auc).abs() < 4.0 * panel.tolerance(),
+            "{name}: area {area}, sklearn AUC {auc}"
+        );
+    }
+}
+
+#[test]
+fn the_reliability_plot_places_each_bin_at_its_mean_and_observed_share_sized_by_rows() {
+    let (_dir, reliability, _) = plots_of_logit_against_probit();
+    let document = roxmltree::Document::parse(&reliability).expect("well-formed SVG");
+    let panel_node = document
+        .descendants()
+        .find(|n| n.attribute("id") == Some("reliability-panel"))
+        .expect("reliability panel");
+    let panel = Panel::read(panel_node);
+    let diagonal = panel_node
+        .descendants()
+        .find(|n| n.attribute("class") == Some("diagonal"))
+        .expect("the diagonal");
+    let end = |x: &str, y: &str| {
+        panel.data((
+            diagonal.attribute(x).unwrap().parse().unwrap(),
+            diagonal.attribute(y).unwrap().parse().unwrap(),
+        ))
+    };
+    assert_eq!((end("x1", "y1"), end("x2", "y2")), ((0.0, 0.0), (1.0, 1.0)));
+
+    let want = &reference()["spector"];
+    for (key, name) in [("first", "spector-logit 1"), ("second", "spector-probit 1")] {
+        let markers: Vec<_> = panel_node
+            .descendants()
+            .filter(|n| {
+                n.attribute("class") == Some("bin") && n.attribute("data-model") == Some(name)
+            })
+            .collect();
+        let bins: Vec<&Json> = want[key]["figures"]["reliability"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .filter(|b| b["count"] != 0)
+            .collect();
+        assert_eq!(
+            markers.len(),
+            bins.len(),
+            "{name}: one marker per non-empty bin"
+        );
+        let mut by_count = Vec::new();
+        for (marker, bin) in markers.iter().zip(&bins) {
+            let number = |k: &str| -> f64 { marker.attribute(k).unwrap().parse().unwrap() };
+            let (x, y) = panel.data((number("cx"), number("cy")));
+            let (mean, observed) = (f(&bin["mean_probability"]), f(&bin["observed"]));
+            assert!(
+                (x - mean).abs() <= panel.tolerance() && (y - observed).abs() <= panel.tolerance(),
+                "{name}: marker at ({x}, {y}), calibration_curve ({mean}, {observed})"
+            );
+            assert_eq!(number("data-count"), f(&bin["count"]));
+            by_count.push((number("data-count"), number("r")));
+        }
+        // Marker area grows with the bin's rows.
+        by_count.sort_by(|a, b| a.0.total_cmp(&b.0));
+        assert!(
+            by_count.windows(2).all(|w| w[0].1 <= w[1].1),
+            "{name}: radii {by_count:?}"
+        );
+    }
+}
+
+#[test]
+fn describe_with_labelled_data_adds_the_same_figures_as_evaluate() {
+    let s = setup();
+    let folder = s.dir.path().join("plots");
+    let data = data_path();
+    let result = run(
+        &[
+            "describe",
+            s.logit.to_str().unwrap(),
+            "--data",
+            data.to_str().unwrap(),
+            "--format",
+            "json",
+            "--plots",
+            folder.to_str().unwrap(),
+        ],
+        None,
+        &[],
+    );
+    assert_eq!(result.code, 0, "{}", result.stderr);
+    let described: Json = serde_json::from_str(&result.stdout).expect("JSON");
+    let evaluated = evaluate_json(&[
+        "--data",
+        data.to_str().unwrap(),
+        "--outcome",
+        "grade",
+        "--model",
+        s.logit.to_str().unwrap(),
+    ]);
+    let (a, b) = (
+        &described["evaluation"]["models"][0]["figures"],
+        &evaluated["models"][0]["figures"],
+    );
+    assert!(
+        a.is_object(),
+        "describe gave no evaluation: {}",
+        result.stdout
+    );
+    assert_eq!(a, b, "describe and evaluate give the same figures");
+    for plot in ["reliability.svg", "roc.svg", "gpa.svg"] {
+        assert!(folder.join(plot).is_file(), "{plot} not written");
+    }
+
+    // Without the outcome column, describe adds nothing.
+    let no_outcome = s.dir.path().join("covariates.csv");
+    let text = std::fs::read_to_string(&data).unwrap();
+    let trimmed: Vec<String> = text
+        .lines()
+        .map(|l| l.rsplit_once(',').unwrap().0.to_string())
+        .collect();
+    std::fs::write(&no_outcome, trimmed.join("\n") + "\n").unwrap();
+    let result = run(
+        &[
+            "describe",
+            s.logit.to_str().unwrap(),
+            "--data",
+            no_outcome.to_str().unwrap(),
+            "--format",
+            "json",
+        ],
+        None,
+        &[],
+    );
+    assert_eq!(result.code, 0, "{}", result.stderr);
+    let described: Json = serde_json::from_str(&result.stdout).expect("JSON");
+    assert!(described.get("evaluation").is_none());
+}

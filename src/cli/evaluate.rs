@@ -13,7 +13,7 @@ use sha2::{Digest, Sha256};
 
 use crate::batch::ErrorPolicy;
 use crate::evaluate::report::{self, DataSection, EvaluationReport, ModelSection, WarningShares};
-use crate::evaluate::{self as figures, read_labelled, Names};
+use crate::evaluate::{self as figures, plots, read_labelled, ModelRows, Names};
 use crate::model::Model;
 use crate::registry::store::history::rfc3339_utc;
 use crate::registry::store::ModelDir;
@@ -60,6 +60,10 @@ pub struct EvaluateArgs {
     /// Compare with the live version of the same model in --models.
     #[arg(long, env = "OGIVE_AGAINST_LIVE", requires = "models")]
     pub against_live: bool,
+    /// Write the reliability diagram and the ROC curve as SVG into this folder (created if
+    /// needed): reliability.svg and roc.svg, with both models when there are two.
+    #[arg(long, env = "OGIVE_PLOTS", value_name = "DIR")]
+    pub plots: Option<PathBuf>,
     /// The report's format (`json` is the evidence `ogive promote --evidence` takes).
     #[arg(long, env = "OGIVE_FORMAT", value_enum, default_value_t = Format::Text)]
     pub format: Format,
@@ -73,7 +77,7 @@ pub struct EvaluateArgs {
 }
 
 /// A model and the file it came from.
-struct Loaded {
+pub(crate) struct Loaded {
     model: Model,
     file: String,
     sha256: String,
@@ -178,13 +182,42 @@ impl<R: Read> Read for Hashing<R> {
 pub fn run(args: EvaluateArgs) -> anyhow::Result<ExitCode> {
     figures::quantile_for(args.level)?;
     let (first, second) = load_models(&args)?;
-    let mut models = vec![&first.model];
-    if let Some(s) = &second {
-        models.push(&s.model);
+    let on_error = match args.on_error {
+        OnError::Stop => ErrorPolicy::Stop,
+        OnError::Skip => ErrorPolicy::Skip,
+    };
+    let models: Vec<Loaded> = std::iter::once(first).chain(second).collect();
+    let (mut built, rows) =
+        evaluate_data(&models, &args.data, &args.outcome, on_error, args.level)?;
+    if let Some(folder) = &args.plots {
+        let written = plots::write_plots(folder, &built, &rows)?;
+        built.plots = written.iter().map(|p| p.display().to_string()).collect();
     }
+    match args.format {
+        Format::Text => print!("{}", report::render_text(&built)),
+        Format::Json => println!(
+            "{}",
+            serde_json::to_string_pretty(&built).context("cannot write the JSON report")?
+        ),
+    }
+    Ok(ExitCode::SUCCESS)
+}
 
-    let file =
-        File::open(&args.data).with_context(|| format!("cannot open {}", args.data.display()))?;
+/// The model file at `path`, with its SHA-256, for [`evaluate_data`].
+pub(crate) fn loaded_from(path: &Path) -> anyhow::Result<Loaded> {
+    load_file(path)
+}
+
+/// Evaluate one or two models on the labelled file `data`: the one pass over the rows, every
+/// figure, the report, and the rows kept for the plots. `ogive describe --data` calls this too.
+pub(crate) fn evaluate_data(
+    models: &[Loaded],
+    data: &Path,
+    outcome: &str,
+    on_error: ErrorPolicy,
+    level: f64,
+) -> anyhow::Result<(EvaluationReport, Vec<ModelRows>)> {
+    let file = File::open(data).with_context(|| format!("cannot open {}", data.display()))?;
     let length = file.metadata().ok().map(|m| m.len());
     let mut input = Hashing {
         inner: file,
@@ -197,39 +230,25 @@ pub fn run(args: EvaluateArgs) -> anyhow::Result<ExitCode> {
             bar.set_position(bytes);
         }
     };
-    let on_error = match args.on_error {
-        OnError::Stop => ErrorPolicy::Stop,
-        OnError::Skip => ErrorPolicy::Skip,
-    };
-    let labelled = read_labelled(
-        &models,
-        &mut input,
-        &args.outcome,
-        on_error,
-        0,
-        &mut on_progress,
-    )
-    .with_context(|| format!("evaluating on {} stopped", args.data.display()))?;
+    let scored: Vec<&Model> = models.iter().map(|m| &m.model).collect();
+    let labelled = read_labelled(&scored, &mut input, outcome, on_error, 0, &mut on_progress)
+        .with_context(|| format!("evaluating on {} stopped", data.display()))?;
     // The CSV reader stops at the last record; hash whatever it left unread.
     io::copy(&mut input, &mut io::sink())
-        .with_context(|| format!("cannot read {}", args.data.display()))?;
+        .with_context(|| format!("cannot read {}", data.display()))?;
     if let Some(bar) = bar {
         bar.finish_and_clear();
     }
 
     let summary = &labelled.summary;
     let mut sections = Vec::new();
-    for (index, (loaded, rows)) in std::iter::once(&first)
-        .chain(second.as_ref())
-        .zip(&labelled.rows)
-        .enumerate()
-    {
-        let evaluation = figures::evaluate(rows, args.level).with_context(|| {
+    for (index, (loaded, rows)) in models.iter().zip(&labelled.rows).enumerate() {
+        let evaluation = figures::evaluate(rows, level).with_context(|| {
             format!(
                 "cannot evaluate {} {} on {}",
                 loaded.model.name(),
                 loaded.model.version(),
-                args.data.display()
+                data.display()
             )
         })?;
         sections.push(ModelSection {
@@ -243,9 +262,9 @@ pub fn run(args: EvaluateArgs) -> anyhow::Result<ExitCode> {
             figures: evaluation,
         });
     }
-    let comparison = match (&second, &labelled.paired) {
+    let comparison = match (models.get(1), &labelled.paired) {
         (Some(other), Some(paired)) => {
-            let first_name = format!("{} {}", first.model.name(), first.model.version());
+            let first_name = format!("{} {}", models[0].model.name(), models[0].model.version());
             let second_name = format!("{} {}", other.model.name(), other.model.version());
             let names = Names {
                 first: &first_name,
@@ -255,7 +274,7 @@ pub fn run(args: EvaluateArgs) -> anyhow::Result<ExitCode> {
                 &labelled.rows[0],
                 &labelled.rows[1],
                 paired,
-                args.level,
+                level,
                 names,
             )?)
         }
@@ -266,12 +285,12 @@ pub fn run(args: EvaluateArgs) -> anyhow::Result<ExitCode> {
         report: report::REPORT_KIND,
         format_version: report::REPORT_FORMAT_VERSION,
         created: rfc3339_utc(std::time::SystemTime::now()),
-        level: args.level,
+        level,
         data: DataSection {
-            path: args.data.display().to_string(),
+            path: data.display().to_string(),
             sha256: hex(&input.hasher.finalize()),
             bytes: input.bytes,
-            outcome: args.outcome.clone(),
+            outcome: outcome.to_string(),
             rows_read: summary.rows_read,
             rows_evaluated: summary.rows_evaluated,
             rows_skipped: summary.rows_skipped,
@@ -288,12 +307,5 @@ pub fn run(args: EvaluateArgs) -> anyhow::Result<ExitCode> {
         notes: report::notes(),
         cautions: report::cautions(),
     };
-    match args.format {
-        Format::Text => print!("{}", report::render_text(&built)),
-        Format::Json => println!(
-            "{}",
-            serde_json::to_string_pretty(&built).context("cannot write the JSON report")?
-        ),
-    }
-    Ok(ExitCode::SUCCESS)
+    Ok((built, labelled.rows))
 }

@@ -175,6 +175,17 @@ fn outcome_column(header: &csv::ByteRecord, column: &str) -> Result<usize, Label
     Ok(first)
 }
 
+/// Whether the CSV header of `input` has a column named `column` (surrounding spaces ignored).
+pub fn has_column<R: Read>(input: R, column: &str) -> Result<bool, csv::Error> {
+    let mut reader = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .from_reader(input);
+    let header = reader.byte_headers()?;
+    Ok(header
+        .iter()
+        .any(|f| String::from_utf8_lossy(f).trim() == column))
+}
+
 /// Read `input` once, scoring every row with each of `models` (one or two), and accumulate
 /// the rows for [`super::evaluate`] and [`super::compare`]. `rows_hint` sizes the stored
 /// logits up front (0 when unknown); `progress` is called now and then with the bytes read.

@@ -9,6 +9,7 @@
 //! bins.rs         the reliability table (Wilson intervals) and Murphy's Brier decomposition
 //! hosmer.rs       the Hosmer–Lemeshow statistic over deciles of risk
 //! paired.rs       per-row Brier and log-loss differences, the paired AUC test, the verdict
+//! plots.rs        the reliability diagram and the ROC curve, as SVG
 //! report.rs       the report value, its text rendering and its JSON (the evidence)
 //! labelled.rs     one pass over a labelled CSV: outcome and covariates read as `ogive score`
 //!                 reads them, scored by one or two models, fed to the accumulators
@@ -29,6 +30,7 @@ mod calibration;
 mod hosmer;
 pub mod labelled;
 mod paired;
+pub mod plots;
 pub mod report;
 mod rows;
 

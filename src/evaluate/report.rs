@@ -255,6 +255,33 @@ pub fn render_text(report: &EvaluationReport) -> String {
     s
 }
 
+/// The block `ogive describe` appends when its data carry the outcome: the rows, the model's
+/// figures and the notes (the describe report already carries the cautions).
+pub fn render_section(report: &EvaluationReport) -> String {
+    let mut s = String::new();
+    let d = &report.data;
+    let _ = writeln!(s);
+    let _ = writeln!(
+        s,
+        "Evaluation on the data's outcome column '{}' ({}% intervals; as ogive evaluate)",
+        d.outcome,
+        report.level * 100.0
+    );
+    let _ = writeln!(
+        s,
+        "  data {} (sha256 {}): {} rows evaluated",
+        d.path, d.sha256, d.rows_evaluated
+    );
+    for m in &report.models {
+        render_model(&mut s, m);
+    }
+    let _ = writeln!(s, "  How the figures are computed");
+    for n in &report.notes {
+        let _ = writeln!(s, "    - {n}");
+    }
+    s
+}
+
 /// One model's block of the text report.
 pub fn render_model(s: &mut String, m: &ModelSection) {
     let f = &m.figures;

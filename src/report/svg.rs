@@ -363,7 +363,7 @@ impl Panel {
 }
 
 /// Text made safe for SVG content and attribute values.
-fn escape(text: &str) -> String {
+pub(crate) fn escape(text: &str) -> String {
     let mut out = String::with_capacity(text.len());
     for ch in text.chars() {
         match ch {

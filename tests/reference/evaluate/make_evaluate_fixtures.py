@@ -31,7 +31,8 @@ figures computed by libraries outside the project:
 A last section, "spector", evaluates statsmodels' own logit and probit fits of the Spector &
 Mazzeo (1980) data that statsmodels ships (GRADE on GPA, TUCE, PSI; the same fits as
 tests/reference/describe/spector.json) on their 32 training rows, logit against probit, so that
-`ogive evaluate` run as a process can be checked end to end.
+`ogive evaluate` run as a process can be checked end to end, its ROC plot against
+sklearn.metrics.roc_curve.
 
 Intervals are at level 0.95 with scipy.stats.norm.ppf(0.975). No probability lies within 1e-15
 of 0 or 1, where ogive's clip bound and scikit-learn's would differ.
@@ -50,7 +51,7 @@ import statsmodels.api as sm
 from scipy.special import expit, logit
 from scipy.stats import chi2, norm, rankdata
 from sklearn.calibration import calibration_curve
-from sklearn.metrics import brier_score_loss, log_loss, roc_auc_score
+from sklearn.metrics import brier_score_loss, log_loss, roc_auc_score, roc_curve
 from statsmodels.stats.proportion import proportion_confint
 
 LEVEL = 0.95
@@ -310,6 +311,11 @@ def main():
         "first": {"probabilities": [float(v) for v in logit_p], "figures": figures(y, logit_p)},
         "second": {"probabilities": [float(v) for v in probit_p], "figures": figures(y, probit_p)},
         "paired": paired(y, logit_p, probit_p),
+        # sklearn.metrics.roc_curve(y, p, drop_intermediate=False): every threshold's point.
+        "roc": {
+            name: [[float(a), float(b)] for a, b in zip(*roc_curve(y, p, drop_intermediate=False)[:2])]
+            for name, p in (("first", logit_p), ("second", probit_p))
+        },
     }
 
     out = {
