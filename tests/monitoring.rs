@@ -782,6 +782,266 @@ fn reported_outcomes_reach_the_calibration_gauges() {
 }
 
 // ---------------------------------------------------------------------------------------------
+// Fleet counters: running totals that add across replicas
+// ---------------------------------------------------------------------------------------------
+
+/// The demo models' probabilities on their demo data, as `ogive score` computes them, with
+/// each row's outcome.
+fn demo_scored(model: &str, outcome: &str) -> Vec<(f64, bool)> {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_ogive"))
+        .args(["score", "--model"])
+        .arg(format!("{root}/model-files/{model}/versions/1.0.0.json"))
+        .arg("--data")
+        .arg(format!("{root}/demo-data/{model}.csv"))
+        .args(["--out", "-"])
+        .output()
+        .expect("ogive score runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let text = String::from_utf8(out.stdout).expect("utf-8");
+    let mut lines = text.lines();
+    let header: Vec<&str> = lines.next().expect("a header").split(',').collect();
+    let column = |name: &str| header.iter().position(|h| *h == name).expect(name);
+    let (y, p) = (column(outcome), column("probability"));
+    lines
+        .map(|line| {
+            let fields: Vec<&str> = line.split(',').collect();
+            (fields[p].parse().expect("a probability"), fields[y] == "1")
+        })
+        .collect()
+}
+
+/// The sum over `scrapes` of every sample named `name` with these labels.
+fn fleet_sum(scrapes: &[Vec<Sample>], name: &str, labels: &[(&str, &str)]) -> f64 {
+    scrapes
+        .iter()
+        .map(|samples| series(samples, name, labels).unwrap_or(0.0))
+        .sum()
+}
+
+/// Each demo model's rows reported as outcomes to three replicas in turn; the figures the
+/// recording rules take from the summed counters match scikit-learn on all the rows.
+#[test]
+fn fleet_counters_summed_over_replicas_give_the_figures_of_all_outcomes() {
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/monitoring/fleet.json"
+    );
+    let text = std::fs::read_to_string(path)
+        .expect("run tests/reference/monitoring/make_fleet_fixture.py");
+    let fixture: Json = serde_json::from_str(&text).expect("fixture JSON");
+    for case in fixture["cases"].as_array().expect("cases") {
+        let model = case["model"].as_str().expect("model");
+        let rows = demo_scored(model, case["outcome"].as_str().expect("outcome"));
+        assert_eq!(rows.len() as u64, case["rows"].as_u64().expect("rows"));
+        let registries: Vec<Registry> = (0..3).map(|_| Registry::new()).collect();
+        let monitors: Vec<Arc<CalibrationMonitor>> = registries
+            .iter()
+            .map(|r| CalibrationMonitor::new(1_000, r).expect("monitor"))
+            .collect();
+        for (i, &(p, y)) in rows.iter().enumerate() {
+            monitors[i % 3].record(model, "1.0.0", p, y);
+        }
+        let scrapes: Vec<Vec<Sample>> = registries.iter().map(scrape).collect();
+        let labels = [("model", model), ("version", "1.0.0")];
+        let total = |name: &str| fleet_sum(&scrapes, name, &labels);
+        let n = total("ogive_outcomes_total");
+        assert_eq!(n, rows.len() as f64);
+        let expected = |key: &str| case[key].as_f64().unwrap_or_else(|| panic!("{key}"));
+        let what = |m: &str| format!("{model}: {m}");
+        // scikit-learn 1.9 brier_score_loss and log_loss on all 20,000 rows; relative 1e-12
+        // (numpy's probabilities and ogive's agree to about 1e-15).
+        assert_close(
+            total("ogive_outcome_squared_error_total") / n,
+            expected("brier_score"),
+            tolerance::SKLEARN,
+            &what("Brier score from the counters vs sklearn"),
+        );
+        assert_close(
+            total("ogive_outcome_log_loss_total") / n,
+            expected("log_loss"),
+            tolerance::SKLEARN,
+            &what("log loss from the counters vs sklearn"),
+        );
+        // numpy mean(y) − mean(p); absolute 1e-12 (a difference of means of 20,000 terms).
+        let in_the_large =
+            (total("ogive_outcome_positives_total") - total("ogive_outcome_predicted_total")) / n;
+        assert!(
+            (in_the_large - expected("in_the_large")).abs() <= 1e-12,
+            "{}: {in_the_large} vs {}",
+            what("calibration-in-the-large"),
+            expected("in_the_large")
+        );
+        // The binned AUC as the recording rule computes it: per bucket bound le, the
+        // positives in the bin times twice the negatives below plus in it, halved.
+        let bounds: Vec<String> = calibration::outcome_bin_bounds()
+            .iter()
+            .map(f64::to_string)
+            .chain(["+Inf".to_string()])
+            .collect();
+        let at = |name: &str, outcome: &str, label: &str, le: &str| {
+            fleet_sum(
+                &scrapes,
+                name,
+                &[
+                    ("model", model),
+                    ("version", "1.0.0"),
+                    ("outcome", outcome),
+                    (label, le),
+                ],
+            )
+        };
+        let (mut wins, mut ties) = (0.0, 0.0);
+        for le in &bounds {
+            let bucket = |o| at("ogive_outcome_probability_bucket", o, "le", le);
+            // The bucket before: its bound is in `bound`, as `le` is kept for histograms.
+            let below = |o| at("ogive_outcome_probability_below_total", o, "bound", le);
+            wins += (bucket("1") - below("1")) * (bucket("0") + below("0")) / 2.0;
+            ties += (bucket("1") - below("1")) * (bucket("0") - below("0")) / 2.0;
+        }
+        let pairs = at("ogive_outcome_probability_bucket", "1", "le", "+Inf")
+            * at("ogive_outcome_probability_bucket", "0", "le", "+Inf");
+        let (binned, bound) = (wins / pairs, ties / pairs);
+        // The same binning in numpy (make_fleet_fixture.py): relative 1e-12, the same counts
+        // summed in another order.
+        assert_close(
+            binned,
+            expected("binned_auc"),
+            1e-12,
+            &what("binned AUC vs numpy"),
+        );
+        assert_close(
+            bound,
+            expected("tie_bound"),
+            1e-12,
+            &what("tie bound vs numpy"),
+        );
+        // Against sklearn roc_auc_score: within the tie bound (a theorem), and within 0.005,
+        // the resolution the bins were chosen for.
+        let exact = expected("exact_auc");
+        assert!(
+            (binned - exact).abs() <= bound.min(0.005),
+            "{}: binned {binned}, sklearn {exact}, bound {bound}",
+            what("binned AUC")
+        );
+        // sklearn.calibration.calibration_curve(n_bins=10): each non-empty tenth's mean
+        // outcome and mean prediction; counts exact, means relative 1e-12.
+        for bin in case["reliability"].as_array().expect("reliability") {
+            let tenth = bin["tenth"].as_u64().expect("tenth") as usize;
+            let label = calibration::reliability_bin_label(tenth);
+            let labels = [
+                ("model", model),
+                ("version", "1.0.0"),
+                ("bin", label.as_str()),
+            ];
+            let count = fleet_sum(&scrapes, "ogive_reliability_outcomes_total", &labels);
+            assert_eq!(
+                count,
+                bin["count"].as_f64().expect("count"),
+                "{model} {label}"
+            );
+            assert_close(
+                fleet_sum(&scrapes, "ogive_reliability_positives_total", &labels) / count,
+                bin["prob_true"].as_f64().expect("prob_true"),
+                1e-12,
+                &what(&format!(
+                    "observed share in {label} vs sklearn calibration_curve"
+                )),
+            );
+            assert_close(
+                fleet_sum(&scrapes, "ogive_reliability_predicted_total", &labels) / count,
+                bin["prob_pred"].as_f64().expect("prob_pred"),
+                1e-12,
+                &what(&format!(
+                    "mean prediction in {label} vs sklearn calibration_curve"
+                )),
+            );
+        }
+    }
+}
+
+#[test]
+fn the_outcome_bins_put_a_probability_on_an_edge_in_the_lower_bin() {
+    // Prometheus buckets count p <= le, so an edge belongs to the bin below it (common
+    // practice of the exposition format); 0.07 must not drift into the next bin through
+    // 0.07 * 100 = 7.000000000000001.
+    assert_eq!(calibration::outcome_bin(0.0), 0);
+    assert_eq!(calibration::outcome_bin(0.01), 0);
+    assert_eq!(calibration::outcome_bin(0.010_000_000_000_000_2), 1);
+    assert_eq!(calibration::outcome_bin(0.07), 6);
+    assert_eq!(calibration::outcome_bin(0.99), 98);
+    assert_eq!(calibration::outcome_bin(0.995), 99);
+    assert_eq!(calibration::outcome_bin(1.0), 99);
+    assert_eq!(calibration::reliability_bin_label(0), "[0,0.1]");
+    assert_eq!(calibration::reliability_bin_label(9), "(0.9,1]");
+}
+
+/// The drift bin counters of three replicas, summed, give the PSI of all the observations: the
+/// hand computation of the shares test input below, as the recording rule takes it.
+#[test]
+fn drift_bin_counters_summed_over_replicas_give_the_psi_of_all_observations() {
+    let model = drift_model("1");
+    let registries: Vec<Registry> = (0..3).map(|_| Registry::new()).collect();
+    let monitors: Vec<Arc<DriftMonitor>> = registries
+        .iter()
+        .map(|r| DriftMonitor::new(1_000, 1, r).expect("monitor"))
+        .collect();
+    // 100 observations in turn over the replicas: amounts 5, 15, 25, 35 in the proportions
+    // 40 : 30 : 20 : 10 (training .1 .2 .3 .4).
+    let amounts = [(5.0, 40), (15.0, 30), (25.0, 20), (35.0, 10)];
+    let mut i = 0;
+    for (amount, count) in amounts {
+        for _ in 0..count {
+            monitors[i % 3].record(&model, &values(&model, amount, "retail", 0), 0.1);
+            i += 1;
+        }
+    }
+    let scrapes: Vec<Vec<Sample>> = registries.iter().map(scrape).collect();
+    let bins = ["[0,10)", "[10,20)", "[20,30)", "[30,40]"];
+    let training = [0.1, 0.2, 0.3, 0.4];
+    let mut psi = 0.0;
+    for (bin, e) in bins.iter().zip(training) {
+        let labels = [
+            ("model", "lease-test"),
+            ("version", "1"),
+            ("covariate", "amount"),
+            ("bin", *bin),
+        ];
+        let hits = fleet_sum(&scrapes, "ogive_input_bin_observations_total", &labels);
+        // Every replica exports the same training share, from the model file.
+        for samples in &scrapes {
+            assert_eq!(
+                series(samples, "ogive_input_training_share", &labels),
+                Some(e)
+            );
+        }
+        let a = hits / 100.0;
+        psi += (a.max(SHARE_FLOOR) - e) * (a.max(SHARE_FLOOR) / e).ln();
+    }
+    // By hand: shares .4 .3 .2 .1 against .1 .2 .3 .4.
+    let hand = term(0.4, 0.1) + term(0.3, 0.2) + term(0.2, 0.3) + term(0.1, 0.4);
+    assert_close(psi, hand, tolerance::HAND, "fleet PSI of amount vs hand");
+    // The prediction's bins: every probability was 0.1, in [0,0.25).
+    let labels = [
+        ("model", "lease-test"),
+        ("version", "1"),
+        ("bin", "[0,0.25)"),
+    ];
+    assert_eq!(
+        fleet_sum(&scrapes, "ogive_prediction_bin_observations_total", &labels),
+        100.0
+    );
+    assert_eq!(
+        series(&scrapes[0], "ogive_prediction_training_share", &labels),
+        Some(0.4)
+    );
+}
+
+// ---------------------------------------------------------------------------------------------
 // Over real HTTP: the outcome and report routes, and the series in /metrics
 // ---------------------------------------------------------------------------------------------
 

@@ -31,7 +31,8 @@
 //! than 65,535 bins) is not tracked, and the report says why.
 //!
 //! Memory and cost: each model version keeps `window` rows in all, one `u16` bin index per
-//! tracked covariate plus one for the probability, and the running count of every bin, so a
+//! tracked covariate plus one for the probability, the running count of every bin and (per
+//! shard) the cumulative count of every bin for the fleet counters, so a
 //! window of 10,000 observations of 10 covariates costs about 220 kB. Recording an observation
 //! finds each bin (a binary search over the edges), overwrites the oldest row and moves the
 //! running counts: O(covariates · log bins). The PSI reads the running counts: O(bins).
@@ -51,6 +52,15 @@
 //! ([`DriftMonitor::record_many`]). The costs are measured by `cargo bench --bench monitoring`
 //! and, over HTTP, by `benches/monitoring_cost.sh`.
 //!
+//! Fleet-wide drift: a window's PSI is one process's. So each version also counts, since the
+//! process first saw it, the observations that entered its window in each bin
+//! (`ogive_input_bin_observations_total`, `ogive_prediction_bin_observations_total`) and
+//! exports each bin's training share as a gauge; the recording rules in
+//! `deploy/prometheus/ogive-rules.yml` sum the counts over the fleet and a time window and take
+//! the PSI of those shares, with the same floor. The counts leave out the samples dropped under
+//! contention (they are a sample of the traffic, which is all a share needs). A bin's label is
+//! its range, `[lower,upper)` (the last `[lower,upper]`), or its level.
+//!
 //! This module does not parse observations (the service hands it the engine's values), does not
 //! know HTTP, and does not decide when drift is alarming (the alert rules in `deploy/prometheus`
 //! do).
@@ -61,10 +71,12 @@ use std::sync::{Arc, Mutex, PoisonError, TryLockError};
 
 use arc_swap::ArcSwap;
 use prometheus::core::{Collector, Desc};
-use prometheus::proto::MetricFamily;
+use prometheus::proto::{MetricFamily, MetricType};
 use prometheus::{GaugeVec, IntCounter, IntCounterVec, IntGaugeVec, Opts, Registry};
 use schemars::JsonSchema;
 use serde::Serialize;
+
+use super::families::{self, Family};
 
 use crate::model::file::{CovariateSpec, Histogram};
 use crate::model::{CovariateKind, Model, Value};
@@ -218,6 +230,16 @@ pub struct Untracked {
 fn shares(counts: &[u64]) -> Option<Vec<f64>> {
     let total: u64 = counts.iter().sum();
     (total > 0).then(|| counts.iter().map(|&c| c as f64 / total as f64).collect())
+}
+
+/// A bin's label in the exported series: `[lower,upper)`, the last bin `[lower,upper]`, or the
+/// level.
+fn bin_label(range: &BinRange, last: bool) -> String {
+    match range {
+        BinRange::Numeric { lower, upper } if last => format!("[{lower},{upper}]"),
+        BinRange::Numeric { lower, upper } => format!("[{lower},{upper})"),
+        BinRange::Level { level } => level.clone(),
+    }
 }
 
 fn numeric_ranges(edges: &[f64]) -> Vec<BinRange> {
@@ -377,6 +399,8 @@ struct Window {
     /// The row the next observation overwrites, once the ring is full.
     next: usize,
     counts: Vec<u32>,
+    /// Every observation this shard took since it was made, per bin (never decreases).
+    hits: Vec<u64>,
 }
 
 impl Window {
@@ -387,6 +411,7 @@ impl Window {
             ring: Vec::new(),
             next: 0,
             counts: vec![0; layout.total_bins],
+            hits: vec![0; layout.total_bins],
         }
     }
 
@@ -403,6 +428,7 @@ impl Window {
                 let bin = c.bin(values, probability);
                 self.ring.push(bin as u16);
                 self.counts[c.offset + bin] += 1;
+                self.hits[c.offset + bin] += 1;
             }
             return;
         }
@@ -412,6 +438,7 @@ impl Window {
             self.counts[c.offset + usize::from(*slot)] -= 1;
             *slot = bin as u16;
             self.counts[c.offset + bin] += 1;
+            self.hits[c.offset + bin] += 1;
         }
         self.next = (self.next + 1) % self.capacity;
     }
@@ -501,6 +528,18 @@ impl VersionDrift {
         }
         self.dropped.fetch_add(1, Ordering::Relaxed);
         self.dropped_counter.inc();
+    }
+
+    /// The observations every shard took per bin since the version was first seen.
+    fn hits(&self) -> Vec<u64> {
+        let mut hits = vec![0_u64; self.layout.total_bins];
+        for shard in self.shards.iter() {
+            let window = shard.0.lock().unwrap_or_else(PoisonError::into_inner);
+            for (total, n) in hits.iter_mut().zip(&window.hits) {
+                *total += n;
+            }
+        }
+        hits
     }
 
     /// Copy the counts out under the lock (O(bins)) and compute the PSI outside it.
@@ -611,10 +650,15 @@ impl DriftMonitor {
     /// ogive_prediction_psi{model,version}                 gauge
     /// ogive_drift_window_observations{model,version}      gauge
     /// ogive_drift_samples_dropped_total{model,version}    counter
+    /// ogive_input_bin_observations_total{model,version,covariate,bin}   counter
+    /// ogive_input_training_share{model,version,covariate,bin}           gauge
+    /// ogive_prediction_bin_observations_total{model,version,bin}        counter
+    /// ogive_prediction_training_share{model,version,bin}                gauge
     /// ```
     ///
     /// The PSI gauges are computed when scraped, from the running counts, and are absent for a
-    /// version whose window is still empty.
+    /// version whose window is still empty. The bin counters and training shares of a version
+    /// appear when it is first seen (its first scored observation, or [`DriftMonitor::prepare`]).
     pub fn new(
         window: usize,
         shards: usize,
@@ -666,7 +710,7 @@ impl DriftMonitor {
                 monitor: Arc::clone(&monitor),
                 descs: Vec::new(),
             }
-            .with_descs(),
+            .with_descs()?,
         ))?;
         Ok(monitor)
     }
@@ -674,6 +718,12 @@ impl DriftMonitor {
     /// The window size per model version.
     pub fn window(&self) -> usize {
         self.window
+    }
+
+    /// Create `model`'s drift state if it does not exist yet, so that its bin counters are
+    /// exported at zero (and a rate over them is defined) before the first observation.
+    pub fn prepare(&self, model: &Model) {
+        let _ = self.version_state(model);
     }
 
     /// Record one scored observation of `model`: its covariate values (as the engine took them)
@@ -760,6 +810,8 @@ impl DriftMonitor {
         let mut reports: Vec<VersionDriftReport> = by_version
             .iter()
             .map(|(version, state)| state.report(version))
+            // A version only prepared (its counters made at zero) has nothing to report yet.
+            .filter(|r| r.window_observations > 0 || r.dropped_samples > 0)
             .collect();
         reports.sort_by(|a, b| a.version.cmp(&b.version));
         reports
@@ -795,6 +847,78 @@ impl DriftMonitor {
     }
 }
 
+const INPUT_HITS: (&str, &str) = (
+    "ogive_input_bin_observations_total",
+    "Observations that entered a model version's drift window, by covariate and training bin.",
+);
+const INPUT_SHARE: (&str, &str) = (
+    "ogive_input_training_share",
+    "Share of the training data in a covariate's bin, from the model file.",
+);
+const PREDICTION_HITS: (&str, &str) = (
+    "ogive_prediction_bin_observations_total",
+    "Observations that entered a model version's drift window, by bin of the predicted probability.",
+);
+const PREDICTION_SHARE: (&str, &str) = (
+    "ogive_prediction_training_share",
+    "Share of the training fitted probabilities in a bin, from the model file.",
+);
+
+fn bin_descs() -> Result<Vec<Desc>, prometheus::Error> {
+    let input = ["model", "version", "covariate", "bin"];
+    let prediction = ["model", "version", "bin"];
+    Ok(vec![
+        families::desc(INPUT_HITS.0, INPUT_HITS.1, &input)?,
+        families::desc(INPUT_SHARE.0, INPUT_SHARE.1, &input)?,
+        families::desc(PREDICTION_HITS.0, PREDICTION_HITS.1, &prediction)?,
+        families::desc(PREDICTION_SHARE.0, PREDICTION_SHARE.1, &prediction)?,
+    ])
+}
+
+/// The bin counters and training shares of every version seen.
+fn bin_families(versions: &VersionMap) -> Vec<MetricFamily> {
+    let mut input_hits = Family::new(INPUT_HITS.0, INPUT_HITS.1, MetricType::COUNTER);
+    let mut input_share = Family::new(INPUT_SHARE.0, INPUT_SHARE.1, MetricType::GAUGE);
+    let mut prediction_hits =
+        Family::new(PREDICTION_HITS.0, PREDICTION_HITS.1, MetricType::COUNTER);
+    let mut prediction_share =
+        Family::new(PREDICTION_SHARE.0, PREDICTION_SHARE.1, MetricType::GAUGE);
+    for (model, by_version) in versions {
+        for (version, state) in by_version {
+            let hits = state.hits();
+            for c in &state.layout.channels {
+                let last = c.bins() - 1;
+                for (i, (range, &share)) in c.ranges.iter().zip(&c.expected).enumerate() {
+                    let bin = bin_label(range, i == last);
+                    let count = hits[c.offset + i] as f64;
+                    if c.covariate.is_some() {
+                        let labels = [
+                            ("model", model.as_str()),
+                            ("version", version.as_str()),
+                            ("covariate", c.name.as_str()),
+                            ("bin", bin.as_str()),
+                        ];
+                        input_hits.counter(&labels, count);
+                        input_share.gauge(&labels, share);
+                    } else {
+                        let labels = [
+                            ("model", model.as_str()),
+                            ("version", version.as_str()),
+                            ("bin", bin.as_str()),
+                        ];
+                        prediction_hits.counter(&labels, count);
+                        prediction_share.gauge(&labels, share);
+                    }
+                }
+            }
+        }
+    }
+    [input_hits, input_share, prediction_hits, prediction_share]
+        .into_iter()
+        .map(Family::finish)
+        .collect()
+}
+
 /// Exposes a [`DriftMonitor`]'s series to a Prometheus registry, refreshing them on each scrape.
 struct DriftCollector {
     monitor: Arc<DriftMonitor>,
@@ -802,7 +926,7 @@ struct DriftCollector {
 }
 
 impl DriftCollector {
-    fn with_descs(mut self) -> Self {
+    fn with_descs(mut self) -> Result<Self, prometheus::Error> {
         let m = &self.monitor.metrics;
         self.descs = m
             .input_psi
@@ -812,8 +936,9 @@ impl DriftCollector {
             .chain(m.window_observations.desc())
             .chain(m.dropped.desc())
             .cloned()
+            .chain(bin_descs()?)
             .collect();
-        self
+        Ok(self)
     }
 }
 
@@ -836,6 +961,7 @@ impl Collector for DriftCollector {
             .chain(m.prediction_psi.collect())
             .chain(m.window_observations.collect())
             .chain(m.dropped.collect())
+            .chain(bin_families(&monitor.versions.load()))
             .collect()
     }
 }

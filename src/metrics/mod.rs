@@ -22,9 +22,14 @@
 //! ogive_model_load_errors_total{model}                counter
 //! ogive_ready                                         gauge, 1 when ready
 //! ```
+//!
+//! and, with monitoring on, the drift and calibration series of [`drift::DriftMonitor::new`]
+//! and [`calibration::CalibrationMonitor::new`], among them the fleet counters that add up
+//! across replicas exactly.
 
 pub mod calibration;
 pub mod drift;
+pub mod families;
 pub mod monitor;
 pub mod outcomes;
 

@@ -24,6 +24,7 @@ use super::drift::{self, DriftMonitor, DriftSetupError, VersionDriftReport};
 use super::outcomes::{self, OutcomeBook, OutcomeError, RecordedOutcome, SeenReceipts};
 use crate::model::{Model, Value};
 use crate::receipt::{self, RandomError, ReceiptKeys};
+use crate::registry::Snapshot;
 
 /// How much each monitoring window keeps, and how old a receipt may be.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -139,6 +140,17 @@ impl Monitor {
             calibration: CalibrationMonitor::new(settings.calibration_window, registry)?,
             max_age: settings.receipt_max_age,
         })
+    }
+
+    /// Create the drift and outcome counters of every live version in `snapshot` at zero if
+    /// they do not exist yet (called at every scrape, so a promoted version's counters start
+    /// from zero in the first scrape after the swap and a rate over them misses nothing).
+    pub fn prepare(&self, snapshot: &Snapshot) {
+        for entry in snapshot.models.values() {
+            let model = &entry.live;
+            self.drift.prepare(model);
+            self.calibration.prepare(model.name(), model.version());
+        }
     }
 
     /// Record a scored request: each observation's values (`values` is `n × covariates`, in

@@ -37,7 +37,11 @@ pub async fn readyz(state: web::Data<AppState>) -> HttpResponse {
 /// The metrics, with the live-version info and readiness refreshed at the scrape.
 pub async fn metrics(state: web::Data<AppState>) -> Result<HttpResponse, Problem> {
     let metrics = &state.metrics;
-    metrics.set_live_versions(&state.registry.snapshot());
+    let snapshot = state.registry.snapshot();
+    metrics.set_live_versions(&snapshot);
+    if let Some(monitor) = &state.monitor {
+        monitor.prepare(&snapshot);
+    }
     metrics.ready.set(i64::from(state.health.ready()));
     let text = metrics.encode().map_err(|e| Problem::internal(&e))?;
     Ok(HttpResponse::Ok()
