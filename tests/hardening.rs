@@ -11,6 +11,8 @@
 //! admin.rs           the binary: tokens on the admin listener, and never in the log; two
 //!                    Authorization headers, a one-character token, the header limit, the
 //!                    request counts, a read-only model directory
+//! load.rs            the work budget, the in-flight caps (503 + Retry-After), batches on the
+//!                    scoring pool
 //! operation.rs       HEAD on the probes, Connection: close while draining, a live pointer
 //!                    naming a missing version, a saturated answer's note
 //! ```
@@ -23,6 +25,8 @@ mod admin;
 #[allow(dead_code)]
 #[path = "http/fixture.rs"]
 mod fixture;
+#[path = "hardening/load.rs"]
+mod load;
 #[path = "hardening/operation.rs"]
 mod operation;
 

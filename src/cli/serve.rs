@@ -84,6 +84,18 @@ pub struct ServeArgs {
     /// Most points on one curve.
     #[arg(long, env = "OGIVE_MAX_CURVE_POINTS", default_value_t = Limits::default().max_curve_points)]
     pub max_curve_points: usize,
+    /// Most scoring jobs running at once off the I/O workers (0: one per CPU core).
+    #[arg(long, env = "OGIVE_COMPUTE_THREADS", default_value_t = Limits::default().compute_threads)]
+    pub compute_threads: usize,
+    /// Most work one request may ask for, in observations × terms².
+    #[arg(long, env = "OGIVE_MAX_WORK_UNITS", default_value_t = Limits::default().max_work_units)]
+    pub max_work_units: u64,
+    /// Most observations being scored or written out at once (beyond: 503 with Retry-After).
+    #[arg(long, env = "OGIVE_MAX_INFLIGHT_OBSERVATIONS", default_value_t = Limits::default().max_inflight_observations)]
+    pub max_inflight_observations: usize,
+    /// Most request-body bytes being read at once (beyond: 503 with Retry-After).
+    #[arg(long, env = "OGIVE_MAX_INFLIGHT_BODY_BYTES", default_value_t = Limits::default().max_inflight_body_bytes)]
+    pub max_inflight_body_bytes: usize,
     /// Time a client has to send the request head, in milliseconds.
     #[arg(long, env = "OGIVE_CLIENT_REQUEST_TIMEOUT_MS", default_value_t = Limits::default().client_request_timeout_ms)]
     pub client_request_timeout_ms: u64,
@@ -164,6 +176,10 @@ impl ServeArgs {
                 body_timeout_ms: self.body_timeout_ms,
                 keep_alive_ms: self.keep_alive_ms,
                 client_disconnect_timeout_ms: self.client_disconnect_timeout_ms,
+                compute_threads: self.compute_threads,
+                max_work_units: self.max_work_units,
+                max_inflight_observations: self.max_inflight_observations,
+                max_inflight_body_bytes: self.max_inflight_body_bytes,
                 ..Limits::default()
             },
             drain_delay_ms: self.drain_delay_ms,

@@ -60,6 +60,16 @@ pub enum GateError {
         /// What is wrong, and in which field (boxed: it is large and refusals are rare).
         error: Box<ModelError>,
     },
+    /// A list in the file is longer than serving can afford (`registry::limits`).
+    #[error("version '{version}' of '{name}' is too large to serve: {limit}")]
+    TooLarge {
+        /// The model name it was offered as.
+        name: String,
+        /// The version label it was offered as.
+        version: String,
+        /// The limit passed.
+        limit: super::limits::TooLarge,
+    },
     /// The file's `name` is not the model it was offered as.
     #[error("the file's name is '{in_file}' but it was offered as model '{expected}'")]
     NameMismatch {
@@ -366,10 +376,16 @@ pub fn check_labels(name: &str, version: &str) -> Result<(), GateError> {
     Ok(())
 }
 
-/// Steps 1 and 2 of the gate: the labels are valid, the bytes validate as a model file (check
-/// cases reproduce), and the file names itself `name`, version `version`.
+/// Steps 1 and 2 of the gate: the labels are valid, the file's lists are within the size limits
+/// (`registry::limits`), the bytes validate as a model file (check cases reproduce), and the
+/// file names itself `name`, version `version`.
 pub fn check_file(name: &str, version: &str, bytes: &[u8]) -> Result<Model, GateError> {
     check_labels(name, version)?;
+    super::limits::check_model_size(bytes).map_err(|limit| GateError::TooLarge {
+        name: name.to_string(),
+        version: version.to_string(),
+        limit,
+    })?;
     let model = Model::from_json(bytes).map_err(|error| GateError::Invalid {
         name: name.to_string(),
         version: version.to_string(),

@@ -6,6 +6,8 @@
 //! content type       application/json or application/*+json, else 415
 //! content encoding   none or identity, else 415 (a compressed body is refused, never inflated)
 //! size               Content-Length against the limit before reading, the bytes while reading: 413
+//! load               the bytes of all bodies being read at once against a process-wide limit:
+//!                    503 with Retry-After (`service::compute`)
 //! time               the whole body within the body timeout, else 408 (actix times only the head)
 //! empty              400 "the body is empty"
 //! byte-order mark    a UTF-8 or UTF-16 BOM, 415 (RFC 8259 §8.1: JSON text carries none)
@@ -18,6 +20,7 @@
 //! This module knows nothing of models; the routes interpret the parsed value.
 
 use std::pin::Pin;
+use std::sync::Arc;
 use std::task::{Context, Poll};
 use std::time::Duration;
 
@@ -32,6 +35,7 @@ use tokio::time::{timeout_at, Instant};
 
 use super::config::Limits;
 use super::problem::{echo, escape_pointer_token, Kind, Problem};
+use super::state::AppState;
 
 /// How long a client may take to send a request body once its head has arrived. Each listener
 /// registers its configured value as app data; where none is registered,
@@ -77,7 +81,7 @@ pub async fn read_json(
     payload: Payload,
     limit: usize,
 ) -> Result<JsonBody, Problem> {
-    let bytes = read_json_body(req, payload, limit).await?;
+    let bytes = read_json_bytes(req, payload, limit).await?;
     let value = parse_json(&bytes)?;
     Ok(JsonBody { bytes, value })
 }
@@ -92,7 +96,7 @@ pub async fn read_json_document(
     payload: Payload,
     limit: usize,
 ) -> Result<Bytes, Problem> {
-    let bytes = read_json_body(req, payload, limit).await?;
+    let bytes = read_json_bytes(req, payload, limit).await?;
     match parse_json(&bytes) {
         Ok(_) => Ok(bytes),
         Err(problem) if problem.position.is_some() || problem.kind == Kind::NonFinite => Ok(bytes),
@@ -117,7 +121,7 @@ pub async fn read_optional_json(
     if declared_empty {
         return Ok(None);
     }
-    let bytes = read_json_body(req, payload, limit).await?;
+    let bytes = read_json_bytes(req, payload, limit).await?;
     if bytes.iter().all(u8::is_ascii_whitespace) {
         return Ok(None);
     }
@@ -147,9 +151,10 @@ fn check_encoding(req: &HttpRequest) -> Result<(), Problem> {
     Ok(())
 }
 
-/// Read the raw bytes of a JSON request: the content type, encoding, size and time checks, no
-/// parse (the readers above parse).
-async fn read_json_body(
+/// The first half of [`read_json`], for a route that parses elsewhere (on the scoring pool):
+/// the content type, encoding, load, size and time checks. The bytes must then go through
+/// [`parse_json`], the second half.
+pub async fn read_json_bytes(
     req: &HttpRequest,
     payload: Payload,
     limit: usize,
@@ -193,6 +198,16 @@ async fn read_json_body(
         req.extensions_mut().insert(UnreadBody { _payload: rest });
         return Err(too_large());
     }
+    let compute = req
+        .app_data::<web::Data<AppState>>()
+        .map(|state| Arc::clone(&state.compute));
+    // The declared length is reserved at once (a client cannot hold more than it said), a
+    // chunked body as its chunks arrive.
+    let mut reservation = compute
+        .as_ref()
+        .map(|c| c.reserve_body(declared.unwrap_or(0) as usize))
+        .transpose()?;
+    let mut reserved = declared.unwrap_or(0) as usize;
     let mut payload = payload;
     let mut body = web::BytesMut::new();
     loop {
@@ -220,8 +235,20 @@ async fn read_json_body(
             req.extensions_mut().insert(UnreadBody { _payload: rest });
             return Err(too_large());
         }
+        if body.len() + chunk.len() > reserved {
+            let more = body.len() + chunk.len() - reserved;
+            if let Some(reservation) = reservation.as_mut() {
+                if let Err(problem) = reservation.grow(more) {
+                    req.extensions_mut()
+                        .insert(UnreadBody { _payload: payload });
+                    return Err(problem);
+                }
+            }
+            reserved += more;
+        }
         body.extend_from_slice(&chunk);
     }
+    drop(reservation);
     Ok(body.freeze())
 }
 
@@ -249,7 +276,7 @@ async fn discard(mut payload: Payload, most: usize, deadline: Instant) -> Payloa
 }
 
 /// The unread rest of a refused body (413 or 408), left in the request's extensions by
-/// [`read_json_body`] for [`close_after_refused_body`].
+/// [`read_json_bytes`] for [`close_after_refused_body`].
 struct UnreadBody {
     /// Held, never read: while it is alive actix sees the payload as unread.
     _payload: Payload,

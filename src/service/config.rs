@@ -29,6 +29,14 @@ pub struct Limits {
     pub client_disconnect_timeout_ms: u64,
     /// Most concurrent connections per worker.
     pub max_connections_per_worker: usize,
+    /// Most scoring jobs running at once on the pool (0: one per available core).
+    pub compute_threads: usize,
+    /// Most work one request may ask for: observations × terms².
+    pub max_work_units: u64,
+    /// Most observations admitted and not yet written out, over all requests.
+    pub max_inflight_observations: usize,
+    /// Most request-body bytes being read at once, over all requests.
+    pub max_inflight_body_bytes: usize,
 }
 
 impl Default for Limits {
@@ -43,6 +51,10 @@ impl Default for Limits {
             keep_alive_ms: 5_000,
             client_disconnect_timeout_ms: 1_000,
             max_connections_per_worker: 25_000,
+            compute_threads: 0,
+            max_work_units: 25_000_000,
+            max_inflight_observations: 20_000,
+            max_inflight_body_bytes: 32 * 1024 * 1024,
         }
     }
 }

@@ -7,7 +7,8 @@
 //! state.rs        what handlers share: registry, metrics, health, settings
 //! routes/         one file per route family; routes/mod.rs mounts them
 //! problem.rs      RFC 9457 problem details, the one error type
-//! body.rs         JSON bodies: content type, size limit, parse errors with pointers
+//! body.rs         JSON bodies: the one reader, strict parsing, size and time limits
+//! compute.rs      the scoring pool, the work budget, the in-flight caps
 //! dto.rs          request parsing and response views
 //! observations.rs observations → engine values, service bounds
 //! scoring.rs      driving the engine for a probability request
@@ -27,6 +28,7 @@
 
 pub mod admin;
 pub mod body;
+pub mod compute;
 pub mod config;
 pub mod curve;
 pub mod dto;

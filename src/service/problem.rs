@@ -113,6 +113,7 @@ kinds! {
     Unauthorized => "unauthorized", 401, "The admin routes need a valid bearer token";
     InvalidLabel => "invalid-label", 422, "A model name or version label breaks its naming rule";
     InvalidModelFile => "invalid-model-file", 422, "The model file is not valid, or its check cases do not reproduce";
+    ModelTooLarge => "model-too-large", 422, "A list in the model file is longer than the service's limit";
     LabelMismatch => "label-mismatch", 422, "The file names another model or version than the route";
     VersionExists => "version-exists", 409, "A different file is already stored under this version label";
     VersionChanged => "version-changed", 409, "A stored version's file no longer holds the bytes stored under its label";
@@ -123,6 +124,8 @@ kinds! {
     LiveUnreadable => "live-unreadable", 409, "The live version cannot be read";
     RollbackTargetInvalid => "rollback-target-invalid", 409, "The version a rollback would return to cannot go live";
     ModelBusy => "model-busy", 503, "Another change to this model holds its lock";
+    Overloaded => "overloaded", 503, "The service is at a configured load limit; retry after the time it states";
+    WorkOverBudget => "work-over-budget", 413, "The request asks for more work than one request may";
     StoreUnwritable => "store-unwritable", 503, "The model directory cannot be written by this process";
     NoShadow => "no-shadow", 404, "The model has no shadow";
     CannotShadow => "cannot-shadow", 422, "This version cannot shadow the live version";
@@ -191,6 +194,8 @@ pub struct Details {
     pub allow: Option<&'static str>,
     /// A configured limit that was exceeded.
     pub limit: Option<u64>,
+    /// Seconds to wait before retrying (sent as `Retry-After`).
+    pub retry_after: Option<u32>,
     /// Extension members (RFC 9457 §3.2) of the admin routes' problems, such as the covariate
     /// changes a breaking candidate makes; empty elsewhere.
     pub extensions: serde_json::Map<String, serde_json::Value>,
@@ -234,6 +239,7 @@ impl Problem {
             position: None,
             allow: None,
             limit: None,
+            retry_after: None,
             extensions: serde_json::Map::new(),
         }))
     }
@@ -259,6 +265,12 @@ impl Problem {
     /// Name the query parameter at fault.
     pub fn parameter(mut self, name: impl Into<String>) -> Problem {
         self.parameter = Some(name.into());
+        self
+    }
+
+    /// Tell the client to retry after `seconds` (the `Retry-After` header).
+    pub fn retry_after(mut self, seconds: u32) -> Problem {
+        self.retry_after = Some(seconds);
         self
     }
 
@@ -472,6 +484,9 @@ impl ResponseError for Problem {
         response.insert_header((header::CONTENT_TYPE, PROBLEM_CONTENT_TYPE));
         if let Some(allow) = self.allow {
             response.insert_header((header::ALLOW, allow));
+        }
+        if let Some(seconds) = self.retry_after {
+            response.insert_header((header::RETRY_AFTER, seconds.to_string()));
         }
         response.body(self.to_json())
     }

@@ -4,6 +4,7 @@
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
 
+use super::compute::Compute;
 use super::config::Settings;
 use super::shadow::Shadowing;
 use crate::metrics::monitor::Monitor;
@@ -93,6 +94,8 @@ pub struct AppState {
     pub monitor: Option<Monitor>,
     /// Scoring of shadow candidates beside the live versions; `None` when it is off.
     pub shadow: Option<Arc<Shadowing>>,
+    /// The scoring pool and the in-flight counts.
+    pub compute: Arc<Compute>,
 }
 
 impl AppState {
@@ -108,6 +111,7 @@ impl AppState {
             registry,
             metrics,
             health: Arc::new(Health::new(models_loaded)),
+            compute: Arc::new(Compute::new(&settings.limits)),
             settings: Arc::new(settings),
             monitor: None,
             shadow: None,

@@ -112,6 +112,10 @@ pub fn gate_problem(error: &GateError) -> Problem {
             }
             problem
         }
+        GateError::TooLarge { limit, .. } => Problem::new(Kind::ModelTooLarge, detail)
+            .at(limit.pointer.clone())
+            .limit(limit.limit as u64)
+            .extension("count", json!(limit.count)),
         GateError::NameMismatch { expected, in_file } => Problem::new(Kind::LabelMismatch, detail)
             .at("/name")
             .extension("expected", json!(expected))
@@ -226,6 +230,30 @@ pub fn shadow_problem(error: &CannotShadow) -> Problem {
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn a_model_over_a_size_limit_is_refused_naming_the_limit_and_the_list() {
+        let error = super::GateError::TooLarge {
+            name: "lease".into(),
+            version: "v2".into(),
+            limit: crate::registry::limits::TooLarge {
+                what: "the term list".into(),
+                pointer: "/terms".into(),
+                count: 300,
+                limit: 256,
+            },
+        };
+        let problem = super::gate_problem(&error);
+        assert_eq!(problem.kind, super::Kind::ModelTooLarge);
+        assert_eq!(problem.pointer.as_deref(), Some("/terms"));
+        assert_eq!(problem.limit, Some(256));
+        assert!(
+            problem
+                .detail
+                .contains("the term list has 300 entries; the most a model may have is 256"),
+            "{}",
+            problem.detail
+        );
+    }
     #[test]
     fn an_unwritable_directory_is_named_as_the_cause_not_an_internal_error() {
         for (code, words) in [
