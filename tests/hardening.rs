@@ -8,6 +8,8 @@
 //! idle connections   hundreds of idle sockets: others are answered, the idle ones are closed
 //! oversized body     413 before the client has sent it all
 //! admin routes       absent from the public listener
+//! the catalogue      every malformed request of tests/http/catalogue.rs over a raw socket,
+//!                    each answered with its problem details, and others answered after each
 //! admin.rs           the binary: tokens on the admin listener, and never in the log; two
 //!                    Authorization headers, a one-character token, the header limit, the
 //!                    request counts, a read-only model directory
@@ -22,6 +24,9 @@
 
 #[path = "hardening/admin.rs"]
 mod admin;
+#[allow(dead_code)]
+#[path = "http/catalogue.rs"]
+mod catalogue;
 #[allow(dead_code)]
 #[path = "http/fixture.rs"]
 mod fixture;
@@ -412,5 +417,34 @@ fn the_admin_routes_do_not_exist_on_the_public_listener() {
         live["version"],
         json!("2026-01"),
         "nothing was promoted: {live}"
+    );
+}
+
+#[test]
+fn every_case_of_the_catalogue_over_a_raw_socket_gets_its_problem_and_leaves_others_answered() {
+    let server = Server::start_with(hardened_settings(), None);
+    let addr = address(&server);
+    let cases = catalogue::catalogue();
+    let mut failures = Vec::new();
+    for case in &cases {
+        let headers: String = case
+            .headers
+            .iter()
+            .map(|(name, value)| format!("{name}: {value}\r\n"))
+            .collect();
+        let body = case.body.as_deref().unwrap_or(b"");
+        let reply = raw_request(addr, case.method, &case.path, &headers, body);
+        if let Err(wrong) = case.check(reply.status, reply.header("content-type"), &reply.body) {
+            failures.push(wrong);
+        }
+        // A hostile request changes nothing for the next caller.
+        assert_answers_others(addr);
+    }
+    assert!(
+        failures.is_empty(),
+        "{} of {} cases wrong over a raw socket:\n{}",
+        failures.len(),
+        cases.len(),
+        failures.join("\n")
     );
 }

@@ -4,13 +4,16 @@
 //! ```text
 //! fixture.rs      test models, the server, the client
 //! routes.rs       every route and every option, answers compared with the engine
-//! malformed.rs    the catalogue of malformed requests: status, problem type, field
+//! catalogue.rs    the catalogue of malformed requests: status, problem type, field
+//! malformed.rs    the catalogue sent through the client, and related refusals
 //! concurrency.rs  many concurrent clients get exactly the engine's answers
 //! contract.rs     live answers validated against the served OpenAPI document; metric names
 //! operation.rs    request ids, panics, header limits, draining and shutdown, the binary itself
 //! strict.rs       strict body reading (repeated keys, empty, BOM, compression) and the echo rule
 //! ```
 
+#[path = "http/catalogue.rs"]
+mod catalogue;
 #[path = "http/concurrency.rs"]
 mod concurrency;
 #[path = "http/contract.rs"]
