@@ -26,6 +26,8 @@ fn request(path: &std::path::Path, drop_missing: bool) -> ReadRequest {
             },
         ],
         drop_missing,
+        threads: None,
+        weight: None,
     }
 }
 

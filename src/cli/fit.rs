@@ -8,7 +8,10 @@ use std::time::Duration;
 
 use indicatif::{ProgressBar, ProgressStyle};
 
-use crate::fit::{self, CategoricalSpec, CovarianceType, FitRequest, Progress};
+use crate::fit::{
+    self, CategoricalSpec, CovarianceType, FitRequest, PopulationMethod, PopulationRate, Progress,
+    WeightColumn, WeightKind,
+};
 use crate::link::Link;
 use crate::model::file::{Band, DecisionSpec};
 use crate::registry::store::VERSIONS_DIR;
@@ -114,6 +117,48 @@ pub struct FitArgs {
     /// reproducible files.
     #[arg(long, env = "SOURCE_DATE_EPOCH", value_name = "SECONDS")]
     pub fitted_at: Option<u64>,
+    /// Threads for reading the CSV and for every pass over the data (default: one per core).
+    /// The fitted file is the same, bit for bit, whatever the number.
+    #[arg(long, env = "OGIVE_THREADS", value_name = "N",
+          value_parser = clap::value_parser!(u64).range(1..))]
+    pub threads: Option<u64>,
+    /// A column of frequency weights (finite numbers ≥ 0): a row of weight v counts as v
+    /// identical observations. Never a covariate.
+    #[arg(
+        long,
+        env = "OGIVE_WEIGHTS",
+        value_name = "COL",
+        conflicts_with = "sampling_weights"
+    )]
+    pub weights: Option<String>,
+    /// A column of sampling weights (finite numbers ≥ 0, the inverse of each row's selection
+    /// probability); the covariance is then the HC0 sandwich.
+    #[arg(long, env = "OGIVE_SAMPLING_WEIGHTS", value_name = "COL")]
+    pub sampling_weights: Option<String>,
+    /// The outcome's share in the population when the data were drawn by outcome (for
+    /// example every case and a sample of non-cases): the model then gives probabilities at
+    /// the population's rate.
+    #[arg(long, env = "OGIVE_POPULATION_RATE", value_name = "P")]
+    pub population_rate: Option<f64>,
+    /// How --population-rate is used: correct the logit intercept (the default for logit), or
+    /// weight ones and zeros to their population shares (the default, and the only way, for
+    /// the other links).
+    #[arg(
+        long,
+        env = "OGIVE_POPULATION_METHOD",
+        value_enum,
+        requires = "population_rate"
+    )]
+    pub population_method: Option<PopulationMethodFlag>,
+}
+
+/// The `--population-method` choices.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum PopulationMethodFlag {
+    /// Subtract ln[((1 − τ)/τ)·(ȳ/(1 − ȳ))] from the logit intercept.
+    Intercept,
+    /// Weight ones by τ/ȳ and zeros by (1 − τ)/(1 − ȳ), with the sandwich covariance.
+    Weights,
 }
 
 fn parse_pair(s: &str) -> Result<(String, String), String> {
@@ -282,6 +327,25 @@ fn request_of(args: &FitArgs) -> anyhow::Result<FitRequest> {
             .unwrap_or_default(),
         decision,
         fitted_at_unix: args.fitted_at,
+        threads: args.threads.map(|n| n as usize),
+        weights: match (&args.weights, &args.sampling_weights) {
+            (Some(column), _) => Some(WeightColumn {
+                column: column.clone(),
+                kind: WeightKind::Frequency,
+            }),
+            (None, Some(column)) => Some(WeightColumn {
+                column: column.clone(),
+                kind: WeightKind::Sampling,
+            }),
+            (None, None) => None,
+        },
+        population: args.population_rate.map(|rate| PopulationRate {
+            rate,
+            method: args.population_method.map(|m| match m {
+                PopulationMethodFlag::Intercept => PopulationMethod::Intercept,
+                PopulationMethodFlag::Weights => PopulationMethod::Weights,
+            }),
+        }),
     })
 }
 

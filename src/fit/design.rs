@@ -5,8 +5,11 @@
 //! check cases reproduce exactly what the fit saw.
 //!
 //! Rows are reduced in fixed blocks of [`ROWS_PER_BLOCK`] and the block results are combined in
-//! block order, so a fit gives the same bits whatever the number of threads.
+//! block order, so a fit gives the same bits whatever the number of threads. The number of
+//! threads is the calling thread's setting ([`with_threads`]), one per core (at most 16) by
+//! default.
 
+use std::cell::Cell;
 use std::ops::Range;
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Mutex;
@@ -115,12 +118,37 @@ impl Design {
     }
 }
 
-/// Threads to use for passes over the data.
+thread_local! {
+    /// The thread count that [`with_threads`] set on this thread, if any.
+    static THREADS: Cell<Option<usize>> = const { Cell::new(None) };
+}
+
+/// Restores the previous thread setting when dropped (also when unwinding).
+struct Restore(Option<usize>);
+
+impl Drop for Restore {
+    fn drop(&mut self) {
+        THREADS.with(|t| t.set(self.0));
+    }
+}
+
+/// Run `work` with every pass over the data that it makes from this thread using `threads`
+/// threads (at least 1). The setting belongs to the calling thread, so fits running side by
+/// side on different threads do not affect each other.
+pub fn with_threads<T>(threads: usize, work: impl FnOnce() -> T) -> T {
+    let _restore = Restore(THREADS.with(|t| t.replace(Some(threads.max(1)))));
+    work()
+}
+
+/// Threads to use for passes over the data: the [`with_threads`] setting, or one per core (at
+/// most 16).
 pub fn worker_threads() -> usize {
-    std::thread::available_parallelism()
-        .map(|n| n.get())
-        .unwrap_or(1)
-        .clamp(1, 16)
+    THREADS.with(Cell::get).unwrap_or_else(|| {
+        std::thread::available_parallelism()
+            .map(|n| n.get())
+            .unwrap_or(1)
+            .clamp(1, 16)
+    })
 }
 
 /// Reduce `rows` rows in blocks: `work` folds a range of rows into a fresh accumulator, and the

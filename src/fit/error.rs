@@ -74,6 +74,26 @@ pub enum FitError {
         /// The column.
         column: String,
     },
+    /// A weight that is not a finite number ≥ 0.
+    #[error("row {row}, column '{column}': the weight {text:?} {problem} (weights are finite numbers ≥ 0)")]
+    BadWeight {
+        /// The data row.
+        row: u64,
+        /// The weight column.
+        column: String,
+        /// The cell as written.
+        text: String,
+        /// What is wrong with it.
+        problem: &'static str,
+    },
+    /// Every weight is zero, so no observation counts.
+    #[error("every weight in column '{column}' is zero ({rows} rows): no observation counts")]
+    WeightsAllZero {
+        /// The weight column.
+        column: String,
+        /// Rows read.
+        rows: u64,
+    },
     /// A numeric column with a cell that is not a number.
     #[error("row {row}, column '{column}': {text:?} is not a number (if the column holds levels, name it with --categorical {column})")]
     NotANumber {

@@ -13,6 +13,16 @@
 //! information     H = Σ wᵢ xᵢ xᵢᵀ
 //! ```
 //!
+//! With observation weights vᵢ (a frequency weight counts the row vᵢ times; a sampling weight
+//! is the inverse of its selection probability) every sum is weighted: ℓ = Σ vᵢ ℓᵢ,
+//! g = Σ vᵢ sᵢ xᵢ, H = Σ vᵢ wᵢ xᵢ xᵢᵀ. The two weightings differ only in the meat of the
+//! sandwich covariance:
+//!
+//! ```text
+//! frequency   M = Σ vᵢ sᵢ² xᵢ xᵢᵀ        (vᵢ identical rows, each contributing sᵢ²)
+//! sampling    M = Σ (vᵢ sᵢ)² xᵢ xᵢᵀ      (one row standing for vᵢ, its score scaled by vᵢ)
+//! ```
+//!
 //! For logit λ₁ = 1 − F, λ₀ = F and both weights are F(1 − F) (Newton is then IRLS). The ratios
 //! are computed in closed form where one exists (logit, the cloglog λ₀ = eᶻ) and otherwise
 //! guarded by their asymptotes where F or 1 − F underflows, so a far-out observation gives a
@@ -202,8 +212,12 @@ pub enum Matrix {
     Observed,
     /// The expected (Fisher) information.
     Expected,
-    /// The outer product of the scores `Σ sᵢ² xᵢ xᵢᵀ` (the meat of the HC0 sandwich).
+    /// The outer product of the scores `Σ vᵢ sᵢ² xᵢ xᵢᵀ` (the meat of the HC0 sandwich,
+    /// with frequency weights vᵢ or none).
     ScoreOuter,
+    /// The outer product of the weighted scores `Σ (vᵢ sᵢ)² xᵢ xᵢᵀ` (the meat of the HC0
+    /// sandwich with sampling weights vᵢ).
+    WeightedScoreOuter,
 }
 
 /// Sums over the design at one β.
@@ -223,10 +237,12 @@ pub fn index(x: &[f64], beta: &[f64]) -> f64 {
     x.iter().zip(beta).map(|(a, b)| a * b).sum()
 }
 
-/// Accumulate the log-likelihood, the score and the requested matrix at `beta`.
+/// Accumulate the log-likelihood, the score and the requested matrix at `beta`, with each
+/// observation weighted by `weights[i]` (1 without weights).
 pub fn accumulate(
     design: &Design,
     outcome: &[f64],
+    weights: Option<&[f64]>,
     link: Link,
     beta: &[f64],
     matrix: Matrix,
@@ -241,23 +257,38 @@ pub fn accumulate(
             matrix: vec![0.0; size],
         },
         |acc, range| {
-            let mut weights = Vec::with_capacity(if size > 0 { range.len() } else { 0 });
+            let mut row_weights = Vec::with_capacity(if size > 0 { range.len() } else { 0 });
             for i in range.clone() {
+                let v = weights.map_or(1.0, |w| w[i]);
                 let x = design.row(i);
+                if v == 0.0 {
+                    // A zero weight removes the row, even where its terms are extreme.
+                    if size > 0 {
+                        row_weights.push(0.0);
+                    }
+                    continue;
+                }
                 let p = pointwise(link, index(x, beta), outcome[i]);
-                acc.log_likelihood += p.log_likelihood;
+                acc.log_likelihood += v * p.log_likelihood;
+                let score = v * p.score;
                 for (g, &xj) in acc.gradient.iter_mut().zip(x) {
-                    *g += p.score * xj;
+                    *g += score * xj;
                 }
                 match matrix {
                     Matrix::None => {}
-                    Matrix::Observed => weights.push(p.observed_weight),
-                    Matrix::Expected => weights.push(p.expected_weight),
-                    Matrix::ScoreOuter => weights.push(p.score * p.score),
+                    Matrix::Observed => row_weights.push(v * p.observed_weight),
+                    Matrix::Expected => row_weights.push(v * p.expected_weight),
+                    Matrix::ScoreOuter => row_weights.push(v * p.score * p.score),
+                    Matrix::WeightedScoreOuter => row_weights.push(score * score),
                 }
             }
             if size > 0 {
-                add_weighted_gram(&mut acc.matrix, design.rows_of(range), Some(&weights), k);
+                add_weighted_gram(
+                    &mut acc.matrix,
+                    design.rows_of(range),
+                    Some(&row_weights),
+                    k,
+                );
             }
         },
         |total, part| {
@@ -280,16 +311,22 @@ pub fn accumulate(
     sums
 }
 
-/// The log-likelihood of the constant-probability model: with ȳ the share of ones,
+/// The log-likelihood of the constant-probability model: with n the sum of the weights (the
+/// number of rows without weights) and ȳ the weighted share of ones,
 ///
 /// ```text
 /// ℓ₀ = n·(ȳ·log ȳ + (1 − ȳ)·log(1 − ȳ))
 /// ```
 ///
 /// the maximum over a single intercept whatever the link (every link reaches every p).
-pub fn null_log_likelihood(outcome: &[f64]) -> f64 {
-    let n = outcome.len() as f64;
-    let ones: f64 = outcome.iter().sum();
+pub fn null_log_likelihood(outcome: &[f64], weights: Option<&[f64]>) -> f64 {
+    let (n, ones) = match weights {
+        Some(w) => (
+            w.iter().sum::<f64>(),
+            outcome.iter().zip(w).map(|(y, v)| y * v).sum::<f64>(),
+        ),
+        None => (outcome.len() as f64, outcome.iter().sum()),
+    };
     let zeros = n - ones;
     let term = |count: f64| {
         if count > 0.0 {

@@ -13,6 +13,7 @@
 //! separation   complete and quasi-complete separation, named with term and direction
 //! likelihood   ℓ, score, observed and expected information for every link
 //! newton       Newton–Raphson with step-halving and a Fisher-scoring fallback
+//! weighting    frequency and sampling weights, population rates, the intercept correction
 //! summaries    ranges, moments, histograms, level counts, joint block
 //! check_cases  observations spread over the index, scored by the engine
 //! report       the printed summary
@@ -44,6 +45,7 @@ pub mod separation;
 pub mod summaries;
 pub mod terms;
 pub mod timestamp;
+pub mod weighting;
 pub mod write;
 
 use std::path::PathBuf;
@@ -56,6 +58,7 @@ use crate::model::{TermText, FORMAT_NAME, FORMAT_VERSION};
 
 pub use error::FitError;
 pub use report::FitReport;
+pub use weighting::{PopulationMethod, PopulationRate, WeightColumn, WeightKind};
 pub use write::write_model_file;
 
 use design::{reduce_rows, Design};
@@ -148,6 +151,13 @@ pub struct FitRequest {
     pub decision: Option<DecisionSpec>,
     /// Seconds since the Unix epoch to record as the fit time (default: now).
     pub fitted_at_unix: Option<u64>,
+    /// Threads for reading and for every pass over the data (at least 1); `None` for one per
+    /// core. The fit is the same, bit for bit, whatever the number.
+    pub threads: Option<usize>,
+    /// A column of frequency or sampling weights.
+    pub weights: Option<WeightColumn>,
+    /// The outcome's share in the population, for a sample drawn by outcome.
+    pub population: Option<PopulationRate>,
 }
 
 impl FitRequest {
@@ -172,6 +182,9 @@ impl FitRequest {
             description: String::new(),
             decision: None,
             fitted_at_unix: None,
+            threads: None,
+            weights: None,
+            population: None,
         }
     }
 }
@@ -379,6 +392,14 @@ fn sandwich(bread: &[f64], meat: &[f64], k: usize) -> Vec<f64> {
 
 /// Fit the model a request describes.
 pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitError> {
+    match request.threads {
+        Some(threads) => design::with_threads(threads, || fit_here(request, progress)),
+        None => fit_here(request, progress),
+    }
+}
+
+/// [`fit`], with passes over the data on this thread's thread setting.
+fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitError> {
     // Refuse a bad name or version before reading what may be a large file.
     if !crate::model::is_model_name(&request.name) {
         return Err(FitError::BadOption(format!(
@@ -400,6 +421,19 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
         ));
     }
     check_flag_columns(request, &names)?;
+    let weighting_plan = weighting::Plan::decide(
+        request.weights.as_ref(),
+        request.population,
+        request.link,
+        request.intercept,
+    )?;
+    if let Some(column) = weighting_plan.column() {
+        if names.iter().any(|n| n == column) || *column == request.outcome {
+            return Err(FitError::BadOption(format!(
+                "the weight column '{column}' cannot also be the outcome or a covariate"
+            )));
+        }
+    }
 
     let read = ReadRequest {
         path: request.data.clone(),
@@ -413,6 +447,8 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
             })
             .collect(),
         drop_missing: request.drop_missing,
+        threads: request.threads,
+        weight: weighting_plan.column().map(str::to_string),
     };
     let table = reader::read_table(&read, progress)?;
     let n = table.rows();
@@ -435,6 +471,22 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
         });
     }
 
+    let weights: Option<Vec<f64>> = match &weighting_plan {
+        weighting::Plan::PopulationWeights(rate) => {
+            Some(weighting::population_weights(&table.outcome, *rate))
+        }
+        _ => table.weights.clone(),
+    };
+    if let (Some(w), Some(column)) = (&weights, weighting_plan.column()) {
+        if w.iter().all(|&v| v == 0.0) {
+            return Err(FitError::WeightsAllZero {
+                column: column.to_string(),
+                rows: n as u64,
+            });
+        }
+    }
+    let weights = weights.as_deref();
+
     let shapes = shapes(request, &names, &table.columns)?;
     let design_terms = terms::expand(&parsed, &shapes, request.intercept)?;
     let labels: Vec<String> = design_terms.iter().map(|t| t.label()).collect();
@@ -445,7 +497,7 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
     separation::check_single_terms(&design, &table.outcome, &labels)?;
 
     progress.start_fitting();
-    let share = ones as f64 / n as f64;
+    let share = weighting::sample_rate(&table.outcome, weights);
     let start: Vec<f64> = labels
         .iter()
         .map(|l| {
@@ -462,6 +514,7 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
     let estimate = newton::maximise(
         &design,
         &table.outcome,
+        weights,
         request.link,
         &start,
         options,
@@ -481,27 +534,48 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
             FitError::NotConverged(stopped.reason.clone())
         })
     })?;
-    let beta = &estimate.coefficients;
+    let mut beta = estimate.coefficients.clone();
     let bread = newton::inverse(&estimate.information, k).ok_or_else(|| {
         FitError::SingularInformation(format!(
             "after {} Newton–Raphson steps the observed information could not be inverted",
             estimate.iterations
         ))
     })?;
-    let covariance = match request.covariance {
+    // Sampling weights always take the sandwich: the inverse information would treat each
+    // row as v observations, which a sampled row is not.
+    let covariance_type = if weighting_plan.sampling() {
+        CovarianceType::Robust
+    } else {
+        request.covariance
+    };
+    let covariance = match covariance_type {
         CovarianceType::Classical => bread,
         CovarianceType::Robust => {
+            let meat_kind = if weighting_plan.sampling() {
+                Matrix::WeightedScoreOuter
+            } else {
+                Matrix::ScoreOuter
+            };
             let meat = accumulate(
                 &design,
                 &table.outcome,
+                weights,
                 request.link,
-                beta,
-                Matrix::ScoreOuter,
+                &beta,
+                meat_kind,
             );
             sandwich(&bread, &meat.matrix, k)
         }
     };
-    let null_log_likelihood = likelihood::null_log_likelihood(&table.outcome);
+    let null_log_likelihood = likelihood::null_log_likelihood(&table.outcome, weights);
+    let weighting_record = weighting::record(&weighting_plan, &table.outcome, weights);
+    if let Some(shift) = weighting_record.as_ref().and_then(|w| w.intercept_shift) {
+        // The served model gives probabilities at the population's rate.
+        if let Some(j) = labels.iter().position(|l| l == "intercept") {
+            beta[j] -= shift;
+        }
+    }
+    let beta = &beta;
 
     // Fitted index and probabilities, then the design is no longer needed.
     let index = indices(&design, beta);
@@ -510,6 +584,9 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
 
     let kinds: Vec<CovariateKind> = shapes.iter().map(|s| s.kind).collect();
     let mut remarks = Vec::new();
+    if let Some(w) = &weighting_record {
+        remarks.push(w.summary());
+    }
     let mut covariates = Vec::with_capacity(names.len());
     let mut joint_names = Vec::new();
     let mut joint_columns: Vec<&[f64]> = Vec::new();
@@ -556,7 +633,7 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
         .collect();
     let report = FitReport {
         link: request.link,
-        covariance_type: request.covariance.name().to_string(),
+        covariance_type: covariance_type.name().to_string(),
         observations: n as u64,
         dropped: table.dropped,
         iterations: estimate.iterations,
@@ -574,11 +651,15 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
         .filter(|s| s.kind == CovariateKind::Categorical)
         .map(|s| format!("{} = {}", s.name, s.levels[s.reference]))
         .collect();
+    let weighting_note = match &weighting_record {
+        None => String::new(),
+        Some(w) => format!("; {}", w.summary()),
+    };
     let notes = format!(
-        "{} link; {} covariance ({}); McFadden pseudo-R² {:.6}, AIC {:.6}, BIC {:.6}; {} rows in the file, {} dropped for missing values{}",
+        "{} link; {} covariance ({}); McFadden pseudo-R² {:.6}, AIC {:.6}, BIC {:.6}; {} rows in the file, {} dropped for missing values{}{weighting_note}",
         request.link,
-        request.covariance.name(),
-        match request.covariance {
+        covariance_type.name(),
+        match covariance_type {
             CovarianceType::Classical => "inverse of the observed information",
             CovarianceType::Robust => "HC0 sandwich",
         },
@@ -617,7 +698,7 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
             })
             .collect(),
         covariance: Some(square(&covariance, k)),
-        covariance_type: Some(request.covariance.name().to_string()),
+        covariance_type: Some(covariance_type.name().to_string()),
         joint,
         fitted_probabilities: Some(summaries::probability_histogram(&probabilities)),
         check_cases: Vec::new(),
@@ -634,6 +715,7 @@ pub fn fit(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, FitE
             iterations: Some(estimate.iterations),
             data: Some(request.data.display().to_string()),
             notes: Some(notes),
+            weighting: weighting_record.clone(),
         },
     };
     let observations = check_cases::spread_rows(&index, check_cases::CHECK_CASES)

@@ -115,6 +115,7 @@ fn estimate(
 pub fn maximise(
     design: &Design,
     outcome: &[f64],
+    weights: Option<&[f64]>,
     link: Link,
     start: &[f64],
     options: NewtonOptions,
@@ -122,7 +123,7 @@ pub fn maximise(
 ) -> Result<Estimate, Stopped> {
     let k = design.columns();
     let mut beta = start.to_vec();
-    let mut at = accumulate(design, outcome, link, &beta, Matrix::Observed);
+    let mut at = accumulate(design, outcome, weights, link, &beta, Matrix::Observed);
     let mut previous_change: Option<(f64, f64)> = None;
     let mut fisher_steps = 0;
     let mut halvings = 0;
@@ -137,7 +138,7 @@ pub fn maximise(
         let (factor, observed) = match cholesky(&at.matrix, k) {
             Some(c) => (c, true),
             None => {
-                let expected = accumulate(design, outcome, link, &beta, Matrix::Expected);
+                let expected = accumulate(design, outcome, weights, link, &beta, Matrix::Expected);
                 match cholesky(&expected.matrix, k) {
                     Some(c) => (c, false),
                     None => {
@@ -188,7 +189,7 @@ pub fn maximise(
                 .zip(step.iter())
                 .map(|(b, s)| b + scale * s)
                 .collect();
-            let sums = accumulate(design, outcome, link, &trial, Matrix::Observed);
+            let sums = accumulate(design, outcome, weights, link, &trial, Matrix::Observed);
             let tolerance = 1e-12 * at.log_likelihood.abs();
             if sums.log_likelihood.is_finite()
                 && sums.log_likelihood >= at.log_likelihood - tolerance

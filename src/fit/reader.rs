@@ -13,6 +13,7 @@
 //! missing            empty, NA, N/A, NaN, nan, null or NULL (after trimming spaces)
 //! outcome            0 or 1 (also 0.0 / 1.0), or false / true in any letter case
 //! numeric column     a decimal number; inf is refused
+//! weight column      a decimal number ≥ 0; inf, NaN and negative numbers are refused
 //! categorical column any other text; the level is the trimmed text
 //! ```
 //!
@@ -58,6 +59,10 @@ pub struct ReadRequest {
     pub columns: Vec<ColumnRequest>,
     /// Drop rows with a missing value in any requested column instead of failing.
     pub drop_missing: bool,
+    /// Parsing threads (at least 1); `None` for one per core, at most 8.
+    pub threads: Option<usize>,
+    /// A column of observation weights (finite, not negative), never a covariate.
+    pub weight: Option<String>,
 }
 
 /// A column as read.
@@ -85,6 +90,8 @@ pub struct Table {
     pub dropped: u64,
     /// Rows in the file (kept and dropped).
     pub rows_in_file: u64,
+    /// Each observation's weight, when a weight column was asked for.
+    pub weights: Option<Vec<f64>>,
 }
 
 impl Table {
@@ -214,6 +221,8 @@ fn exact_fast_decimal(text: &[u8]) -> Option<f64> {
 struct Plan {
     outcome_index: usize,
     outcome_name: String,
+    /// The weight column's header index and name.
+    weight: Option<(usize, String)>,
     /// Per requested column: header index, categorical or not, log term label.
     columns: Vec<(usize, bool, Option<String>)>,
     names: Vec<String>,
@@ -226,6 +235,7 @@ struct Plan {
 #[derive(Debug, Default)]
 struct BlockData {
     outcome: Vec<f64>,
+    weights: Vec<f64>,
     numeric: Vec<Vec<f64>>,
     codes: Vec<Vec<u32>>,
     dictionaries: Vec<HashMap<Vec<u8>, u32>>,
@@ -328,6 +338,32 @@ fn take_record(
             }
         }
     };
+    let mut weight = 1.0;
+    if let (Some((index, name)), None) = (&plan.weight, &missing) {
+        let cell = trim(fields[*index]);
+        if is_missing(cell) {
+            missing = Some(name.clone());
+        } else {
+            let problem = match parse_number(cell) {
+                None => Some("is not a number"),
+                Some(w) if !w.is_finite() => Some("is not finite"),
+                Some(w) if w < 0.0 => Some("is negative"),
+                Some(w) => {
+                    weight = w;
+                    None
+                }
+            };
+            if let Some(problem) = problem {
+                let (column, text) = (name.clone(), text_of(cell));
+                return Err(failure(local, move |row| FitError::BadWeight {
+                    row,
+                    column,
+                    text,
+                    problem,
+                }));
+            }
+        }
+    }
     for (c, (index, categorical, log_term)) in plan.columns.iter().enumerate() {
         if missing.is_some() {
             break;
@@ -397,6 +433,9 @@ fn take_record(
         return Err(failure(local, move |row| FitError::Missing { row, column }));
     }
     data.outcome.push(outcome);
+    if plan.weight.is_some() {
+        data.weights.push(weight);
+    }
     for (c, (_, categorical, _)) in plan.columns.iter().enumerate() {
         if *categorical {
             data.codes[c].push(row_codes[c]);
@@ -565,6 +604,9 @@ impl BlockData {
         let per_row = block.bytes as f64 / block.records as f64;
         let rows = ((total_bytes as f64 / per_row) * 1.02) as usize + 16;
         self.outcome.reserve(rows);
+        if !block.weights.is_empty() {
+            self.weights.reserve(rows);
+        }
         for (c, numbers) in self.numeric.iter_mut().enumerate() {
             if !block.numeric[c].is_empty() {
                 numbers.reserve(rows);
@@ -580,6 +622,7 @@ impl BlockData {
     /// Append the next block in file order, recoding its levels into this dictionary.
     fn append(&mut self, block: BlockData) {
         self.outcome.extend_from_slice(&block.outcome);
+        self.weights.extend_from_slice(&block.weights);
         for (c, numbers) in block.numeric.into_iter().enumerate() {
             self.numeric[c].extend_from_slice(&numbers);
         }
@@ -628,6 +671,7 @@ impl BlockData {
             columns,
             dropped: self.dropped,
             rows_in_file: self.records,
+            weights: plan.weight.is_some().then_some(self.weights),
         }
     }
 }
@@ -671,6 +715,10 @@ pub fn read_table(request: &ReadRequest, progress: &dyn Progress) -> Result<Tabl
     let header_end = first_record_end(&pending).unwrap_or(pending.len());
     let header = parse_header(&pending[..header_end])?;
     let outcome_index = find_column(&header, &request.outcome)?;
+    let weight = match &request.weight {
+        Some(name) => Some((find_column(&header, name)?, name.clone())),
+        None => None,
+    };
     let mut columns = Vec::with_capacity(request.columns.len());
     for column in &request.columns {
         let index = find_column(&header, &column.name)?;
@@ -680,6 +728,7 @@ pub fn read_table(request: &ReadRequest, progress: &dyn Progress) -> Result<Tabl
     let mut plan = Plan {
         outcome_index,
         outcome_name: request.outcome.clone(),
+        weight,
         columns,
         names: request.columns.iter().map(|c| c.name.clone()).collect(),
         header_len: header.len(),
@@ -692,10 +741,15 @@ pub fn read_table(request: &ReadRequest, progress: &dyn Progress) -> Result<Tabl
 
     let width = plan.columns.len();
     let mut joiner = Joiner::new(width);
-    let threads = std::thread::available_parallelism()
-        .map(|n| n.get())
-        .unwrap_or(1)
-        .clamp(1, 8);
+    let threads = request.threads.map_or_else(
+        || {
+            std::thread::available_parallelism()
+                .map(|n| n.get())
+                .unwrap_or(1)
+                .clamp(1, 8)
+        },
+        |n| n.max(1),
+    );
     let stop = AtomicBool::new(false);
     let (block_sender, block_receiver) = mpsc::sync_channel::<(usize, Vec<u8>)>(threads * 2);
     // Parsed blocks' buffers come back for reuse, so reading touches no fresh pages per block.

@@ -245,6 +245,93 @@ pub struct Provenance {
     /// Free-form notes (for example, how a hand-written demo model was made).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub notes: Option<String>,
+    /// How the observations were weighted, or the intercept corrected, when they were.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub weighting: Option<Weighting>,
+}
+
+/// How a fit weighted its observations or corrected its intercept for an outcome-stratified
+/// sample.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct Weighting {
+    /// What was done.
+    pub method: WeightingMethod,
+    /// The weight column, for frequency and sampling weights.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub column: Option<String>,
+    /// The sum of the weights over the observations used.
+    pub weight_sum: f64,
+    /// The outcome's share in the sample (weighted by the weight column, if any).
+    pub sample_rate: f64,
+    /// The outcome's share in the population, for the two population methods.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub population_rate: Option<f64>,
+    /// For the intercept correction: the amount subtracted from the fitted intercept,
+    /// ln[((1 − τ)/τ)·(ȳ/(1 − ȳ))] with τ the population and ȳ the sample rate.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub intercept_shift: Option<f64>,
+}
+
+impl Weighting {
+    /// One sentence on how the fit was weighted, for the fit's notes and `describe`.
+    pub fn summary(&self) -> String {
+        use WeightingMethod as M;
+        match self.method {
+            M::Frequency => format!(
+                "frequency weights from column '{}' (sum {}, weighted outcome rate {:.6})",
+                self.column.as_deref().unwrap_or(""),
+                self.weight_sum,
+                self.sample_rate
+            ),
+            M::Sampling => format!(
+                "sampling weights from column '{}' (sum {}, weighted outcome rate {:.6}); HC0 sandwich covariance",
+                self.column.as_deref().unwrap_or(""),
+                self.weight_sum,
+                self.sample_rate
+            ),
+            M::PopulationIntercept => format!(
+                "outcome-stratified sample (outcome rate {:.6}) brought to the population rate {} by subtracting {:.6} from the intercept (prior correction); slopes unchanged",
+                self.sample_rate,
+                self.population_rate.unwrap_or(f64::NAN),
+                self.intercept_shift.unwrap_or(f64::NAN)
+            ),
+            M::PopulationWeights => format!(
+                "outcome-stratified sample (outcome rate {:.6}) weighted to the population rate {} (ones τ/ȳ, zeros (1 − τ)/(1 − ȳ)); HC0 sandwich covariance",
+                self.sample_rate,
+                self.population_rate.unwrap_or(f64::NAN)
+            ),
+        }
+    }
+}
+
+/// The ways a fit can weight its observations.
+#[derive(Debug, Clone, Copy, Serialize, Deserialize, JsonSchema, PartialEq, Eq)]
+#[serde(rename_all = "snake_case")]
+pub enum WeightingMethod {
+    /// Frequency weights: a row of weight v counts as v identical observations.
+    Frequency,
+    /// Sampling weights: a row of weight v stands for v members of the population (inverse
+    /// selection probability); the covariance is the HC0 sandwich.
+    Sampling,
+    /// An outcome-stratified sample, fitted unweighted, whose logit intercept is corrected to
+    /// the population rate (prior correction, King and Zeng 2001); the slopes are unchanged.
+    PopulationIntercept,
+    /// An outcome-stratified sample weighted so that ones and zeros take their population
+    /// shares (w₁ = τ/ȳ, w₀ = (1 − τ)/(1 − ȳ)); the covariance is the HC0 sandwich.
+    PopulationWeights,
+}
+
+impl WeightingMethod {
+    /// The name written in files and shown by `describe`.
+    pub fn name(self) -> &'static str {
+        match self {
+            WeightingMethod::Frequency => "frequency",
+            WeightingMethod::Sampling => "sampling",
+            WeightingMethod::PopulationIntercept => "population_intercept",
+            WeightingMethod::PopulationWeights => "population_weights",
+        }
+    }
 }
 
 /// The JSON Schema of the model file, as committed in `model-files/model.schema.json`.

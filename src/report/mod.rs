@@ -86,6 +86,9 @@ pub struct Identity {
     /// Free-form notes from the model file.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub notes: Option<String>,
+    /// How the fit weighted its observations or corrected its intercept, if it did.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub weighting: Option<crate::model::file::Weighting>,
     /// The log-likelihood at the estimate.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub log_likelihood: Option<f64>,
@@ -279,6 +282,7 @@ fn identity(model: &Model) -> Identity {
         observations: p.observations,
         training_data: p.data.clone(),
         notes: p.notes.clone(),
+        weighting: p.weighting.clone(),
         log_likelihood: p.log_likelihood,
         null_log_likelihood: p.null_log_likelihood,
         pseudo_r_squared: match (p.log_likelihood, p.null_log_likelihood) {

@@ -175,6 +175,9 @@ pub fn render_text(report: &Report) -> String {
     if let Some(i) = m.iterations {
         facts.push(("iterations".to_string(), i.to_string()));
     }
+    if let Some(w) = &m.weighting {
+        facts.push(("weighting".to_string(), w.summary()));
+    }
     facts.push(("covariance".to_string(), m.covariance.clone()));
     facts.push((
         "check cases".to_string(),
