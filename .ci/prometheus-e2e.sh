@@ -1,23 +1,30 @@
 #!/usr/bin/env bash
 # A real Prometheus server scraping a real `ogive serve`: request, drift and calibration series
-# must arrive in Prometheus with the values this script expects.
+# must arrive in Prometheus with the values this script expects, and the recording rules of
+# deploy/prometheus/ogive-rules.yml, evaluated by that Prometheus, must give the fleet figures.
 #
+#   0. run the rules' unit tests (promtool test rules deploy/prometheus/tests/*.yml)
 #   1. install Debian's prometheus package if the binary is missing
 #   2. start `ogive serve` on a free loopback port with a test model whose training histograms
 #      make the expected PSI easy to compute, and Prometheus on another, scraping it every 1 s
+#      and evaluating the rules every 1 s; wait for the first scrape, so that every counter
+#      starts from zero inside Prometheus (increase() then needs no guess at the start)
 #   3. send bounded traffic with curl (40 single requests, one batch of 60) and 50 outcomes
 #   4. compute the expected figures here, in Python, from what the server answered: the PSI of
 #      amount and of the predicted probabilities (floor 1e-4, as documented in
-#      src/metrics/drift.rs), the Brier score, calibration-in-the-large and the Mann–Whitney AUC
+#      src/metrics/drift.rs), the Brier score, log loss, calibration-in-the-large, the
+#      Mann–Whitney AUC and the AUC over 100 bins with ties counted half (src/metrics/
+#      calibration.rs)
 #   5. query Prometheus's HTTP API (/api/v1/query) until the scraped values match, then check
 #      every series once more and stop both processes
 #
-# Bounded: every wait has a deadline and the whole script gives up after 170 s. Exits non-zero
+# Bounded: every wait has a deadline and the whole script gives up after 300 s (the build
+# included). Exits non-zero
 # on any mismatch. Needs bash, curl, python3 and cargo; talks to 127.0.0.1 only.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
-deadline=$((SECONDS + 170))
+deadline=$((SECONDS + 300))
 fail() { echo "prometheus-e2e: FAIL: $*" >&2; exit 1; }
 note() { echo "prometheus-e2e: $*"; }
 
@@ -26,9 +33,13 @@ if ! command -v prometheus >/dev/null; then
   note "installing Debian's prometheus package"
   DEBIAN_FRONTEND=noninteractive apt-get install -y -qq prometheus >/dev/null
 fi
-for tool in curl python3 cargo; do
+for tool in curl python3 cargo promtool; do
   command -v "$tool" >/dev/null || fail "$tool is needed"
 done
+
+promtool test rules deploy/prometheus/tests/*.yml >/dev/null || fail "promtool test rules failed:
+$(promtool test rules deploy/prometheus/tests/*.yml 2>&1 | tail -20)"
+note "promtool test rules: every rule's unit tests pass"
 
 cargo build --quiet --bin ogive
 ogive="$PWD/target/debug/ogive"
@@ -82,10 +93,13 @@ echo 1 >"$work/models/e2e-lease/live"
   --drain-delay-ms 0 --shutdown-timeout-ms 2000 --monitoring on >"$work/ogive.log" 2>&1 &
 ogive_pid=$!
 
+cp deploy/prometheus/ogive-rules.yml "$work/ogive-rules.yml"
 cat >"$work/prometheus.yml" <<EOF
 global:
   scrape_interval: 1s
   evaluation_interval: 1s
+rule_files:
+  - ogive-rules.yml
 scrape_configs:
   - job_name: ogive
     scrape_interval: 1s
@@ -110,6 +124,12 @@ base="http://127.0.0.1:$ogive_port"
 wait_for "$base/readyz" "ogive"
 wait_for "http://127.0.0.1:$prometheus_port/-/ready" "prometheus"
 note "ogive on $base, prometheus on 127.0.0.1:$prometheus_port"
+# The first scrape creates the live version's counters at zero; traffic waits for it.
+until curl -fsS --max-time 2 -G "http://127.0.0.1:$prometheus_port/api/v1/query" \
+  --data-urlencode 'query=ogive_outcomes_total{model="e2e-lease"} == 0' | grep -q '"value"'; do
+  [ "$SECONDS" -lt "$deadline" ] || fail "Prometheus never scraped the zero counters"
+  sleep 0.2
+done
 
 # Traffic: 40 single observations, amounts 5, 15, 25, 35 in turn, then one batch of 60 with
 # amounts in the first bin. Each answer's probability is kept for the expected figures, and its
@@ -196,11 +216,22 @@ pairs = [(float(answers[k]), int(y)) for k, y in outcomes.items()]
 n = len(pairs)
 print("outcomes_total\t%d" % n)
 print("brier_score\t%r" % (sum((p - y) ** 2 for p, y in pairs) / n))
+print("log_loss\t%r" % (-sum(math.log(p) if y else math.log1p(-p) for p, y in pairs) / n))
 print("calibration_in_the_large\t%r" % (sum(y for _, y in pairs) / n - sum(p for p, _ in pairs) / n))
 positives = [p for p, y in pairs if y == 1]
 negatives = [p for p, y in pairs if y == 0]
 wins = sum(1.0 if a > b else 0.5 if a == b else 0.0 for a in positives for b in negatives)
 print("roc_auc\t%r" % (wins / (len(positives) * len(negatives))))
+# The same pairs over 100 bins, bin k holding k/100 < p <= (k+1)/100, ties in a bin half.
+edges = [k / 100 for k in range(1, 100)]
+pos, neg = [0] * 100, [0] * 100
+for p, y in pairs:
+    (pos if y else neg)[bisect.bisect_left(edges, p)] += 1
+below, binned = 0, 0.0
+for k in range(100):
+    binned += pos[k] * (below + neg[k] / 2)
+    below += neg[k]
+print("roc_auc_binned\t%r" % (binned / (len(positives) * len(negatives))))
 print("observations_scored\t%d" % len(probabilities))
 EOF
 expected() { awk -F'\t' -v k="$1" '$1 == k { print $2 }' "$work/expected.tsv"; }
@@ -237,6 +268,16 @@ checks=(
   "ogive_brier_score{$model}|$(expected brier_score)|1e-12"
   "ogive_calibration_in_the_large{$model}|$(expected calibration_in_the_large)|1e-12"
   "ogive_roc_auc{$model}|$(expected roc_auc)|1e-12"
+  # The fleet recording rules over this one replica: increase() scales every counter of the
+  # target by the same extrapolation factor, which cancels in each ratio; 1e-9 relative.
+  "namespace_model_version:ogive_outcomes_insufficient:1d{$model}|1|0"
+  "namespace_model_version:ogive_brier_score:ratio1d{$model}|$(expected brier_score)|1e-9"
+  "namespace_model_version:ogive_log_loss:ratio1d{$model}|$(expected log_loss)|1e-9"
+  "namespace_model_version:ogive_calibration_in_the_large:1d{$model}|$(expected calibration_in_the_large)|1e-9"
+  "namespace_model_version:ogive_roc_auc_binned:1d{$model}|$(expected roc_auc_binned)|1e-9"
+  "namespace_model_version_covariate:ogive_input_psi:1h{$model,covariate=\"amount\"}|$(expected input_psi_amount)|1e-9"
+  "namespace_model_version:ogive_prediction_psi:1h{$model}|$(expected prediction_psi)|1e-9"
+  "namespace_model_version:ogive_drift_insufficient:1h{$model}|1|0"
 )
 
 check_all() { # prints the first mismatch and returns 1, or returns 0
