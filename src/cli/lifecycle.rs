@@ -7,6 +7,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 
+use crate::evaluate::evidence::Evidence;
 use crate::registry::lifecycle::{self, HistoryView, Moved};
 use crate::registry::store::{Action, HistoryRecord};
 
@@ -93,6 +94,11 @@ pub struct PromoteArgs {
     /// about one promotion.
     #[arg(long)]
     pub allow_breaking: bool,
+    /// An evaluation report of this version (`ogive evaluate --format json`): refused unless it
+    /// evaluated this very file; stored in NAME/evidence/ and named, with its SHA-256 and
+    /// headline figures, in the history.
+    #[arg(long, value_name = "REPORT")]
+    pub evidence: Option<PathBuf>,
     #[command(flatten)]
     actor: Actor,
 }
@@ -134,13 +140,25 @@ pub struct HistoryArgs {
 
 /// Run `ogive promote`.
 pub fn promote(args: PromoteArgs) -> anyhow::Result<ExitCode> {
-    let moved = lifecycle::promote(
+    let evidence = match &args.evidence {
+        None => None,
+        Some(path) => {
+            let bytes = std::fs::read(path)
+                .with_context(|| format!("cannot read the evidence {}", path.display()))?;
+            Some(
+                Evidence::read(bytes)
+                    .with_context(|| format!("the evidence {} cannot be used", path.display()))?,
+            )
+        }
+    };
+    let moved = lifecycle::promote_with_evidence(
         &args.directory.models,
         &args.name,
         &args.version,
         args.allow_breaking,
         &args.actor.who(),
         args.actor.reason.as_deref(),
+        evidence.as_ref(),
     )
     .with_context(|| format!("promoting {} version {}", args.name, args.version))?;
     if moved.changed {
@@ -205,6 +223,12 @@ fn print_moved(moved: &Moved) {
         _ => "promoted",
     };
     println!("{}: {verb} {from} → {}", moved.name, moved.to);
+    if let Some(e) = moved.record.as_ref().and_then(|r| r.evidence.as_ref()) {
+        println!(
+            "evidence stored as {} (sha256 {}): AUC {:.4}, Brier {:.5}, calibration slope {:.3}",
+            e.file, e.sha256, e.auc, e.brier, e.calibration_slope
+        );
+    }
     if !moved.changes.is_empty() {
         println!("callers must now:");
         for change in &moved.changes {
@@ -227,6 +251,12 @@ fn record_line(record: &HistoryRecord) -> String {
     );
     if let Some(reason) = &record.reason {
         line.push_str(&format!("  ({reason})"));
+    }
+    if let Some(e) = &record.evidence {
+        line.push_str(&format!(
+            "  evidence {} sha256 {}: AUC {:.4}, Brier {:.5}, calibration slope {:.3}",
+            e.file, e.sha256, e.auc, e.brier, e.calibration_slope
+        ));
     }
     line
 }

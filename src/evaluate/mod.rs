@@ -11,6 +11,7 @@
 //! paired.rs       per-row Brier and log-loss differences, the paired AUC test, the verdict
 //! plots.rs        the reliability diagram and the ROC curve, as SVG
 //! report.rs       the report value, its text rendering and its JSON (the evidence)
+//! evidence.rs     a report offered for a promotion: which model it evaluated, headline figures
 //! labelled.rs     one pass over a labelled CSV: outcome and covariates read as `ogive score`
 //!                 reads them, scored by one or two models, fed to the accumulators
 //! ```
@@ -27,6 +28,7 @@
 mod auc;
 mod bins;
 mod calibration;
+pub mod evidence;
 mod hosmer;
 pub mod labelled;
 mod paired;

@@ -53,7 +53,10 @@ use std::time::Duration;
 use serde::Serialize;
 
 use super::gate::{self, ContractChange, GateError, Novelty};
-use super::store::{Action, HistoryRecord, HistoryWarning, ModelDir, ModelLock, StoreError};
+use super::store::{
+    atomic, Action, HistoryRecord, HistoryWarning, ModelDir, ModelLock, StoreError,
+};
+use crate::evaluate::evidence::{Evidence, EvidenceError, EvidenceNote};
 use crate::model::Model;
 
 /// How long an operation waits for another promoter to release the model's lock.
@@ -68,6 +71,10 @@ pub enum LifecycleError {
     /// The directory could not be read or written.
     #[error(transparent)]
     Store(#[from] StoreError),
+    /// The evaluation report offered as evidence is not one, or evaluated another model,
+    /// version or file.
+    #[error(transparent)]
+    Evidence(#[from] EvidenceError),
     /// No directory for the model.
     #[error("there is no model '{name}' in {}", root.display())]
     UnknownModel {
@@ -454,11 +461,34 @@ pub fn promote(
     who: &str,
     reason: Option<&str>,
 ) -> Result<Moved, LifecycleError> {
+    promote_with_evidence(root, name, version, allow_breaking, who, reason, None)
+}
+
+/// [`promote`] with an evaluation report (`ogive evaluate --format json`) as evidence. The
+/// report must have evaluated this very version (its name, its version and the SHA-256 of the
+/// stored file), or nothing changes and the refusal names both. It is stored crash-safely at
+/// `NAME/evidence/VERSION-TIME.json` before the history records the promotion, and the record
+/// names that file, the report's SHA-256 and its AUC, Brier score and calibration slope.
+/// Promoting the live version again stores nothing.
+pub fn promote_with_evidence(
+    root: &Path,
+    name: &str,
+    version: &str,
+    allow_breaking: bool,
+    who: &str,
+    reason: Option<&str>,
+    evidence: Option<&Evidence>,
+) -> Result<Moved, LifecycleError> {
     gate::check_labels(name, version)?;
     let dir = existing_dir(root, name)?;
     let lock = dir.lock(LOCK_WAIT)?;
     complete_interrupted_move(&lock)?;
     let candidate = load_stored(&dir, version)?;
+    if let Some(evidence) = evidence {
+        // load_stored has just read and verified this file.
+        let bytes = dir.read_version_verified(version)?.unwrap_or_default();
+        evidence.check_for(name, version, &bytes)?;
+    }
     let live = dir.read_live()?;
     if live.as_deref() == Some(version) {
         return Ok(Moved {
@@ -473,7 +503,10 @@ pub fn promote(
         });
     }
     let changes = compare_with_live(&dir, live.as_deref(), &candidate, allow_breaking)?;
-    let record = HistoryRecord::now(Action::Promote, live.as_deref(), version, who, reason);
+    let mut record = HistoryRecord::now(Action::Promote, live.as_deref(), version, who, reason);
+    if let Some(evidence) = evidence {
+        record.evidence = Some(store_evidence(&dir, version, &record.when, evidence)?);
+    }
     move_pointer(&lock, &record)?;
     Ok(Moved {
         name: name.to_string(),
@@ -536,6 +569,26 @@ pub fn rollback(
         record: Some(record),
         model,
     })
+}
+
+/// The folder of a model's stored evidence, inside its directory.
+pub const EVIDENCE_DIR: &str = "evidence";
+
+/// Write the report to `NAME/evidence/VERSION-TIME.json` (temporary file, fsync, rename, fsync
+/// of the folder), before the history names it.
+fn store_evidence(
+    dir: &ModelDir,
+    version: &str,
+    when: &str,
+    evidence: &Evidence,
+) -> Result<EvidenceNote, LifecycleError> {
+    let folder = dir.path().join(EVIDENCE_DIR);
+    atomic::create_directory(&folder)?;
+    // 2026-12-02T15:36:24.123Z → 20261202T153624.123Z: no ':' in a file name.
+    let stamp: String = when.chars().filter(|c| *c != '-' && *c != ':').collect();
+    let file_name = format!("{version}-{stamp}.json");
+    atomic::replace_file(&folder, &file_name, &evidence.bytes)?;
+    Ok(evidence.note(&format!("{EVIDENCE_DIR}/{file_name}")))
 }
 
 /// History first, pointer second: see the module docs for why.

@@ -20,6 +20,7 @@
 //! [`HistoryWarning::Unreadable`], and the warnings are returned, not printed. This module
 //! does not decide what the records mean for rollback; that is [`crate::registry::lifecycle`].
 
+use crate::evaluate::evidence::EvidenceNote;
 use std::fs::File;
 use std::io::{Read, Seek, SeekFrom};
 use std::time::{SystemTime, UNIX_EPOCH};
@@ -69,6 +70,10 @@ pub struct HistoryRecord {
     /// For an upload: the SHA-256 of the bytes stored, as 64 lower-case hex digits.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub sha256: Option<String>,
+    /// For a promotion offered with an evaluation report: where the report is stored, its
+    /// SHA-256 and its headline figures.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub evidence: Option<EvidenceNote>,
 }
 
 impl HistoryRecord {
@@ -88,6 +93,7 @@ impl HistoryRecord {
             who: who.to_string(),
             reason: reason.map(str::to_string),
             sha256: None,
+            evidence: None,
         }
     }
 

@@ -26,6 +26,7 @@
 
 use serde_json::{json, Value as Json};
 
+use crate::evaluate::evidence::EvidenceError;
 use crate::model::ModelProblem;
 use crate::registry::gate::{ContractChange, GateError, OVERRIDE};
 use crate::registry::lifecycle::LifecycleError;
@@ -187,6 +188,22 @@ pub fn lifecycle_problem(error: &LifecycleError) -> Problem {
     let detail = error.to_string();
     match error {
         LifecycleError::Gate(gate) => gate_problem(gate),
+        LifecycleError::Evidence(evidence) => {
+            let problem = Problem::new(Kind::InvalidBody, detail).at("/evidence");
+            match evidence {
+                EvidenceError::OtherModel {
+                    found_name,
+                    found_version,
+                    ..
+                } => problem
+                    .extension("evidence_model", json!(found_name))
+                    .extension("evidence_version", json!(found_version)),
+                EvidenceError::OtherFile { found, stored, .. } => problem
+                    .extension("evidence_sha256", json!(found))
+                    .extension("stored_sha256", json!(stored)),
+                EvidenceError::NotAReport(_) => problem,
+            }
+        }
         LifecycleError::Store(store) => store_problem(store),
         LifecycleError::UnknownModel { name, .. } => Problem::new(
             Kind::UnknownModel,

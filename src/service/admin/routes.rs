@@ -31,6 +31,7 @@ use super::refusals::{
     changes_json, gate_problem, lifecycle_problem, shadow_problem, store_problem,
 };
 use super::AdminState;
+use crate::evaluate::evidence::Evidence;
 use crate::registry::gate::{self, Novelty};
 use crate::registry::lifecycle::{self, LifecycleError, Moved};
 use crate::registry::store::ModelDir;
@@ -248,6 +249,24 @@ fn reason_member(map: &Map<String, Json>) -> Result<Option<String>, Problem> {
     Ok(reason)
 }
 
+/// `"evidence"`: an evaluation report, stored as sent (pretty-printed).
+fn evidence_member(map: &Map<String, Json>) -> Result<Option<Evidence>, Problem> {
+    let Some(value) = map.get("evidence") else {
+        return Ok(None);
+    };
+    let refuse = |detail: String| Problem::new(Kind::InvalidBody, detail).at("/evidence");
+    if !value.is_object() {
+        return Err(refuse(format!(
+            "evidence must be the JSON of an evaluation report (ogive evaluate --format json), got {}",
+            json_kind(value)
+        )));
+    }
+    let bytes = serde_json::to_vec_pretty(value).map_err(|e| refuse(e.to_string()))?;
+    Evidence::read(bytes)
+        .map(Some)
+        .map_err(|e| refuse(e.to_string()))
+}
+
 fn serving(state: &AdminState, name: &str) -> Option<String> {
     state
         .app
@@ -344,22 +363,24 @@ pub async fn promote(
         &req,
         payload,
         limit,
-        &["version", "allow_breaking", "reason"],
+        &["version", "allow_breaking", "reason", "evidence"],
         true,
     )
     .await?;
     let version = version_member(&body)?;
     let allow_breaking = bool_member(&body, "allow_breaking")?;
     let reason = reason_member(&body)?;
+    let evidence = evidence_member(&body)?;
     let name = name.into_inner();
     move_live(state, move |root, who| {
-        lifecycle::promote(
+        lifecycle::promote_with_evidence(
             root,
             &name,
             &version,
             allow_breaking,
             who,
             reason.as_deref(),
+            evidence.as_ref(),
         )
     })
     .await
