@@ -3,7 +3,7 @@
 # statsmodels Logit(...).fit() / Probit(...).fit(), both as whole processes, on the same
 # generated CSV of ROWS rows × 10 covariates, in the same run. Prints for each link the wall
 # times and their ratio, the CPU times (user + system) and their ratio, the peak resident memory
-# of each process, and the largest relative coefficient difference. Goal: ≥ 10× faster,
+# of each process, and the largest relative coefficient difference. Goal: ≥ 15× faster (CPU and wall),
 # coefficients equal to 1e-6, less peak memory. Wall time counts ogive's use of every core;
 # on a machine busy with other work the CPU-time ratio is the steadier of the two, and the
 # load average is printed so a reader can judge.

@@ -10,8 +10,14 @@ writes the same bytes every time:
   demo-data/rebate-uptake.csv      20,000 households offered an energy-efficiency rebate by a
                                    fictional energy office; took_rebate = 1 when they took it up
                                    (probit model)
+  demo-data/lease-arrears-case-control.csv
+                                   an outcome-stratified sample of a second invented population
+                                   of 40,000 leases drawn like the first: every lease that fell
+                                   behind and as many that did not, for
+                                   `ogive fit --population-rate`
   demo-data/true-coefficients.json the true coefficients below, by term, in ogive's term syntax
-                                   (tests/fit_demo.rs checks the committed demo models against it)
+                                   (tests/fit_demo.rs checks the committed demo models against it),
+                                   and the case-control population's rate of arrears
 
 Everything here is invented. Covariates are drawn first and rounded to the precision written to
 the CSV; the linear index is computed from the rounded values, so the stated model holds exactly
@@ -93,10 +99,10 @@ def normal_cdf(z):
     return 0.5 * math.erfc(-z / math.sqrt(2.0))
 
 
-def lease_arrears(rng):
+def lease_arrears(rng, count=ROWS):
     b = LEASE_TRUTH
     rows = []
-    for _ in range(ROWS):
+    for _ in range(count):
         revenue = round(math.exp(rng.gauss(math.log(450.0), 0.8)), 1)
         revenue = max(revenue, 20.0)
         years = round(min(0.3 + rng.expovariate(1.0 / 9.0), 60.0), 1)
@@ -144,6 +150,18 @@ def rebate_uptake(rng):
     return header, rows
 
 
+def case_control(rng):
+    """Every case of a population of 40,000 leases and an equal simple random sample of the
+    non-cases, in random order; and the population's share of cases."""
+    header, population = lease_arrears(rng, 40_000)
+    cases = [r for r in population if r[0] == 1]
+    others = [r for r in population if r[0] == 0]
+    rng.shuffle(others)
+    sample = cases + others[: len(cases)]
+    rng.shuffle(sample)
+    return header, sample, len(cases) / len(population)
+
+
 def write_csv(name, header, rows):
     with open(os.path.join(HERE, name), "w", newline="") as out:
         out.write(header + "\n")
@@ -154,9 +172,17 @@ def write_csv(name, header, rows):
 def main():
     write_csv("lease-arrears.csv", *lease_arrears(random.Random(20260101)))
     write_csv("rebate-uptake.csv", *rebate_uptake(random.Random(20260102)))
+    header, sample, rate = case_control(random.Random(20260103))
+    write_csv("lease-arrears-case-control.csv", header, sample)
     truth = {
         "lease-arrears": {"link": "logit", "coefficients": LEASE_TRUTH},
         "rebate-uptake": {"link": "probit", "coefficients": REBATE_TRUTH},
+        "lease-arrears-case-control": {
+            "link": "logit",
+            "coefficients": LEASE_TRUTH,
+            "population_rows": 40_000,
+            "population_rate": rate,
+        },
     }
     with open(os.path.join(HERE, "true-coefficients.json"), "w") as out:
         json.dump(truth, out, indent=1)
