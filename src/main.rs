@@ -6,7 +6,7 @@ use clap::Parser;
 
 fn main() -> ExitCode {
     let cli = ogive::cli::Cli::parse();
-    ogive::cli::init_logging(&cli);
+    let _log = ogive::cli::init_logging(&cli);
     match ogive::cli::run(cli) {
         Ok(code) => code,
         Err(error) => {

@@ -1,26 +1,32 @@
 #!/usr/bin/env bash
-# Load benchmark of the public listener: `ogive serve` (release build, default logging) against
-# a bare actix-web server that only parses the same JSON body (benches/load/bare_actix.rs),
-# measured in the same run with the same worker count, on loopback only.
+# Load benchmark of the public listener: `ogive serve` (release build, default logging, monitoring
+# on) against the same-bytes floor, a bare actix-web server that parses the same JSON body and
+# answers the very bytes ogive answered to that load (benches/load/bare_actix.rs), measured in
+# the same run with the same worker count, on loopback only.
 #
-#   bash benches/load/run.sh            # 10 s per measurement
-#   DURATION=5s WORKERS=2 bash benches/load/run.sh
+#   bash benches/load/run.sh                    # 5 s per measurement, 3 rounds, medians
+#   DURATION=10s ROUNDS=5 WORKERS=2 bash benches/load/run.sh
 #
-# Loads: one observation with effects and intervals (the defaults), and batches of 100
-# observations, each at 16 and 64 connections. Prints per load the throughput of both servers
-# and their ratio, p50 and p99 latency and the p99 ratio, each server's CPU time per request
-# (from /proc/PID/stat: steadier than throughput on a machine shared with other work), and
-# each server's peak resident memory (VmHWM from /proc). Needs wrk (Debian: apt-get install -y
-# wrk). Extra `ogive serve` flags can be given in OGIVE_FLAGS (say, "--monitoring off").
+# Loads: one observation with the full answer (effects and intervals, the defaults), one
+# observation with `"effects": false, "intervals": false` (the probability-only answer), and a
+# batch of 100 observations, each at 16 and 64 connections. The two servers are measured in
+# turn, ROUNDS times, and each figure is the median over rounds. Per load it prints first each
+# server's CPU time per request (utime + stime from /proc/PID/stat over the run, divided by the
+# requests answered: what an operator pays for, and free of the load generator's share of the
+# cores) and their ratio, then throughput, p50 and p99 latency and their ratios; at the end each
+# server's peak resident memory (VmHWM). Needs wrk (Debian: apt-get install -y wrk) and curl.
+# Extra `ogive serve` flags can be given in OGIVE_FLAGS (say, "--monitoring off").
 set -euo pipefail
 cd "$(dirname "$0")/../.."
 
-duration="${DURATION:-10s}"
+duration="${DURATION:-5s}"
+rounds="${ROUNDS:-3}"
 workers="${WORKERS:-2}"
-threads="${WRK_THREADS:-2}"
+threads="${WRK_THREADS:-1}"
 command -v wrk >/dev/null || { echo "wrk is needed: apt-get install -y wrk"; exit 1; }
 
 cargo build -q --release --bin ogive --example bare_actix 2>/dev/null || cargo build --release --bin ogive --example bare_actix
+target="${CARGO_TARGET_DIR:-target}"
 models=tests/http/models
 if compgen -G "model-files/*/live" >/dev/null; then models=model-files; fi
 
@@ -41,15 +47,11 @@ wait_for_line() { # file pattern
   echo "no '$2' in $1"; cat "$1"; exit 1
 }
 
-target/release/ogive serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
-  --workers "$workers" --drain-delay-ms 0 ${OGIVE_FLAGS:-} >"$work/ogive.out" 2>/dev/null &
+"$target/release/ogive" serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
+  --workers "$workers" --drain-delay-ms 0 ${OGIVE_FLAGS:-} >"$work/ogive.out" 2>"$work/ogive.err" &
 ogive_pid=$!; pids+=("$ogive_pid")
-target/release/examples/bare_actix 127.0.0.1:0 "$workers" >"$work/bare.out" 2>/dev/null &
-bare_pid=$!; pids+=("$bare_pid")
 wait_for_line "$work/ogive.out" "^ogive serving on"
-wait_for_line "$work/bare.out" "^listening on"
 ogive_url="$(sed -n 's/^ogive serving on //p' "$work/ogive.out" | head -n 1)"
-bare_url="http://$(sed -n 's/^listening on //p' "$work/bare.out" | head -n 1)"
 
 model="$(curl -fsS "$ogive_url/models" | python3 -c 'import json,sys; print(json.load(sys.stdin)["models"][0]["name"])')"
 curl -fsS "$ogive_url/models/$model" | python3 -c '
@@ -62,57 +64,83 @@ def varied(i):
     for name in numeric:
         o[name] = example[name] * (0.8 + 0.004 * i)
     return o
-json.dump({"observation": example}, open(sys.argv[1], "w"))
-json.dump({"observations": [varied(i) for i in range(100)]}, open(sys.argv[2], "w"))
-' "$work/single.json" "$work/batch.json"
+out = sys.argv[1]
+json.dump({"observation": example}, open(f"{out}/full.json", "w"))
+json.dump({"observation": example, "effects": False, "intervals": False}, open(f"{out}/lean.json", "w"))
+json.dump({"observations": [varied(i) for i in range(100)]}, open(f"{out}/batch.json", "w"))
+' "$work"
 path="/models/$model/probability"
-for body in single batch; do
-  status="$(curl -s -o /dev/null -w '%{http_code}' -H 'Content-Type: application/json' \
-    --data-binary "@$work/$body.json" "$ogive_url$path")"
-  [ "$status" = 200 ] || { echo "ogive answered $status to the $body body"; exit 1; }
+loads=(full lean batch)
+floor_args=()
+for load in "${loads[@]}"; do
+  mkdir -p "$work/answer-$load"
+  status="$(curl -s -D "$work/answer-$load/headers" -o "$work/answer-$load/body" -w '%{http_code}' \
+    -H 'Content-Type: application/json' --data-binary "@$work/$load.json" "$ogive_url$path")"
+  [ "$status" = 200 ] || { echo "ogive answered $status to the $load body"; cat "$work/answer-$load/body"; exit 1; }
+  floor_args+=("$load=$work/answer-$load")
+done
+
+"$target/release/examples/bare_actix" 127.0.0.1:0 "$workers" "${floor_args[@]}" >"$work/bare.out" 2>/dev/null &
+bare_pid=$!; pids+=("$bare_pid")
+wait_for_line "$work/bare.out" "^listening on"
+bare_url="http://$(sed -n 's/^listening on //p' "$work/bare.out" | head -n 1)"
+for load in "${loads[@]}"; do
+  curl -fsS -H 'Content-Type: application/json' --data-binary "@$work/$load.json" "$bare_url/$load" \
+    | cmp -s - "$work/answer-$load/body" || { echo "the floor does not answer ogive's bytes for $load"; exit 1; }
 done
 
 cpu_ticks() { # pid -> utime + stime, in clock ticks
   awk '{print $14 + $15}' "/proc/$1/stat"
 }
-measure() { # url body connections seconds pid -> RESULT line with the server's CPU µs per request
+measure() { # url load connections seconds pid -> RESULT line with the server's CPU µs per request
   local before after line
   before="$(cpu_ticks "$5")"
-  line="$(OGIVE_BODY="$work/$2.json" wrk -t"$threads" -c"$3" -d"$4" -s benches/load/post.lua "$1$path" \
+  line="$(OGIVE_BODY="$work/$2.json" wrk -t"$threads" -c"$3" -d"$4" -s benches/load/post.lua "$1" \
     | grep '^RESULT')"
   after="$(cpu_ticks "$5")"
-  python3 - "$line" "$before" "$after" "$4" "$(getconf CLK_TCK)" <<'PY'
-import re, sys
-line, before, after, duration, tick = sys.argv[1:]
-rps = float(re.search(r"rps=([0-9.]+)", line).group(1))
-seconds = float(duration.rstrip("s"))
-cpu_us = (int(after) - int(before)) / int(tick) * 1e6 / max(1.0, rps * seconds)
-print(f"{line} cpu_us={cpu_us:.1f}")
-PY
+  echo "$line ticks=$((after - before)) seconds=${4%s}"
 }
-field() { sed -n "s/.*$2=\([0-9.]*\).*/\1/p" <<<"$1"; }
 
-echo "model $model from $models; $workers workers per server; wrk $threads threads; $duration per run"
-for body in single batch; do
-  measure "$bare_url" "$body" 16 2s "$bare_pid" >/dev/null
-  measure "$ogive_url" "$body" 16 2s "$ogive_pid" >/dev/null
+bytes() { wc -c <"$work/answer-$1/body" | tr -d ' '; }
+echo "model $model from $models; $workers workers per server; wrk $threads thread(s); $duration per run; $rounds rounds, medians"
+echo "answer sizes: full $(bytes full) B, lean $(bytes lean) B, batch $(bytes batch) B"
+for load in "${loads[@]}"; do # warm both
+  measure "$bare_url/$load" "$load" 16 1s "$bare_pid" >/dev/null
+  measure "$ogive_url$path" "$load" 16 1s "$ogive_pid" >/dev/null
 done
-printf '\n%-7s %5s | %10s %10s %6s | %8s %8s | %8s %8s %6s | %13s | %s\n' \
-  load conns "bare rps" "ogive rps" ratio "bare p50" "ogive" "bare p99" "ogive" ratio \
-  "CPU µs/req" "errors"
-for body in single batch; do
-  for connections in 16 64; do
-    bare="$(measure "$bare_url" "$body" "$connections" "$duration" "$bare_pid")"
-    ours="$(measure "$ogive_url" "$body" "$connections" "$duration" "$ogive_pid")"
-    printf '%-7s %5s | %10.0f %10.0f %6.3f | %6dus %6dus | %6dus %6dus %6.3f | %5.1f / %5.1f | %s\n' \
-      "$body" "$connections" "$(field "$bare" rps)" "$(field "$ours" rps)" \
-      "$(python3 -c "print($(field "$ours" rps) / $(field "$bare" rps))")" \
-      "$(field "$bare" p50_us)" "$(field "$ours" p50_us)" \
-      "$(field "$bare" p99_us)" "$(field "$ours" p99_us)" \
-      "$(python3 -c "print($(field "$ours" p99_us) / max(1, $(field "$bare" p99_us)))")" \
-      "$(field "$bare" cpu_us)" "$(field "$ours" cpu_us)" \
-      "bare non2xx=$(field "$bare" non2xx) ogive non2xx=$(field "$ours" non2xx) socket=$(field "$ours" socket_errors)"
+results="$work/results"
+for round in $(seq 1 "$rounds"); do
+  for load in "${loads[@]}"; do
+    for connections in 16 64; do
+      echo "$load $connections bare $(measure "$bare_url/$load" "$load" "$connections" "$duration" "$bare_pid")" >>"$results"
+      echo "$load $connections ogive $(measure "$ogive_url$path" "$load" "$connections" "$duration" "$ogive_pid")" >>"$results"
+    done
   done
 done
+python3 - "$results" "$(getconf CLK_TCK)" <<'PY'
+import re, statistics, sys
+from collections import defaultdict
+path, tick = sys.argv[1], int(sys.argv[2])
+runs = defaultdict(list)
+for line in open(path):
+    load, conns, server = line.split()[:3]
+    f = {k: float(v) for k, v in re.findall(r"(\w+)=([0-9.]+)", line)}
+    f["cpu_us"] = f["ticks"] / tick * 1e6 / max(1.0, f["rps"] * f["seconds"])
+    runs[(load, int(conns), server)].append(f)
+med = lambda key, name: statistics.median(r[name] for r in runs[key])
+print()
+print(f"{'load':<6} {'conns':>5} | {'CPU µs/req floor':>16} {'ogive':>7} {'ratio':>6} | "
+      f"{'rps floor':>9} {'ogive':>8} {'ratio':>6} | {'p50 floor':>9} {'ogive':>7} | "
+      f"{'p99 floor':>9} {'ogive':>7} {'ratio':>6} | errors")
+for load in ("full", "lean", "batch"):
+    for conns in (16, 64):
+        b, o = (load, conns, "bare"), (load, conns, "ogive")
+        errors = sum(r["non2xx"] + r["socket_errors"] for r in runs[b] + runs[o])
+        print(f"{load:<6} {conns:>5} | {med(b,'cpu_us'):>16.1f} {med(o,'cpu_us'):>7.1f} "
+              f"{med(o,'cpu_us')/med(b,'cpu_us'):>6.2f} | {med(b,'rps'):>9.0f} {med(o,'rps'):>8.0f} "
+              f"{med(o,'rps')/med(b,'rps'):>6.2f} | {med(b,'p50_us'):>7.0f}us {med(o,'p50_us'):>5.0f}us | "
+              f"{med(b,'p99_us'):>7.0f}us {med(o,'p99_us'):>5.0f}us "
+              f"{med(o,'p99_us')/max(1.0, med(b,'p99_us')):>6.2f} | {errors:.0f}")
+PY
 echo
-echo "peak RSS (VmHWM): ogive $(awk '/VmHWM/ {print $2, $3}' "/proc/$ogive_pid/status"), bare actix-web $(awk '/VmHWM/ {print $2, $3}' "/proc/$bare_pid/status")"
+echo "peak RSS (VmHWM): ogive $(awk '/VmHWM/ {print $2, $3}' "/proc/$ogive_pid/status"), floor $(awk '/VmHWM/ {print $2, $3}' "/proc/$bare_pid/status")"

@@ -50,23 +50,38 @@ pub enum Command {
 
 /// Set up `tracing`: JSON lines for `serve`, compact text on stderr otherwise; level from
 /// `RUST_LOG` (default `info` for `serve`, `warn` for the other commands).
-pub fn init_logging(cli: &Cli) {
+///
+/// `serve` writes its lines from a background thread through a buffer that is flushed whenever
+/// no line is waiting, so a request never waits for stderr and a busy server writes many lines
+/// per system call. Nothing is dropped: when the queue is full, the logging thread holds the
+/// caller back. Keep the returned guard alive until the end of `main`: dropping it writes what is
+/// queued. A process killed outright (SIGKILL) can lose the lines of its last moments.
+pub fn init_logging(cli: &Cli) -> Option<tracing_appender::non_blocking::WorkerGuard> {
     use tracing_subscriber::EnvFilter;
     let serving = matches!(cli.command, Command::Serve(_));
     let filter = EnvFilter::try_from_default_env()
         .unwrap_or_else(|_| EnvFilter::new(if serving { "info" } else { "warn" }));
-    let builder = tracing_subscriber::fmt()
-        .with_env_filter(filter)
-        .with_writer(std::io::stderr);
-    let _ = if serving {
-        builder
+    let builder = tracing_subscriber::fmt().with_env_filter(filter);
+    if serving {
+        let (writer, guard) = tracing_appender::non_blocking::NonBlockingBuilder::default()
+            .lossy(false)
+            .thread_name("ogive-log")
+            .finish(std::io::BufWriter::new(std::io::stderr()));
+        let _ = builder
+            .with_writer(writer)
             .json()
             .flatten_event(true)
             .with_current_span(false)
-            .try_init()
+            .try_init();
+        Some(guard)
     } else {
-        builder.compact().without_time().try_init()
-    };
+        let _ = builder
+            .with_writer(std::io::stderr)
+            .compact()
+            .without_time()
+            .try_init();
+        None
+    }
 }
 
 /// Run a parsed command line.
