@@ -14,7 +14,8 @@
 //!                any scoring starts (terms² is the delta-method cost of one observation)
 //! in flight      observations admitted and not yet written out above
 //!                `max_inflight_observations` → 503 overloaded with Retry-After; an admission
-//!                is released when the answer's last byte has been handed to the connection
+//!                is released when the answer's last byte has been handed to the connection;
+//!                a request of at most ALWAYS_ADMITTED (16) observations is never refused
 //! body bytes     request bodies being read at once above `max_inflight_body_bytes` → 503
 //!                overloaded with Retry-After (the body's bytes are reserved as they arrive)
 //! ```
@@ -35,6 +36,11 @@ use super::problem::{Kind, Problem};
 
 /// Bodies up to this size are parsed and scored on the I/O worker.
 pub const INLINE_BODY_BYTES: usize = 16 * 1024;
+
+/// Requests of at most this many observations are never refused for load: their memory is a
+/// few kilobytes each, bounded by the connection limit, and a single applicant's request must
+/// not wait behind batches.
+pub const ALWAYS_ADMITTED: usize = 16;
 
 /// Seconds a client refused for load is told to wait (`Retry-After`): long enough for a full
 /// batch to finish on a loaded core, short enough that a retrying caller loses little.
@@ -128,7 +134,8 @@ impl Compute {
                 let after = now.checked_add(count)?;
                 // One request alone is always admitted when nothing else is in flight, so a
                 // batch at the batch limit cannot be refused for ever.
-                (after <= self.max_observations || now == 0).then_some(after)
+                (after <= self.max_observations || now == 0 || count <= ALWAYS_ADMITTED)
+                    .then_some(after)
             })
             .is_ok();
         if !admitted {
@@ -277,20 +284,19 @@ mod tests {
 
     #[test]
     fn admissions_are_refused_over_the_limit_and_released_on_drop() {
-        let c = compute(10, 100, 1_000);
-        let first = c.admit(6).expect("room");
-        assert_eq!(c.admit(5).expect_err("over").kind, Kind::Overloaded);
-        let second = c.admit(4).expect("room");
-        assert_eq!(c.observations_in_flight(), 10);
-        drop(first);
-        drop(second);
+        let c = compute(100, 100, 1_000);
+        let first = c.admit(60).expect("room");
+        assert_eq!(c.admit(50).expect_err("over").kind, Kind::Overloaded);
+        let second = c.admit(40).expect("room");
+        assert_eq!(c.observations_in_flight(), 100);
+        // A small request is admitted even now.
+        let small = c.admit(ALWAYS_ADMITTED).expect("small");
+        drop((first, second, small));
         assert_eq!(c.observations_in_flight(), 0);
         // Alone, a request larger than the limit still gets in.
-        let alone = c.admit(50).expect("alone");
-        assert_eq!(
-            c.admit(1).expect_err("over").retry_after,
-            Some(RETRY_AFTER_SECONDS)
-        );
+        let alone = c.admit(500).expect("alone");
+        let refused = c.admit(ALWAYS_ADMITTED + 1).expect_err("over");
+        assert_eq!(refused.retry_after, Some(RETRY_AFTER_SECONDS));
         drop(alone);
     }
 

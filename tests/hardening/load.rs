@@ -1,7 +1,8 @@
 //! Heavy requests and load limits over raw TCP: the work budget refuses a request before any
 //! scoring, the in-flight caps answer 503 with Retry-After while they are full and admit again
-//! once they are not, and a batch scored on the pool answers exactly what single requests
-//! answer.
+//! once they are not, a batch scored on the pool answers exactly what single requests answer,
+//! and 200 clients that never read their batch answers leave `ogive serve` under 256 MiB while
+//! 200 clients that read are all answered (bounded: 400 connections, a 20 s deadline per read).
 
 use std::time::Instant;
 
@@ -77,8 +78,13 @@ fn observations_over_the_in_flight_limit_get_503_with_retry_after_until_released
     let server = Server::start_with(settings, None);
     // Another request's observations still being scored or written out.
     let held = server.state().compute.admit(45).expect("room");
-    let reply = post(&server, &batch(10));
-    assert_eq!(reply.status, 503, "{}", reply.body);
+    let reply = post(&server, &batch(20));
+    assert_eq!(
+        reply.status,
+        503,
+        "{}",
+        &reply.body[..reply.body.len().min(300)]
+    );
     assert_eq!(reply.header("retry-after"), Some("1"));
     let problem = problem(&reply);
     assert_eq!(problem["type"], json!("urn:ogive:problem:overloaded"));
@@ -87,7 +93,7 @@ fn observations_over_the_in_flight_limit_get_503_with_retry_after_until_released
     assert_eq!(post(&server, &batch(5)).status, 200);
     drop(held);
     wait_until_idle(&server);
-    assert_eq!(post(&server, &batch(10)).status, 200);
+    assert_eq!(post(&server, &batch(20)).status, 200);
     wait_until_idle(&server);
 }
 
@@ -151,4 +157,108 @@ fn a_batch_scored_on_the_pool_answers_what_single_requests_answer() {
         );
     }
     wait_until_idle(&server);
+}
+
+/// The largest resident set `ogive serve` may reach in the test below: the reference pod's
+/// memory limit (256 MiB, deploy/kubernetes/deployment.yaml).
+const RSS_BOUND_KIB: u64 = 256 * 1024;
+
+fn peak_rss_kib(pid: u32) -> u64 {
+    let status = std::fs::read_to_string(format!("/proc/{pid}/status")).expect("/proc status");
+    status
+        .lines()
+        .find_map(|l| l.strip_prefix("VmHWM:"))
+        .and_then(|v| v.trim().trim_end_matches("kB").trim().parse().ok())
+        .expect("VmHWM")
+}
+
+#[test]
+fn two_hundred_clients_that_never_read_leave_memory_bounded_and_every_reader_answered() {
+    use std::io::Write;
+    use std::net::TcpStream;
+    use std::process::{Command, Stdio};
+
+    let models = crate::fixture::models_dir();
+    let mut child = Command::new(env!("CARGO_BIN_EXE_ogive"))
+        .args(["serve", "--models"])
+        .arg(&models)
+        .args([
+            "--listen",
+            "127.0.0.1:0",
+            "--workers",
+            "2",
+            "--drain-delay-ms",
+            "0",
+        ])
+        .args(["--shutdown-timeout-ms", "2000"])
+        .env_remove("OGIVE_ADMIN_TOKEN")
+        .env_remove("OGIVE_ADMIN_TOKEN_FILE")
+        .env("RUST_LOG", "warn")
+        .stdin(Stdio::null())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("ogive serve starts");
+    let stdout = child.stdout.take().expect("stdout");
+    let mut lines = std::io::BufRead::lines(std::io::BufReader::new(stdout));
+    let addr: std::net::SocketAddr = loop {
+        let line = lines.next().expect("a line").expect("text");
+        if let Some(rest) = line.strip_prefix("ogive serving on http://") {
+            break rest.trim().parse().expect("address");
+        }
+    };
+    std::thread::spawn(move || for _ in lines {});
+
+    // 200 clients send a 200-observation batch each and never read a byte of the answer.
+    let body = batch(200).to_string();
+    let request = format!(
+        "POST {PROBABILITY} HTTP/1.1\r\nHost: test\r\n{JSON}Content-Length: {}\r\n\r\n{body}",
+        body.len()
+    );
+    let silent: Vec<TcpStream> = (0..200)
+        .map(|_| {
+            let mut stream = TcpStream::connect(addr).expect("connect");
+            stream.write_all(request.as_bytes()).expect("write");
+            stream
+        })
+        .collect();
+
+    // 200 clients that read: each sends one observation and must get its answer.
+    let single = json!({"observation": lease_observation()}).to_string();
+    let readers: Vec<_> = (0..8)
+        .map(|_| {
+            let single = single.clone();
+            std::thread::spawn(move || {
+                (0..25)
+                    .map(|_| raw_request(addr, "POST", PROBABILITY, JSON, single.as_bytes()).status)
+                    .collect::<Vec<u16>>()
+            })
+        })
+        .collect();
+    let statuses: Vec<u16> = readers
+        .into_iter()
+        .flat_map(|r| r.join().expect("reader"))
+        .collect();
+    assert_eq!(statuses.len(), 200);
+    assert!(statuses.iter().all(|&s| s == 200), "{statuses:?}");
+
+    let peak = peak_rss_kib(child.id());
+    drop(silent);
+    let _ = Command::new("kill")
+        .args(["-TERM", &child.id().to_string()])
+        .status();
+    let deadline = Instant::now() + DEADLINE;
+    while child.try_wait().expect("wait").is_none() {
+        if Instant::now() > deadline {
+            let _ = child.kill();
+            break;
+        }
+        std::thread::sleep(std::time::Duration::from_millis(20));
+    }
+    let _ = child.wait();
+    assert!(
+        peak < RSS_BOUND_KIB,
+        "peak resident set {peak} KiB, over the {RSS_BOUND_KIB} KiB bound"
+    );
+    eprintln!("peak resident set of ogive serve: {peak} KiB (bound {RSS_BOUND_KIB} KiB)");
 }
