@@ -3,7 +3,8 @@
 #
 #   model-files/NAME/versions/VERSION.json   the fitted model file
 #   model-files/NAME/live                    the live version's name
-#   model-files/NAME/history.jsonl           empty: no promotion has happened yet
+#   model-files/NAME/history.jsonl           the upload (with the file's SHA-256) and the promotion
+#                                            of that version, stamped with the fit time
 #
 # Usage (from anywhere):  bash demo-data/fit-demo-models.sh
 # Uses $OGIVE if set, otherwise builds the release binary (under $CARGO_TARGET_DIR when set).
@@ -54,12 +55,23 @@ trap 'rm -rf "$scratch"' EXIT
 
 "$OGIVE" check "$scratch/lease-arrears.json" "$scratch/rebate-uptake.json" >/dev/null
 
+# The records ogive itself writes for an upload and a promotion (see
+# src/registry/store/history.rs), so that `ogive history` shows how the version went live and
+# every load checks the file against its digest.
+WHEN=2026-01-01T00:00:00.000Z
+WHO=script:fit-demo-models
 install_model() {
-    local name="$1"
+    local name="$1" digest
+    digest="$(sha256sum "$scratch/$name.json" | cut -d' ' -f1)"
     mkdir -p "model-files/$name/versions"
     mv "$scratch/$name.json" "model-files/$name/versions/$VERSION.json"
     printf '%s\n' "$VERSION" >"model-files/$name/live"
-    : >"model-files/$name/history.jsonl"
+    {
+        printf '{"when":"%s","action":"upload","from":null,"to":"%s","who":"%s","reason":"the demo model","sha256":"%s"}\n' \
+            "$WHEN" "$VERSION" "$WHO" "$digest"
+        printf '{"when":"%s","action":"promote","from":null,"to":"%s","who":"%s","reason":"the demo model"}\n' \
+            "$WHEN" "$VERSION" "$WHO"
+    } >"model-files/$name/history.jsonl"
 }
 install_model lease-arrears
 install_model rebate-uptake

@@ -265,8 +265,11 @@ fn uploads_are_validated_stored_byte_for_byte_and_repeatable() {
     contract.check(template, "put", &reply);
     reply.expect_problem(409, "version-exists");
 
-    // A model with a stored version but nothing live is not served, and readiness holds.
-    assert_eq!(d.get("/readyz").status, 200);
+    // A model with a stored version but nothing live is not served; with nothing else served
+    // the process is not ready, and says why.
+    let ready = d.get("/readyz");
+    assert_eq!(ready.status, 503);
+    assert!(ready.text.contains("no model is served"), "{}", ready.text);
     d.get(&format!("/models/{NAME}"))
         .expect_problem(404, "unknown-model");
     let reply = d.promote(NAME, "v1", false);

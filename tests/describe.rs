@@ -517,3 +517,47 @@ fn without_a_covariance_the_report_says_so_and_plots_have_no_bands() {
         assert!(svg.contains("no intervals (no covariance)"));
     }
 }
+
+/// `ogive fit` and `ogive describe` head their coefficient tables with the same words.
+#[test]
+fn fit_and_describe_use_the_same_coefficient_column_words() {
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let out = dir.path().join("m.json");
+    let spector =
+        std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/reference/fit/spector.csv");
+    let ogive = env!("CARGO_BIN_EXE_ogive");
+    let fit = std::process::Command::new(ogive)
+        .args(["fit", "--outcome", "GRADE", "--terms", "GPA, TUCE, PSI"])
+        .args(["--name", "spector", "--version", "1", "--data"])
+        .arg(&spector)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .expect("run ogive fit");
+    assert!(fit.status.success());
+    let describe = std::process::Command::new(ogive)
+        .arg("describe")
+        .arg(&out)
+        .output()
+        .expect("run ogive describe");
+    assert!(describe.status.success());
+    let header = |text: &[u8]| -> Vec<String> {
+        let text = String::from_utf8_lossy(text).into_owned();
+        let line = text
+            .lines()
+            .find(|l| l.trim_start().starts_with("term "))
+            .expect("a coefficient table")
+            .to_string();
+        line.split("  ")
+            .map(str::trim)
+            .filter(|w| !w.is_empty())
+            .map(str::to_string)
+            .collect()
+    };
+    let words = header(&fit.stdout);
+    assert_eq!(words, header(&describe.stdout));
+    assert_eq!(
+        &words[..5],
+        ogive::report::text::COEFFICIENT_COLUMNS.map(String::from)
+    );
+}

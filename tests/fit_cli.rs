@@ -135,7 +135,6 @@ fn fit_spector_to(out: &std::path::Path, extra: &[&str]) -> std::process::Output
         .arg("--out")
         .arg(out)
         .args(extra)
-        .env_remove("OGIVE_FORCE")
         .output()
         .expect("run ogive fit")
 }
@@ -266,4 +265,127 @@ fn without_like_the_terms_outcome_and_name_are_required() {
         stderr.contains("--terms is required") && stderr.contains("--like"),
         "{stderr}"
     );
+}
+
+#[test]
+fn the_repeatable_fit_flags_come_from_environment_variables_too() {
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let out = dir.path().join("regions.json");
+    let data = PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/reference/fit/simulated_categorical.csv");
+    let run = ogive()
+        .args([
+            "fit",
+            "--terms",
+            "income, tenure, region",
+            "--outcome",
+            "outcome",
+        ])
+        .args(["--name", "regions", "--version", "1"])
+        .arg("--data")
+        .arg(&data)
+        .arg("--out")
+        .arg(&out)
+        .env("OGIVE_CATEGORICAL", "region=south")
+        .env("OGIVE_CONTINUOUS", "income,tenure")
+        .env("OGIVE_UNIT", "income=thousand EUR,tenure=years")
+        .env("OGIVE_BAND", "low=0.2,high=1")
+        .output()
+        .expect("run ogive fit");
+    assert!(
+        run.status.success(),
+        "{}",
+        String::from_utf8_lossy(&run.stderr)
+    );
+    let file: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(&out).expect("read")).expect("JSON");
+    let covariate = |name: &str| {
+        file["covariates"]
+            .as_array()
+            .expect("covariates")
+            .iter()
+            .find(|c| c["name"] == name)
+            .cloned()
+            .expect("covariate")
+    };
+    assert_eq!(covariate("region")["reference"], "south");
+    assert_eq!(covariate("income")["unit"], "thousand EUR");
+    assert_eq!(covariate("tenure")["unit"], "years");
+    assert_eq!(covariate("tenure")["kind"], "continuous");
+    assert_eq!(
+        file["decision"]["bands"],
+        serde_json::json!([{"name": "low", "below": 0.2}, {"name": "high", "below": 1.0}])
+    );
+}
+
+#[test]
+fn a_fit_without_an_outcome_meaning_says_only_what_is_known() {
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let out = dir.path().join("m.json");
+    let run = fit_spector_to(&out, &[]);
+    assert!(
+        run.status.success(),
+        "{}",
+        String::from_utf8_lossy(&run.stderr)
+    );
+    let file: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(&out).expect("read")).expect("JSON");
+    let meaning = file["outcome"]["meaning"].as_str().expect("meaning");
+    assert_eq!(
+        meaning,
+        "'GRADE' is 1 (what that means was not stated when the model was fitted)"
+    );
+    let stdout = String::from_utf8_lossy(&run.stdout);
+    assert!(stdout.contains("note: no --outcome-meaning"), "{stdout}");
+}
+
+#[test]
+fn a_near_collinear_design_fits_with_a_note_giving_its_condition_number() {
+    let reference = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/reference/fit");
+    let fixture: serde_json::Value = serde_json::from_slice(
+        &std::fs::read(reference.join("near_collinear.json")).expect("read the fixture"),
+    )
+    .expect("JSON");
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let fit = |terms: &str, out: &str| {
+        ogive()
+            .args(["fit", "--outcome", "y", "--terms", terms])
+            .args(["--name", "near", "--version", "1"])
+            .arg("--data")
+            .arg(reference.join("near_collinear.csv"))
+            .arg("--out")
+            .arg(dir.path().join(out))
+            .output()
+            .expect("run ogive fit")
+    };
+    let run = fit("x, z, w", "with-z.json");
+    let stdout = String::from_utf8_lossy(&run.stdout);
+    assert!(
+        run.status.success(),
+        "{stdout}{}",
+        String::from_utf8_lossy(&run.stderr)
+    );
+    let note = stdout
+        .lines()
+        .find(|l| l.contains("nearly collinear"))
+        .unwrap_or_else(|| panic!("no collinearity note in:\n{stdout}"));
+    let printed: f64 = note
+        .split("length) is ")
+        .nth(1)
+        .and_then(|rest| rest.split(',').next())
+        .and_then(|number| number.trim().parse().ok())
+        .unwrap_or_else(|| panic!("no condition number in: {note}"));
+    // Reference: numpy.linalg.cond of the unit-length-scaled design (the fixture script beside
+    // the data); the note prints one decimal, so the tolerance is half of that.
+    let expected = fixture["condition_with_z"].as_f64().expect("number");
+    assert!(
+        (printed - expected).abs() <= 0.05,
+        "{printed} vs numpy {expected}"
+    );
+    assert!(note.contains("above 30"), "{note}");
+    // Without z the design is well conditioned (numpy: about 11) and nothing is said.
+    assert!(fixture["condition_without_z"].as_f64().expect("number") < 30.0);
+    let run = fit("x, w", "without-z.json");
+    assert!(run.status.success());
+    assert!(!String::from_utf8_lossy(&run.stdout).contains("collinear"));
 }

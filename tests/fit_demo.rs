@@ -76,3 +76,25 @@ fn lease_arrears_recovers_the_generators_coefficients() {
 fn rebate_uptake_recovers_the_generators_coefficients() {
     check_demo("rebate-uptake");
 }
+
+#[test]
+fn the_demo_history_accounts_for_the_live_version_without_warnings() {
+    let models = root().join("model-files");
+    for name in ["lease-arrears", "rebate-uptake"] {
+        let view = ogive::registry::lifecycle::history(&models, name).expect("history");
+        assert!(view.warnings.is_empty(), "{name}: {:?}", view.warnings);
+        let live = view.live.clone().expect("a live version");
+        let actions: Vec<(&str, &str)> = view
+            .records
+            .iter()
+            .map(|r| (r.action.name(), r.to.as_str()))
+            .collect();
+        assert_eq!(
+            actions,
+            [("upload", live.as_str()), ("promote", live.as_str())]
+        );
+        // The upload's digest is the file's: the loader checks it.
+        ogive::registry::load::load_live(&models.join(name), name)
+            .unwrap_or_else(|e| panic!("{name}: {e}"));
+    }
+}

@@ -47,7 +47,8 @@ pub struct FitArgs {
     /// The outcome column (0/1, or false/true). Required unless --like gives it.
     #[arg(long, env = "OGIVE_OUTCOME", value_name = "COL")]
     pub outcome: Option<String>,
-    /// What outcome = 1 means, in a sentence (stored in the model file).
+    /// What outcome = 1 means, in a sentence (stored in the model file). Without it (and
+    /// without --like) the file says only that the meaning was not stated.
     #[arg(long, env = "OGIVE_OUTCOME_MEANING", value_name = "TEXT")]
     pub outcome_meaning: Option<String>,
     /// The terms, comma-separated, each exactly one term: name, name^k, log(name), a*b,
@@ -56,17 +57,30 @@ pub struct FitArgs {
     #[arg(long, env = "OGIVE_TERMS", value_name = "LIST")]
     pub terms: Option<String>,
     /// A categorical covariate, optionally with its reference level (default: the first level in
-    /// sorted order). Repeat for several.
-    #[arg(long, value_name = "COL[=REF]")]
+    /// sorted order). Repeat for several, or separate them with commas (as OGIVE_CATEGORICAL
+    /// does).
+    #[arg(
+        long,
+        env = "OGIVE_CATEGORICAL",
+        value_name = "COL[=REF]",
+        value_delimiter = ','
+    )]
     pub categorical: Vec<CategoricalSpec>,
-    /// Treat this numeric column as a count (whole numbers ≥ 0). Repeatable.
-    #[arg(long, value_name = "COL")]
+    /// Treat this numeric column as a count (whole numbers ≥ 0). Repeatable, or comma-separated.
+    #[arg(long, env = "OGIVE_COUNT", value_name = "COL", value_delimiter = ',')]
     pub count: Vec<String>,
-    /// Treat this numeric column as continuous. Repeatable.
-    #[arg(long, value_name = "COL")]
+    /// Treat this numeric column as continuous. Repeatable, or comma-separated.
+    #[arg(
+        long,
+        env = "OGIVE_CONTINUOUS",
+        value_name = "COL",
+        value_delimiter = ','
+    )]
     pub continuous: Vec<String>,
-    /// The unit of a covariate, stored in the model file (e.g. years_trading=years). Repeatable.
-    #[arg(long, value_name = "COL=UNIT", value_parser = parse_pair)]
+    /// The unit of a covariate, stored in the model file (e.g. years_trading=years).
+    /// Repeatable, or comma-separated.
+    #[arg(long, env = "OGIVE_UNIT", value_name = "COL=UNIT", value_parser = parse_pair,
+          value_delimiter = ',')]
     pub unit: Vec<(String, String)>,
     /// The link [default: logit, or the --like file's].
     #[arg(long, env = "OGIVE_LINK")]
@@ -102,16 +116,19 @@ pub struct FitArgs {
     #[arg(long, env = "OGIVE_THRESHOLD", value_name = "P")]
     pub threshold: Option<f64>,
     /// A named probability band with its exclusive upper bound, in increasing order; the last
-    /// must be 1 (e.g. --band low=0.05 --band medium=0.2 --band high=1).
-    #[arg(long, value_name = "NAME=BELOW", value_parser = parse_band)]
+    /// must be 1 (e.g. --band low=0.05 --band medium=0.2 --band high=1, or
+    /// OGIVE_BAND=low=0.05,medium=0.2,high=1).
+    #[arg(long, env = "OGIVE_BAND", value_name = "NAME=BELOW", value_parser = parse_band,
+          value_delimiter = ',')]
     pub band: Vec<Band>,
     /// Where to write the model file (written atomically). An existing file is not replaced
     /// unless --force is given, and a version file inside a model directory
     /// (NAME/versions/VERSION.json) never is: a stored version does not change.
     #[arg(long, env = "OGIVE_OUT", value_name = "FILE")]
     pub out: PathBuf,
-    /// Replace the file --out names if it exists (never a stored version file).
-    #[arg(long, env = "OGIVE_FORCE")]
+    /// Replace the file --out names if it exists (never a stored version file). Deliberately
+    /// not readable from the environment: it is a decision about one file.
+    #[arg(long)]
     pub force: bool,
     /// Record this time (seconds since the Unix epoch) as the fit time instead of now, for
     /// reproducible files.
@@ -295,13 +312,15 @@ fn request_of(args: &FitArgs) -> anyhow::Result<FitRequest> {
     };
     let decision =
         (threshold.is_some() || !bands.is_empty()).then_some(DecisionSpec { threshold, bands });
+    let outcome_meaning = args
+        .outcome_meaning
+        .clone()
+        .or_else(|| like.as_ref().map(|t| t.outcome_meaning.clone()))
+        .unwrap_or_else(|| unstated_meaning(&outcome));
     Ok(FitRequest {
         data: args.data.clone(),
         outcome,
-        outcome_meaning: args
-            .outcome_meaning
-            .clone()
-            .or_else(|| like.as_ref().map(|t| t.outcome_meaning.clone())),
+        outcome_meaning: Some(outcome_meaning),
         terms,
         categorical,
         count,
@@ -347,6 +366,11 @@ fn request_of(args: &FitArgs) -> anyhow::Result<FitRequest> {
             }),
         }),
     })
+}
+
+/// What the model file says of the outcome when nobody said what it means: only what is known.
+fn unstated_meaning(outcome: &str) -> String {
+    format!("'{outcome}' is 1 (what that means was not stated when the model was fitted)")
 }
 
 /// Whether `path` is a version file of a model directory: `NAME/versions/FILE` where NAME is a
@@ -395,6 +419,12 @@ pub fn run(args: FitArgs) -> anyhow::Result<ExitCode> {
     check_out(&args.out, args.force)?;
     fit::write_model_file(&args.out, &fitted.file)?;
     print!("{}", fitted.report);
+    if args.outcome_meaning.is_none() && args.like.is_none() {
+        println!(
+            "note: no --outcome-meaning, so the model file says only: {}",
+            fitted.file.outcome.meaning
+        );
+    }
     println!(
         "wrote {} ({} {}, {} check cases)",
         args.out.display(),

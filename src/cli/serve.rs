@@ -43,7 +43,8 @@ pub struct ServeArgs {
         long,
         env = "OGIVE_LISTEN",
         default_value = "127.0.0.1:8080",
-        value_name = "ADDR"
+        value_name = "ADDR",
+        value_parser = parse_address
     )]
     pub listen: SocketAddr,
     /// Address of the admin listener (loopback by default).
@@ -51,7 +52,8 @@ pub struct ServeArgs {
         long,
         env = "OGIVE_ADMIN_LISTEN",
         default_value = "127.0.0.1:8081",
-        value_name = "ADDR"
+        value_name = "ADDR",
+        value_parser = parse_address
     )]
     pub admin_listen: SocketAddr,
     /// File holding the admin bearer token (one trailing newline is ignored); or set
@@ -117,9 +119,9 @@ pub struct ServeArgs {
     /// Log each request's covariate values (they may be personal data; off by default).
     #[arg(long, env = "OGIVE_LOG_OBSERVATIONS")]
     pub log_observations: bool,
-    /// Drift, outcome and calibration monitoring: on or off.
+    /// Drift, outcome and calibration monitoring.
     #[arg(long, env = "OGIVE_MONITORING", default_value = "on", value_name = "on|off",
-          value_parser = clap::builder::BoolishValueParser::new(), action = clap::ArgAction::Set)]
+          value_parser = parse_switch, action = clap::ArgAction::Set)]
     pub monitoring: bool,
     /// Observations per model version in each drift window.
     #[arg(long, env = "OGIVE_DRIFT_WINDOW", default_value_t = MonitorSettings::default().drift_window)]
@@ -143,6 +145,26 @@ pub struct ServeArgs {
 
 /// The receipt keys of `file`, or an ephemeral key with one warning that its receipts will not
 /// open after a restart or on another replica.
+/// `on` or `off` (and, for settings written elsewhere, true/false, yes/no, 1/0).
+fn parse_switch(s: &str) -> Result<bool, String> {
+    match s.trim().to_ascii_lowercase().as_str() {
+        "on" | "true" | "yes" | "1" => Ok(true),
+        "off" | "false" | "no" | "0" => Ok(false),
+        _ => Err(format!("'{s}' is neither on nor off")),
+    }
+}
+
+/// A listening address, IP:PORT; the error shows what one looks like.
+fn parse_address(s: &str) -> Result<SocketAddr, String> {
+    s.trim().parse().map_err(|_| {
+        format!(
+            "'{s}' is not an address to listen on: write IP:PORT, e.g. 127.0.0.1:8080 (this \
+             machine only), 0.0.0.0:8080 (every IPv4 interface) or [::1]:8080; a host name \
+             such as localhost is not accepted"
+        )
+    })
+}
+
 fn receipt_keys(file: Option<&std::path::Path>) -> anyhow::Result<ReceiptKeys> {
     match file {
         Some(path) => {
@@ -324,4 +346,40 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
     ))?;
     following.stop();
     Ok(ExitCode::SUCCESS)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_listen_error_shows_an_example_address() {
+        let error = parse_address("localhost:8080").expect_err("a host name");
+        assert!(
+            error.contains("127.0.0.1:8080") && error.contains("localhost"),
+            "{error}"
+        );
+        assert_eq!(
+            parse_address("0.0.0.0:80"),
+            Ok("0.0.0.0:80".parse().expect("address"))
+        );
+    }
+
+    #[test]
+    fn serve_help_spells_monitoring_one_way() {
+        use clap::CommandFactory;
+        let mut command = crate::cli::Cli::command();
+        let serve = command.find_subcommand_mut("serve").expect("serve");
+        let help = serve.render_long_help().to_string();
+        assert!(help.contains("--monitoring <on|off>"), "{help}");
+        assert!(!help.contains("possible values: true, false"), "{help}");
+    }
+
+    #[test]
+    fn monitoring_is_switched_on_or_off() {
+        assert_eq!(parse_switch("on"), Ok(true));
+        assert_eq!(parse_switch("OFF"), Ok(false));
+        assert_eq!(parse_switch("false"), Ok(false));
+        assert!(parse_switch("maybe").is_err());
+    }
 }

@@ -493,7 +493,10 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
     let resolved: Vec<_> = design_terms.iter().map(|t| t.term.clone()).collect();
     let k = labels.len();
     let design = Design::build(&table.columns, n, &resolved);
-    rank::check_rank(&design::gram(&design), &labels, n)?;
+    let gram = design::gram(&design);
+    rank::check_rank(&gram, &labels, n)?;
+    let collinearity = rank::collinearity_note(rank::condition_number(&gram, k));
+    drop(gram);
     separation::check_single_terms(&design, &table.outcome, &labels)?;
 
     progress.start_fitting();
@@ -583,7 +586,7 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
     let probabilities: Vec<f64> = index.iter().map(|&z| request.link.probability(z)).collect();
 
     let kinds: Vec<CovariateKind> = shapes.iter().map(|s| s.kind).collect();
-    let mut remarks = Vec::new();
+    let mut remarks: Vec<String> = collinearity.into_iter().collect();
     if let Some(w) = &weighting_record {
         remarks.push(w.summary());
     }

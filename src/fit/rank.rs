@@ -12,11 +12,51 @@
 //! and rⱼ < 1e-10 means term j adds nothing: its combination b = L⁻ᵀ y is reported in the
 //! original units, `xⱼ ≈ Σ bₗ·√(Gⱼⱼ/Gₗₗ)·xₗ`. Later terms are named, earlier ones kept, so the
 //! message reads in the order the user wrote the terms.
+//!
+//! A design of full rank may still be nearly collinear. [`condition_number`] is the condition
+//! number of the design with each column scaled to unit length, κ = √(λmax/λmin) of C (the
+//! scaled condition number of Belsley, Kuh and Welsch, *Regression Diagnostics*, 1980, who read
+//! condition indexes above 30 as moderate to strong dependencies); a fit whose κ exceeds
+//! [`CONDITION_WARNING`] goes ahead with a note that the standard errors of the terms involved
+//! are inflated.
 
 use super::error::FitError;
 
 /// A term whose residual share is below this is collinear with the terms before it.
 pub const COLLINEAR_TOLERANCE: f64 = 1e-10;
+
+/// A design whose unit-scaled condition number exceeds this is reported as nearly collinear.
+pub const CONDITION_WARNING: f64 = 30.0;
+
+/// The condition number of the design with unit-length columns, from `gram` = `XᵀX` (row-major
+/// `k × k`, every diagonal entry positive: the rank check has passed). Infinite when the
+/// scaled Gram matrix has an eigenvalue at or below zero.
+pub fn condition_number(gram: &[f64], k: usize) -> f64 {
+    let diagonal: Vec<f64> = (0..k).map(|j| gram[j * k + j]).collect();
+    let scaled = nalgebra::DMatrix::from_fn(k, k, |a, b| {
+        gram[a * k + b] / (diagonal[a] * diagonal[b]).sqrt()
+    });
+    let eigen = nalgebra::SymmetricEigen::new(scaled).eigenvalues;
+    let largest = eigen.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let smallest = eigen.iter().copied().fold(f64::INFINITY, f64::min);
+    if smallest > 0.0 {
+        (largest / smallest).sqrt()
+    } else {
+        f64::INFINITY
+    }
+}
+
+/// The note of a nearly collinear design, or `None` when κ is at most [`CONDITION_WARNING`].
+pub fn collinearity_note(condition: f64) -> Option<String> {
+    (condition > CONDITION_WARNING).then(|| {
+        format!(
+            "the design is nearly collinear: its condition number (columns scaled to unit \
+             length) is {condition:.1}, above {CONDITION_WARNING}; the standard errors of the \
+             terms involved are inflated and their coefficients unstable; consider dropping or \
+             combining terms that carry the same information"
+        )
+    })
+}
 
 /// Below this (in the scaled units) a coefficient of the combination is not listed.
 const NEGLIGIBLE: f64 = 1e-7;

@@ -14,6 +14,10 @@ enum Align {
 }
 
 /// A table of text cells, printed with each column as wide as its widest cell.
+/// The first five column words of the coefficient table, shared with `ogive fit`'s summary
+/// ([`crate::fit::FitReport`]), which also says `95% lower` and `95% upper`.
+pub const COEFFICIENT_COLUMNS: [&str; 5] = ["term", "coefficient", "std. error", "z", "p"];
+
 struct Table {
     header: Vec<String>,
     align: Vec<Align>,
@@ -207,14 +211,19 @@ pub fn render_text(report: &Report) -> String {
         &mut out,
         &format!("Coefficients ({level_percent} intervals, two-sided normal p-values)"),
     );
+    // The column words of `ogive fit`'s table, so the two reports read alike.
+    let (lower, upper) = (
+        format!("{level_percent} lower"),
+        format!("{level_percent} upper"),
+    );
     let mut table = Table::new(&[
         ("term", Align::Left),
-        ("estimate", Align::Right),
-        ("std. error", Align::Right),
-        ("z", Align::Right),
-        ("p-value", Align::Right),
-        ("lower", Align::Right),
-        ("upper", Align::Right),
+        (COEFFICIENT_COLUMNS[1], Align::Right),
+        (COEFFICIENT_COLUMNS[2], Align::Right),
+        (COEFFICIENT_COLUMNS[3], Align::Right),
+        (COEFFICIENT_COLUMNS[4], Align::Right),
+        (&lower, Align::Right),
+        (&upper, Align::Right),
     ]);
     for c in &report.coefficients {
         table.push(vec![

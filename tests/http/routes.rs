@@ -143,6 +143,48 @@ fn health_routes_answer() {
 }
 
 #[test]
+fn an_empty_model_directory_is_not_ready_and_says_so() {
+    let server = Server::start();
+    server
+        .state()
+        .registry
+        .replace(ogive::registry::Snapshot::default());
+    let ready = server.get("/readyz");
+    assert_eq!(ready.status, 503);
+    let body = ready.json();
+    assert_eq!(body["models"], json!(0));
+    assert!(
+        body["reasons"][0]
+            .as_str()
+            .is_some_and(|r| r.contains("no model is served")),
+        "{body}"
+    );
+    assert_eq!(server.get("/livez").status, 200);
+}
+
+#[test]
+fn an_unknown_model_error_lists_the_models_that_are_served() {
+    let server = Server::start();
+    let reply = server.get("/models/no-such-model");
+    assert_eq!(reply.status, 404);
+    let body = reply.json();
+    let served: Vec<String> = server
+        .state()
+        .registry
+        .snapshot()
+        .models
+        .keys()
+        .cloned()
+        .collect();
+    assert!(!served.is_empty());
+    let detail = body["detail"].as_str().expect("detail");
+    assert!(
+        served.iter().all(|name| detail.contains(name.as_str())),
+        "{detail}"
+    );
+}
+
+#[test]
 fn readiness_is_503_while_a_model_failed_to_load() {
     let server = Server::start();
     server.state().health.set_models_loaded(false);

@@ -1,5 +1,6 @@
-//! `GET /livez` (the process answers), `GET /readyz` (every model loaded and not draining; the
-//! entries that failed to load are named in `failed_to_load`) and `GET /metrics` (the Prometheus
+//! `GET /livez` (the process answers), `GET /readyz` (a model served, every model loaded and not
+//! draining; the entries that failed to load are named in `failed_to_load`, and `reasons` says
+//! in words why the process is not ready) and `GET /metrics` (the Prometheus
 //! text format). Both probes also answer HEAD.
 
 use actix_web::http::header;
@@ -15,23 +16,43 @@ pub async fn livez() -> HttpResponse {
     HttpResponse::Ok().json(json!({"status": "alive"}))
 }
 
-/// Readiness: 200 when every model directory entry is loaded and the process is not draining,
-/// 503 otherwise, with the reasons.
+/// Readiness: 200 when at least one model is served, every model directory entry is loaded and
+/// the process is not draining; 503 otherwise, with the reasons in words.
 pub async fn readyz(state: web::Data<AppState>) -> HttpResponse {
     let health = &state.health;
     let models = state.registry.snapshot().models.len();
+    let ready = ready(&state);
+    let mut reasons = Vec::new();
+    if models == 0 {
+        reasons.push(
+            "no model is served: the model directory has no model with a live version (upload \
+             one and promote it)",
+        );
+    }
+    if !health.models_loaded() {
+        reasons.push("a model with a live pointer failed to load (see the log and ogive_model_load_errors_total)");
+    }
+    if health.draining() {
+        reasons.push("the process is draining for shutdown");
+    }
     let body = json!({
-        "status": if health.ready() { "ready" } else { "not_ready" },
+        "status": if ready { "ready" } else { "not_ready" },
         "models": models,
         "models_loaded": health.models_loaded(),
         "failed_to_load": health.failed(),
         "draining": health.draining(),
+        "reasons": reasons,
     });
-    if health.ready() {
+    if ready {
         HttpResponse::Ok().json(body)
     } else {
         HttpResponse::ServiceUnavailable().json(body)
     }
+}
+
+/// Ready to take traffic: a model to serve, every model loaded, not draining.
+fn ready(state: &AppState) -> bool {
+    state.health.ready() && !state.registry.snapshot().models.is_empty()
 }
 
 /// The metrics, with the live-version info and readiness refreshed at the scrape.
@@ -42,7 +63,7 @@ pub async fn metrics(state: web::Data<AppState>) -> Result<HttpResponse, Problem
     if let Some(monitor) = &state.monitor {
         monitor.prepare(&snapshot);
     }
-    metrics.ready.set(i64::from(state.health.ready()));
+    metrics.ready.set(i64::from(ready(&state)));
     let text = metrics.encode().map_err(|e| Problem::internal(&e))?;
     Ok(HttpResponse::Ok()
         .insert_header((header::CONTENT_TYPE, TEXT_CONTENT_TYPE))

@@ -11,31 +11,33 @@ use crate::registry::Entry;
 use crate::service::problem::{echo, Kind, Problem};
 use crate::service::state::AppState;
 
-/// The entry serving `name`, or 404 `unknown-model`.
+/// The entry serving `name`, or 404 `unknown-model` naming the models that are served.
 pub fn find(state: &AppState, name: &str) -> Result<Arc<Entry>, Problem> {
-    state
-        .registry
-        .snapshot()
-        .models
-        .get(name)
-        .cloned()
-        .ok_or_else(|| {
-            if state.health.has_failed(name) {
-                // In the directory but not loadable: the caller's request is right, the
-                // service is not, and another replica (or a later try) may answer it.
-                return Problem::new(
-                    Kind::Unavailable,
-                    format!(
-                        "model {} failed to load: its live pointer names a version that is missing or not valid; the service log says which",
-                        echo(name)
-                    ),
-                );
-            }
-            Problem::new(
-                Kind::UnknownModel,
-                format!("no model called {} is being served", echo(name)),
-            )
-        })
+    let snapshot = state.registry.snapshot();
+    if let Some(entry) = snapshot.models.get(name) {
+        return Ok(Arc::clone(entry));
+    }
+    if state.health.has_failed(name) {
+        // In the directory but not loadable: the caller's request is right, the service is
+        // not, and another replica (or a later try) may answer it.
+        return Err(Problem::new(
+            Kind::Unavailable,
+            format!(
+                "model {} failed to load: its live pointer names a version that is missing or not valid; the service log says which",
+                echo(name)
+            ),
+        ));
+    }
+    let served: Vec<&str> = snapshot.models.keys().map(String::as_str).collect();
+    let listing = if served.is_empty() {
+        "no model is served at all (GET /readyz says why)".to_string()
+    } else {
+        format!("the models served are {}", served.join(", "))
+    };
+    Err(Problem::new(
+        Kind::UnknownModel,
+        format!("no model called {} is being served; {listing}", echo(name)),
+    ))
 }
 
 fn summary(entry: &Entry) -> Json {
