@@ -561,3 +561,129 @@ fn fit_and_describe_use_the_same_coefficient_column_words() {
         ogive::report::text::COEFFICIENT_COLUMNS.map(String::from)
     );
 }
+
+fn demo_lease() -> Model {
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("model-files/lease-arrears/versions/1.0.0.json");
+    Model::from_json(&std::fs::read(path).expect("read")).expect("valid")
+}
+
+fn demo_plot(covariate: &str) -> (Model, usize, String) {
+    let model = demo_lease();
+    let j = model
+        .covariates
+        .iter()
+        .position(|c| c.name == covariate)
+        .expect("covariate");
+    let svg =
+        ogive::report::svg::render(&model, j, &ogive::engine::Options::default()).expect("render");
+    (model, j, svg)
+}
+
+/// years_trading enters `years_trading*guarantor`: its plot draws one curve per value of the
+/// binary partner, in both panels, each following the engine at that value.
+#[test]
+fn an_interacting_covariate_has_a_curve_per_level_of_its_partner() {
+    let (model, j, svg) = demo_plot("years_trading");
+    let partner = model
+        .covariates
+        .iter()
+        .position(|c| c.name == "guarantor")
+        .expect("guarantor");
+    let document = roxmltree::Document::parse(&svg).expect("well-formed");
+    let panel_of = |id: &str| {
+        document
+            .descendants()
+            .find(|n| n.attribute("id") == Some(id))
+            .expect("panel")
+    };
+    let probability = panel_of("probability-panel");
+    let effect = panel_of("effect-panel");
+    for (node, value) in [(probability, true), (effect, false)] {
+        let panel = Panel::read(node);
+        let curves: Vec<_> = node
+            .descendants()
+            .filter(|n| n.attribute("class") == Some("partner-curve"))
+            .collect();
+        assert_eq!(curves.len(), 2, "one curve per value of guarantor");
+        for curve in curves {
+            assert_eq!(curve.attribute("data-partner"), Some("guarantor"));
+            let level: f64 = curve
+                .attribute("data-level")
+                .expect("level")
+                .parse()
+                .expect("0/1");
+            let expected = ogive::report::svg::curve_with(
+                &model,
+                j,
+                &ogive::engine::Options::default(),
+                ogive::report::svg::GRID_POINTS,
+                &[(partner, ogive::model::Value::Number(level))],
+            )
+            .expect("curve");
+            let drawn = vertices(curve.attribute("d").expect("d"));
+            assert_eq!(drawn.len(), expected.len());
+            for (&(_, py), point) in drawn.iter().zip(&expected) {
+                let truth = if value {
+                    point.probability
+                } else {
+                    point.effect
+                };
+                assert!(
+                    (panel.data_y(py) - truth).abs() <= panel.y_tolerance(),
+                    "guarantor = {level}"
+                );
+            }
+        }
+    }
+    assert!(svg.contains("interacts with guarantor: thin dashed curves at guarantor = 0, 1"));
+    // A covariate in no product has no partner curves and no such line.
+    let (_, _, plain) = demo_plot("annual_revenue");
+    assert!(!plain.contains("partner-curve") && !plain.contains("interacts with"));
+}
+
+/// The rug along the probability panel is the training histogram of the model file: every
+/// non-empty bin inside the plotted range, its count carried through.
+#[test]
+fn the_plot_has_a_rug_of_the_training_data() {
+    let (model, j, svg) = demo_plot("years_trading");
+    let histogram = model.file.covariates[j]
+        .training
+        .histogram
+        .clone()
+        .expect("the demo file stores a histogram");
+    let document = roxmltree::Document::parse(&svg).expect("well-formed");
+    let rug = document
+        .descendants()
+        .find(|n| n.attribute("class") == Some("rug"))
+        .expect("a rug");
+    let drawn: u64 = rug
+        .children()
+        .filter(|n| n.is_element())
+        .map(|n| {
+            n.attribute("data-count")
+                .expect("count")
+                .parse::<u64>()
+                .expect("number")
+        })
+        .sum();
+    let total: u64 = histogram.counts.iter().sum();
+    assert_eq!(
+        drawn, total,
+        "the training range lies inside the plotted range"
+    );
+}
+
+/// Labels carry three significant digits, not the six of the tables.
+#[test]
+fn plot_labels_are_rounded_to_readable_digits() {
+    let (_, _, svg) = demo_plot("years_trading");
+    // The demo's training summary: min 0.3, max 60, mean 9.25221.
+    assert!(
+        svg.contains("training range 0.3 to 60, mean 9.25<"),
+        "{svg}"
+    );
+    assert_eq!(ogive::report::svg::label_number(-7.35260e-5), "-7.35e-5");
+    assert_eq!(ogive::report::svg::label_number(620.308535), "620");
+    assert_eq!(ogive::report::svg::label_number(0.00548873), "0.00549");
+}

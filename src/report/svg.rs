@@ -23,6 +23,14 @@
 //! Inside a panel, `<path class="curve">` is the curve (one vertex per grid point, in order of
 //! x) and `<path class="band">` the interval: the upper ends left to right, then the lower ends
 //! right to left. Coordinates are written to 1/1000 of a pixel.
+//!
+//! A covariate that shares a product term with a binary or categorical partner has one more
+//! curve per level of that partner, `<path class="partner-curve" data-partner="NAME"
+//! data-level="LEVEL">` in both panels (the curve at the means alone would hide the
+//! interaction); a continuous or count partner is named in the subtitle instead. Along the
+//! bottom of the probability panel, `<g class="rug">` shows the training data's density from
+//! the histogram the model file stores: one bar per bin, its height proportional to the bin's
+//! count per unit of x. Numbers in labels are rounded to [`LABEL_DIGITS`] significant digits.
 
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
@@ -31,6 +39,66 @@ use super::axis::{format_number, log_ticks, nice_range, nice_step, tick_label, t
 use super::text::percent;
 use crate::engine::{effect_slots, Options, Scorer};
 use crate::model::{CovariateKind, Model, Value};
+
+/// Significant digits of the numbers written in labels (tick labels follow the tick step).
+pub const LABEL_DIGITS: i32 = 3;
+/// The tallest rug bar, in pixels.
+const RUG_HEIGHT: f64 = 14.0;
+/// Dash patterns of the partner curves, one per level, in turn.
+const PARTNER_DASHES: [&str; 4] = ["6 3", "2 3", "9 3 2 3", "1 2"];
+
+/// A number rounded to [`LABEL_DIGITS`] significant digits, without trailing zeros; scientific
+/// notation only outside 1e-4 to 1e6.
+pub fn label_number(x: f64) -> String {
+    if x == 0.0 || !x.is_finite() {
+        return format_number(x);
+    }
+    let magnitude = x.abs().log10().floor() as i32;
+    if !(-4..6).contains(&magnitude) {
+        return format!("{:.*e}", (LABEL_DIGITS - 1) as usize, x);
+    }
+    let decimals = (LABEL_DIGITS - 1 - magnitude).max(0) as usize;
+    let text = format!("{x:.decimals$}");
+    if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        text
+    }
+}
+
+/// The covariates that share a product term with `covariate`, in model order.
+pub fn partners(model: &Model, covariate: usize) -> Vec<usize> {
+    (0..model.covariates.len())
+        .filter(|&other| other != covariate)
+        .filter(|&other| {
+            model.terms.iter().any(|t| {
+                matches!(t, crate::model::Term::Product(_))
+                    && t.involves(covariate)
+                    && t.involves(other)
+            })
+        })
+        .collect()
+}
+
+/// The values a partner's curves are drawn at, with their labels: 0 and 1 for a binary
+/// partner, every level for a categorical one; `None` for a continuous or count partner.
+fn partner_levels(model: &Model, partner: usize) -> Option<Vec<(String, Value)>> {
+    let c = &model.covariates[partner];
+    match c.kind {
+        CovariateKind::Binary => Some(vec![
+            ("0".to_string(), Value::Number(0.0)),
+            ("1".to_string(), Value::Number(1.0)),
+        ]),
+        CovariateKind::Categorical => Some(
+            c.levels
+                .iter()
+                .enumerate()
+                .map(|(i, level)| (level.clone(), Value::Level(i)))
+                .collect(),
+        ),
+        CovariateKind::Continuous | CovariateKind::Count => None,
+    }
+}
 
 /// Points on each curve.
 pub const GRID_POINTS: usize = 161;
@@ -140,6 +208,17 @@ pub fn curve(
     options: &Options,
     points: usize,
 ) -> Result<Vec<CurvePoint>, PlotError> {
+    curve_with(model, covariate, options, points, &[])
+}
+
+/// [`curve`] with some other covariates set to given values instead of their means.
+pub fn curve_with(
+    model: &Model,
+    covariate: usize,
+    options: &Options,
+    points: usize,
+    fixed: &[(usize, Value)],
+) -> Result<Vec<CurvePoint>, PlotError> {
     let c = &model.covariates[covariate];
     if c.kind != CovariateKind::Continuous {
         return Err(PlotError::NotContinuous(c.name.clone()));
@@ -157,6 +236,9 @@ pub fn curve(
     options.elasticities = false;
     let mut scorer = Scorer::new(model);
     let mut values: Vec<Value> = model.mean_profile.clone();
+    for &(j, value) in fixed {
+        values[j] = value;
+    }
     let n = points.max(2);
     let mut out = Vec::with_capacity(n);
     for i in 0..n {
@@ -267,6 +349,65 @@ impl Panel {
             r#"<path class="curve" data-quantity="{}" d="{d}" fill="none" stroke="{}" stroke-width="2.2"/>"#,
             quantity.name, quantity.colour
         );
+    }
+
+    /// One more curve, dashed, for one level of an interacting partner.
+    fn partner_curve(
+        &self,
+        svg: &mut String,
+        points: &[CurvePoint],
+        value: fn(&CurvePoint) -> f64,
+        colour: &str,
+        (partner, level, dash): (&str, &str, &str),
+    ) {
+        let d = self.path(points.iter().map(|p| (p.x, value(p))), false);
+        let _ = writeln!(
+            svg,
+            r#"<path class="partner-curve" data-partner="{}" data-level="{}" d="{d}" fill="none" stroke="{colour}" stroke-width="1.3" stroke-dasharray="{dash}"/>"#,
+            escape(partner),
+            escape(level)
+        );
+    }
+
+    /// The training data's density along the bottom edge: one bar per histogram bin, its
+    /// height proportional to the bin's count per unit of x (per unit of ln x on a log axis).
+    fn rug(&self, svg: &mut String, edges: &[f64], counts: &[u64]) {
+        let densities: Vec<f64> = counts
+            .iter()
+            .zip(edges.windows(2))
+            .map(|(&count, w)| {
+                let width = self.scale(w[1].max(f64::MIN_POSITIVE))
+                    - self.scale(w[0].max(f64::MIN_POSITIVE));
+                if width > 0.0 {
+                    count as f64 / width
+                } else {
+                    0.0
+                }
+            })
+            .collect();
+        let top = densities.iter().copied().fold(0.0_f64, f64::max);
+        if top <= 0.0 {
+            return;
+        }
+        let bottom = self.top + self.height;
+        let _ = writeln!(svg, r#"<g class="rug" data-bins="{}">"#, counts.len());
+        for ((w, &count), density) in edges.windows(2).zip(counts).zip(&densities) {
+            let (a, b) = (w[0].max(self.x.0), w[1].min(self.x.1));
+            if b <= a || count == 0 {
+                continue;
+            }
+            let height = RUG_HEIGHT * density / top;
+            let (x0, x1) = (self.px(a), self.px(b));
+            let _ = writeln!(
+                svg,
+                r##"<rect x="{x0:.3}" y="{:.3}" width="{:.3}" height="{height:.3}" fill="#6b6757" fill-opacity="0.45" data-from="{}" data-to="{}" data-count="{count}"/>"##,
+                bottom - height,
+                (x1 - x0).max(0.5),
+                w[0],
+                w[1]
+            );
+        }
+        let _ = writeln!(svg, "</g>");
     }
 
     /// The training range, shaded, with dashed edges and a dotted line at the mean.
@@ -392,12 +533,33 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
     let points = curve(model, covariate, options, GRID_POINTS)?;
     let c = &model.covariates[covariate];
     let f = &model.file;
+    // Curves per level of each binary or categorical partner; other partners are named only.
+    let mut partner_curves: Vec<(String, String, Vec<CurvePoint>)> = Vec::new();
+    let mut noted_partners: Vec<String> = Vec::new();
+    for partner in partners(model, covariate) {
+        let name = model.covariates[partner].name.clone();
+        match partner_levels(model, partner) {
+            Some(levels) => {
+                for (label, value) in levels {
+                    let points =
+                        curve_with(model, covariate, options, GRID_POINTS, &[(partner, value)])?;
+                    partner_curves.push((name.clone(), label, points));
+                }
+            }
+            None => noted_partners.push(name),
+        }
+    }
     let (low, high) = plot_range(model, covariate);
     let level = percent(options.level());
 
     let top_probability = points
         .iter()
         .map(|p| p.probability_interval.map_or(p.probability, |i| i.1))
+        .chain(
+            partner_curves
+                .iter()
+                .flat_map(|(_, _, curve)| curve.iter().map(|p| p.probability)),
+        )
         .fold(0.0_f64, f64::max);
     let probability_max = if top_probability > 0.8 {
         1.0
@@ -417,6 +579,10 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         let (lower, upper) = p.effect_interval.unwrap_or((p.effect, p.effect));
         (a.min(lower).min(p.effect), b.max(upper).max(p.effect))
     });
+    let (effect_low, effect_high) = partner_curves
+        .iter()
+        .flat_map(|(_, _, curve)| curve.iter().map(|p| p.effect))
+        .fold((effect_low, effect_high), |(a, b), e| (a.min(e), b.max(e)));
     let effect_panel = Panel {
         left: LEFT,
         top: EFFECT_TOP,
@@ -475,9 +641,38 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         escape(&f.outcome.meaning)
     );
 
+    let interaction = interaction_note(&partner_curves, &noted_partners);
+    if !interaction.is_empty() {
+        let _ = writeln!(
+            svg,
+            r##"<text class="interaction" x="{}" y="{}" text-anchor="middle" fill="#555">{}</text>"##,
+            WIDTH / 2.0,
+            HEIGHT - 8.0,
+            escape(&interaction)
+        );
+    }
+
     // The probability panel.
     probability_panel.open(&mut svg, "probability-panel");
     probability_panel.training_range(&mut svg, c.training_min, c.training_max, c.training_mean);
+    if let Some(histogram) = f
+        .covariates
+        .iter()
+        .find(|spec| spec.name == c.name)
+        .and_then(|spec| spec.training.histogram.as_ref())
+    {
+        probability_panel.rug(&mut svg, &histogram.edges, &histogram.counts);
+    }
+    for (i, (partner, level, curve)) in partner_curves.iter().enumerate() {
+        let dash = PARTNER_DASHES[i % PARTNER_DASHES.len()];
+        probability_panel.partner_curve(
+            &mut svg,
+            curve,
+            |p| p.probability,
+            CURVE_COLOUR,
+            (partner, level, dash),
+        );
+    }
     probability_panel.curve_and_band(
         &mut svg,
         &points,
@@ -492,9 +687,9 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
     probability_panel.axes(&mut svg, &format!("P({} = 1)", f.outcome.name), true);
     let range_label = format!(
         "training range {} to {}, mean {}",
-        format_number(c.training_min),
-        format_number(c.training_max),
-        format_number(c.training_mean)
+        label_number(c.training_min),
+        label_number(c.training_max),
+        label_number(c.training_mean)
     );
     // Centred over the shaded range, but kept inside the panel (about 6.5 px a character).
     let half_width = 3.25 * range_label.chars().count() as f64 + 6.0;
@@ -522,6 +717,16 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             r##"<line class="zero" x1="{}" y1="{zero:.3}" x2="{}" y2="{zero:.3}" stroke="#555"/>"##,
             LEFT,
             LEFT + PLOT_WIDTH
+        );
+    }
+    for (i, (partner, level, curve)) in partner_curves.iter().enumerate() {
+        let dash = PARTNER_DASHES[i % PARTNER_DASHES.len()];
+        effect_panel.partner_curve(
+            &mut svg,
+            curve,
+            |p| p.effect,
+            EFFECT_COLOUR,
+            (partner, level, dash),
         );
     }
     effect_panel.curve_and_band(
@@ -558,9 +763,9 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         );
         let label = format!(
             "largest effect in the training range: {} at {} = {}",
-            format_number(peak.effect),
+            label_number(peak.effect),
             c.name,
-            format_number(peak.x)
+            label_number(peak.x)
         );
         // Helvetica at 12 px averages about 6.5 px a character: put the label on whichever
         // side of the marker it fits.
@@ -595,6 +800,31 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
     legend(&mut svg, &level, model.covariance.is_some());
     let _ = writeln!(svg, "</svg>");
     Ok(svg)
+}
+
+/// The line under the legend that explains the partner curves, or names the partners that have
+/// none; empty without partners.
+fn interaction_note(curves: &[(String, String, Vec<CurvePoint>)], noted: &[String]) -> String {
+    let mut parts = Vec::new();
+    let mut drawn: Vec<&str> = curves.iter().map(|(name, _, _)| name.as_str()).collect();
+    drawn.dedup();
+    for name in drawn {
+        let levels: Vec<String> = curves
+            .iter()
+            .filter(|(n, _, _)| n == name)
+            .map(|(_, level, _)| level.clone())
+            .collect();
+        parts.push(format!(
+            "interacts with {name}: thin dashed curves at {name} = {}",
+            levels.join(", ")
+        ));
+    }
+    for name in noted {
+        parts.push(format!(
+            "interacts with {name}: the curves hold {name} at its mean, so its effect here changes with {name}"
+        ));
+    }
+    parts.join("; ")
 }
 
 fn legend(svg: &mut String, level: &str, intervals: bool) {
