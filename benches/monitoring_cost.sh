@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # What monitoring costs: the load of the service's benchmark (benches/load/run.sh: its wrk
 # script benches/load/post.lua, its bodies, its worker and thread counts) against
-# `ogive serve --monitoring on` and `--monitoring off`, in the same run. Goal (issue 7): at most
+# `ogive serve --monitoring on` and `--monitoring off`, in the same run. Goal: at most
 # 5% fewer requests per second with monitoring on.
 #
 #   loads     one observation with effects and intervals (the model's example observation),
