@@ -2,7 +2,8 @@
 # HTTP checks against a running `ogive serve` (called by .ci/run; runnable alone from the
 # repository root): the OpenAPI document validates (openapi-spec-validator, both the committed
 # file and the served one), schemathesis finds no failure with every check on (with the
-# expectations in .ci/schemathesis.toml: a receipt the server did not seal is a 422), and the
+# expectations in .ci/schemathesis.toml: a receipt the server did not seal, or a curve whose
+# ends cross, is a 422), and the
 # /metrics output passes `promtool check metrics`.
 #
 # The server serves the demo models in model-files/ when there are any, otherwise the HTTP
