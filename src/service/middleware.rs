@@ -238,7 +238,8 @@ fn record(
         route,
         method,
         status,
-        latency_ms = seconds * 1e3,
+        // To the microsecond: finer digits are clock noise and made lines like 0.010655999999999999.
+        latency_ms = (seconds * 1e6).round() / 1e3,
         model = scored.map(|s| s.model.as_str()),
         version = scored.map(|s| s.version.as_str()),
         observations = scored.and_then(|s| s.observations.as_deref()),

@@ -311,6 +311,13 @@ fn the_binary_serves_prints_a_working_example_logs_json_and_stops_on_sigterm() {
     assert_eq!(request["model"], json!("lease-test"));
     assert_eq!(request["version"], json!("2026-01"));
     assert!(request["latency_ms"].is_number());
+    // Written to the microsecond, so the text has at most three decimals.
+    let latency = request["latency_ms"].to_string();
+    let decimals = latency.split_once('.').map_or(0, |(_, d)| d.len());
+    assert!(
+        decimals <= 3,
+        "latency_ms {latency} has more than microsecond digits"
+    );
     assert!(request["observations"]
         .as_str()
         .is_some_and(|o| o.contains("annual_revenue")));
