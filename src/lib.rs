@@ -31,3 +31,4 @@ pub mod receipt;
 pub mod registry;
 pub mod report;
 pub mod service;
+pub mod timestamp;

@@ -87,7 +87,7 @@ fn assert_recent_rfc3339(when: &str) {
     assert_eq!(&when[4..5], "-");
     assert_eq!(&when[10..11], "T");
     assert_eq!(&when[23..], "Z");
-    let today = ogive::registry::store::history::rfc3339_utc(std::time::SystemTime::now());
+    let today = ogive::timestamp::rfc3339_millis(std::time::SystemTime::now());
     assert_eq!(
         &when[..4],
         &today[..4],

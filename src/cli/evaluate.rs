@@ -15,8 +15,8 @@ use crate::batch::ErrorPolicy;
 use crate::evaluate::report::{self, DataSection, EvaluationReport, ModelSection, WarningShares};
 use crate::evaluate::{self as figures, plots, read_labelled, ModelRows, Names};
 use crate::model::Model;
-use crate::registry::store::history::rfc3339_utc;
 use crate::registry::store::ModelDir;
+use crate::timestamp::rfc3339_millis;
 
 use super::describe::Format;
 use super::score::{progress_bar, OnError};
@@ -284,7 +284,7 @@ pub(crate) fn evaluate_data(
     let built = EvaluationReport {
         report: report::REPORT_KIND,
         format_version: report::REPORT_FORMAT_VERSION,
-        created: rfc3339_utc(std::time::SystemTime::now()),
+        created: rfc3339_millis(std::time::SystemTime::now()),
         level,
         data: DataSection {
             path: data.display().to_string(),

@@ -44,7 +44,6 @@ pub mod report;
 pub mod separation;
 pub mod summaries;
 pub mod terms;
-pub mod timestamp;
 pub mod weighting;
 pub mod write;
 
@@ -709,8 +708,8 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
         provenance: Provenance {
             fitted_by: format!("ogive {}", env!("CARGO_PKG_VERSION")),
             fitted_at: match request.fitted_at_unix {
-                Some(s) => timestamp::rfc3339_utc(s),
-                None => timestamp::now_rfc3339_utc(),
+                Some(s) => crate::timestamp::rfc3339_seconds(s),
+                None => crate::timestamp::now_rfc3339_seconds(),
             },
             observations: n as u64,
             log_likelihood: Some(estimate.log_likelihood),

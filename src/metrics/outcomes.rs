@@ -24,8 +24,8 @@ use schemars::JsonSchema;
 use serde::Serialize;
 
 use super::calibration::CalibrationMonitor;
-use crate::fit::timestamp::rfc3339_utc;
 use crate::receipt::{days, Receipt, ReceiptError, ReceiptId, ReceiptKeys};
+use crate::timestamp::rfc3339_seconds;
 
 /// Receipt ids remembered unless configured otherwise.
 pub const DEFAULT_SEEN_CAPACITY: usize = 200_000;
@@ -178,7 +178,7 @@ impl OutcomeBook<'_> {
             model: receipt.model().to_string(),
             version: receipt.version().to_string(),
             probability: receipt.probability(),
-            scored_at: rfc3339_utc(receipt.scored_at_ms() / 1000),
+            scored_at: rfc3339_seconds(receipt.scored_at_ms() / 1000),
             outcome: u8::from(outcome),
         })
     }

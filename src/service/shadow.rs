@@ -61,8 +61,8 @@ use serde::Serialize;
 use crate::engine::{Answer, Scorer};
 use crate::metrics::MetricsError;
 use crate::model::{CovariateKind, Model, Value};
-use crate::registry::store::history::rfc3339_utc;
 use crate::registry::Entry;
+use crate::timestamp::rfc3339_millis;
 
 /// Upper bounds of the absolute-difference histogram: from a difference no caller would notice
 /// to the largest possible one (a project choice).
@@ -515,7 +515,7 @@ impl Shadowing {
         let run = Run {
             candidate: candidate.to_string(),
             live_at_start: live.to_string(),
-            since: rfc3339_utc(SystemTime::now()),
+            since: rfc3339_millis(SystemTime::now()),
             baseline: self.figures(model, candidate),
         };
         self.runs

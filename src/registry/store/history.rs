@@ -23,7 +23,9 @@
 use crate::evaluate::evidence::EvidenceNote;
 use std::fs::File;
 use std::io::{Read, Seek, SeekFrom};
-use std::time::{SystemTime, UNIX_EPOCH};
+use std::time::SystemTime;
+
+use crate::timestamp::rfc3339_millis;
 
 use serde::{Deserialize, Serialize};
 
@@ -86,7 +88,7 @@ impl HistoryRecord {
         reason: Option<&str>,
     ) -> HistoryRecord {
         HistoryRecord {
-            when: rfc3339_utc(SystemTime::now()),
+            when: rfc3339_millis(SystemTime::now()),
             action,
             from: from.map(str::to_string),
             to: to.to_string(),
@@ -196,64 +198,9 @@ pub(super) fn ends_without_newline(file: &mut File) -> std::io::Result<bool> {
     Ok(last[0] != b'\n')
 }
 
-/// Format a time as RFC 3339 in UTC with milliseconds, `YYYY-MM-DDTHH:MM:SS.mmmZ`.
-///
-/// The calendar date comes from the day count since 1970-01-01 by the proleptic Gregorian
-/// civil-from-days conversion (eras of 400 years = 146 097 days, years starting in March so
-/// that the leap day falls last):
-///
-/// ```text
-/// z = days + 719468;  era = ⌊z / 146097⌋;  doe = z − 146097·era
-/// yoe = ⌊(doe − ⌊doe/1460⌋ + ⌊doe/36524⌋ − ⌊doe/146096⌋) / 365⌋
-/// doy = doe − (365·yoe + ⌊yoe/4⌋ − ⌊yoe/100⌋);  mp = ⌊(5·doy + 2) / 153⌋
-/// day = doy − ⌊(153·mp + 2) / 5⌋ + 1;  month = mp + 3 if mp < 10 else mp − 9
-/// year = yoe + 400·era + (1 if month ≤ 2)
-/// ```
-///
-/// Times before 1970 are written as 1970-01-01T00:00:00.000Z; the clock of a machine that
-/// promotes models is not expected to read earlier.
-pub fn rfc3339_utc(time: SystemTime) -> String {
-    let since_epoch = time.duration_since(UNIX_EPOCH).unwrap_or_default();
-    let seconds = since_epoch.as_secs() as i64;
-    let millis = since_epoch.subsec_millis();
-    let days = seconds.div_euclid(86_400);
-    let of_day = seconds.rem_euclid(86_400);
-    let z = days + 719_468;
-    let era = z.div_euclid(146_097);
-    let doe = z - era * 146_097;
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let day = doy - (153 * mp + 2) / 5 + 1;
-    let month = if mp < 10 { mp + 3 } else { mp - 9 };
-    let year = yoe + era * 400 + i64::from(month <= 2);
-    format!(
-        "{year:04}-{month:02}-{day:02}T{:02}:{:02}:{:02}.{millis:03}Z",
-        of_day / 3600,
-        (of_day / 60) % 60,
-        of_day % 60
-    )
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
-    use std::time::Duration;
-
-    fn at(seconds: u64, millis: u64) -> String {
-        rfc3339_utc(UNIX_EPOCH + Duration::from_secs(seconds) + Duration::from_millis(millis))
-    }
-
-    #[test]
-    fn timestamps_match_an_independent_calendar() {
-        // Reference: Python 3 `datetime.fromtimestamp(s, timezone.utc).isoformat()`, exact.
-        assert_eq!(at(0, 0), "1970-01-01T00:00:00.000Z");
-        assert_eq!(at(951_782_400, 0), "2000-02-29T00:00:00.000Z");
-        assert_eq!(at(951_868_799, 999), "2000-02-29T23:59:59.999Z");
-        assert_eq!(at(1_709_251_199, 5), "2024-02-29T23:59:59.005Z");
-        assert_eq!(at(4_107_542_400, 0), "2100-03-01T00:00:00.000Z");
-        assert_eq!(at(1_735_689_599, 0), "2024-12-31T23:59:59.000Z");
-    }
 
     #[test]
     fn a_torn_last_line_is_skipped_with_a_warning_and_the_rest_kept() {
