@@ -71,6 +71,24 @@ fn setup() -> Setup {
     Setup { dir, logit, probit }
 }
 
+/// `ogive evaluate` of the logit fixture on `data`, which must fail: what it printed on stderr.
+fn refused_with_logit(s: &Setup, data: &std::path::Path, outcome: &str) -> String {
+    let data = data.to_str().unwrap();
+    let model = s.logit.to_str().unwrap();
+    let args = [
+        "evaluate",
+        "--data",
+        data,
+        "--outcome",
+        outcome,
+        "--model",
+        model,
+    ];
+    let result = run(&args, None, &[]);
+    assert_ne!(result.code, 0, "the run should have failed");
+    result.stderr
+}
+
 fn evaluate_json(args: &[&str]) -> Json {
     let mut all = vec!["evaluate", "--format", "json"];
     all.extend_from_slice(args);
@@ -311,26 +329,12 @@ fn damaged(dir: &std::path::Path, changes: &[(usize, usize, &str)]) -> std::path
 fn a_bad_outcome_or_covariate_cell_stops_the_run_naming_row_line_and_column() {
     let s = setup();
     let data = damaged(s.dir.path(), &[(3, 3, "2")]);
-    let result = run(
-        &[
-            "evaluate",
-            "--data",
-            data.to_str().unwrap(),
-            "--outcome",
-            "grade",
-            "--model",
-            s.logit.to_str().unwrap(),
-        ],
-        None,
-        &[],
-    );
-    assert_ne!(result.code, 0);
+    let stderr = refused_with_logit(&s, &data, "grade");
     assert!(
-        result
-            .stderr
+        stderr
             .contains("row 3 (line 4): outcome 'grade' must be 0 or 1 (or false/true), got \"2\""),
         "{}",
-        result.stderr
+        stderr
     );
 
     let data = damaged(s.dir.path(), &[(5, 1, "many")]);
@@ -395,26 +399,11 @@ fn skipped_rows_are_left_out_for_both_models_and_counted_by_reason() {
 #[test]
 fn a_missing_outcome_column_is_named_with_the_columns_there_are() {
     let s = setup();
-    let result = run(
-        &[
-            "evaluate",
-            "--data",
-            data_path().to_str().unwrap(),
-            "--outcome",
-            "passed",
-            "--model",
-            s.logit.to_str().unwrap(),
-        ],
-        None,
-        &[],
-    );
-    assert_ne!(result.code, 0);
+    let stderr = refused_with_logit(&s, &data_path(), "passed");
     assert!(
-        result
-            .stderr
-            .contains("no outcome column 'passed' (columns: gpa, tuce, psi, grade)"),
+        stderr.contains("no outcome column 'passed' (columns: gpa, tuce, psi, grade)"),
         "{}",
-        result.stderr
+        stderr
     );
 }
 
@@ -428,26 +417,11 @@ fn rows_of_one_outcome_are_refused_with_the_counts() {
         .collect();
     let data = s.dir.path().join("ones.csv");
     std::fs::write(&data, ones.join("\n") + "\n").unwrap();
-    let result = run(
-        &[
-            "evaluate",
-            "--data",
-            data.to_str().unwrap(),
-            "--outcome",
-            "grade",
-            "--model",
-            s.logit.to_str().unwrap(),
-        ],
-        None,
-        &[],
-    );
-    assert_ne!(result.code, 0);
+    let stderr = refused_with_logit(&s, &data, "grade");
     assert!(
-        result
-            .stderr
-            .contains("only one value (11 events in 11 rows)"),
+        stderr.contains("only one value (11 events in 11 rows)"),
         "{}",
-        result.stderr
+        stderr
     );
 }
 
