@@ -127,7 +127,7 @@ fn setup() -> Bench {
         term_vectors.extend_from_slice(&t);
     }
     Bench {
-        coefficients: model.coefficients.clone(),
+        coefficients: model.coefficients().to_vec(),
         model,
         batch,
         term_vectors,

@@ -147,7 +147,7 @@ fn main() {
     // The batch rows, flat, as the service hands them over: 1024 observations in requests of 100
     // (and one of 24).
     let flat: Vec<Value> = batch.iter().flatten().copied().collect();
-    let width = model.covariates.len();
+    let width = model.covariates().len();
     let now = now_ms();
     let mut samples: Vec<Vec<Duration>> = vec![Vec::with_capacity(REPETITIONS); names.len()];
     for repetition in 0..REPETITIONS {

@@ -42,7 +42,7 @@ fn model(bytes: &[u8]) -> Model {
 
 fn batch(live: &Model) -> Vec<Value> {
     let regions = ["north", "south", "east"];
-    let mut values = Vec::with_capacity(BATCH * live.covariates.len());
+    let mut values = Vec::with_capacity(BATCH * live.covariates().len());
     let mut one = Vec::new();
     for i in 0..BATCH {
         let observation = json!({
@@ -62,7 +62,7 @@ fn live_answers(live: &Model, values: &[Value]) -> Vec<Answer> {
     let mut scorer = Scorer::new(live);
     let options = Options::default();
     values
-        .chunks(live.covariates.len())
+        .chunks(live.covariates().len())
         .map(|o| scorer.score(live, o, &options).clone())
         .collect()
 }

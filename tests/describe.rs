@@ -342,7 +342,7 @@ fn check_plot(model: &Model, covariate: usize, svg: &str) -> bool {
         .position(|s| s.covariate == covariate)
         .unwrap();
     let mut engine_at = |x: f64| {
-        let mut values: Vec<Value> = model.mean_profile.clone();
+        let mut values: Vec<Value> = model.mean_profile().to_vec();
         values[covariate] = Value::Number(x);
         scorer.score(model, &values, &options).clone()
     };
@@ -355,15 +355,15 @@ fn check_plot(model: &Model, covariate: usize, svg: &str) -> bool {
     assert_eq!(band.len(), 2 * curve.len());
     assert_eq!(effect_curve.len(), curve.len());
     let n = curve.len();
-    let c = &model.covariates[covariate];
+    let c = &model.covariates()[covariate];
     let (first_x, last_x) = (
         probability_panel.data_x(curve[0].0),
         probability_panel.data_x(curve[n - 1].0),
     );
     // The curve runs beyond the training range on both sides (not below 0 for a
     // non-negative covariate).
-    assert!(first_x < c.training_min || (c.training_min >= 0.0 && first_x <= c.training_min));
-    assert!(last_x > c.training_max);
+    assert!(first_x < c.training_min() || (c.training_min() >= 0.0 && first_x <= c.training_min()));
+    assert!(last_x > c.training_max());
     for i in 0..n {
         let x = probability_panel.data_x(curve[i].0);
         let answer = engine_at(x);
@@ -372,7 +372,7 @@ fn check_plot(model: &Model, covariate: usize, svg: &str) -> bool {
         assert!(
             (p - answer.probability).abs() <= tol,
             "{}: P at x = {x}: plotted {p}, engine {}",
-            c.name,
+            c.name(),
             answer.probability
         );
         let interval = answer.interval.unwrap();
@@ -387,7 +387,7 @@ fn check_plot(model: &Model, covariate: usize, svg: &str) -> bool {
         assert!(
             (m - effect.effect).abs() <= tol,
             "{}: dP/dx at {x}: plotted {m}, engine {}",
-            c.name,
+            c.name(),
             effect.effect
         );
         let e_interval = effect.interval.unwrap();
@@ -403,8 +403,8 @@ fn check_plot(model: &Model, covariate: usize, svg: &str) -> bool {
         .expect("training range");
     let left: f64 = range.attribute("x").unwrap().parse().unwrap();
     let width: f64 = range.attribute("width").unwrap().parse().unwrap();
-    assert!((left - probability_panel.pixel_x(c.training_min)).abs() <= 2e-3);
-    assert!((left + width - probability_panel.pixel_x(c.training_max)).abs() <= 2e-3);
+    assert!((left - probability_panel.pixel_x(c.training_min())).abs() <= 2e-3);
+    assert!((left + width - probability_panel.pixel_x(c.training_max())).abs() <= 2e-3);
     probability_panel.log
 }
 
@@ -448,10 +448,10 @@ fn spector_plots_parse_and_follow_the_engine() {
 fn plots_of_a_model_with_logs_squares_and_levels_follow_the_engine() {
     let (model, files, _) = plots_for(&portfolio_json(true));
     let continuous: Vec<String> = model
-        .covariates
+        .covariates()
         .iter()
-        .filter(|c| c.kind == CovariateKind::Continuous)
-        .map(|c| format!("{}.svg", c.name))
+        .filter(|c| c.kind() == CovariateKind::Continuous)
+        .map(|c| format!("{}.svg", c.name()))
         .collect();
     let names: Vec<String> = files.iter().map(|(n, _)| n.clone()).collect();
     assert_eq!(names, continuous);
@@ -571,9 +571,9 @@ fn demo_lease() -> Model {
 fn demo_plot(covariate: &str) -> (Model, usize, String) {
     let model = demo_lease();
     let j = model
-        .covariates
+        .covariates()
         .iter()
-        .position(|c| c.name == covariate)
+        .position(|c| c.name() == covariate)
         .expect("covariate");
     let svg =
         ogive::report::svg::render(&model, j, &ogive::engine::Options::default()).expect("render");
@@ -586,9 +586,9 @@ fn demo_plot(covariate: &str) -> (Model, usize, String) {
 fn an_interacting_covariate_has_a_curve_per_level_of_its_partner() {
     let (model, j, svg) = demo_plot("years_trading");
     let partner = model
-        .covariates
+        .covariates()
         .iter()
-        .position(|c| c.name == "guarantor")
+        .position(|c| c.name() == "guarantor")
         .expect("guarantor");
     let document = roxmltree::Document::parse(&svg).expect("well-formed");
     let panel_of = |id: &str| {
@@ -647,7 +647,7 @@ fn an_interacting_covariate_has_a_curve_per_level_of_its_partner() {
 #[test]
 fn the_plot_has_a_rug_of_the_training_data() {
     let (model, j, svg) = demo_plot("years_trading");
-    let histogram = model.file.covariates[j]
+    let histogram = model.file().covariates[j]
         .training
         .histogram
         .clone()

@@ -226,16 +226,16 @@ impl Case {
     fn observation(&mut self) -> Vec<Value> {
         let rng = &mut self.rng;
         self.model
-            .covariates
+            .covariates()
             .iter()
-            .map(|c| match c.kind {
-                CovariateKind::Continuous if c.training_min > 0.0 => {
+            .map(|c| match c.kind() {
+                CovariateKind::Continuous if c.training_min() > 0.0 => {
                     Value::Number(rng.gen_range(0.1..6.0))
                 }
                 CovariateKind::Continuous => Value::Number(rng.gen_range(-3.0..4.0)),
                 CovariateKind::Count => Value::Number(f64::from(rng.gen_range(0u8..=10))),
                 CovariateKind::Binary => Value::Number(f64::from(rng.gen_range(0u8..=1))),
-                CovariateKind::Categorical => Value::Level(rng.gen_range(0..c.levels.len())),
+                CovariateKind::Categorical => Value::Level(rng.gen_range(0..c.levels().len())),
             })
             .collect()
     }
@@ -253,9 +253,9 @@ fn options() -> Options {
 fn smooth_probability(model: &Model, values: &[Value], upper_side: bool) -> f64 {
     let z = model.linear_index_of(values);
     if upper_side {
-        -model.link.complement(z)
+        -model.link().complement(z)
     } else {
-        model.link.probability(z)
+        model.link().probability(z)
     }
 }
 
@@ -340,7 +340,7 @@ fn probability_and_effects(model: &Model, values: &[Value], upper_side: bool) ->
 /// √(|∇|ᵀ|V||∇|) (entrywise absolute values), when that is the larger: under a rank-one V the
 /// standard error |uᵀ∇| can be far smaller than its terms.
 fn check_std_errors(model: &Model, jacobian: &[Vec<f64>], engine: &[f64], what: &str) {
-    let covariance = model.covariance.as_deref().expect("covariance");
+    let covariance = model.covariance().expect("covariance");
     let absolute: Vec<f64> = covariance.iter().map(|v| v.abs()).collect();
     for (q, &se) in engine.iter().enumerate() {
         let gradient: Vec<f64> = jacobian.iter().map(|row| row[q]).collect();
@@ -377,9 +377,9 @@ proptest! {
                     smooth_probability(&model, &shifted, upper_side)
                 };
                 let slope = five_point(at, x, h);
-                let what = format!("d p / d {} at {values:?}", model.covariates[j].name);
+                let what = format!("d p / d {} at {values:?}", model.covariates()[j].name());
                 assert_close(effect.effect, slope, FINITE_DIFFERENCE, EFFECT_SCALE, what);
-                if model.covariates[j].kind == CovariateKind::Continuous {
+                if model.covariates()[j].kind() == CovariateKind::Continuous {
                     // d log p / d log x = x·(dp/dx)/p. Turned back into a slope it must match
                     // the difference quotient as the effect does: compared as an elasticity, the
                     // factor x/p (hundreds where p is small) would magnify the quotient's own
@@ -420,7 +420,7 @@ proptest! {
 
         // A rank-one covariance uuᵀ makes each standard error the directional derivative
         // |uᵀ∇| of its quantity, so the gradient itself is checked along u, not only its norm.
-        let k = model.coefficients.len();
+        let k = model.coefficients().len();
         let u: Vec<f64> = (0..k).map(|_| case.rng.gen_range(-1.0..1.0)).collect();
         let mut parts = case.parts.clone();
         parts.covariance = Some(u.iter().map(|a| u.iter().map(|b| a * b).collect()).collect());
@@ -471,7 +471,7 @@ proptest! {
                     EffectKind::DiscreteChange => (Value::Number(1.0), Value::Number(0.0)),
                     EffectKind::LevelChange => (
                         Value::Level(e.slot.level.expect("level")),
-                        Value::Level(model.covariates[j].reference),
+                        Value::Level(model.covariates()[j].reference()),
                     ),
                 };
                 let probability_with = |v: Value| {
@@ -480,7 +480,7 @@ proptest! {
                     Scorer::probability(&model, &changed)
                 };
                 let (high, low) = (probability_with(to), probability_with(from));
-                let what = format!("change in {}: F(to) − F(from)", model.covariates[j].name);
+                let what = format!("change in {}: F(to) − F(from)", model.covariates()[j].name());
                 assert_close(e.effect, high - low, ROUNDING, high.max(low), what);
             }
         }

@@ -47,8 +47,11 @@ fn options(model: &Json) -> Options {
 
 /// The covariate (and level) names of an engine effect slot, as the fixture spells them.
 fn slot_names(model: &Model, slot: &EffectSlot) -> (String, Option<String>) {
-    let c = &model.covariates[slot.covariate];
-    (c.name.clone(), slot.level.map(|l| c.levels[l].clone()))
+    let c = &model.covariates()[slot.covariate];
+    (
+        c.name().to_string(),
+        slot.level.map(|l| c.levels()[l].clone()),
+    )
 }
 
 /// Compare one engine quantity with a reference, naming both.

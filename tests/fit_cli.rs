@@ -201,10 +201,10 @@ fn a_refit_like_the_live_file_keeps_the_whole_contract() {
     let (live, candidate) = (model_at(&live), model_at(&out));
     let changes = ogive::registry::gate::contract_changes(&live, &candidate);
     assert!(changes.is_empty(), "{changes:?}");
-    assert_eq!(candidate.file.description, live.file.description);
-    assert_eq!(candidate.file.link, live.file.link);
+    assert_eq!(candidate.file().description, live.file().description);
+    assert_eq!(candidate.file().link, live.file().link);
     let terms = |m: &ogive::model::Model| {
-        m.file
+        m.file()
             .terms
             .iter()
             .map(|t| t.term.clone())

@@ -34,22 +34,22 @@ fn check_demo(name: &str) {
     );
     let bytes = read(folder.join("versions").join(format!("{version}.json")));
     let model = Model::from_json(bytes.as_bytes()).unwrap_or_else(|e| panic!("{name}: {e}"));
-    assert_eq!(model.link.name(), truth["link"].as_str().expect("link"));
+    assert_eq!(model.link().name(), truth["link"].as_str().expect("link"));
     let coefficients = truth["coefficients"].as_object().expect("coefficients");
-    let k = model.terms.len();
+    let k = model.terms().len();
     assert_eq!(
         k,
         coefficients.len(),
         "{name}: the model's terms are the generator's"
     );
-    let covariance = model.covariance.as_ref().expect("covariance");
+    let covariance = model.covariance().expect("covariance");
     let q = normal_quantile(1.0 - 0.025 / k as f64);
     let mut difference = DVector::zeros(k);
-    for (j, label) in model.term_labels.iter().enumerate() {
+    for (j, label) in model.term_labels().iter().enumerate() {
         let true_value = coefficients[label.as_str()]
             .as_f64()
             .unwrap_or_else(|| panic!("{label}"));
-        let estimate = model.coefficients[j];
+        let estimate = model.coefficients()[j];
         let se = covariance[j * k + j].sqrt();
         assert!(
             (estimate - true_value).abs() <= q * se,

@@ -1226,10 +1226,10 @@ fn a_promotion_by_the_cli_reaches_a_watching_registry() {
     );
     let model = registry.snapshot().models[NAME].live.clone();
     assert_eq!(
-        model.file,
+        model.file(),
         Model::from_json(&support::model_bytes(NAME, "v2"))
             .expect("valid")
-            .file,
+            .file(),
         "the registry serves the whole v2 file"
     );
     handle.stop();
@@ -1473,8 +1473,8 @@ fn a_stored_file_changed_under_its_label_is_refused_and_the_stored_content_keeps
         other => panic!("expected one refusal, got {other:?}"),
     }
     assert_eq!(
-        registry.snapshot().models[NAME].live.file,
-        Model::from_json(&stored).expect("valid").file,
+        registry.snapshot().models[NAME].live.file(),
+        Model::from_json(&stored).expect("valid").file(),
         "the content stored under v1 keeps serving"
     );
     assert!(watcher.poll(&registry).is_empty(), "reported once");
@@ -1536,7 +1536,7 @@ fn a_hand_placed_version_is_held_to_the_content_first_served_under_its_label() {
         "{events:?}"
     );
     assert_eq!(
-        registry.snapshot().models[NAME].live.file.description,
+        registry.snapshot().models[NAME].live.file().description,
         support::base(NAME, "v1").description
     );
     // New content under a new label is served.

@@ -68,7 +68,7 @@ fn with_check_case(mut v: Value) -> Value {
     model
         .parse_observation(observation.as_object().expect("object"), &mut values)
         .expect("observation is valid");
-    let p = model.link.probability(model.linear_index_of(&values));
+    let p = model.link().probability(model.linear_index_of(&values));
     v["check_cases"] = json!([{"observation": observation, "probability": p}]);
     v
 }
@@ -375,7 +375,7 @@ fn non_finite_text_values_are_refused() {
         let value = model
             .parse_text_value(age, text)
             .expect("parses as a float");
-        let mut values: Vec<_> = model.mean_profile.to_vec();
+        let mut values: Vec<_> = model.mean_profile().to_vec();
         values[age] = value;
         values[model.covariate_index("region").expect("region")] = ogive::model::Value::Level(0);
         let e = model.check_values(&values).expect_err("non-finite");

@@ -131,7 +131,7 @@ fn warning_codes(model: &Model, warnings: &[Warning]) -> String {
         .iter()
         .map(|w| match w {
             Warning::OutOfRange { covariate, .. } => {
-                format!("out_of_range:{}", model.covariates[*covariate].name)
+                format!("out_of_range:{}", model.covariates()[*covariate].name())
             }
             Warning::UnusualCombination { .. } => "unusual_combination".to_string(),
         })

@@ -31,12 +31,12 @@
 //! This module does not parse flags, draw progress bars or print: the command does.
 
 mod block;
-pub mod cut;
-pub mod input;
-pub mod output;
-pub mod pending;
-pub mod shard;
-pub mod tally;
+pub(crate) mod cut;
+pub(crate) mod input;
+pub(crate) mod output;
+pub(crate) mod pending;
+pub(crate) mod shard;
+pub(crate) mod tally;
 
 use std::collections::{BTreeMap, HashMap};
 use std::io::{Read, Write};

@@ -6,14 +6,14 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
-pub mod check;
-pub mod describe;
-pub mod evaluate;
-pub mod fit;
-pub mod lifecycle;
-pub mod like;
-pub mod score;
-pub mod serve;
+pub(crate) mod check;
+pub(crate) mod describe;
+pub(crate) mod evaluate;
+pub(crate) mod fit;
+pub(crate) mod lifecycle;
+pub(crate) mod like;
+pub(crate) mod score;
+pub(crate) mod serve;
 
 /// Fit, check and serve binary-outcome regression models (logit, probit, cloglog, cauchit).
 #[derive(Debug, Parser)]

@@ -28,12 +28,12 @@
 mod auc;
 mod bins;
 mod calibration;
-pub mod evidence;
+pub(crate) mod evidence;
 mod hosmer;
-pub mod labelled;
+pub(crate) mod labelled;
 mod paired;
-pub mod plots;
-pub mod report;
+pub(crate) mod plots;
+pub(crate) mod report;
 mod rows;
 
 pub use auc::{Auc, AucDifference};

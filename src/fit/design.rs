@@ -32,10 +32,9 @@ pub struct Design {
 }
 
 impl Design {
-    /// A design from row-major values (`rows × columns`).
-    ///
-    /// Returns `None` if the length does not match.
-    pub fn from_row_major(rows: usize, columns: usize, values: Vec<f64>) -> Option<Design> {
+    /// A design from row-major values (`rows × columns`); `None` if the length does not match.
+    #[cfg(test)]
+    pub(crate) fn from_row_major(rows: usize, columns: usize, values: Vec<f64>) -> Option<Design> {
         (values.len() == rows * columns).then_some(Design {
             rows,
             columns,
@@ -108,13 +107,6 @@ impl Design {
     #[inline]
     pub fn rows_of(&self, range: Range<usize>) -> &[f64] {
         &self.values[range.start * self.columns..range.end * self.columns]
-    }
-
-    /// Column `j`, copied out.
-    pub fn column(&self, j: usize) -> Vec<f64> {
-        (0..self.rows)
-            .map(|i| self.values[i * self.columns + j])
-            .collect()
     }
 }
 

@@ -32,20 +32,20 @@
 //! kept. This module depends on nothing of the service; progress is reported through the
 //! [`Progress`] trait so the command line can draw a bar.
 
-pub mod check_cases;
-pub mod design;
-pub mod error;
-pub mod kinds;
-pub mod likelihood;
-pub mod newton;
-pub mod rank;
+pub(crate) mod check_cases;
+pub(crate) mod design;
+pub(crate) mod error;
+pub(crate) mod kinds;
+pub(crate) mod likelihood;
+pub(crate) mod newton;
+pub(crate) mod rank;
 pub mod reader;
-pub mod report;
-pub mod separation;
-pub mod summaries;
-pub mod terms;
-pub mod weighting;
-pub mod write;
+pub(crate) mod report;
+pub(crate) mod separation;
+pub(crate) mod summaries;
+pub(crate) mod terms;
+pub(crate) mod weighting;
+pub(crate) mod write;
 
 use std::path::PathBuf;
 

@@ -29,7 +29,7 @@
 
 pub mod calibration;
 pub mod drift;
-pub mod families;
+pub(crate) mod families;
 pub mod monitor;
 pub mod outcomes;
 

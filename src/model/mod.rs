@@ -9,9 +9,9 @@
 
 mod error;
 pub mod file;
-pub mod observation;
-pub mod summary;
-pub mod term;
+pub(crate) mod observation;
+pub(crate) mod summary;
+pub(crate) mod term;
 mod validate;
 
 pub use error::{ModelError, ModelProblem};
@@ -29,21 +29,21 @@ pub const CHECK_CASE_TOLERANCE: f64 = 1e-9;
 #[derive(Debug, Clone)]
 pub struct Covariate {
     /// The field name.
-    pub name: String,
+    pub(crate) name: String,
     /// Its kind.
-    pub kind: CovariateKind,
+    pub(crate) kind: CovariateKind,
     /// Its unit, if any.
-    pub unit: Option<String>,
+    pub(crate) unit: Option<String>,
     /// Levels of a categorical covariate (empty otherwise).
-    pub levels: Vec<String>,
+    pub(crate) levels: Vec<String>,
     /// Index of the reference level in `levels` (0 for non-categorical covariates).
-    pub reference: usize,
+    pub(crate) reference: usize,
     /// Training minimum (numeric kinds; NaN for categorical).
-    pub training_min: f64,
+    pub(crate) training_min: f64,
     /// Training maximum (numeric kinds; NaN for categorical).
-    pub training_max: f64,
+    pub(crate) training_max: f64,
     /// Training mean (numeric kinds; NaN for categorical).
-    pub training_mean: f64,
+    pub(crate) training_mean: f64,
 }
 
 impl Covariate {
@@ -51,52 +51,92 @@ impl Covariate {
     pub fn is_numeric_derivative(&self) -> bool {
         matches!(self.kind, CovariateKind::Continuous | CovariateKind::Count)
     }
+
+    /// The field name callers send.
+    pub fn name(&self) -> &str {
+        &self.name
+    }
+
+    /// Continuous, count, binary or categorical.
+    pub fn kind(&self) -> CovariateKind {
+        self.kind
+    }
+
+    /// The unit the covariate is stated in, if the file names one.
+    pub fn unit(&self) -> Option<&str> {
+        self.unit.as_deref()
+    }
+
+    /// Levels of a categorical covariate, in file order (empty for other kinds).
+    pub fn levels(&self) -> &[String] {
+        &self.levels
+    }
+
+    /// Index into [`Covariate::levels`] of the reference level (0 for other kinds).
+    pub fn reference(&self) -> usize {
+        self.reference
+    }
+
+    /// The training minimum of a numeric covariate (NaN for a categorical one).
+    pub fn training_min(&self) -> f64 {
+        self.training_min
+    }
+
+    /// The training maximum of a numeric covariate (NaN for a categorical one).
+    pub fn training_max(&self) -> f64 {
+        self.training_max
+    }
+
+    /// The training mean of a numeric covariate (NaN for a categorical one).
+    pub fn training_mean(&self) -> f64 {
+        self.training_mean
+    }
 }
 
 /// The joint-extrapolation check: Mahalanobis distance of the continuous covariates.
 #[derive(Debug, Clone)]
 pub struct Joint {
     /// Covariate indices, in the order of `mean`.
-    pub covariates: Vec<usize>,
+    pub(crate) covariates: Vec<usize>,
     /// Training means.
-    pub mean: Vec<f64>,
+    pub(crate) mean: Vec<f64>,
     /// The inverse of the training covariance, row-major.
-    pub precision: Vec<f64>,
+    pub(crate) precision: Vec<f64>,
     /// The largest training distance.
-    pub max_distance: f64,
+    pub(crate) max_distance: f64,
 }
 
 /// A validated model, ready for the engine.
 #[derive(Debug, Clone)]
 pub struct Model {
     /// The file it was built from, kept for describing and re-serialising it.
-    pub file: ModelFile,
+    pub(crate) file: ModelFile,
     /// The link.
-    pub link: Link,
+    pub(crate) link: Link,
     /// Covariates, in file order.
-    pub covariates: Vec<Covariate>,
+    pub(crate) covariates: Vec<Covariate>,
     /// Terms, in file order.
-    pub terms: Vec<Term>,
+    pub(crate) terms: Vec<Term>,
     /// Canonical text of each term.
-    pub term_labels: Vec<String>,
+    pub(crate) term_labels: Vec<String>,
     /// Coefficient of each term.
-    pub coefficients: Vec<f64>,
+    pub(crate) coefficients: Vec<f64>,
     /// Coefficient covariance, row-major `k × k`, if the file has one.
-    pub covariance: Option<Vec<f64>>,
+    pub(crate) covariance: Option<Vec<f64>>,
     /// The joint-extrapolation check, if the file has one.
-    pub joint: Option<Joint>,
+    pub(crate) joint: Option<Joint>,
     /// Training share of each level, per covariate (empty for non-categorical covariates).
-    pub level_shares: Vec<Vec<f64>>,
+    pub(crate) level_shares: Vec<Vec<f64>>,
     /// The training-mean profile: numeric covariates at their means, categorical at their
     /// shares. Effects at means are evaluated here.
-    pub mean_profile: Vec<Value>,
+    pub(crate) mean_profile: Vec<Value>,
     /// The reference profile for contributions: numeric covariates at their means, categorical
     /// at their reference level.
-    pub reference_profile: Vec<Value>,
+    pub(crate) reference_profile: Vec<Value>,
     /// `(term index, covariate index)` of every log term, for the domain check.
-    pub log_terms: Vec<(usize, usize)>,
+    pub(crate) log_terms: Vec<(usize, usize)>,
     /// For each covariate, the indices of the terms that involve it.
-    pub terms_of_covariate: Vec<Vec<usize>>,
+    pub(crate) terms_of_covariate: Vec<Vec<usize>>,
 }
 
 /// Model names: lower-case letters, digits and `-`, starting with a letter; at most 64.
@@ -117,6 +157,47 @@ pub fn is_version_label(s: &str) -> bool {
 }
 
 impl Model {
+    /// The model file this model was validated from (for describing and re-serialising it).
+    pub fn file(&self) -> &ModelFile {
+        &self.file
+    }
+
+    /// The link function.
+    pub fn link(&self) -> Link {
+        self.link
+    }
+
+    /// Covariates, in file order; observations are parsed into this order.
+    pub fn covariates(&self) -> &[Covariate] {
+        &self.covariates
+    }
+
+    /// Terms, in file order (the order of [`Model::coefficients`]).
+    pub fn terms(&self) -> &[Term] {
+        &self.terms
+    }
+
+    /// The canonical text of each term, as reports and answers print it.
+    pub fn term_labels(&self) -> &[String] {
+        &self.term_labels
+    }
+
+    /// The coefficient of each term.
+    pub fn coefficients(&self) -> &[f64] {
+        &self.coefficients
+    }
+
+    /// The coefficients' covariance, row-major `k × k`, when the file carries one.
+    pub fn covariance(&self) -> Option<&[f64]> {
+        self.covariance.as_deref()
+    }
+
+    /// The training-mean profile: numeric covariates at their means, categorical ones at their
+    /// training shares (where effects at the means are evaluated).
+    pub fn mean_profile(&self) -> &[Value] {
+        &self.mean_profile
+    }
+
     /// Parse and validate a model file from its bytes.
     pub fn from_json(bytes: &[u8]) -> Result<Model, ModelError> {
         let file: ModelFile = serde_json::from_slice(bytes).map_err(|e| {

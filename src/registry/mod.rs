@@ -14,7 +14,7 @@ use crate::model::Model;
 
 pub mod gate;
 pub mod lifecycle;
-pub mod limits;
+pub(crate) mod limits;
 pub mod load;
 pub mod store;
 pub mod watch;

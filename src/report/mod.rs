@@ -17,10 +17,10 @@
 //! formats always carry the same numbers. Nothing here computes statistics of its own beyond
 //! the coefficient table: effects come from the engine.
 
-pub mod axis;
-pub mod cautions;
-pub mod coefficients;
-pub mod data;
+pub(crate) mod axis;
+pub(crate) mod cautions;
+pub(crate) mod coefficients;
+pub(crate) mod data;
 pub mod svg;
 pub mod text;
 

@@ -56,12 +56,12 @@ pub fn check_answer(model: &Model, got: &Json, expected: &Answer, options: &Opti
         let effects = got["effects"].as_array().expect("effects");
         assert_eq!(effects.len(), expected.effects.len());
         for (g, e) in effects.iter().zip(&expected.effects) {
-            let c = &model.covariates[e.slot.covariate];
-            assert_eq!(g["covariate"], json!(c.name));
+            let c = &model.covariates()[e.slot.covariate];
+            assert_eq!(g["covariate"], json!(c.name()));
             assert_eq!(g["kind"], json!(e.slot.kind.name()));
             if let Some(l) = e.slot.level {
-                assert_eq!(g["level"], json!(c.levels[l]));
-                assert_eq!(g["reference"], json!(c.levels[c.reference]));
+                assert_eq!(g["level"], json!(c.levels()[l]));
+                assert_eq!(g["reference"], json!(c.levels()[c.reference()]));
             }
             same(&g["effect"], e.effect, "effect");
             match e.std_error {
@@ -91,7 +91,7 @@ pub fn check_answer(model: &Model, got: &Json, expected: &Answer, options: &Opti
                 max,
             } => {
                 assert_eq!(g["code"], json!("out_of_range"));
-                assert_eq!(g["covariate"], json!(model.covariates[covariate].name));
+                assert_eq!(g["covariate"], json!(model.covariates()[covariate].name()));
                 same(&g["value"], value, "warning value");
                 assert_eq!(g["training_range"], json!({"min": min, "max": max}));
             }
@@ -112,13 +112,16 @@ pub fn check_answer(model: &Model, got: &Json, expected: &Answer, options: &Opti
         let contributions = got["contributions"].as_array().expect("contributions");
         assert_eq!(contributions.len(), expected.contributions.len());
         for (g, c) in contributions.iter().zip(&expected.contributions) {
-            assert_eq!(g["covariate"], json!(model.covariates[c.covariate].name));
+            assert_eq!(
+                g["covariate"],
+                json!(model.covariates()[c.covariate].name())
+            );
             same(&g["contribution"], c.contribution, "contribution");
         }
     } else {
         assert!(got.get("contributions").is_none());
     }
-    match (expected.band, &model.file.decision) {
+    match (expected.band, &model.file().decision) {
         (Some(b), Some(d)) => assert_eq!(got["band"], json!(d.bands[b].name)),
         _ => assert!(got.get("band").is_none()),
     }
@@ -447,7 +450,7 @@ fn a_model_without_covariance_says_its_answers_carry_no_intervals() {
 }
 
 fn curve_values(model: &Model, over: usize, held: &[(usize, Value)], x: Value) -> Answer {
-    let mut values = model.mean_profile.clone();
+    let mut values = model.mean_profile().to_vec();
     for &(j, v) in held {
         values[j] = v;
     }

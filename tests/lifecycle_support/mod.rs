@@ -237,7 +237,7 @@ pub fn finished(mut file: ModelFile) -> ModelFile {
                 .parse_observation(&observation, &mut values)
                 .expect("the check observation is valid");
             CheckCase {
-                probability: model.link.probability(model.linear_index_of(&values)),
+                probability: model.link().probability(model.linear_index_of(&values)),
                 observation,
             }
         })

@@ -22,8 +22,8 @@
 //! ([`crate::registry::lifecycle`]).
 
 pub mod atomic;
-pub mod history;
-pub mod lock;
+pub(crate) mod history;
+pub(crate) mod lock;
 
 use std::fs;
 use std::io;

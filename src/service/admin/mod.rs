@@ -17,9 +17,9 @@
 //! (which never holds a header), and `ogive_http_requests_total` and the latency histogram,
 //! with route labels prefixed `admin:` so that they never mix with the callers' traffic.
 
-pub mod auth;
-pub mod refusals;
-pub mod routes;
+pub(crate) mod auth;
+pub(crate) mod refusals;
+pub(crate) mod routes;
 
 use std::io;
 use std::net::{SocketAddr, TcpListener};

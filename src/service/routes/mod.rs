@@ -2,13 +2,13 @@
 //! ([`configure`]). Each resource answers a method it does not take with 405 and an `Allow`
 //! header; a path that matches no route gets 404, both as problem details.
 
-pub mod curve;
-pub mod health;
-pub mod models;
-pub mod monitoring;
-pub mod openapi;
-pub mod outcomes;
-pub mod probability;
+pub(crate) mod curve;
+pub(crate) mod health;
+pub(crate) mod models;
+pub(crate) mod monitoring;
+pub(crate) mod openapi;
+pub(crate) mod outcomes;
+pub(crate) mod probability;
 
 use actix_web::{web, HttpResponse};
 
