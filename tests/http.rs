@@ -8,6 +8,7 @@
 //! malformed.rs    the catalogue sent through the client, and related refusals
 //! concurrency.rs  many concurrent clients get exactly the engine's answers
 //! contract.rs     live answers validated against the served OpenAPI document; metric names
+//! dashboards.rs   CORS for listed origins, ETags on the model listings, stored versions
 //! operation.rs    request ids, panics, header limits, draining and shutdown, the binary itself
 //! strict.rs       strict body reading (repeated keys, empty, BOM, compression) and the echo rule
 //! ```
@@ -18,6 +19,8 @@ mod catalogue;
 mod concurrency;
 #[path = "http/contract.rs"]
 mod contract;
+#[path = "http/dashboards.rs"]
+mod dashboards;
 #[path = "http/fixture.rs"]
 mod fixture;
 #[path = "http/malformed.rs"]

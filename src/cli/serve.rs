@@ -22,6 +22,7 @@ use crate::registry::watch::DEFAULT_INTERVAL;
 use crate::registry::Registry;
 use crate::service::admin::auth::{DEFAULT_LABEL, TOKEN_ENV};
 use crate::service::admin::{self, AdminState, AdminToken};
+use crate::service::cors::{parse_origin, CorsOrigins};
 use crate::service::example::example_curl;
 use crate::service::follow::Follower;
 use crate::service::shadow::{Shadowing, Share};
@@ -116,6 +117,12 @@ pub struct ServeArgs {
     /// After SIGTERM, the longest wait for in-flight requests before exiting, in milliseconds.
     #[arg(long, env = "OGIVE_SHUTDOWN_TIMEOUT_MS", default_value_t = Settings::default().shutdown_timeout_ms)]
     pub shutdown_timeout_ms: u64,
+    /// An origin whose browser pages may call the public listener (CORS), written as browsers
+    /// send it: scheme://host[:port], e.g. https://dashboard.example.org. Repeatable, or
+    /// comma-separated; none by default, and never '*'.
+    #[arg(long, env = "OGIVE_CORS_ORIGIN", value_name = "ORIGIN",
+          value_parser = parse_origin, value_delimiter = ',')]
+    pub cors_origin: Vec<String>,
     /// Log each request's covariate values (they may be personal data; off by default).
     #[arg(long, env = "OGIVE_LOG_OBSERVATIONS")]
     pub log_observations: bool,
@@ -207,6 +214,8 @@ impl ServeArgs {
             drain_delay_ms: self.drain_delay_ms,
             shutdown_timeout_ms: self.shutdown_timeout_ms,
             log_observations: self.log_observations,
+            cors_origins: CorsOrigins::new(&self.cors_origin)
+                .expect("each origin was checked when the arguments were parsed"),
         }
     }
 }
@@ -275,7 +284,8 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
         .next()
         .map(|e| e.live.clone());
     registry.replace(report.snapshot);
-    let state = AppState::new(registry, metrics, settings.clone(), all_loaded);
+    let state = AppState::new(registry, metrics, settings.clone(), all_loaded)
+        .with_stored_versions(&args.models);
     let state = if args.monitoring {
         let windows = MonitorSettings {
             drift_window: args.drift_window,
@@ -373,6 +383,49 @@ mod tests {
         let help = serve.render_long_help().to_string();
         assert!(help.contains("--monitoring <on|off>"), "{help}");
         assert!(!help.contains("possible values: true, false"), "{help}");
+    }
+
+    #[test]
+    fn cors_origins_are_listed_one_by_one_and_never_as_a_wildcard() {
+        use clap::Parser;
+        let parse = |args: &[&str]| {
+            let mut all = vec!["ogive", "serve"];
+            all.extend_from_slice(args);
+            crate::cli::Cli::try_parse_from(all)
+        };
+        let refused = parse(&["--cors-origin", "*"]).expect_err("a wildcard");
+        assert!(
+            refused.to_string().contains("list each origin"),
+            "{refused}"
+        );
+        let refused = parse(&["--cors-origin", "https://a.example/app"]).expect_err("a path");
+        assert!(
+            refused.to_string().contains("scheme, host and port only"),
+            "{refused}"
+        );
+        let parsed = parse(&[
+            "--cors-origin",
+            "https://a.example,http://127.0.0.1:3000",
+            "--cors-origin",
+            "https://B.example",
+        ])
+        .expect("origins");
+        let crate::cli::Command::Serve(args) = parsed.command else {
+            panic!("not serve");
+        };
+        let settings = args.settings();
+        assert_eq!(
+            settings.cors_origins.origins(),
+            [
+                "https://a.example",
+                "http://127.0.0.1:3000",
+                "https://b.example"
+            ]
+        );
+        assert!(parse(&[]).is_ok_and(|c| match c.command {
+            crate::cli::Command::Serve(args) => args.settings().cors_origins.is_empty(),
+            _ => false,
+        }));
     }
 
     #[test]

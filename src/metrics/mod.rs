@@ -220,6 +220,28 @@ impl Metrics {
         }
     }
 
+    /// The handles for scoring with a stored version that is not live: its observations count
+    /// in `ogive_observations_scored_total` under its own version label, while the model-wide
+    /// series (predicted probabilities, warnings) stay the live version's, so the handles for
+    /// those are detached from the registry.
+    pub fn scoring_not_live(&self, model: &Model) -> prometheus::Result<ScoringMetrics> {
+        let detached =
+            |what: &str| IntCounter::new(format!("ogive_not_live_{what}"), "not exported");
+        Ok(ScoringMetrics {
+            scored: self
+                .observations_scored
+                .with_label_values(&[model.name(), model.version()]),
+            probability: Histogram::with_opts(HistogramOpts::new(
+                "ogive_not_live_probability",
+                "not exported",
+            ))?,
+            unusual: detached("unusual")?,
+            out_of_range: (0..model.covariates.len())
+                .map(|_| detached("out_of_range"))
+                .collect::<prometheus::Result<_>>()?,
+        })
+    }
+
     /// Record one answered request.
     pub fn record_request(&self, route: &str, method: &str, status: u16, seconds: f64) {
         let code = status.to_string();

@@ -173,6 +173,22 @@ impl Monitor {
         )
     }
 
+    /// Seal one receipt per probability of a version that answered without being live: its
+    /// receipts name it, so outcomes reported with them count toward its own calibration, and
+    /// nothing enters a drift window (such calls are not the live traffic).
+    pub fn seal_not_live(
+        &self,
+        model: &Model,
+        probabilities: impl ExactSizeIterator<Item = f64>,
+    ) -> Result<Vec<String>, RandomError> {
+        self.keys.seal_all(
+            model.name(),
+            model.version(),
+            receipt::now_ms(),
+            probabilities,
+        )
+    }
+
     /// Check the receipt `token` for `model_name` and record `outcome` for the version it
     /// names.
     pub fn report_outcome(

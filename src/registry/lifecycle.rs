@@ -352,6 +352,13 @@ fn existing_dir(root: &Path, name: &str) -> Result<ModelDir, LifecycleError> {
     Ok(dir)
 }
 
+/// Version `version` of model `name` as stored under `root`, read as every promotion reads it:
+/// checked against the digest recorded when it was stored, and through steps 1–2 of the gate
+/// (for serving a stored version that is not live, `service::stored`).
+pub fn read_stored(root: &Path, name: &str, version: &str) -> Result<Model, LifecycleError> {
+    load_stored(&existing_dir(root, name)?, version)
+}
+
 /// Read a stored version, checked against the digest recorded when it was stored, and gate it
 /// (steps 1–2).
 fn load_stored(dir: &ModelDir, version: &str) -> Result<Model, LifecycleError> {

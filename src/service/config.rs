@@ -7,6 +7,8 @@
 use std::net::SocketAddr;
 use std::time::Duration;
 
+use super::cors::CorsOrigins;
+
 /// Limits on what one request may carry and how long a client may take.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Limits {
@@ -75,6 +77,8 @@ pub struct Settings {
     pub shutdown_timeout_ms: u64,
     /// Log the covariate values of each observation (off by default: they may be personal data).
     pub log_observations: bool,
+    /// The origins whose browser pages may call the public listener (CORS); empty by default.
+    pub cors_origins: CorsOrigins,
 }
 
 impl Default for Settings {
@@ -86,6 +90,7 @@ impl Default for Settings {
             drain_delay_ms: 5_000,
             shutdown_timeout_ms: 30_000,
             log_observations: false,
+            cors_origins: CorsOrigins::default(),
         }
     }
 }

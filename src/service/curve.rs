@@ -389,13 +389,6 @@ pub fn etag(model: &Model) -> String {
     format!("\"{hash:016x}\"")
 }
 
-/// Whether an `If-None-Match` header value matches `etag` (weak comparison, RFC 9110 §13.1.2).
-pub fn if_none_match(header: &str, etag: &str) -> bool {
-    header.split(',').map(str::trim).any(|candidate| {
-        candidate == "*" || candidate.strip_prefix("W/").unwrap_or(candidate) == etag
-    })
-}
-
 struct ValueView<'a>(&'a Model, usize, Value);
 
 impl Serialize for ValueView<'_> {

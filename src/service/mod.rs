@@ -3,7 +3,8 @@
 //!
 //! ```text
 //! mod.rs          the app factory and server start (this file)
-//! config.rs       settings: address, limits, timeouts, drain, logging
+//! config.rs       settings: address, limits, timeouts, drain, logging, CORS origins
+//! cors.rs         cross-origin calls from the listed browser origins only
 //! state.rs        what handlers share: registry, metrics, health, settings
 //! routes/         one file per route family; routes/mod.rs mounts them
 //! problem.rs      RFC 9457 problem details, the one error type
@@ -13,12 +14,14 @@
 //! observations.rs observations → engine values, service bounds
 //! scoring.rs      driving the engine for a probability request
 //! curve.rs        the curve of one covariate, its ETag
+//! etag.rs         entity tags and If-None-Match for the read routes
 //! openapi.rs      the OpenAPI 3.1 document (openapi.json + per-model paths)
 //! middleware.rs   request id, header limit, panic catching, metrics, the log line
 //! request_id.rs   X-Request-Id validation and generation
 //! example.rs      an example observation and curl command for a model
 //! shutdown.rs     signals, draining, graceful stop
 //! shadow.rs       scoring a shadow candidate beside the live version, and its report
+//! stored.rs       stored versions that are not live, loaded on demand for scoring
 //! follow.rs       following the model directory: the watcher, readiness, its thread
 //! admin/          the admin listener: token, lifecycle and shadow routes, its document
 //! ```
@@ -30,8 +33,10 @@ pub mod admin;
 pub mod body;
 pub mod compute;
 pub(crate) mod config;
+pub(crate) mod cors;
 pub(crate) mod curve;
 pub mod dto;
+pub(crate) mod etag;
 pub(crate) mod example;
 pub mod follow;
 pub mod middleware;
@@ -44,6 +49,7 @@ pub mod scoring;
 pub mod shadow;
 pub(crate) mod shutdown;
 pub(crate) mod state;
+pub(crate) mod stored;
 
 use std::io;
 use std::net::{SocketAddr, TcpListener};
@@ -53,6 +59,7 @@ use std::time::Duration;
 use actix_web::{middleware::from_fn, web, App, HttpServer};
 
 pub use config::{Limits, Settings};
+pub use cors::CorsOrigins;
 pub use state::{AppState, Health};
 
 /// Extra routes to mount beside the public ones (for embedding and tests).
@@ -78,6 +85,7 @@ pub fn public_server(
         App::new()
             .app_data(data.clone())
             .app_data(body_timeout)
+            .wrap(from_fn(cors::cors))
             .wrap(from_fn(middleware::observe))
             .configure(routes::configure)
             .configure(move |cfg| {

@@ -8,7 +8,8 @@
 //! one observation:  {request_id, model, version, link, level, <answer fields>, [receipt], notes, [average_effects], [at_means]}
 //! a batch:          {request_id, model, version, link, level, count, results: [{index, <answer fields>, [receipt]}], notes, [average_effects], [at_means]}
 //! notes             no_covariance (no intervals can be given), saturated_interval (a
-//!                   probability interval of zero width: within rounding of 0 or 1)
+//!                   probability interval of zero width: within rounding of 0 or 1), not_live
+//!                   (a stored version asked for by label, not the live one: see [`NOT_LIVE`])
 //! ```
 //!
 //! Receipts are sealed by monitoring ([`crate::metrics::monitor::Monitor::record_scored`]) and
@@ -73,6 +74,23 @@ pub struct Scored<'a> {
     averages: Option<(Average, Vec<Average>)>,
     at_means: Option<Answer>,
     receipts: Vec<String>,
+    /// The live version's label, when the answering version is a stored one that is not live.
+    not_live: Option<String>,
+}
+
+/// The code of the note on an answer from a stored version that is not live.
+pub const NOT_LIVE: &str = "not_live";
+
+/// The note's sentence: which version answered, that it is not live, and what that means for
+/// its receipts and the monitoring series.
+pub fn not_live_message(model: &Model, live_version: &str) -> String {
+    format!(
+        "version '{}' of model '{}' is stored but not live (the live version is '{live_version}'):          callers of /models/{}/probability get the live version's answers, not these;          receipts name '{}', so outcomes reported with them count toward its calibration only,          and these calls enter no drift window and no model-wide series",
+        model.version(),
+        model.name(),
+        model.name(),
+        model.version()
+    )
 }
 
 /// Score every observation (`values` is `n × covariates`, already checked).
@@ -166,6 +184,7 @@ pub fn score<'a>(
         averages,
         at_means,
         receipts: Vec::new(),
+        not_live: None,
     })
 }
 
@@ -301,7 +320,20 @@ impl Serialize for Scored<'_> {
         if self.answers.iter().any(zero_width) {
             notes.push(SATURATED);
         }
-        map.serialize_entry("notes", &notes)?;
+        match &self.not_live {
+            None => map.serialize_entry("notes", &notes)?,
+            Some(live) => {
+                let mut all: Vec<serde_json::Value> = notes
+                    .iter()
+                    .map(|n| serde_json::json!({"code": n.code, "message": n.message}))
+                    .collect();
+                all.push(serde_json::json!({
+                    "code": NOT_LIVE,
+                    "message": not_live_message(model, live),
+                }));
+                map.serialize_entry("notes", &all)?;
+            }
+        }
         if let Some((probability, effects)) = &self.averages {
             map.serialize_entry(
                 "average_effects",
@@ -337,6 +369,12 @@ impl Scored<'_> {
     /// Give the answers their receipts, one per answer in order.
     pub fn set_receipts(&mut self, receipts: Vec<String>) {
         self.receipts = receipts;
+    }
+
+    /// Mark the answer as coming from a stored version that is not live, `live_version` being
+    /// the live one (a `not_live` note says so).
+    pub fn set_not_live(&mut self, live_version: &str) {
+        self.not_live = Some(live_version.to_string());
     }
 
     /// The answer's JSON bytes.

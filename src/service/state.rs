@@ -7,6 +7,7 @@ use std::sync::Arc;
 use super::compute::Compute;
 use super::config::Settings;
 use super::shadow::Shadowing;
+use super::stored::StoredVersions;
 use crate::metrics::monitor::Monitor;
 use crate::metrics::Metrics;
 use crate::registry::Registry;
@@ -96,6 +97,9 @@ pub struct AppState {
     pub shadow: Option<Arc<Shadowing>>,
     /// The scoring pool and the in-flight counts.
     pub compute: Arc<Compute>,
+    /// The model directory's stored versions, for scoring with one that is not live; `None`
+    /// when no directory is served (then only the live and shadow versions can be asked for).
+    pub stored: Option<Arc<StoredVersions>>,
 }
 
 impl AppState {
@@ -115,6 +119,7 @@ impl AppState {
             settings: Arc::new(settings),
             monitor: None,
             shadow: None,
+            stored: None,
         }
     }
 
@@ -122,6 +127,14 @@ impl AppState {
     pub fn with_monitor(self, monitor: Monitor) -> AppState {
         AppState {
             monitor: Some(monitor),
+            ..self
+        }
+    }
+
+    /// The same state able to score with any version stored in the model directory `root`.
+    pub fn with_stored_versions(self, root: impl Into<std::path::PathBuf>) -> AppState {
+        AppState {
+            stored: Some(Arc::new(StoredVersions::new(root))),
             ..self
         }
     }

@@ -6,12 +6,14 @@ use serde_json::{json, Value as Json};
 
 use crate::fixture::{lease_observation, Reply, Server};
 
-struct Contract {
+/// The served document, read once.
+pub struct Contract {
     doc: Json,
 }
 
 impl Contract {
-    fn fetch(server: &Server) -> Contract {
+    /// The document `server` serves.
+    pub fn fetch(server: &Server) -> Contract {
         Contract {
             doc: server.get("/openapi.json").json(),
         }
@@ -42,7 +44,7 @@ impl Contract {
     /// The documented response of `path`'s operation for `status`, checked: the media type and
     /// the schema.
     #[track_caller]
-    fn check_reply(&self, path: &str, method: &str, reply: &Reply, what: &str) {
+    pub fn check_reply(&self, path: &str, method: &str, reply: &Reply, what: &str) {
         let operation = &self.doc["paths"][path][method];
         assert!(operation.is_object(), "{method} {path} is not documented");
         let status = reply.status.to_string();
@@ -173,6 +175,22 @@ fn live_answers_match_the_served_document() {
     );
     let reply = server.send("PUT", "/models", &[], None);
     contract.check_reply("/models", "get", &reply, "405 under default");
+    let version = "/models/{name}/versions/{version}/probability";
+    let by_label = server.post(
+        "/models/lease-test/versions/2026-01/probability",
+        &bodies[3],
+    );
+    assert_eq!(by_label.status, 200);
+    contract.check_reply(version, "post", &by_label, "the live version by label");
+    let missing = server.post("/models/lease-test/versions/0.9/probability", &bodies[0]);
+    assert_eq!(missing.status, 404);
+    contract.check_reply(version, "post", &missing, "a version not stored");
+    for path in ["/models", "/models/lease-test"] {
+        let tag = server.get(path).header("etag").expect("etag").to_string();
+        let cached = server.send("GET", path, &[("If-None-Match", &tag)], None);
+        assert_eq!(cached.status, 304);
+        contract.check_reply(path, "get", &cached, "not modified");
+    }
 }
 
 #[test]

@@ -88,6 +88,11 @@ impl Server {
             model(&plain_file()),
         ]));
         let state = AppState::new(registry, Metrics::new().expect("metrics"), settings, true);
+        Server::start_state(state, extra)
+    }
+
+    /// Start serving this state.
+    pub fn start_state(state: AppState, extra: Option<Configure>) -> Server {
         let background = Background::start(state, extra).expect("server starts");
         let base = format!("http://{}", background.addr);
         let agent = ureq::AgentBuilder::new()

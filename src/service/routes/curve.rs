@@ -1,11 +1,11 @@
 //! `GET /models/{name}/curve`: probability and effect along a grid of one covariate, with an
 //! ETag that changes only when the live version changes (`If-None-Match` → 304).
 
-use actix_web::http::header;
 use actix_web::{web, HttpMessage, HttpRequest, HttpResponse};
 
 use super::models::find;
-use crate::service::curve::{compute, etag, if_none_match, parse_curve_request};
+use crate::service::curve::{compute, etag, parse_curve_request};
+use crate::service::etag::{already_held, json_tagged, not_modified};
 use crate::service::middleware::Scored;
 use crate::service::problem::{Kind, Problem};
 use crate::service::state::AppState;
@@ -28,22 +28,10 @@ pub async fn curve(
         .map_err(|e| Problem::new(Kind::InvalidQuery, format!("the query cannot be read: {e}")))?
         .into_inner();
     let request = parse_curve_request(model, &pairs, state.settings.limits.max_curve_points)?;
-    let matched = req
-        .headers()
-        .get(header::IF_NONE_MATCH)
-        .and_then(|v| v.to_str().ok())
-        .is_some_and(|v| if_none_match(v, &tag));
-    if matched {
-        return Ok(HttpResponse::NotModified()
-            .insert_header((header::ETAG, tag))
-            .insert_header((header::CACHE_CONTROL, "no-cache"))
-            .finish());
+    if already_held(&req, &tag) {
+        return Ok(not_modified(&tag));
     }
     let curve = compute(model, request)?;
     let json = serde_json::to_vec(&curve).map_err(|e| Problem::internal(&e))?;
-    Ok(HttpResponse::Ok()
-        .insert_header((header::CONTENT_TYPE, "application/json"))
-        .insert_header((header::ETAG, tag))
-        .insert_header((header::CACHE_CONTROL, "no-cache"))
-        .body(json))
+    Ok(json_tagged(&req, &tag, json))
 }

@@ -75,6 +75,11 @@ pub fn configure(cfg: &mut web::ServiceConfig) {
     )
     .service(get("/models/{name}/curve", curve::curve))
     .service(
+        resource("/models/{name}/versions/{version}/probability")
+            .route(web::post().to(Guarded(probability::version_probability)))
+            .default_service(web::to(method_not_allowed("POST"))),
+    )
+    .service(
         resource("/models/{name}/outcomes")
             .route(web::post().to(Guarded(outcomes::report)))
             .default_service(web::to(method_not_allowed("POST"))),

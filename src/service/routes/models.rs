@@ -1,13 +1,15 @@
 //! `GET /models` (what is loaded) and `GET /models/{name}` (one model's live version, link,
-//! covariates with their training ranges, and terms).
+//! covariates with their training ranges, and terms), each with a strong ETag of its bytes
+//! (`If-None-Match` → 304, see `service::etag`).
 
 use std::sync::Arc;
 
-use actix_web::{web, HttpResponse};
+use actix_web::{web, HttpRequest, HttpResponse};
 use serde_json::{json, Value as Json};
 
 use crate::model::{CovariateKind, Model};
 use crate::registry::Entry;
+use crate::service::etag::json_tagged_by_bytes;
 use crate::service::problem::{echo, Kind, Problem};
 use crate::service::state::AppState;
 
@@ -91,14 +93,17 @@ fn covariate(model: &Model, j: usize) -> Json {
 }
 
 /// `GET /models`.
-pub async fn list(state: web::Data<AppState>) -> HttpResponse {
+pub async fn list(req: HttpRequest, state: web::Data<AppState>) -> Result<HttpResponse, Problem> {
     let snapshot = state.registry.snapshot();
     let models: Vec<Json> = snapshot.models.values().map(|e| summary(e)).collect();
-    HttpResponse::Ok().json(json!({ "models": models }))
+    let body =
+        serde_json::to_vec(&json!({ "models": models })).map_err(|e| Problem::internal(&e))?;
+    Ok(json_tagged_by_bytes(&req, body))
 }
 
 /// `GET /models/{name}`.
 pub async fn describe(
+    req: HttpRequest,
     state: web::Data<AppState>,
     name: web::Path<String>,
 ) -> Result<HttpResponse, Problem> {
@@ -161,5 +166,6 @@ pub async fn describe(
         "example".into(),
         Json::Object(crate::service::example::example_observation(model)),
     );
-    Ok(HttpResponse::Ok().json(body))
+    let body = serde_json::to_vec(&body).map_err(|e| Problem::internal(&e))?;
+    Ok(json_tagged_by_bytes(&req, body))
 }

@@ -1,5 +1,9 @@
 //! `POST /models/{name}/probability`: one observation or a batch, scored by the live version
 //! (and, once the answer is built, by the entry's shadow candidate, if any: `service::shadow`).
+//! `POST /models/{name}/versions/{version}/probability`: the same request scored by a stored
+//! version named by its label (`service::stored`), through the same code. When that version is
+//! not live, the answer carries a `not_live` note, its receipts name that version, and it
+//! enters no drift window, no model-wide series and no shadow comparison.
 //!
 //! The body is read on the I/O worker; a small one is parsed and scored there, a larger one on
 //! the scoring pool (`service::compute`), so that a large batch never delays the requests that
@@ -13,16 +17,25 @@ use actix_web::web::Bytes;
 use actix_web::{web, HttpMessage, HttpRequest, HttpResponse};
 
 use super::models::find;
-use crate::registry::Entry;
+use crate::model::Model;
+use crate::registry::{gate, Entry};
+use crate::service::admin::refusals::gate_problem;
 use crate::service::body::{parse_json, read_json_bytes};
 use crate::service::compute::{Admitted, INLINE_BODY_BYTES};
 use crate::service::dto::{parse_probability_request, Observations};
 use crate::service::middleware::Scored;
 use crate::service::observations::parse_all;
-use crate::service::problem::Problem;
+use crate::service::problem::{Kind, Problem};
 use crate::service::request_id::RequestId;
 use crate::service::scoring::score;
 use crate::service::state::AppState;
+
+/// Which version answers a request: the live one, or a stored one asked for by its label.
+struct Target {
+    entry: Arc<Entry>,
+    model: Arc<Model>,
+    live: bool,
+}
 
 /// Score the request's observations with the model's live version.
 pub async fn probability(
@@ -32,6 +45,71 @@ pub async fn probability(
     state: web::Data<AppState>,
 ) -> Result<HttpResponse, Problem> {
     let entry = find(&state, &name)?;
+    let model = Arc::clone(&entry.live);
+    let target = Target {
+        entry,
+        model,
+        live: true,
+    };
+    respond(req, payload, state, target).await
+}
+
+/// Score the request's observations with the stored version the path names.
+pub async fn version_probability(
+    req: HttpRequest,
+    path: web::Path<(String, String)>,
+    payload: web::Payload,
+    state: web::Data<AppState>,
+) -> Result<HttpResponse, Problem> {
+    let (name, version) = path.into_inner();
+    gate::check_labels(&name, &version).map_err(|e| gate_problem(&e))?;
+    let entry = find(&state, &name)?;
+    let model = stored_version(&state, &entry, &version).await?;
+    let live = Arc::ptr_eq(&model, &entry.live);
+    let target = Target { entry, model, live };
+    respond(req, payload, state, target).await
+}
+
+/// The version `version` of `entry`'s model: the live or shadow version already loaded, or one
+/// read from the model directory (off the I/O worker, on first use).
+async fn stored_version(
+    state: &AppState,
+    entry: &Entry,
+    version: &str,
+) -> Result<Arc<Model>, Problem> {
+    if entry.live.version() == version {
+        return Ok(Arc::clone(&entry.live));
+    }
+    if let Some(shadow) = entry.shadow.as_ref().filter(|s| s.version() == version) {
+        return Ok(Arc::clone(shadow));
+    }
+    let name = entry.live.name().to_string();
+    let Some(stored) = state.stored.clone() else {
+        return Err(Problem::new(
+            Kind::UnknownVersion,
+            format!(
+                "this process serves no model directory, so of model '{name}' only the live version '{}' can be asked for",
+                entry.live.version()
+            ),
+        )
+        .parameter("version"));
+    };
+    if let Some(model) = stored.cached(&name, version) {
+        return Ok(model);
+    }
+    let version = version.to_string();
+    web::block(move || stored.load(&name, &version))
+        .await
+        .map_err(|e| Problem::internal(&e))?
+}
+
+/// Read the body, score it with the target version (inline or on the pool) and answer.
+async fn respond(
+    req: HttpRequest,
+    payload: web::Payload,
+    state: web::Data<AppState>,
+    target: Target,
+) -> Result<HttpResponse, Problem> {
     let limits = &state.settings.limits;
     let bytes = read_json_bytes(&req, payload, limits.max_body_bytes).await?;
     let request_id = req
@@ -40,17 +118,18 @@ pub async fn probability(
         .cloned()
         .unwrap_or_else(RequestId::generate);
     let job_state = state.clone().into_inner();
-    let job_entry = Arc::clone(&entry);
+    let target = Arc::new(target);
+    let job_target = Arc::clone(&target);
     let inline = bytes.len() <= INLINE_BODY_BYTES;
-    let job = move || answer(&job_state, &job_entry, &bytes, request_id.as_str());
+    let job = move || answer(&job_state, &job_target, &bytes, request_id.as_str());
     let answered = if inline {
         job()
     } else {
         state.compute.run(job).await?
     };
     req.extensions_mut().insert(Scored {
-        model: entry.live.name().to_string(),
-        version: entry.live.version().to_string(),
+        model: target.model.name().to_string(),
+        version: target.model.version().to_string(),
         observations: answered.logged,
     });
     let (json, admission) = answered.result?;
@@ -67,11 +146,11 @@ struct Answered {
 }
 
 /// Parse, check, admit, score and serialize: everything after the body has arrived.
-fn answer(state: &AppState, entry: &Entry, bytes: &Bytes, request_id: &str) -> Answered {
+fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) -> Answered {
     let mut logged = None;
     let result = (|| {
         let limits = &state.settings.limits;
-        let model = &entry.live;
+        let model = &target.model;
         let body = parse_json(bytes)?;
         let request = parse_probability_request(&body, limits.max_batch)?;
         logged = state
@@ -87,18 +166,30 @@ fn answer(state: &AppState, entry: &Entry, bytes: &Bytes, request_id: &str) -> A
             .check_budget(count, model.coefficients.len())?;
         let admission = state.compute.admit(count)?;
         let values = parse_all(model, request.observations)?;
-        let metrics = state.metrics.scoring(model);
+        let metrics = if target.live {
+            state.metrics.scoring(model)
+        } else {
+            state
+                .metrics
+                .scoring_not_live(model)
+                .map_err(|e| Problem::internal(&e))?
+        };
         let mut scored = score(model, &request, &values, request_id, &metrics)?;
         if let Some(monitor) = &state.monitor {
             let probabilities = scored.answers().iter().map(|a| a.probability);
-            let receipts = monitor
-                .record_scored(model, &values, probabilities)
-                .map_err(|e| Problem::internal(&e))?;
-            scored.set_receipts(receipts);
+            let receipts = if target.live {
+                monitor.record_scored(model, &values, probabilities)
+            } else {
+                monitor.seal_not_live(model, probabilities)
+            };
+            scored.set_receipts(receipts.map_err(|e| Problem::internal(&e))?);
+        }
+        if !target.live {
+            scored.set_not_live(target.entry.live.version());
         }
         let json = scored.to_json()?;
-        if let Some(shadow) = &state.shadow {
-            shadow.compare(entry, &values, scored.answers());
+        if let (Some(shadow), true) = (&state.shadow, target.live) {
+            shadow.compare(&target.entry, &values, scored.answers());
         }
         Ok((json, admission))
     })();
