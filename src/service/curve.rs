@@ -87,12 +87,48 @@ fn descending(from: Option<f64>, to: Option<f64>, low: f64, high: f64) -> Proble
     .parameter(if from.is_some() { "from" } else { "to" })
 }
 
-/// Read and check the query of a curve request.
+/// Read and check the query of a curve request, in named steps: the parameter names, the
+/// covariate to run along, the grid options, the held values, a check of those values by the
+/// model's own rules, and the grid.
 pub fn parse_curve_request(
     model: &Model,
     pairs: &[(String, String)],
     max_points: usize,
 ) -> Result<CurveRequest, Problem> {
+    check_names(model, pairs)?;
+    let get = |name: &str| {
+        pairs
+            .iter()
+            .find(|(k, _)| k == name)
+            .map(|(_, v)| v.as_str())
+    };
+    let over = over_covariate(model, get("over"))?;
+    let points = points(get("points"), max_points)?;
+    let level = match get("level") {
+        None => 0.95,
+        Some(text) => number("level", text)?,
+    };
+    let mut options = parse_level(level).map_err(|p| p.parameter("level"))?;
+    options.contributions = false;
+    let from = bounded_end("from", get("from"))?;
+    let to = bounded_end("to", get("to"))?;
+    let held = held_values(model, pairs, over)?;
+    check_held(model, &held, over)?;
+    let (grid, range, clipped) = grid(model, over, from, to, points)?;
+    Ok(CurveRequest {
+        over,
+        grid,
+        held: held.values,
+        given: held.given,
+        options,
+        range,
+        clipped,
+        ignored_over: held.over_value.is_some(),
+    })
+}
+
+/// Step 1: every parameter is given once, and is a curve parameter or a covariate.
+fn check_names(model: &Model, pairs: &[(String, String)]) -> Result<(), Problem> {
     for (i, (key, _)) in pairs.iter().enumerate() {
         if pairs[..i].iter().any(|(k, _)| k == key) {
             return Err(Problem::new(
@@ -117,20 +153,19 @@ pub fn parse_curve_request(
             .parameter(key.as_str()));
         }
     }
-    let get = |name: &str| {
-        pairs
-            .iter()
-            .find(|(k, _)| k == name)
-            .map(|(_, v)| v.as_str())
-    };
-    let over_name = get("over").ok_or_else(|| {
+    Ok(())
+}
+
+/// Step 2: `over` names a covariate of the model.
+fn over_covariate(model: &Model, over: Option<&str>) -> Result<usize, Problem> {
+    let over_name = over.ok_or_else(|| {
         Problem::new(
             Kind::MissingCovariate,
             "name the covariate the curve runs along with 'over'",
         )
         .parameter("over")
     })?;
-    let over = model.covariate_index(over_name).ok_or_else(|| {
+    model.covariate_index(over_name).ok_or_else(|| {
         Problem::new(
             Kind::UnknownField,
             format!(
@@ -140,49 +175,65 @@ pub fn parse_curve_request(
             ),
         )
         .parameter("over")
-    })?;
-    let points = match get("points") {
-        None => DEFAULT_POINTS,
-        Some(text) => {
-            let n: i64 = text.trim().parse().map_err(|_| {
-                Problem::new(
-                    Kind::InvalidQuery,
-                    format!("'points' must be a whole number, got {}", echo(text)),
-                )
-                .parameter("points")
-            })?;
-            if n < 2 || n > max_points as i64 {
-                return Err(Problem::new(
-                    Kind::InvalidOption,
-                    format!("'points' must lie between 2 and {max_points}, got {n}"),
-                )
-                .parameter("points"));
-            }
-            n as usize
-        }
-    };
-    let level = match get("level") {
-        None => 0.95,
-        Some(text) => number("level", text)?,
-    };
-    let mut options = parse_level(level).map_err(|p| p.parameter("level"))?;
-    options.contributions = false;
-    let from = get("from").map(|t| number("from", t)).transpose()?;
-    let to = get("to").map(|t| number("to", t)).transpose()?;
-    for (name, x) in [("from", from), ("to", to)] {
-        if x.is_some_and(|x| x.abs() > MAX_MAGNITUDE) {
-            return Err(Problem::new(
-                Kind::OutsideDomain,
-                format!("'{name}' must lie within ±{MAX_MAGNITUDE:e}"),
-            )
-            .parameter(name));
-        }
-    }
+    })
+}
 
-    let mut held = model.mean_profile.clone();
-    let mut given = vec![false; model.covariates.len()];
-    let mut ignored_over = false;
-    let mut probe_over: Option<Value> = None;
+/// Step 3: `points`, a whole number from 2 to `max_points` ([`DEFAULT_POINTS`] if not given).
+fn points(text: Option<&str>, max_points: usize) -> Result<usize, Problem> {
+    let Some(text) = text else {
+        return Ok(DEFAULT_POINTS);
+    };
+    let n: i64 = text.trim().parse().map_err(|_| {
+        Problem::new(
+            Kind::InvalidQuery,
+            format!("'points' must be a whole number, got {}", echo(text)),
+        )
+        .parameter("points")
+    })?;
+    if n < 2 || n > max_points as i64 {
+        return Err(Problem::new(
+            Kind::InvalidOption,
+            format!("'points' must lie between 2 and {max_points}, got {n}"),
+        )
+        .parameter("points"));
+    }
+    Ok(n as usize)
+}
+
+/// Step 3 too: an end of the range (`from`, `to`), a finite number within the service's bounds.
+fn bounded_end(name: &str, text: Option<&str>) -> Result<Option<f64>, Problem> {
+    let x = text.map(|t| number(name, t)).transpose()?;
+    if x.is_some_and(|x| x.abs() > MAX_MAGNITUDE) {
+        return Err(Problem::new(
+            Kind::OutsideDomain,
+            format!("'{name}' must lie within ±{MAX_MAGNITUDE:e}"),
+        )
+        .parameter(name));
+    }
+    Ok(x)
+}
+
+/// The covariate values a curve holds, and which of them the query gave.
+struct HeldValues {
+    /// Every covariate's value: given, or the training-mean profile's.
+    values: Vec<Value>,
+    /// Which covariates the query gave (`over` excluded).
+    given: Vec<bool>,
+    /// A value the query gave for `over` itself: checked, then not used.
+    over_value: Option<Value>,
+}
+
+/// Step 4: the held values, each given one parsed by the model's rules for its kind.
+fn held_values(
+    model: &Model,
+    pairs: &[(String, String)],
+    over: usize,
+) -> Result<HeldValues, Problem> {
+    let mut held = HeldValues {
+        values: model.mean_profile.clone(),
+        given: vec![false; model.covariates.len()],
+        over_value: None,
+    };
     for (key, text) in pairs {
         if RESERVED.contains(&key.as_str()) {
             continue;
@@ -202,20 +253,23 @@ pub fn parse_curve_request(
             Problem::new(Kind::of_observation(&e), observation_detail(&e, None))
                 .parameter(key.as_str())
         })?;
-        given[j] = true;
         if j == over {
-            // Checked like any held value, then unused: the curve sets it along the grid.
-            ignored_over = true;
-            probe_over = Some(value);
-            continue;
+            held.over_value = Some(value);
+        } else {
+            held.given[j] = true;
+            held.values[j] = value;
         }
-        held[j] = value;
     }
-    // Check the given values with the model's own rules: a probe at valid defaults (counts at
-    // whole numbers) differs from a valid observation only where the caller gave values.
-    let mut probe = held.clone();
+    Ok(held)
+}
+
+/// Step 5: check the given values with the model's own rules: a probe at valid defaults
+/// (counts at whole numbers) differs from a valid observation only where the caller gave
+/// values.
+fn check_held(model: &Model, held: &HeldValues, over: usize) -> Result<(), Problem> {
+    let mut probe = held.values.clone();
     for (j, c) in model.covariates.iter().enumerate() {
-        if !given[j] {
+        if !held.given[j] {
             probe[j] = match c.kind {
                 CovariateKind::Categorical => Value::Level(c.reference),
                 CovariateKind::Count => Value::Number(c.training_mean.round()),
@@ -224,11 +278,12 @@ pub fn parse_curve_request(
             };
         }
     }
-    probe[over] = probe_over.unwrap_or(match model.covariates[over].kind {
-        CovariateKind::Categorical => Value::Level(model.covariates[over].reference),
-        _ => Value::Number(model.covariates[over].training_mean.round().max(1.0)),
-    });
-    given[over] = false;
+    probe[over] = held
+        .over_value
+        .unwrap_or(match model.covariates[over].kind {
+            CovariateKind::Categorical => Value::Level(model.covariates[over].reference),
+            _ => Value::Number(model.covariates[over].training_mean.round().max(1.0)),
+        });
     if let Err(e) = model.check_values(&probe) {
         return Err(
             Problem::new(Kind::of_observation(&e), observation_detail(&e, None))
@@ -238,15 +293,29 @@ pub fn parse_curve_request(
     if let Err((j, problem)) = check_bounds(model, &probe) {
         return Err(problem.parameter(model.covariates[j].name.as_str()));
     }
+    Ok(())
+}
 
+/// The grid values, the numeric range actually used, and whether it was clipped.
+type Grid = (Vec<Value>, Option<(f64, f64)>, bool);
+
+/// Step 6: the grid of `over`: its levels, 0 and 1, or `points` values from `from` to `to`
+/// (default: the training range), clipped to the covariate's domain.
+fn grid(
+    model: &Model,
+    over: usize,
+    from: Option<f64>,
+    to: Option<f64>,
+    points: usize,
+) -> Result<Grid, Problem> {
     let covariate = &model.covariates[over];
-    let (grid, range, clipped) = match covariate.kind {
-        CovariateKind::Categorical => (
+    match covariate.kind {
+        CovariateKind::Categorical => Ok((
             (0..covariate.levels.len()).map(Value::Level).collect(),
             None,
             false,
-        ),
-        CovariateKind::Binary => (vec![Value::Number(0.0), Value::Number(1.0)], None, false),
+        )),
+        CovariateKind::Binary => Ok((vec![Value::Number(0.0), Value::Number(1.0)], None, false)),
         CovariateKind::Continuous | CovariateKind::Count => {
             let has_log = model.log_terms.iter().any(|&(_, c)| c == over);
             let low = if has_log {
@@ -281,19 +350,9 @@ pub fn parse_curve_request(
                     grid.push(Value::Number(x));
                 }
             }
-            (grid, Some((a, b)), clipped)
+            Ok((grid, Some((a, b)), clipped))
         }
-    };
-    Ok(CurveRequest {
-        over,
-        grid,
-        held,
-        given,
-        options,
-        range,
-        clipped,
-        ignored_over,
-    })
+    }
 }
 
 /// One point of a curve.
