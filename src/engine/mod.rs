@@ -16,7 +16,8 @@
 //! discrete change      Δ = F(z_b) − F(z_a)       ∂Δ/∂β = f(z_b)·t_b − f(z_a)·t_a
 //! standard error       √(∇ᵀV∇);  effect interval: effect ± q·se
 //! elasticity           m·x/p  (continuous covariates)
-//! contribution of j    z(x) − z(x with xⱼ at its reference: training mean, or reference level)
+//! contribution of j    z(x) − z(x with xⱼ alone at the training-mean profile: its training
+//!                      mean, or for a categorical covariate its training shares)
 //! ```
 
 mod average;
@@ -137,12 +138,13 @@ pub enum Warning {
     },
 }
 
-/// How far one covariate moves the linear index from the reference profile.
+/// How far one covariate moves the linear index from the training-mean profile.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Contribution {
     /// The covariate's index.
     pub covariate: usize,
-    /// z(x) − z(x with this covariate at its reference value).
+    /// z(x) − z(x with this covariate alone at the training-mean profile: its training mean,
+    /// or for a categorical covariate its training shares).
     pub contribution: f64,
 }
 
@@ -829,13 +831,16 @@ impl Scorer {
         }
     }
 
+    /// Each covariate's contribution, measured from the training-mean profile for every kind:
+    /// a categorical covariate moves to its training shares, not to its reference level, so
+    /// its contribution does not depend on which level the fit took as reference (a choice of
+    /// coding, not of data), and without product terms the contributions add up to
+    /// z(x) − z(training-mean profile).
     fn compute_contributions(&mut self, model: &Model, values: &[Value]) {
-        for (j, (&value, &reference_value)) in
-            values.iter().zip(&model.reference_profile).enumerate()
-        {
+        for (j, (&value, &profile_value)) in values.iter().zip(&model.mean_profile).enumerate() {
             let mut c = 0.0;
-            if value != reference_value {
-                self.alternative[j] = reference_value;
+            if value != profile_value {
+                self.alternative[j] = profile_value;
                 for &i in &model.terms_of_covariate[j] {
                     let reference = model.terms[i].value(&self.alternative, &model.level_shares);
                     c += model.coefficients[i] * (self.terms[i] - reference);

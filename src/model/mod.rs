@@ -128,11 +128,8 @@ pub struct Model {
     /// Training share of each level, per covariate (empty for non-categorical covariates).
     pub(crate) level_shares: Vec<Vec<f64>>,
     /// The training-mean profile: numeric covariates at their means, categorical at their
-    /// shares. Effects at means are evaluated here.
+    /// shares. Effects at means are evaluated here, and contributions are measured from it.
     pub(crate) mean_profile: Vec<Value>,
-    /// The reference profile for contributions: numeric covariates at their means, categorical
-    /// at their reference level.
-    pub(crate) reference_profile: Vec<Value>,
     /// `(term index, covariate index)` of every log term, for the domain check.
     pub(crate) log_terms: Vec<(usize, usize)>,
     /// For each covariate, the indices of the terms that involve it.
@@ -271,13 +268,6 @@ impl Model {
                 _ => Value::Number(c.training_mean),
             })
             .collect();
-        let reference_profile = covariates
-            .iter()
-            .map(|c| match c.kind {
-                CovariateKind::Categorical => Value::Level(c.reference),
-                _ => Value::Number(c.training_mean),
-            })
-            .collect();
         let log_terms = terms
             .iter()
             .enumerate()
@@ -300,7 +290,6 @@ impl Model {
             joint,
             level_shares,
             mean_profile,
-            reference_profile,
             log_terms,
             terms_of_covariate,
         };
