@@ -103,10 +103,11 @@ pub fn document(snapshot: &Snapshot, limits: &Limits) -> Json {
         let model = &entry.live;
         let name = component_name(model);
         doc["components"]["schemas"][&name] = observation_schema(model);
-        let observation_ref = json!({"$ref": format!("#/components/schemas/{name}")});
+        let observation_ref = json!(format!("#/components/schemas/{name}"));
         let mut request = request_template.clone();
-        request["properties"]["observation"] = observation_ref.clone();
-        request["properties"]["observations"]["items"] = observation_ref;
+        // The reference replaces the generic observation's; the property keeps its description.
+        request["properties"]["observation"]["$ref"] = observation_ref.clone();
+        request["properties"]["observations"]["items"] = json!({"$ref": observation_ref});
         let request_name = format!("ProbabilityRequest.{}", model.name());
         doc["components"]["schemas"][&request_name] = request;
 

@@ -79,6 +79,71 @@ impl Contract {
     }
 }
 
+/// The JSON Pointers of every schema property, and every parameter, that has no description
+/// under `node`.
+fn undescribed(node: &Json, at: &str, out: &mut Vec<String>) {
+    match node {
+        Json::Object(map) => {
+            if let Some(Json::Object(properties)) = map.get("properties") {
+                for (name, property) in properties {
+                    if property
+                        .get("description")
+                        .and_then(Json::as_str)
+                        .is_none_or(str::is_empty)
+                    {
+                        out.push(format!("{at}/properties/{name}"));
+                    }
+                }
+            }
+            if let Some(Json::Array(parameters)) = map.get("parameters") {
+                for (i, parameter) in parameters.iter().enumerate() {
+                    if parameter
+                        .get("description")
+                        .and_then(Json::as_str)
+                        .is_none_or(str::is_empty)
+                    {
+                        out.push(format!("{at}/parameters/{i} ({})", parameter["name"]));
+                    }
+                }
+            }
+            for (key, value) in map {
+                undescribed(
+                    value,
+                    &format!("{at}/{}", key.replace('~', "~0").replace('/', "~1")),
+                    out,
+                );
+            }
+        }
+        Json::Array(items) => {
+            for (i, item) in items.iter().enumerate() {
+                undescribed(item, &format!("{at}/{i}"), out);
+            }
+        }
+        _ => {}
+    }
+}
+
+#[test]
+fn every_request_option_and_answer_field_is_described() {
+    let base: Json =
+        serde_json::from_str(include_str!("../../src/service/openapi.json")).expect("the document");
+    let server = Server::start();
+    let served = server.get("/openapi.json").json();
+    for (what, doc) in [("openapi.json", &base), ("the served document", &served)] {
+        let mut missing = Vec::new();
+        undescribed(doc, "#", &mut missing);
+        assert!(missing.is_empty(), "{what}: no description at {missing:#?}");
+    }
+    // The walk itself finds an undescribed property.
+    let mut missing = Vec::new();
+    undescribed(
+        &json!({"properties": {"x": {"type": "number"}}}),
+        "#",
+        &mut missing,
+    );
+    assert_eq!(missing, ["#/properties/x"]);
+}
+
 #[test]
 fn live_answers_match_the_served_document() {
     let server = Server::start();
