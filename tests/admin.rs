@@ -8,20 +8,16 @@
 //! engine's probabilities of both versions. The models are invented inputs
 //! (`lifecycle_support`), never reference values.
 
-mod admin_support;
-#[allow(dead_code)]
-#[path = "http/fixture.rs"]
-mod fixture;
 mod lifecycle_support;
+#[allow(dead_code)]
+#[path = "support/server.rs"]
+mod server;
 
 use std::io::{BufRead, BufReader};
 use std::process::{Command, Stdio};
 use std::sync::mpsc;
 use std::time::{Duration, Instant};
 
-use admin_support::{
-    engine_probability, model_of, observations, seed, Answer, Deployment, Reply, TOKEN, WHO,
-};
 use lifecycle_support::{
     base, bytes_of, categorical, model_bytes, numeric, place_version, replaced_covariate,
     tampered_bytes, with_covariate, without_covariate,
@@ -31,18 +27,19 @@ use ogive::registry::gate::contract_changes;
 use ogive::registry::lifecycle;
 use ogive::service::shadow::{Share, DIFFERENCE_BUCKETS};
 use serde_json::{json, Value as Json};
+use server::{engine_probability, model_of, observations, seed, Reply, TestServer, TOKEN, WHO};
 
 const NAME: &str = "uptake";
 
 /// A deployment serving `uptake` v1 with v2 and v3 stored (same covariates).
-fn three_versions(share: Share) -> Deployment {
+fn three_versions(share: Share) -> TestServer {
     let dir = tempfile::tempdir().expect("a temporary directory");
     let versions: Vec<(&str, Vec<u8>)> = ["v1", "v2", "v3"]
         .iter()
         .map(|v| (*v, model_bytes(NAME, v)))
         .collect();
     seed(dir.path(), NAME, &versions, Some("v1"));
-    Deployment::start(dir, share)
+    TestServer::serve(dir, share)
 }
 
 /// The served admin document, and checks of replies against it.
@@ -51,7 +48,7 @@ struct Contract {
 }
 
 impl Contract {
-    fn fetch(d: &Deployment) -> Contract {
+    fn fetch(d: &TestServer) -> Contract {
         Contract {
             doc: d.admin("GET", "/openapi.json", None).expect(200),
         }
@@ -156,7 +153,7 @@ fn the_admin_document_refuses_the_bodies_the_routes_refuse() {
 /// The public listener answers `observation` with `version`, and the probability the engine
 /// computes with that version's file.
 #[track_caller]
-fn assert_serves(d: &Deployment, version: &str, bytes: &[u8], observation: &Json) {
+fn assert_serves(d: &TestServer, version: &str, bytes: &[u8], observation: &Json) {
     let reply = d.post(
         &format!("/models/{NAME}/probability"),
         &json!({"observation": observation}),
@@ -168,7 +165,7 @@ fn assert_serves(d: &Deployment, version: &str, bytes: &[u8], observation: &Json
     assert_eq!(d.public_version(NAME), version);
 }
 
-fn stored_versions(d: &Deployment, name: &str) -> Vec<String> {
+fn stored_versions(d: &TestServer, name: &str) -> Vec<String> {
     let mut versions: Vec<String> = std::fs::read_dir(d.root().join(name).join("versions"))
         .map(|listing| {
             listing
@@ -218,7 +215,7 @@ fn every_route_refuses_a_missing_other_empty_or_wrong_token() {
                 headers.push(("Authorization", value));
             }
             let url = format!("{}{path}", d.admin);
-            let reply = d.send(&url, method, &headers, Some(body.as_bytes()));
+            let reply = d.send_to(&url, method, &headers, Some(body.as_bytes()));
             let problem = reply.expect_problem(401, "unauthorized");
             assert_eq!(problem["status"], 401);
             let challenge = reply.header("www-authenticate").expect("a challenge");
@@ -243,7 +240,7 @@ fn every_route_refuses_a_missing_other_empty_or_wrong_token() {
 #[test]
 fn uploads_are_validated_stored_byte_for_byte_and_repeatable() {
     let dir = tempfile::tempdir().expect("a temporary directory");
-    let d = Deployment::start(dir, Share::ALL);
+    let d = TestServer::serve(dir, Share::ALL);
     let contract = Contract::fetch(&d);
     let template = "/models/{name}/versions/{version}";
     let v1 = model_bytes(NAME, "v1");
@@ -301,7 +298,7 @@ fn uploads_are_validated_stored_byte_for_byte_and_repeatable() {
     reply.expect_problem(400, "invalid-query");
     let url = format!("{}/models/{NAME}/versions/v2", d.admin);
     let bearer = format!("Bearer {TOKEN}");
-    let reply = d.send(
+    let reply = d.send_to(
         &url,
         "PUT",
         &[("Authorization", &bearer), ("Content-Type", "text/plain")],
@@ -922,7 +919,7 @@ fn a_candidate_with_other_covariates_is_scored_by_covariate_and_level_name() {
         &[("v1", v1.clone()), ("v2", v2.clone())],
         Some("v1"),
     );
-    let d = Deployment::start(dir, Share::ALL);
+    let d = TestServer::serve(dir, Share::ALL);
 
     let set = d
         .admin_json(

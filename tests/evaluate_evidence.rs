@@ -4,11 +4,10 @@
 //! report computed for another model, version or file (naming both), changing nothing; and the
 //! same through the admin listener's promotion body (`"evidence"`).
 
-mod admin_support;
-#[allow(dead_code)]
-#[path = "http/fixture.rs"]
-mod fixture;
 mod lifecycle_support;
+#[allow(dead_code)]
+#[path = "support/server.rs"]
+mod server;
 #[path = "reference/describe/support.rs"]
 mod support;
 
@@ -236,8 +235,8 @@ fn a_file_that_is_not_an_evaluation_report_is_refused_before_anything_moves() {
 
 #[test]
 fn the_admin_promotion_takes_evidence_and_refuses_it_for_another_version() {
-    use admin_support::{Answer, Deployment};
     use ogive::service::shadow::Share;
+    use server::TestServer;
 
     let dir = tempfile::tempdir().unwrap();
     let models = model_directory(dir.path());
@@ -246,7 +245,7 @@ fn the_admin_promotion_takes_evidence_and_refuses_it_for_another_version() {
     // Serve the model directory itself (a folder of its own, as the deployment expects).
     let served = tempfile::tempdir().unwrap();
     std::fs::rename(models.join(NAME), served.path().join(NAME)).unwrap();
-    let d = Deployment::start(served, Share::ALL);
+    let d = TestServer::serve(served, Share::ALL);
     let path = format!("/models/{NAME}/live");
 
     let refused = d
@@ -286,7 +285,7 @@ fn the_admin_promotion_takes_evidence_and_refuses_it_for_another_version() {
     let stored: Json = serde_json::from_slice(&std::fs::read(&files[0]).unwrap()).unwrap();
     assert_eq!(stored, of_2, "the report is stored as sent");
     let record = history_lines(d.dir.path()).pop().unwrap();
-    assert_eq!(record["who"], admin_support::WHO);
+    assert_eq!(record["who"], server::WHO);
     assert_eq!(
         record["evidence"]["sha256"],
         sha256_hex(&std::fs::read(&files[0]).unwrap())

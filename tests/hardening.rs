@@ -34,15 +34,19 @@ mod fixture;
 mod load;
 #[path = "hardening/operation.rs"]
 mod operation;
+#[allow(dead_code)]
+#[path = "support/server.rs"]
+mod server;
 
 use std::io::{ErrorKind, Read, Write};
 use std::net::{SocketAddr, TcpStream};
 use std::time::{Duration, Instant};
 
-use fixture::{lease_observation, test_settings, Server};
+use fixture::lease_observation;
 use ogive::service::body::DRAIN_FACTOR;
 use ogive::service::Settings;
 use serde_json::{json, Value as Json};
+use server::{test_settings, TestServer};
 
 /// Longest any single wait in these tests may take before the test fails instead of hanging.
 const DEADLINE: Duration = Duration::from_secs(20);
@@ -59,8 +63,8 @@ fn hardened_settings() -> Settings {
     settings
 }
 
-fn address(server: &Server) -> SocketAddr {
-    server.background.as_ref().expect("running").addr
+fn address(server: &TestServer) -> SocketAddr {
+    server.addr
 }
 
 /// A response read from a raw connection.
@@ -201,7 +205,7 @@ fn is_closed(stream: &mut TcpStream) -> bool {
 
 #[test]
 fn a_client_sending_its_head_byte_by_byte_is_cut_off_while_others_are_answered() {
-    let server = Server::start_with(hardened_settings(), None);
+    let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
     let slow = std::thread::spawn(move || {
         let mut stream = TcpStream::connect(addr).expect("connect");
@@ -250,7 +254,7 @@ fn a_client_sending_its_head_byte_by_byte_is_cut_off_while_others_are_answered()
 
 #[test]
 fn a_client_that_stops_sending_its_body_is_cut_off_while_others_are_answered() {
-    let server = Server::start_with(hardened_settings(), None);
+    let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
     let body = json!({"observation": lease_observation()}).to_string();
     let mut stream = TcpStream::connect(addr).expect("connect");
@@ -273,7 +277,7 @@ fn a_client_that_stops_sending_its_body_is_cut_off_while_others_are_answered() {
 
 #[test]
 fn oversized_headers_get_431_or_a_closed_connection_and_others_are_unaffected() {
-    let server = Server::start_with(hardened_settings(), None);
+    let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
     let limit = hardened_settings().limits.max_header_bytes;
     let one_large = format!("X-Large: {}\r\n", "a".repeat(limit + 1));
@@ -310,7 +314,7 @@ fn oversized_headers_get_431_or_a_closed_connection_and_others_are_unaffected() 
 #[test]
 fn hundreds_of_idle_connections_leave_others_answered_and_are_closed_by_the_server() {
     const IDLE: usize = 500;
-    let server = Server::start_with(hardened_settings(), None);
+    let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
     let mut idle: Vec<TcpStream> = Vec::with_capacity(IDLE + 1);
     for _ in 0..IDLE {
@@ -351,7 +355,7 @@ fn hundreds_of_idle_connections_leave_others_answered_and_are_closed_by_the_serv
 
 #[test]
 fn a_body_over_the_limit_gets_413_before_the_client_has_sent_it_all() {
-    let server = Server::start_with(hardened_settings(), None);
+    let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
     let limit = hardened_settings().limits.max_body_bytes;
     // The client declares (or streams) a body far over the limit, sends a part larger than
@@ -389,7 +393,7 @@ fn a_body_over_the_limit_gets_413_before_the_client_has_sent_it_all() {
 
 #[test]
 fn the_admin_routes_do_not_exist_on_the_public_listener() {
-    let server = Server::start_with(hardened_settings(), None);
+    let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
     let model_file = fixture::lease_file().to_string();
     let version = json!({"version": "2026-01"}).to_string();
@@ -422,7 +426,7 @@ fn the_admin_routes_do_not_exist_on_the_public_listener() {
 
 #[test]
 fn every_case_of_the_catalogue_over_a_raw_socket_gets_its_problem_and_leaves_others_answered() {
-    let server = Server::start_with(hardened_settings(), None);
+    let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
     let cases = catalogue::catalogue();
     let mut failures = Vec::new();

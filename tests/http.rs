@@ -2,7 +2,7 @@
 //! talks to it with a real client (ureq). Submodules in `tests/http/`:
 //!
 //! ```text
-//! fixture.rs      test models, the server, the client
+//! fixture.rs      test models (the server and its client: tests/support/server.rs)
 //! routes.rs       every route and every option, answers compared with the engine
 //! catalogue.rs    the catalogue of malformed requests: status, problem type, field
 //! malformed.rs    the catalogue sent through the client, and related refusals
@@ -29,5 +29,8 @@ mod malformed;
 mod operation;
 #[path = "http/routes.rs"]
 mod routes;
+#[allow(dead_code)]
+#[path = "support/server.rs"]
+mod server;
 #[path = "http/strict.rs"]
 mod strict;

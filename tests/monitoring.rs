@@ -14,6 +14,10 @@ use ogive::receipt::{ReceiptKeys, DEFAULT_MAX_AGE};
 use prometheus::{Encoder, Registry, TextEncoder};
 use serde_json::{json, Value as Json};
 
+#[allow(dead_code)]
+#[path = "support/server.rs"]
+mod server;
+
 /// Tolerances of this file, each with its reason.
 mod tolerance {
     /// Brier score, log loss and AUC against scikit-learn 1.9: relative. Both sides sum the
@@ -51,6 +55,12 @@ fn assert_close(actual: f64, expected: f64, relative: f64, what: &str) {
 /// probability  fitted_probabilities [0,.25) [.25,.5) [.5,.75) [.75,1]: 400 300 200 100
 /// ```
 fn drift_model(version: &str) -> Arc<Model> {
+    let bytes = drift_file(version);
+    Arc::new(Model::from_json(&bytes).expect("the drift test model is valid"))
+}
+
+/// The file of [`drift_model`].
+fn drift_file(version: &str) -> Vec<u8> {
     let file = json!({
         "format": "ogive-model",
         "format_version": 1,
@@ -84,8 +94,7 @@ fn drift_model(version: &str) -> Arc<Model> {
         "provenance": { "fitted_by": "tests/monitoring.rs", "fitted_at": "1970-01-01T00:00:00Z",
                         "observations": 1000 }
     });
-    let bytes = serde_json::to_vec(&file).expect("json");
-    Arc::new(Model::from_json(&bytes).expect("the drift test model is valid"))
+    serde_json::to_vec(&file).expect("json")
 }
 
 fn values(model: &Model, amount: f64, sector: &str, guarantor: u8) -> Vec<Value> {
@@ -1049,80 +1058,44 @@ mod http {
     use std::sync::Arc;
     use std::time::Duration;
 
-    use ogive::metrics::monitor::{Monitor, MonitorSettings};
-    use ogive::metrics::Metrics;
+    use ogive::metrics::monitor::MonitorSettings;
     use ogive::receipt::ReceiptKeys;
-    use ogive::registry::Registry;
-    use ogive::service::admin::{self, AdminState, AdminToken};
-    use ogive::service::follow::Follower;
-    use ogive::service::{AppState, Background, Settings};
+    use ogive::service::{Config, Monitoring};
     use serde_json::{json, Value as Json};
 
-    use super::drift_model;
-
-    /// The admin token of these tests.
-    const TOKEN: &str = "monitoring-test-token-8d41c7";
-
-    /// The public and admin listeners of one test server.
-    struct Served {
-        background: Background,
-        admin: std::net::SocketAddr,
-        /// The (empty) model directory the admin listener's follower watches.
-        _models: tempfile::TempDir,
-    }
-
-    impl Served {
-        fn stop(self) -> std::io::Result<()> {
-            self.background.stop()
-        }
-    }
+    use super::drift_file;
+    use crate::server::{seed, test_config, TestServer, TOKEN};
 
     /// A real server on 127.0.0.1:0 (public and admin listeners) serving the drift test model,
     /// monitoring on (with an ephemeral receipt key) or off.
-    fn server(monitoring: bool) -> Served {
+    fn server(monitoring: bool) -> TestServer {
         let keys = ReceiptKeys::ephemeral().expect("key");
         server_with(monitoring.then(|| Arc::new(keys)))
     }
 
     /// As [`server`], monitoring on when given receipt keys.
-    fn server_with(keys: Option<Arc<ReceiptKeys>>) -> Served {
-        let model = Arc::try_unwrap(drift_model("1")).unwrap_or_else(|m| (*m).clone());
-        let registry = Arc::new(Registry::from_models([model]));
-        let settings = Settings {
-            listen: "127.0.0.1:0".parse().expect("address"),
-            workers: 2,
-            drain_delay_ms: 0,
-            shutdown_timeout_ms: 2_000,
-            ..Settings::default()
-        };
-        let metrics = Metrics::new().expect("metrics");
-        let state = AppState::new(registry, metrics, settings, true);
-        let state = match keys {
-            Some(keys) => {
-                let windows = MonitorSettings {
-                    seen_receipts: 1_000,
-                    ..MonitorSettings::default()
-                };
-                let monitor =
-                    Monitor::new(windows, keys, &state.metrics.registry).expect("monitor");
-                state.with_monitor(monitor)
-            }
-            None => state,
-        };
+    fn server_with(keys: Option<Arc<ReceiptKeys>>) -> TestServer {
         let models = tempfile::tempdir().expect("tempdir");
-        let follower = Arc::new(Follower::new(models.path(), &state));
-        let token = AdminToken::new(TOKEN.as_bytes(), "ops", "the test").expect("token");
-        let admin_state = AdminState::new(state.clone(), follower, token);
-        let listener = admin::Listener::bind("127.0.0.1:0".parse().expect("address"), admin_state)
-            .expect("the admin listener binds");
-        let background =
-            Background::start_with_admin(state, Some(listener), None).expect("server starts");
-        let admin = background.admin_addr.expect("an admin address");
-        Served {
-            background,
-            admin,
-            _models: models,
-        }
+        seed(
+            models.path(),
+            "lease-test",
+            &[("1", drift_file("1"))],
+            Some("1"),
+        );
+        let mut settings = crate::server::test_settings();
+        settings.shutdown_timeout_ms = 2_000;
+        let monitoring = keys.map(|keys| Monitoring {
+            windows: MonitorSettings {
+                seen_receipts: 1_000,
+                ..MonitorSettings::default()
+            },
+            keys,
+        });
+        let config = Config {
+            monitoring,
+            ..test_config(models.path(), settings)
+        };
+        TestServer::launch(models, config)
     }
 
     fn agent() -> ureq::Agent {
@@ -1132,8 +1105,8 @@ mod http {
     }
 
     /// POST a JSON body; returns the status and the parsed body (problem details included).
-    fn post(server: &Served, path: &str, request_id: Option<&str>, body: &Json) -> (u16, Json) {
-        let url = format!("http://{}{path}", server.background.addr);
+    fn post(server: &TestServer, path: &str, request_id: Option<&str>, body: &Json) -> (u16, Json) {
+        let url = format!("http://{}{path}", server.addr);
         let mut request = agent().post(&url).set("Content-Type", "application/json");
         if let Some(id) = request_id {
             request = request.set("X-Request-Id", id);
@@ -1148,16 +1121,16 @@ mod http {
         (status, body)
     }
 
-    fn get(server: &Served, path: &str) -> (u16, String) {
-        fetch(
-            agent().get(&format!("http://{}{path}", server.background.addr)),
-            path,
-        )
+    fn get(server: &TestServer, path: &str) -> (u16, String) {
+        fetch(agent().get(&format!("http://{}{path}", server.addr)), path)
     }
 
     /// GET from the admin listener, with the token unless `token` is false.
-    fn admin_get(server: &Served, path: &str, token: bool) -> (u16, String) {
-        let request = agent().get(&format!("http://{}{path}", server.admin));
+    fn admin_get(server: &TestServer, path: &str, token: bool) -> (u16, String) {
+        let request = agent().get(&format!(
+            "http://{}{path}",
+            server.admin_addr.expect("an admin listener")
+        ));
         let request = if token {
             request.set("Authorization", &format!("Bearer {TOKEN}"))
         } else {
@@ -1304,7 +1277,7 @@ mod http {
         assert!((reported_brier - brier).abs() <= 1e-15);
         assert_eq!(report["receipts"]["seen"], 4);
         assert_eq!(report["receipts"]["ephemeral_key"], true);
-        server.stop().expect("stops");
+        server.stop();
     }
 
     /// A validator for one schema of the served OpenAPI document.
@@ -1389,7 +1362,7 @@ mod http {
             admin_get(&server, "/models/lease-test/monitoring", false).0,
             401
         );
-        server.stop().expect("stops");
+        server.stop();
     }
 
     #[test]
@@ -1500,7 +1473,7 @@ mod http {
         assert_eq!(status, 405);
         let (status, _) = admin_get(&server, "/models/no-such/monitoring", true);
         assert_eq!(status, 404);
-        server.stop().expect("stops");
+        server.stop();
     }
 
     /// A key file of `lines` in `dir`, readable by its owner only.
@@ -1524,14 +1497,14 @@ mod http {
             None,
             &json!({"observation": observation(12.0)}),
         );
-        scoring.stop().expect("stops");
+        scoring.stop();
         let report = json!({"receipt": answer["receipt"], "outcome": 1});
         // A replica that has rotated (new key first, old one kept) takes it.
         let rotated = server_with(Some(key_file(dir.path(), "rotated", &[new_key, old_key])));
         let (status, recorded) = post(&rotated, "/models/lease-test/outcomes", None, &report);
         assert_eq!(status, 200, "{recorded}");
         assert_eq!(recorded["probability"], answer["probability"]);
-        rotated.stop().expect("stops");
+        rotated.stop();
         // Once the old key is retired, its receipts no longer open.
         let retired = server_with(Some(key_file(dir.path(), "retired", &[new_key])));
         let (status, problem) = post(&retired, "/models/lease-test/outcomes", None, &report);
@@ -1553,7 +1526,7 @@ mod http {
                 .is_some_and(|d| d.contains("key this server does not hold")),
             "{problem}"
         );
-        retired.stop().expect("stops");
+        retired.stop();
     }
 
     #[test]
@@ -1583,6 +1556,6 @@ mod http {
         let (_, metrics) = get(&server, "/metrics");
         assert!(!metrics.contains("ogive_input_psi"));
         assert!(!metrics.contains("ogive_outcomes_total"));
-        server.stop().expect("stops");
+        server.stop();
     }
 }

@@ -17,11 +17,10 @@
 //!
 //! The models are invented inputs (`lifecycle_support`); the engine is the reference.
 
-mod admin_support;
-#[allow(dead_code)]
-#[path = "http/fixture.rs"]
-mod fixture;
 mod lifecycle_support;
+#[allow(dead_code)]
+#[path = "support/server.rs"]
+mod server;
 
 use std::collections::BTreeMap;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -29,11 +28,11 @@ use std::sync::Arc;
 use std::thread;
 use std::time::{Duration, Instant};
 
-use admin_support::{engine_probability, model_of, observations, seed, Answer, Deployment};
 use lifecycle_support::model_bytes;
 use ogive::registry::lifecycle;
 use ogive::service::shadow::Share;
 use serde_json::{json, Value as Json};
+use server::{engine_probability, model_of, observations, seed, TestServer};
 
 const NAME: &str = "steady";
 const CLIENTS: usize = 4;
@@ -142,7 +141,7 @@ fn two_hundred_promotions_and_rollbacks_under_load_fail_no_request() {
         .collect();
     let versions: Vec<(&str, Vec<u8>)> = bytes.iter().map(|(v, b)| (*v, b.clone())).collect();
     seed(dir.path(), NAME, &versions, Some("v1"));
-    let d = Deployment::start(dir, Share::ALL);
+    let d = TestServer::serve(dir, Share::ALL);
     d.set_shadow(NAME, "v3").expect(200);
 
     let all = observations(OBSERVATIONS);

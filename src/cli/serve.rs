@@ -1,6 +1,7 @@
-//! `ogive serve`: load the model directory, follow it for changes, start the public listener
-//! and (with an admin token) the admin listener, print their addresses and an example request,
-//! and serve until SIGTERM or SIGINT (then drain and stop both).
+//! `ogive serve`: map the flags to a [`Config`] and run the [`Application`] it describes
+//! (the model directory loaded and followed, the public listener and, with an admin token, the
+//! admin listener), print their addresses and an example request, and serve until SIGTERM or
+//! SIGINT (then drain and stop both).
 //!
 //! Every flag can also be set from the `OGIVE_…` variable named in its help; the admin token
 //! itself can be given as `OGIVE_ADMIN_TOKEN` instead of a file. Without a token the admin
@@ -12,21 +13,14 @@ use std::process::ExitCode;
 use std::sync::Arc;
 use std::time::Duration;
 
-use anyhow::Context;
-
-use crate::metrics::monitor::{Monitor, MonitorSettings};
-use crate::metrics::Metrics;
+use crate::metrics::monitor::MonitorSettings;
 use crate::receipt::{parse_max_age, ReceiptKeys};
-use crate::registry::load::load_directory;
-use crate::registry::watch::DEFAULT_INTERVAL;
-use crate::registry::Registry;
 use crate::service::admin::auth::{DEFAULT_LABEL, TOKEN_ENV};
-use crate::service::admin::{self, AdminState, AdminToken};
+use crate::service::admin::AdminToken;
 use crate::service::cors::{parse_origin, CorsOrigins};
 use crate::service::example::example_curl;
-use crate::service::follow::Follower;
-use crate::service::shadow::{Shadowing, Share};
-use crate::service::{bind, serve_with_admin, shutdown, AppState, Limits, Settings};
+use crate::service::shadow::Share;
+use crate::service::{AdminConfig, Application, Config, Limits, Monitoring, Settings};
 
 /// Arguments of `ogive serve`.
 #[derive(Debug, clap::Args)]
@@ -218,6 +212,41 @@ impl ServeArgs {
                 .expect("each origin was checked when the arguments were parsed"),
         }
     }
+
+    /// The application these arguments describe (reading the admin token and the receipt
+    /// keys they name).
+    pub fn config(&self) -> anyhow::Result<Config> {
+        let token_variable = std::env::var_os(TOKEN_ENV).map(|v| v.into_encoded_bytes());
+        let token = AdminToken::configured(
+            self.admin_token_file.as_deref(),
+            token_variable.as_deref(),
+            &self.admin_token_label,
+        )?;
+        let monitoring = if self.monitoring {
+            Some(Monitoring {
+                windows: MonitorSettings {
+                    drift_window: self.drift_window,
+                    calibration_window: self.calibration_window,
+                    seen_receipts: self.seen_receipts,
+                    receipt_max_age: self.receipt_max_age,
+                    ..MonitorSettings::default()
+                },
+                keys: Arc::new(receipt_keys(self.receipt_key_file.as_deref())?),
+            })
+        } else {
+            None
+        };
+        Ok(Config {
+            admin: token.map(|token| AdminConfig {
+                listen: self.admin_listen,
+                token,
+            }),
+            monitoring,
+            shadow_share: self.shadow_share,
+            stop_on_signals: true,
+            ..Config::new(self.models.clone(), self.settings())
+        })
+    }
 }
 
 fn log_panics() {
@@ -239,122 +268,20 @@ fn log_panics() {
 /// Run `ogive serve`.
 pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
     log_panics();
-    let settings = args.settings();
-    let token_variable = std::env::var_os(TOKEN_ENV).map(|v| v.into_encoded_bytes());
-    let token = AdminToken::configured(
-        args.admin_token_file.as_deref(),
-        token_variable.as_deref(),
-        &args.admin_token_label,
-    )?;
-    let report = load_directory(&args.models)
-        .with_context(|| format!("loading the model directory {}", args.models.display()))?;
-    let metrics = Metrics::new()?;
-    for repair in &report.repairs {
-        match &repair.outcome {
-            Ok(record) => {
-                tracing::warn!(model = %repair.name, to = %record.to, "completed a move the history records but the live pointer did not show (an interrupted promotion or rollback)")
-            }
-            Err(error) => {
-                tracing::error!(model = %repair.name, error = %error, "the live pointer lags the history and could not be moved")
-            }
-        }
-    }
-    for (name, error) in &report.failures {
-        tracing::error!(model = %name, error = %error, "model not loaded");
-        metrics.model_load_errors.with_label_values(&[name]).inc();
-    }
-    for entry in report.snapshot.models.values() {
-        let m = &entry.live;
-        tracing::info!(
-            model = m.name(),
-            version = m.version(),
-            link = m.link.name(),
-            "model loaded"
-        );
-    }
-    if report.snapshot.models.is_empty() {
-        tracing::warn!(dir = %args.models.display(), "no models loaded");
-    }
-    let all_loaded = report.failures.is_empty();
-    let registry = Arc::new(Registry::default());
-    let example = report
-        .snapshot
-        .models
-        .values()
-        .next()
-        .map(|e| e.live.clone());
-    registry.replace(report.snapshot);
-    let state = AppState::new(registry, metrics, settings.clone(), all_loaded)
-        .with_stored_versions(&args.models);
-    let state = if args.monitoring {
-        let windows = MonitorSettings {
-            drift_window: args.drift_window,
-            drift_shards: settings.worker_count(),
-            calibration_window: args.calibration_window,
-            seen_receipts: args.seen_receipts,
-            receipt_max_age: args.receipt_max_age,
-        };
-        let keys = Arc::new(receipt_keys(args.receipt_key_file.as_deref())?);
-        let monitor = Monitor::new(windows, keys, &state.metrics.registry)?;
-        state.with_monitor(monitor)
-    } else {
-        state
-    };
-    let shadowing = Shadowing::new(args.shadow_share, &state.metrics.registry)?;
-    let state = state.with_shadow(shadowing);
-    let follower = Arc::new(Follower::new(args.models.clone(), &state));
-    let following = follower
-        .spawn(DEFAULT_INTERVAL)
-        .context("starting the model directory watcher")?;
-    let listener = bind(&settings).with_context(|| format!("listening on {}", settings.listen))?;
-    let addr = listener.local_addr()?;
-    let admin = match token {
-        Some(token) => {
-            if token.is_short() {
-                tracing::warn!(
-                    label = token.label(),
-                    "the admin token is short; use at least 128 random bits"
-                );
-            }
-            let admin_state = AdminState::new(state.clone(), Arc::clone(&follower), token);
-            let admin = admin::Listener::bind(args.admin_listen, admin_state)
-                .with_context(|| format!("listening on {} (admin)", args.admin_listen))?;
-            Some(admin)
-        }
-        None => None,
-    };
-    let base_url = format!("http://{addr}");
+    let application = Application::build(args.config()?)?;
+    let base_url = format!("http://{}", application.public_addr());
     println!("ogive serving on {base_url}");
-    if let Some(model) = example {
-        println!("try:\n  {}", example_curl(&model, &base_url));
+    let snapshot = application.state().registry.snapshot();
+    if let Some(entry) = snapshot.models.values().next() {
+        println!("try:\n  {}", example_curl(&entry.live, &base_url));
     }
-    match &admin {
-        Some(admin) => {
-            let admin_addr = admin.local_addr()?;
-            if !admin_addr.ip().is_loopback() {
-                tracing::warn!(admin_listen = %admin_addr, "the admin listener is not on a loopback address; restrict who can reach it");
-            }
-            tracing::info!(admin_listen = %admin_addr, label = %args.admin_token_label, "admin listener on");
-            println!("ogive admin on http://{admin_addr}");
-        }
-        None => {
-            let why = "no admin token is configured (--admin-token-file or OGIVE_ADMIN_TOKEN)";
-            tracing::warn!(reason = why, "admin listener off");
-            println!("ogive admin off: {why}");
-        }
+    match application.admin_addr() {
+        Some(admin_addr) => println!("ogive admin on http://{admin_addr}"),
+        None => println!(
+            "ogive admin off: no admin token is configured (--admin-token-file or OGIVE_ADMIN_TOKEN)"
+        ),
     }
-    actix_web::rt::System::new().block_on(serve_with_admin(
-        state,
-        listener,
-        admin,
-        None,
-        async {
-            if let Err(e) = shutdown::termination_signal().await {
-                tracing::error!(error = %e, "cannot wait for signals; stopping");
-            }
-        },
-    ))?;
-    following.stop();
+    application.run_until_stopped()?;
     Ok(ExitCode::SUCCESS)
 }
 

@@ -246,3 +246,42 @@ fn record(
         "request"
     );
 }
+
+#[cfg(test)]
+mod tests {
+    use actix_web::{test, App};
+
+    use super::*;
+
+    #[actix_web::test]
+    async fn a_panicking_handler_answers_500_and_the_next_request_is_served() {
+        let app = test::init_service(
+            App::new()
+                .route(
+                    "/panic",
+                    web::get().to(Guarded(|| async {
+                        if true {
+                            panic!("deliberate panic for the test");
+                        }
+                        "unreachable"
+                    })),
+                )
+                .route("/fine", web::get().to(Guarded(|| async { "fine" }))),
+        )
+        .await;
+        for _ in 0..3 {
+            let request = test::TestRequest::get().uri("/panic").to_request();
+            let response = test::call_service(&app, request).await;
+            assert_eq!(response.status().as_u16(), 500);
+            let body = test::read_body(response).await;
+            let text = String::from_utf8_lossy(&body);
+            assert!(text.contains("urn:ogive:problem:internal"), "{text}");
+            assert!(
+                !text.contains("deliberate"),
+                "the cause must not reach the client: {text}"
+            );
+            let request = test::TestRequest::get().uri("/fine").to_request();
+            assert_eq!(test::call_service(&app, request).await.status(), 200);
+        }
+    }
+}

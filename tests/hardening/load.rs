@@ -8,13 +8,14 @@ use std::time::Instant;
 
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_observation, test_settings, Server};
+use crate::fixture::lease_observation;
+use crate::server::{test_settings, TestServer};
 use crate::{address, raw_request, Raw, DEADLINE};
 
 const PROBABILITY: &str = "/models/lease-test/probability";
 const JSON: &str = "Content-Type: application/json\r\n";
 
-fn post(server: &Server, body: &Json) -> Raw {
+fn post(server: &TestServer, body: &Json) -> Raw {
     raw_request(
         address(server),
         "POST",
@@ -33,7 +34,7 @@ fn problem(reply: &Raw) -> Json {
 }
 
 /// Wait until every admission has been released (each answer written out).
-fn wait_until_idle(server: &Server) {
+fn wait_until_idle(server: &TestServer) {
     let deadline = Instant::now() + DEADLINE;
     while server.state().compute.observations_in_flight() > 0 {
         assert!(Instant::now() < deadline, "admissions were never released");
@@ -46,8 +47,8 @@ fn a_request_over_the_work_budget_gets_413_before_any_scoring() {
     let terms = 10; // the lease test model's coefficients, intercept included
     let mut settings = test_settings();
     settings.limits.max_work_units = 100 * terms * terms;
-    let server = Server::start_with(settings, None);
-    let encode = |server: &Server| {
+    let server = TestServer::start_with(settings);
+    let encode = |server: &TestServer| {
         String::from_utf8(server.state().metrics.encode().expect("metrics")).expect("text")
     };
     let scored_before = encode(&server);
@@ -75,7 +76,7 @@ fn a_request_over_the_work_budget_gets_413_before_any_scoring() {
 fn observations_over_the_in_flight_limit_get_503_with_retry_after_until_released() {
     let mut settings = test_settings();
     settings.limits.max_inflight_observations = 50;
-    let server = Server::start_with(settings, None);
+    let server = TestServer::start_with(settings);
     // Another request's observations still being scored or written out.
     let held = server.state().compute.admit(45).expect("room");
     let reply = post(&server, &batch(20));
@@ -101,7 +102,7 @@ fn observations_over_the_in_flight_limit_get_503_with_retry_after_until_released
 fn body_bytes_over_the_in_flight_limit_get_503_with_retry_after() {
     let mut settings = test_settings();
     settings.limits.max_inflight_body_bytes = 64 * 1024;
-    let server = Server::start_with(settings, None);
+    let server = TestServer::start_with(settings);
     let held = server
         .state()
         .compute
@@ -127,7 +128,7 @@ fn body_bytes_over_the_in_flight_limit_get_503_with_retry_after() {
 
 #[test]
 fn a_batch_scored_on_the_pool_answers_what_single_requests_answer() {
-    let server = Server::start_with(test_settings(), None);
+    let server = TestServer::start_with(test_settings());
     let mut observations = Vec::new();
     for i in 0..400u32 {
         let mut o = lease_observation();
@@ -178,7 +179,7 @@ fn two_hundred_clients_that_never_read_leave_memory_bounded_and_every_reader_ans
     use std::net::TcpStream;
     use std::process::{Command, Stdio};
 
-    let models = crate::fixture::models_dir();
+    let models = crate::server::http_models();
     let mut child = Command::new(env!("CARGO_BIN_EXE_ogive"))
         .args(["serve", "--models"])
         .arg(&models)

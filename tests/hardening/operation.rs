@@ -5,16 +5,13 @@
 
 use std::io::{Read, Write};
 use std::net::TcpStream;
-use std::sync::Arc;
-use std::time::Instant;
+use std::time::{Duration, Instant};
 
-use ogive::metrics::Metrics;
-use ogive::registry::Registry;
-use ogive::service::follow::Follower;
-use ogive::service::{AppState, Background};
+use ogive::service::Config;
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_file, lease_observation, Server};
+use crate::fixture::{lease_file, lease_observation};
+use crate::server::{test_config, TestServer};
 use crate::{address, hardened_settings, parse_response, raw_request, Raw, DEADLINE};
 
 /// Send `request` (a whole HTTP/1.1 request) on `stream` and read one response to its end,
@@ -46,7 +43,7 @@ fn exchange(stream: &mut TcpStream, request: &str) -> Raw {
 
 #[test]
 fn the_probes_answer_head_with_their_status_and_no_body() {
-    let server = Server::start_with(hardened_settings(), None);
+    let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
     for path in ["/livez", "/readyz"] {
         let reply = raw_request(addr, "HEAD", path, "", b"");
@@ -54,7 +51,8 @@ fn the_probes_answer_head_with_their_status_and_no_body() {
         assert_eq!(reply.body, "", "HEAD {path} has no body");
         assert!(reply.header("x-request-id").is_some(), "{}", reply.head);
     }
-    server.state().health.set_models_loaded(false);
+    // Draining (the directory follower never undoes it) makes readiness 503.
+    server.state().health.start_draining();
     assert_eq!(raw_request(addr, "HEAD", "/readyz", "", b"").status, 503);
     // The other routes still take GET only, and say so.
     let reply = raw_request(addr, "HEAD", "/models", "", b"");
@@ -67,7 +65,7 @@ fn answers_during_the_sigterm_drain_say_connection_close() {
     let mut settings = hardened_settings();
     settings.drain_delay_ms = 20_000;
     settings.shutdown_timeout_ms = 25_000;
-    let mut server = Server::start_with(settings, None);
+    let server = TestServer::start_with(settings);
     let addr = address(&server);
     let mut stream = TcpStream::connect(addr).expect("connect");
     let request = "GET /livez HTTP/1.1\r\nHost: test\r\n\r\n";
@@ -79,11 +77,7 @@ fn answers_during_the_sigterm_drain_say_connection_close() {
         "a keep-alive answer before the drain: {}",
         before.head
     );
-    server
-        .background
-        .as_mut()
-        .expect("running")
-        .begin_shutdown();
+    server.begin_shutdown();
     let deadline = Instant::now() + DEADLINE;
     while !server.state().health.draining() {
         assert!(Instant::now() < deadline, "the drain did not begin");
@@ -129,16 +123,12 @@ fn a_live_pointer_naming_a_missing_version_is_reported_as_failed_to_load() {
     std::fs::create_dir_all(ghost.join("versions")).expect("mkdir");
     std::fs::write(ghost.join("live"), "3.0\n").expect("write live");
 
-    let state = AppState::new(
-        Arc::new(Registry::from_models([])),
-        Metrics::new().expect("metrics"),
-        hardened_settings(),
-        false,
-    );
-    let follower = Follower::new(models.path(), &state);
-    follower.poll();
-    let background = Background::start(state, None).expect("server starts");
-    let addr = background.addr;
+    let config = Config {
+        follow_interval: Duration::from_millis(50),
+        ..test_config(models.path(), hardened_settings())
+    };
+    let server = TestServer::launch(models, config);
+    let addr = server.addr;
 
     let ready = raw_request(addr, "GET", "/readyz", "", b"");
     assert_eq!(ready.status, 503, "{}", ready.body);
@@ -162,15 +152,25 @@ fn a_live_pointer_naming_a_missing_version_is_reported_as_failed_to_load() {
     file["name"] = json!("ghost");
     file["version"] = json!("3.0");
     std::fs::write(ghost.join("versions").join("3.0.json"), file.to_string()).expect("write");
-    follower.poll();
-    let ready = raw_request(addr, "GET", "/readyz", "", b"");
-    assert_eq!(ready.status, 200, "{}", ready.body);
-    background.stop().expect("stops");
+    let deadline = Instant::now() + DEADLINE;
+    loop {
+        let ready = raw_request(addr, "GET", "/readyz", "", b"");
+        if ready.status == 200 {
+            break;
+        }
+        assert!(
+            Instant::now() < deadline,
+            "never ready again: {}",
+            ready.body
+        );
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    server.stop();
 }
 
 #[test]
 fn a_saturated_answer_notes_that_its_zero_width_interval_is_rounding() {
-    let server = Server::start_with(hardened_settings(), None);
+    let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
     let mut observation = lease_observation();
     // Far outside training: the index is large enough that p and both interval ends round to 1.

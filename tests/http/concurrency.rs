@@ -4,8 +4,9 @@
 use ogive::engine::{Options, Scorer};
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_file, model, Server};
+use crate::fixture::{lease_file, model};
 use crate::routes::check_answer;
+use crate::server::TestServer;
 
 const CLIENTS: usize = 12;
 const REQUESTS_PER_CLIENT: usize = 30;
@@ -23,8 +24,8 @@ fn observation(client: usize, request: usize) -> Json {
 
 #[test]
 fn concurrent_clients_get_exactly_the_engines_answers() {
-    let server = Server::start();
-    let base = server.base.clone();
+    let server = TestServer::start();
+    let base = server.public.clone();
     let threads: Vec<_> = (0..CLIENTS)
         .map(|client| {
             let base = base.clone();

@@ -4,7 +4,8 @@
 
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_observation, Reply, Server};
+use crate::fixture::lease_observation;
+use crate::server::{Reply, TestServer};
 
 /// The served document, read once.
 pub struct Contract {
@@ -13,7 +14,7 @@ pub struct Contract {
 
 impl Contract {
     /// The document `server` serves.
-    pub fn fetch(server: &Server) -> Contract {
+    pub fn fetch(server: &TestServer) -> Contract {
         Contract {
             doc: server.get("/openapi.json").json(),
         }
@@ -127,7 +128,7 @@ fn undescribed(node: &Json, at: &str, out: &mut Vec<String>) {
 fn every_request_option_and_answer_field_is_described() {
     let base: Json =
         serde_json::from_str(include_str!("../../src/service/openapi.json")).expect("the document");
-    let server = Server::start();
+    let server = TestServer::start();
     let served = server.get("/openapi.json").json();
     for (what, doc) in [("openapi.json", &base), ("the served document", &served)] {
         let mut missing = Vec::new();
@@ -146,7 +147,7 @@ fn every_request_option_and_answer_field_is_described() {
 
 #[test]
 fn live_answers_match_the_served_document() {
-    let server = Server::start();
+    let server = TestServer::start();
     let contract = Contract::fetch(&server);
     let get = |path: &str, template: &str, what: &str| {
         contract.check_reply(template, "get", &server.get(path), what);
@@ -260,7 +261,7 @@ fn live_answers_match_the_served_document() {
 
 #[test]
 fn the_document_rejects_what_the_service_rejects() {
-    let server = Server::start();
+    let server = TestServer::start();
     let contract = Contract::fetch(&server);
     let validator = contract.validator("ProbabilityRequest.lease-test");
     let mut cases = Vec::new();

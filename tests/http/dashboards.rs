@@ -4,20 +4,22 @@
 
 use std::sync::Arc;
 
-use ogive::service::CorsOrigins;
 use serde_json::json;
 
-use crate::fixture::{lease_file, model, test_settings, Server};
+use ogive::service::{Config, CorsOrigins, Monitoring};
+
+use crate::fixture::{lease_file, model};
+use crate::server::{copy_models, http_models, test_config, test_settings, TestServer};
 
 const DASHBOARD: &str = "https://dashboard.example.org";
 
-fn server_allowing(origins: &[&str]) -> Server {
+fn server_allowing(origins: &[&str]) -> TestServer {
     let mut settings = test_settings();
     settings.cors_origins = CorsOrigins::new(origins).expect("origins");
-    Server::start_with(settings, None)
+    TestServer::start_with(settings)
 }
 
-fn preflight(server: &Server, path: &str, origin: &str) -> crate::fixture::Reply {
+fn preflight(server: &TestServer, path: &str, origin: &str) -> crate::server::Reply {
     server.send(
         "OPTIONS",
         path,
@@ -128,7 +130,7 @@ fn an_unlisted_origin_gets_no_cors_header_at_all() {
 
 #[test]
 fn without_a_list_the_listener_answers_no_cross_origin_call() {
-    let server = Server::start();
+    let server = TestServer::start();
     let answer = preflight(&server, "/models/lease-test/probability", DASHBOARD);
     assert_eq!(answer.status, 405);
     assert!(!answer
@@ -142,7 +144,7 @@ fn without_a_list_the_listener_answers_no_cross_origin_call() {
 
 #[test]
 fn model_listings_carry_strong_etags_of_their_bytes() {
-    let server = Server::start();
+    let server = TestServer::start();
     for path in ["/models", "/models/lease-test"] {
         let first = server.get(path);
         assert_eq!(first.status, 200);
@@ -173,7 +175,7 @@ fn model_listings_carry_strong_etags_of_their_bytes() {
 
 #[test]
 fn a_hot_swap_changes_the_model_etags() {
-    let server = Server::start();
+    let server = TestServer::start();
     let list = server
         .get("/models")
         .header("etag")
@@ -209,43 +211,23 @@ fn a_hot_swap_changes_the_model_etags() {
 /// A copy of the committed test directory with a second stored version of lease-test,
 /// 2026-02, that is not live (its intercept moved by +0.4, so its answers differ), served from
 /// that directory with monitoring on.
-fn serving_a_stored_version() -> (Server, tempfile::TempDir, ogive::model::Model) {
-    let dir = tempfile::tempdir().expect("tempdir");
-    for name in ["lease-test", "plain-test"] {
-        let from = crate::fixture::models_dir().join(name);
-        let to = dir.path().join(name);
-        std::fs::create_dir_all(to.join("versions")).expect("versions");
-        std::fs::copy(from.join("live"), to.join("live")).expect("live");
-        for file in std::fs::read_dir(from.join("versions")).expect("listing") {
-            let file = file.expect("entry");
-            std::fs::copy(file.path(), to.join("versions").join(file.file_name())).expect("copy");
-        }
-    }
+fn serving_a_stored_version() -> (TestServer, ogive::model::Model) {
+    let dir = copy_models(&http_models());
     let mut stored = lease_file();
     stored["version"] = json!("2026-02");
     stored["terms"][0]["coefficient"] = json!(-0.8);
     let bytes = serde_json::to_vec_pretty(&stored).expect("json");
     std::fs::write(dir.path().join("lease-test/versions/2026-02.json"), &bytes).expect("write");
     let stored = model(&stored);
-    let registry = Arc::new(ogive::registry::Registry::from_models([
-        model(&lease_file()),
-        model(&crate::fixture::plain_file()),
-    ]));
-    let state = ogive::service::AppState::new(
-        registry,
-        ogive::metrics::Metrics::new().expect("metrics"),
-        test_settings(),
-        true,
-    );
     let keys = Arc::new(ogive::receipt::ReceiptKeys::ephemeral().expect("key"));
-    let monitor = ogive::metrics::monitor::Monitor::new(
-        ogive::metrics::monitor::MonitorSettings::default(),
-        keys,
-        &state.metrics.registry,
-    )
-    .expect("monitor");
-    let state = state.with_monitor(monitor).with_stored_versions(dir.path());
-    (Server::start_state(state, None), dir, stored)
+    let config = Config {
+        monitoring: Some(Monitoring {
+            windows: ogive::metrics::monitor::MonitorSettings::default(),
+            keys,
+        }),
+        ..test_config(dir.path(), test_settings())
+    };
+    (TestServer::launch(dir, config), stored)
 }
 
 fn metric(text: &str, prefix: &str) -> Option<f64> {
@@ -257,7 +239,7 @@ fn metric(text: &str, prefix: &str) -> Option<f64> {
 
 #[test]
 fn a_stored_version_that_is_not_live_answers_and_says_so() {
-    let (server, _dir, stored) = serving_a_stored_version();
+    let (server, stored) = serving_a_stored_version();
     let observation = crate::fixture::lease_observation();
     let body = json!({"observation": observation});
     let answer = server.post("/models/lease-test/versions/2026-02/probability", &body);
@@ -317,7 +299,7 @@ fn a_stored_version_that_is_not_live_answers_and_says_so() {
 
 #[test]
 fn a_stored_version_counts_in_no_live_series() {
-    let (server, _dir, _) = serving_a_stored_version();
+    let (server, _) = serving_a_stored_version();
     let mut far = crate::fixture::lease_observation();
     far["years_trading"] = json!(500.0);
     let batch = json!({"observations": [crate::fixture::lease_observation(), far]});
@@ -358,7 +340,7 @@ fn a_stored_version_counts_in_no_live_series() {
 
 #[test]
 fn the_live_version_by_label_is_the_live_answer() {
-    let (server, _dir, _) = serving_a_stored_version();
+    let (server, _) = serving_a_stored_version();
     let body = json!({"observation": crate::fixture::lease_observation(), "contributions": true});
     let by_label = server
         .post("/models/lease-test/versions/2026-01/probability", &body)
@@ -378,7 +360,7 @@ fn the_live_version_by_label_is_the_live_answer() {
 
 #[test]
 fn a_version_that_is_not_stored_or_not_a_label_is_refused() {
-    let (server, _dir, _) = serving_a_stored_version();
+    let (server, _) = serving_a_stored_version();
     let body = json!({"observation": crate::fixture::lease_observation()});
     let missing = server.post("/models/lease-test/versions/2027-01/probability", &body);
     assert_eq!(missing.status, 404, "{}", missing.text);
@@ -396,25 +378,27 @@ fn a_version_that_is_not_stored_or_not_a_label_is_refused() {
     );
     let get = server.get("/models/lease-test/versions/2026-02/probability");
     assert_eq!(get.status, 405);
-    // Without a model directory only the live version can be named.
-    let plain = Server::start();
+    // A directory that does not hold the version: the refusal lists what it holds.
+    let plain = TestServer::start();
     let refused = plain.post("/models/lease-test/versions/2026-02/probability", &body);
     assert_eq!(refused.status, 404, "{}", refused.text);
-    assert!(refused.json()["detail"]
+    let refused = refused.json();
+    assert_eq!(refused["stored"], json!(["2026-01"]), "{refused}");
+    assert!(refused["detail"]
         .as_str()
-        .is_some_and(|d| d.contains("'2026-01'")));
+        .is_some_and(|d| d.contains("'2026-02'")));
 }
 
 #[test]
 fn a_stored_version_whose_bytes_changed_is_refused() {
-    let (server, dir, _) = serving_a_stored_version();
-    let path = dir.path().join("lease-test/versions/2026-02.json");
+    let (server, _) = serving_a_stored_version();
+    let path = server.root().join("lease-test/versions/2026-02.json");
     let bytes = std::fs::read(&path).expect("read");
     let record = json!({"when": "2026-01-01T00:00:00.000Z", "action": "upload", "from": null,
         "to": "2026-02", "who": "test", "reason": null,
         "sha256": ogive::registry::store::sha256_hex(b"other bytes")});
     std::fs::write(
-        dir.path().join("lease-test/history.jsonl"),
+        server.root().join("lease-test/history.jsonl"),
         format!("{record}\n"),
     )
     .expect("history");

@@ -4,11 +4,12 @@
 use serde_json::{json, Value as Json};
 
 use crate::catalogue::{catalogue, PROBABILITY};
-use crate::fixture::{lease_observation, Server};
+use crate::fixture::lease_observation;
+use crate::server::TestServer;
 
 #[test]
 fn every_malformed_request_gets_its_problem_details() {
-    let server = Server::start();
+    let server = TestServer::start();
     let cases = catalogue();
     assert!(cases.len() >= 30, "the catalogue has {} cases", cases.len());
     let mut failures = Vec::new();
@@ -31,7 +32,7 @@ fn every_malformed_request_gets_its_problem_details() {
 
 #[test]
 fn a_faulty_batch_names_the_first_index_and_lists_every_fault() {
-    let server = Server::start();
+    let server = TestServer::start();
     let good = lease_observation();
     let mut batch: Vec<Json> = (0..6).map(|_| good.clone()).collect();
     batch[3]["sector"] = json!("mining");
@@ -48,7 +49,7 @@ fn a_faulty_batch_names_the_first_index_and_lists_every_fault() {
 
 #[test]
 fn a_405_names_the_allowed_method() {
-    let server = Server::start();
+    let server = TestServer::start();
     let reply = server.get(PROBABILITY);
     assert_eq!(reply.status, 405);
     assert_eq!(reply.header("allow"), Some("POST"));
@@ -58,7 +59,7 @@ fn a_405_names_the_allowed_method() {
 
 #[test]
 fn malformed_json_names_line_and_column() {
-    let server = Server::start();
+    let server = TestServer::start();
     let reply = server.post_raw(PROBABILITY, b"{\n  \"observation\": {,}\n}");
     let problem = reply.json();
     assert_eq!(problem["line"], json!(2));

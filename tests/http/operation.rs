@@ -1,24 +1,23 @@
-//! Operating the service: request ids, a handler panic, header limits, loading a model
-//! directory, draining on shutdown with a request in flight, and the `ogive serve` binary
-//! itself (its printed example, its JSON log lines, SIGTERM).
+//! Operating the service: request ids, header limits, loading a model directory, draining on
+//! shutdown with a request in flight, and the `ogive serve` binary itself (its printed example,
+//! its JSON log lines, SIGTERM). A panicking handler's 500 is tested beside `Guarded`, in
+//! `src/service/middleware.rs`.
 
 use std::io::{BufRead, BufReader, Read, Write};
 use std::net::TcpStream;
 use std::path::Path;
 use std::process::{Child, Command, Stdio};
-use std::sync::Arc;
 use std::time::{Duration, Instant};
 
-use actix_web::web;
 use ogive::registry::load::load_directory;
-use ogive::service::middleware::Guarded;
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_file, lease_observation, plain_file, test_settings, Server};
+use crate::fixture::{lease_file, lease_observation, plain_file};
+use crate::server::{test_settings, TestServer};
 
 #[test]
 fn a_valid_request_id_is_echoed_and_an_invalid_one_replaced() {
-    let server = Server::start();
+    let server = TestServer::start();
     let body = json!({"observation": lease_observation()}).to_string();
     let path = "/models/lease-test/probability";
     let json = [("Content-Type", "application/json")];
@@ -42,38 +41,6 @@ fn a_valid_request_id_is_echoed_and_an_invalid_one_replaced() {
     }
     let problem = server.get("/models/none");
     assert!(problem.header("x-request-id").is_some());
-}
-
-#[test]
-fn a_panicking_handler_answers_500_and_the_worker_keeps_serving() {
-    let mut settings = test_settings();
-    settings.workers = 1;
-    let extra: ogive::service::Configure = Arc::new(|cfg: &mut web::ServiceConfig| {
-        cfg.route(
-            "/test/panic",
-            web::get().to(Guarded(|| async {
-                if true {
-                    panic!("deliberate panic for the test");
-                }
-                "unreachable"
-            })),
-        );
-    });
-    let server = Server::start_with(settings, Some(extra));
-    for _ in 0..3 {
-        let reply = server.get("/test/panic");
-        assert_eq!(reply.status, 500);
-        assert_eq!(reply.json()["type"], json!("urn:ogive:problem:internal"));
-        assert!(
-            !reply.text.contains("deliberate"),
-            "the cause must not reach the client"
-        );
-        let after = server.post(
-            "/models/lease-test/probability",
-            &json!({"observation": lease_observation()}),
-        );
-        assert_eq!(after.status, 200);
-    }
 }
 
 fn write_model(root: &Path, file: &Json) {
@@ -128,8 +95,8 @@ fn loading_a_directory_skips_temporary_entries_and_reports_broken_models() {
 fn draining_turns_readiness_off_and_lets_an_in_flight_request_finish() {
     let mut settings = test_settings();
     settings.drain_delay_ms = 1_500;
-    let mut server = Server::start_with(settings, None);
-    let addr = server.background.as_ref().expect("running").addr;
+    let server = TestServer::start_with(settings);
+    let addr = server.addr;
     // A request whose body is still arriving when the shutdown begins.
     let body = json!({"observation": lease_observation()}).to_string();
     let (first, rest) = body.split_at(body.len() / 2);
@@ -145,11 +112,7 @@ fn draining_turns_readiness_off_and_lets_an_in_flight_request_finish() {
     .expect("write head");
     stream.flush().expect("flush");
     std::thread::sleep(Duration::from_millis(100));
-    server
-        .background
-        .as_mut()
-        .expect("running")
-        .begin_shutdown();
+    server.begin_shutdown();
     let mut saw_draining = false;
     let deadline = Instant::now() + Duration::from_secs(5);
     while Instant::now() < deadline {
@@ -172,8 +135,7 @@ fn draining_turns_readiness_off_and_lets_an_in_flight_request_finish() {
     let mut reader = BufReader::new(stream);
     reader.read_line(&mut response).expect("status line");
     assert!(response.starts_with("HTTP/1.1 200"), "{response}");
-    let background = server.background.take().expect("running");
-    background.stop().expect("stops cleanly");
+    server.stop();
     assert!(
         TcpStream::connect(addr).is_err(),
         "still accepting after the shutdown"

@@ -13,7 +13,8 @@ use ogive::model::{Model, Value};
 use ogive::registry::{Entry, Snapshot};
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_file, lease_observation, model, plain_file, Server};
+use crate::fixture::{lease_file, lease_observation, model, plain_file};
+use crate::server::{copy_models, http_models, test_config, test_settings, TestServer};
 
 const SAME: f64 = 4e-16;
 
@@ -133,7 +134,7 @@ pub fn check_answer(model: &Model, got: &Json, expected: &Answer, options: &Opti
 
 #[test]
 fn health_routes_answer() {
-    let server = Server::start();
+    let server = TestServer::start();
     let live = server.get("/livez");
     assert_eq!(
         (live.status, live.json()),
@@ -147,11 +148,9 @@ fn health_routes_answer() {
 
 #[test]
 fn an_empty_model_directory_is_not_ready_and_says_so() {
-    let server = Server::start();
-    server
-        .state()
-        .registry
-        .replace(ogive::registry::Snapshot::default());
+    let dir = tempfile::tempdir().expect("a temporary directory");
+    let config = test_config(dir.path(), test_settings());
+    let server = TestServer::launch(dir, config);
     let ready = server.get("/readyz");
     assert_eq!(ready.status, 503);
     let body = ready.json();
@@ -167,7 +166,7 @@ fn an_empty_model_directory_is_not_ready_and_says_so() {
 
 #[test]
 fn an_unknown_model_error_lists_the_models_that_are_served() {
-    let server = Server::start();
+    let server = TestServer::start();
     let reply = server.get("/models/no-such-model");
     assert_eq!(reply.status, 404);
     let body = reply.json();
@@ -189,17 +188,24 @@ fn an_unknown_model_error_lists_the_models_that_are_served() {
 
 #[test]
 fn readiness_is_503_while_a_model_failed_to_load() {
-    let server = Server::start();
-    server.state().health.set_models_loaded(false);
+    let dir = copy_models(&http_models());
+    let broken = dir.path().join("broken-test");
+    std::fs::create_dir_all(broken.join("versions")).expect("mkdir");
+    std::fs::write(broken.join("versions").join("v1.json"), "{").expect("write");
+    std::fs::write(broken.join("live"), "v1\n").expect("write live");
+    let config = test_config(dir.path(), test_settings());
+    let server = TestServer::launch(dir, config);
     let ready = server.get("/readyz");
     assert_eq!(ready.status, 503);
-    assert_eq!(ready.json()["models_loaded"], json!(false));
+    let ready = ready.json();
+    assert_eq!(ready["models_loaded"], json!(false));
+    assert_eq!(ready["failed_to_load"], json!(["broken-test"]), "{ready}");
     assert_eq!(server.get("/livez").status, 200);
 }
 
 #[test]
 fn the_model_list_and_description_show_what_is_loaded() {
-    let server = Server::start();
+    let server = TestServer::start();
     let list = server.get("/models").json();
     let names: Vec<&str> = list["models"]
         .as_array()
@@ -237,7 +243,7 @@ fn the_model_list_and_description_show_what_is_loaded() {
 
 #[test]
 fn one_observation_with_default_options_is_the_engines_answer() {
-    let server = Server::start();
+    let server = TestServer::start();
     let reply = server.post(
         "/models/lease-test/probability",
         &json!({"observation": lease_observation()}),
@@ -265,7 +271,7 @@ fn one_observation_with_default_options_is_the_engines_answer() {
 
 #[test]
 fn every_option_changes_the_answer_as_the_engine_does() {
-    let server = Server::start();
+    let server = TestServer::start();
     let m = model(&lease_file());
     let cases = [
         json!({"effects": false}),
@@ -300,7 +306,7 @@ fn every_option_changes_the_answer_as_the_engine_does() {
 
 #[test]
 fn elasticities_are_given_for_continuous_covariates_only() {
-    let server = Server::start();
+    let server = TestServer::start();
     let body = json!({"observation": lease_observation(), "elasticities": true});
     let got = server.post("/models/lease-test/probability", &body).json();
     for effect in got["effects"].as_array().expect("effects") {
@@ -314,7 +320,7 @@ fn elasticities_are_given_for_continuous_covariates_only() {
 
 #[test]
 fn a_batch_with_average_effects_and_effects_at_means_is_the_engines_answer() {
-    let server = Server::start();
+    let server = TestServer::start();
     let m = model(&lease_file());
     let observations: Vec<Json> = (0..25)
         .map(|i| {
@@ -405,7 +411,7 @@ fn a_batch_with_average_effects_and_effects_at_means_is_the_engines_answer() {
 
 #[test]
 fn extrapolation_warnings_name_the_covariate_value_and_range() {
-    let server = Server::start();
+    let server = TestServer::start();
     let m = model(&lease_file());
     let mut outside = lease_observation();
     outside["annual_revenue"] = json!(9000.0);
@@ -429,7 +435,7 @@ fn extrapolation_warnings_name_the_covariate_value_and_range() {
 
 #[test]
 fn a_model_without_covariance_says_its_answers_carry_no_intervals() {
-    let server = Server::start();
+    let server = TestServer::start();
     let m = model(&plain_file());
     let observation = json!({"income": 60.0, "owner": true});
     let got = server
@@ -462,7 +468,7 @@ fn curve_values(model: &Model, over: usize, held: &[(usize, Value)], x: Value) -
 
 #[test]
 fn a_numeric_curve_runs_over_the_training_range_at_the_training_means() {
-    let server = Server::start();
+    let server = TestServer::start();
     let m = model(&lease_file());
     let reply = server.get("/models/lease-test/curve?over=years_trading&points=9");
     assert_eq!(reply.status, 200, "{}", reply.text);
@@ -500,7 +506,7 @@ fn a_numeric_curve_runs_over_the_training_range_at_the_training_means() {
 
 #[test]
 fn a_curve_holds_given_values_and_covers_every_kind() {
-    let server = Server::start();
+    let server = TestServer::start();
     let m = model(&lease_file());
     let got = server
         .get("/models/lease-test/curve?over=sector&guarantor=1&annual_revenue=300&prior_arrears=2&years_trading=4.5")
@@ -553,7 +559,7 @@ fn a_curve_holds_given_values_and_covers_every_kind() {
 
 #[test]
 fn a_curve_range_outside_the_domain_is_clipped_and_said_so() {
-    let server = Server::start();
+    let server = TestServer::start();
     let got = server
         .get("/models/lease-test/curve?over=annual_revenue&from=-10&to=100&points=3")
         .json();
@@ -571,7 +577,7 @@ fn a_curve_range_outside_the_domain_is_clipped_and_said_so() {
 
 #[test]
 fn the_curve_etag_changes_only_with_the_live_version() {
-    let server = Server::start();
+    let server = TestServer::start();
     let first = server.get("/models/lease-test/curve?over=years_trading");
     let tag = first.header("etag").expect("etag").to_string();
     assert!(tag.starts_with('"') && tag.ends_with('"'));
@@ -624,7 +630,7 @@ fn the_curve_etag_changes_only_with_the_live_version() {
 
 #[test]
 fn metrics_count_requests_observations_and_warnings() {
-    let server = Server::start();
+    let server = TestServer::start();
     let mut outside = lease_observation();
     outside["annual_revenue"] = json!(9000.0);
     let batch = json!({"observations": [lease_observation(), outside, lease_observation()]});
@@ -656,7 +662,7 @@ fn metrics_count_requests_observations_and_warnings() {
 
 #[test]
 fn the_openapi_document_has_a_concrete_path_per_model() {
-    let server = Server::start();
+    let server = TestServer::start();
     let doc = server.get("/openapi.json").json();
     assert_eq!(doc["openapi"], json!("3.1.0"));
     let paths = doc["paths"].as_object().expect("paths");
@@ -697,7 +703,7 @@ fn regression_a_curve_over_the_whole_domain_starts_exactly_at_the_log_domain_edg
     // The grid's end points were computed as a + (b − a)·t, which rounds to 0 at the 1e-12
     // edge; log(0) made the curve not computable. (A descending range, from above to, is now
     // refused: see the catalogue.)
-    let server = Server::start();
+    let server = TestServer::start();
     let reply = server
         .get("/models/lease-test/curve?over=annual_revenue&points=2&from=-1e12&to=999999999999");
     assert_eq!(reply.status, 200, "{}", reply.text);
@@ -707,7 +713,7 @@ fn regression_a_curve_over_the_whole_domain_starts_exactly_at_the_log_domain_edg
 
 #[test]
 fn regression_a_descending_curve_is_refused_naming_from() {
-    let server = Server::start();
+    let server = TestServer::start();
     let reply = server
         .get("/models/lease-test/curve?over=annual_revenue&points=2&from=999999999999&to=-1e12");
     assert_eq!(reply.status, 422, "{}", reply.text);
@@ -722,7 +728,7 @@ fn regression_a_descending_curve_is_refused_naming_from() {
 fn regression_an_elasticity_at_an_underflowing_probability_is_left_out() {
     // m·x/p is 0/0 where a probit probability underflows to 0; it made the whole answer
     // not computable.
-    let server = Server::start();
+    let server = TestServer::start();
     let body = json!({"elasticities": true, "observation": {"income": -569103424293.3263, "owner": false}});
     let reply = server.post("/models/plain-test/probability", &body);
     assert_eq!(reply.status, 200, "{}", reply.text);

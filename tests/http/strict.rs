@@ -6,22 +6,23 @@
 
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_observation, Server};
+use crate::fixture::lease_observation;
+use crate::server::TestServer;
 
 const PROBABILITY: &str = "/models/lease-test/probability";
 
-fn problem_of(server: &Server, body: &[u8], headers: &[(&str, &str)]) -> (u16, Json) {
+fn problem_of(server: &TestServer, body: &[u8], headers: &[(&str, &str)]) -> (u16, Json) {
     let reply = server.send("POST", PROBABILITY, headers, Some(body));
     (reply.status, reply.json())
 }
 
-fn post(server: &Server, body: &[u8]) -> (u16, Json) {
+fn post(server: &TestServer, body: &[u8]) -> (u16, Json) {
     problem_of(server, body, &[("Content-Type", "application/json")])
 }
 
 #[test]
 fn a_key_repeated_at_the_top_level_is_refused_naming_the_key_and_its_pointer() {
-    let server = Server::start();
+    let server = TestServer::start();
     let observation = lease_observation().to_string();
     let body = format!(r#"{{"observation": {observation}, "effects": true, "effects": false}}"#);
     let (status, problem) = post(&server, body.as_bytes());
@@ -34,7 +35,7 @@ fn a_key_repeated_at_the_top_level_is_refused_naming_the_key_and_its_pointer() {
 
 #[test]
 fn a_key_repeated_deep_in_a_batch_is_refused_with_the_pointer_of_the_second_occurrence() {
-    let server = Server::start();
+    let server = TestServer::start();
     let good = lease_observation().to_string();
     // The third observation sends years_trading twice; serde_json alone would keep the last.
     let twice = r#"{"annual_revenue": 450.0, "years_trading": 6.5, "prior_arrears": 1,
@@ -50,7 +51,7 @@ fn a_key_repeated_deep_in_a_batch_is_refused_with_the_pointer_of_the_second_occu
 
 #[test]
 fn a_key_that_needs_pointer_escaping_is_escaped_in_the_duplicate_pointer() {
-    let server = Server::start();
+    let server = TestServer::start();
     let (status, problem) = post(&server, br#"{"observation": {"a/b": 1, "a/b": 2}}"#);
     assert_eq!(status, 422, "{problem}");
     assert_eq!(problem["pointer"], json!("/observation/a~1b"));
@@ -58,7 +59,7 @@ fn a_key_that_needs_pointer_escaping_is_escaped_in_the_duplicate_pointer() {
 
 #[test]
 fn an_empty_body_says_the_body_is_empty() {
-    let server = Server::start();
+    let server = TestServer::start();
     for body in [&b""[..], b"  \r\n "] {
         let (status, problem) = post(&server, body);
         assert_eq!(status, 400, "{problem}");
@@ -70,7 +71,7 @@ fn an_empty_body_says_the_body_is_empty() {
 
 #[test]
 fn a_body_with_a_byte_order_mark_gets_415_naming_the_mark() {
-    let server = Server::start();
+    let server = TestServer::start();
     let mut body = b"\xEF\xBB\xBF".to_vec();
     body.extend_from_slice(
         json!({"observation": lease_observation()})
@@ -91,7 +92,7 @@ fn a_body_with_a_byte_order_mark_gets_415_naming_the_mark() {
 
 #[test]
 fn a_compressed_body_gets_415_and_is_never_inflated() {
-    let server = Server::start();
+    let server = TestServer::start();
     // The bytes are not even gzip: the refusal comes from the header, before any reading.
     let body = json!({"observation": lease_observation()}).to_string();
     for coding in ["gzip", "br", "identity, gzip"] {
@@ -122,7 +123,7 @@ fn a_compressed_body_gets_415_and_is_never_inflated() {
 
 #[test]
 fn a_long_unknown_field_is_echoed_cut_with_an_ellipsis_and_its_length() {
-    let server = Server::start();
+    let server = TestServer::start();
     let long = "x".repeat(5_000);
     let mut observation = lease_observation();
     observation[long.as_str()] = json!(1);
@@ -141,7 +142,7 @@ fn a_long_unknown_field_is_echoed_cut_with_an_ellipsis_and_its_length() {
 
 #[test]
 fn a_long_text_value_is_echoed_cut_with_its_length() {
-    let server = Server::start();
+    let server = TestServer::start();
     let mut observation = lease_observation();
     observation["years_trading"] = json!("9".repeat(1_000));
     let problem = server
@@ -154,7 +155,7 @@ fn a_long_text_value_is_echoed_cut_with_its_length() {
 
 #[test]
 fn numbers_are_echoed_in_shortest_round_trip_form() {
-    let server = Server::start();
+    let server = TestServer::start();
     // Each value breaks a rule and is echoed; the echo must read back as the same double.
     let cases = [
         ("prior_arrears", "0.30000000000000004"),
@@ -194,7 +195,7 @@ fn numbers_are_echoed_in_shortest_round_trip_form() {
 
 #[test]
 fn a_missing_covariates_error_names_every_missing_covariate() {
-    let server = Server::start();
+    let server = TestServer::start();
     let observation = json!({"annual_revenue": 450.0, "guarantor": 1});
     let problem = server
         .post(PROBABILITY, &json!({ "observation": observation }))
