@@ -80,8 +80,8 @@ fn main() {
         "guarantor",
     ))));
     let entry = |shadow: &Arc<Model>| Entry {
-        live: Arc::clone(&live),
         shadow: Some(Arc::clone(shadow)),
+        ..Entry::serving(Arc::clone(&live))
     };
     let (with_same, with_mapped) = (entry(&same), entry(&mapped));
     let registry = prometheus::Registry::new();

@@ -392,7 +392,8 @@ fn a_breaking_promotion_is_refused_with_what_callers_must_change_unless_allowed(
          - send the new count covariate 'arrears_count' in every observation\n\
          to keep the contract instead, refit the candidate:\n  \
          - keep 'guarantor' in --terms\n  \
-         - leave 'arrears_count' out of --terms (callers do not send it yet)\n\
+         - leave 'arrears_count' out of --terms (callers do not send it yet), or announce it \
+         with --announce arrears_count so that callers can start sending it first\n\
          to put it live anyway and change the callers, allow breaking changes: \
          '?allow_breaking=true' on an upload, '\"allow_breaking\": true' in a promotion's body, \
          or 'ogive promote --allow-breaking'"

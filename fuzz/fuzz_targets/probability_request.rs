@@ -52,7 +52,7 @@ fn answer(body: &[u8]) -> Result<Vec<u8>, Problem> {
     let model = support::fuzz_model();
     let body = parse_json(body)?;
     let request = parse_probability_request(&body, service.max_batch)?;
-    let values = parse_all(model, request.observations)?;
+    let values = parse_all(model, request.observations, &[])?;
     let request_id = format!("fuzz-{}", REQUESTS.fetch_add(1, Ordering::Relaxed));
     let scored = score(
         model,

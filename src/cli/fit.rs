@@ -121,6 +121,16 @@ pub struct FitArgs {
     #[arg(long, env = "OGIVE_BAND", value_name = "NAME=BELOW", value_parser = parse_band,
           value_delimiter = ',')]
     pub band: Vec<Band>,
+    /// Announce a covariate of this version that the live version lacks, so that callers may
+    /// start sending it before this version goes live (the live version accepts and ignores
+    /// it, and says so). Repeatable, or comma-separated; never taken from --like.
+    #[arg(
+        long,
+        env = "OGIVE_ANNOUNCE",
+        value_name = "COL",
+        value_delimiter = ','
+    )]
+    pub announce: Vec<String>,
     /// Where to write the model file (written atomically). An existing file is not replaced
     /// unless --force is given, and a version file inside a model directory
     /// (NAME/versions/VERSION.json) never is: a stored version does not change.
@@ -365,6 +375,7 @@ fn request_of(args: &FitArgs) -> anyhow::Result<FitRequest> {
                 PopulationMethodFlag::Weights => PopulationMethod::Weights,
             }),
         }),
+        announces: args.announce.clone(),
     })
 }
 

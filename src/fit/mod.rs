@@ -157,6 +157,8 @@ pub struct FitRequest {
     pub weights: Option<WeightColumn>,
     /// The outcome's share in the population, for a sample drawn by outcome.
     pub population: Option<PopulationRate>,
+    /// Covariates the model file announces (see [`ModelFile::announces`]).
+    pub announces: Vec<String>,
 }
 
 impl FitRequest {
@@ -184,6 +186,7 @@ impl FitRequest {
             threads: None,
             weights: None,
             population: None,
+            announces: Vec::new(),
         }
     }
 }
@@ -705,6 +708,7 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
         fitted_probabilities: Some(summaries::probability_histogram(&probabilities)),
         check_cases: Vec::new(),
         decision: request.decision.clone(),
+        announces: request.announces.clone(),
         provenance: Provenance {
             fitted_by: format!("ogive {}", env!("CARGO_PKG_VERSION")),
             fitted_at: match request.fitted_at_unix {

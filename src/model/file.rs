@@ -63,6 +63,14 @@ pub struct ModelFile {
     /// An optional decision threshold and named probability bands.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub decision: Option<DecisionSpec>,
+    /// Covariates of this version that it announces while it is a stored candidate: from the
+    /// moment it is stored, the live version accepts these fields in requests, ignores them
+    /// for scoring and says so in the answer's `notes`, so callers can start sending them
+    /// before this version goes live; a shadow of this version is scored on the calls that
+    /// send them; and promoting it is not refused for adding them. Each names a covariate of
+    /// this file, once.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub announces: Vec<String>,
     /// What fitted the model, when, and on how much data.
     pub provenance: Provenance,
 }

@@ -115,8 +115,20 @@ impl Model {
         observation: &Map<String, Json>,
         values: &mut Vec<Value>,
     ) -> Result<(), ObservationError> {
+        self.parse_observation_accepting(observation, values, &[])
+    }
+
+    /// [`parse_observation`](Model::parse_observation), also accepting (and ignoring) the
+    /// fields named in `accepted`: covariates that a stored version announces
+    /// (`registry::announce`).
+    pub fn parse_observation_accepting(
+        &self,
+        observation: &Map<String, Json>,
+        values: &mut Vec<Value>,
+        accepted: &[&str],
+    ) -> Result<(), ObservationError> {
         for key in observation.keys() {
-            if self.covariate_index(key).is_none() {
+            if self.covariate_index(key).is_none() && !accepted.contains(&key.as_str()) {
                 return Err(ObservationError::UnknownField(key.clone()));
             }
         }

@@ -131,6 +131,15 @@ pub enum ContractChange {
         /// Its kind.
         kind: CovariateKind,
     },
+    /// The candidate has a covariate the live version lacks, and announces it (the model
+    /// file's `announces`): the live version has accepted the field since the candidate was
+    /// stored, so callers could send it before the promotion. Not a breaking change.
+    Announced {
+        /// The covariate.
+        covariate: String,
+        /// Its kind.
+        kind: CovariateKind,
+    },
     /// The live version has a covariate the candidate lacks.
     Removed {
         /// The covariate.
@@ -238,9 +247,12 @@ impl ContractChange {
     /// flag that does it.
     pub fn to_keep(&self) -> String {
         match self {
-            ContractChange::Added { covariate, .. } => {
-                format!("leave '{covariate}' out of --terms (callers do not send it yet)")
-            }
+            ContractChange::Added { covariate, .. } => format!(
+                "leave '{covariate}' out of --terms (callers do not send it yet), or announce it with --announce {covariate} so that callers can start sending it first"
+            ),
+            ContractChange::Announced { covariate, .. } => format!(
+                "nothing: '{covariate}' is announced, so the live version accepts it already"
+            ),
             ContractChange::Removed { covariate, .. } => {
                 format!("keep '{covariate}' in --terms")
             }
@@ -291,6 +303,11 @@ impl fmt::Display for ContractChange {
             ContractChange::Added { covariate, kind } => write!(
                 f,
                 "send the new {} covariate '{covariate}' in every observation",
+                kind.name()
+            ),
+            ContractChange::Announced { covariate, kind } => write!(
+                f,
+                "send the announced {} covariate '{covariate}' in every observation (the live version accepts and ignores it meanwhile; a call without it is refused once this version is live)",
                 kind.name()
             ),
             ContractChange::Removed { covariate, .. } => write!(
@@ -537,13 +554,24 @@ pub fn covariate_changes(live: &Model, candidate: &Model) -> Vec<ContractChange>
     }
     for new in &candidate.covariates {
         if live.covariate_index(&new.name).is_none() {
-            changes.push(ContractChange::Added {
-                covariate: new.name.clone(),
-                kind: new.kind,
+            let covariate = new.name.clone();
+            let kind = new.kind;
+            changes.push(if candidate.file.announces.contains(&new.name) {
+                ContractChange::Announced { covariate, kind }
+            } else {
+                ContractChange::Added { covariate, kind }
             });
         }
     }
     changes
+}
+
+impl ContractChange {
+    /// Whether callers of the live version would break: every change but an announced
+    /// covariate, which they could start sending while the candidate was stored.
+    pub fn is_breaking(&self) -> bool {
+        !matches!(self, ContractChange::Announced { .. })
+    }
 }
 
 /// Step 4 of the gate. Returns the contract changes (empty, or allowed because
@@ -554,7 +582,7 @@ pub fn check_compatible(
     allow_breaking: bool,
 ) -> Result<Vec<ContractChange>, GateError> {
     let changes = contract_changes(live, candidate);
-    if changes.is_empty() || allow_breaking {
+    if !changes.iter().any(ContractChange::is_breaking) || allow_breaking {
         return Ok(changes);
     }
     Err(GateError::Breaking {

@@ -177,13 +177,10 @@ pub fn load_directory(dir: &Path) -> Result<LoadReport, DirectoryError> {
         report.repairs.extend(repair_interrupted_move(dir, &name));
         match load_live(&dir.join(&name), &name) {
             Ok(model) => {
-                report.snapshot.models.insert(
-                    name,
-                    Arc::new(Entry {
-                        live: Arc::new(model),
-                        shadow: None,
-                    }),
-                );
+                report
+                    .snapshot
+                    .models
+                    .insert(name, Arc::new(Entry::serving(Arc::new(model))));
             }
             Err(error) => report.failures.push((name, error)),
         }

@@ -12,6 +12,7 @@ use arc_swap::ArcSwap;
 
 use crate::model::Model;
 
+pub mod announce;
 pub mod gate;
 pub mod lifecycle;
 pub(crate) mod limits;
@@ -19,13 +20,28 @@ pub mod load;
 pub mod store;
 pub mod watch;
 
-/// One model as served: its live version and an optional shadow candidate.
+/// One model as served: its live version, an optional shadow candidate, and the fields stored
+/// candidates announce.
 #[derive(Debug, Clone)]
 pub struct Entry {
     /// The live version.
     pub live: Arc<Model>,
     /// A candidate scored beside the live version, its answers only measured.
     pub shadow: Option<Arc<Model>>,
+    /// Covariates that stored versions announce and the live version lacks: the live version
+    /// accepts these fields and ignores them ([`announce`]).
+    pub announced: Vec<announce::Announced>,
+}
+
+impl Entry {
+    /// An entry serving `live`, with no shadow and nothing announced.
+    pub fn serving(live: Arc<Model>) -> Entry {
+        Entry {
+            live,
+            shadow: None,
+            announced: Vec::new(),
+        }
+    }
 }
 
 /// Every served model, by name, at one instant.
@@ -48,13 +64,7 @@ impl Registry {
             .into_iter()
             .map(|m| {
                 let name = m.name().to_string();
-                (
-                    name,
-                    Arc::new(Entry {
-                        live: Arc::new(m),
-                        shadow: None,
-                    }),
-                )
+                (name, Arc::new(Entry::serving(Arc::new(m))))
             })
             .collect();
         Registry {
@@ -79,12 +89,15 @@ impl Registry {
         let name = model.name().to_string();
         let before = self.current.rcu(|current| {
             let mut next = Snapshot::clone(current);
-            let shadow = next.models.get(&name).and_then(|e| e.shadow.clone());
+            let before = next.models.get(&name);
+            let shadow = before.and_then(|e| e.shadow.clone());
+            let announced = before.map(|e| e.announced.clone()).unwrap_or_default();
             next.models.insert(
                 name.clone(),
                 Arc::new(Entry {
                     live: Arc::clone(&model),
                     shadow,
+                    announced,
                 }),
             );
             next
@@ -109,13 +122,34 @@ impl Registry {
                 next.models.insert(
                     name.to_string(),
                     Arc::new(Entry {
-                        live: Arc::clone(&entry.live),
                         shadow,
+                        ..Entry::clone(entry)
                     }),
                 );
             }
             next
         });
         before.models.get(name).cloned()
+    }
+
+    /// Set what stored versions of model `name` announce, keeping everything else, in one
+    /// atomic swap (read-copy-update); nothing changes when `name` is not served or the list
+    /// is the same.
+    pub fn set_announced(&self, name: &str, announced: &[announce::Announced]) {
+        self.current.rcu(|current| {
+            let mut next = Snapshot::clone(current);
+            if let Some(entry) = current.models.get(name) {
+                if entry.announced != announced {
+                    next.models.insert(
+                        name.to_string(),
+                        Arc::new(Entry {
+                            announced: announced.to_vec(),
+                            ..Entry::clone(entry)
+                        }),
+                    );
+                }
+            }
+            next
+        });
     }
 }

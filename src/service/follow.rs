@@ -13,7 +13,9 @@
 //! After each poll the follower logs what happened, counts refused files in
 //! `ogive_model_load_errors_total`, sets readiness (ready when every model with a `live`
 //! pointer has a version serving, [`Watcher::unserved`]), and clears a shadow whose version
-//! has just gone live (it would only be compared with itself).
+//! has just gone live (it would only be compared with itself). It then looks at what the
+//! stored versions of each served model announce (`registry::announce`) and records the
+//! fields the live version is to accept and ignore.
 //!
 //! This module does not decide what may be promoted ([`crate::registry::lifecycle`]) nor how
 //! a file is validated ([`crate::registry::watch`] loads through the startup loader).
@@ -28,6 +30,7 @@ use std::time::Duration;
 use super::shadow::Shadowing;
 use super::state::{AppState, Health};
 use crate::metrics::Metrics;
+use crate::registry::announce::Announcements;
 use crate::registry::watch::{WatchEvent, Watcher, MAX_INTERVAL};
 use crate::registry::Registry;
 
@@ -35,6 +38,7 @@ use crate::registry::Registry;
 #[derive(Debug)]
 pub struct Follower {
     watcher: Mutex<Watcher>,
+    announcements: Mutex<Announcements>,
     root: PathBuf,
     registry: Arc<Registry>,
     health: Arc<Health>,
@@ -51,6 +55,7 @@ impl Follower {
         let root = root.into();
         Follower {
             watcher: Mutex::new(Watcher::new(root.clone())),
+            announcements: Mutex::new(Announcements::new()),
             root,
             registry: Arc::clone(&state.registry),
             health: Arc::clone(&state.health),
@@ -79,6 +84,24 @@ impl Follower {
         drop(watcher);
         for event in events {
             self.handle(event);
+        }
+        self.look_at_announcements();
+    }
+
+    /// Record, for every served model, the fields its stored versions announce.
+    fn look_at_announcements(&self) {
+        let mut announcements = self
+            .announcements
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner);
+        for (name, entry) in &self.registry.snapshot().models {
+            let announced = announcements.look(&self.root, &entry.live);
+            if announced != entry.announced {
+                for a in announced.iter().filter(|a| !entry.announced.contains(a)) {
+                    tracing::info!(model = %name, field = %a.field, version = %a.version, live = entry.live.version(), "announced covariate: the live version accepts and ignores it");
+                }
+                self.registry.set_announced(name, &announced);
+            }
         }
     }
 

@@ -66,6 +66,7 @@ pub fn parse_one(
     observation: &Json,
     base: &str,
     values: &mut Vec<Value>,
+    accepted: &[&str],
 ) -> Result<(), Problem> {
     let Json::Object(object) = observation else {
         return Err(Problem::new(
@@ -77,18 +78,19 @@ pub fn parse_one(
         )
         .at(base));
     };
-    parse_object(model, object, base, values)
+    parse_object(model, object, base, values, accepted)
 }
 
 /// Parse one observation object into `values`: the model's checks, then the service bounds.
-fn parse_object(
+pub fn parse_object(
     model: &Model,
     object: &Map<String, Json>,
     base: &str,
     values: &mut Vec<Value>,
+    accepted: &[&str],
 ) -> Result<(), Problem> {
     model
-        .parse_observation(object, values)
+        .parse_observation_accepting(object, values, accepted)
         .map_err(|e| observation_problem(model, object, &e, base))?;
     if let Some((kind, detail, j)) = bound_error(model, values) {
         return Err(Problem::new(kind, detail).at(format!(
@@ -138,14 +140,19 @@ pub fn check_bounds(model: &Model, values: &[Value]) -> Result<(), (usize, Probl
     }
 }
 
-/// Parse every observation of a request into one flat vector (`n × covariates`).
-pub fn parse_all(model: &Model, observations: Observations<'_>) -> Result<Vec<Value>, Problem> {
+/// Parse every observation of a request into one flat vector (`n × covariates`), accepting
+/// and ignoring the fields named in `accepted` (announced covariates).
+pub fn parse_all(
+    model: &Model,
+    observations: Observations<'_>,
+    accepted: &[&str],
+) -> Result<Vec<Value>, Problem> {
     let width = model.covariates.len();
     let mut values = Vec::with_capacity(width * observations.len());
     let mut one = Vec::with_capacity(width);
     match observations {
         Observations::One(object) => {
-            parse_object(model, object, "/observation", &mut one)?;
+            parse_object(model, object, "/observation", &mut one, accepted)?;
             values.extend_from_slice(&one);
         }
         Observations::Many(list) => {
@@ -153,7 +160,7 @@ pub fn parse_all(model: &Model, observations: Observations<'_>) -> Result<Vec<Va
             let mut errors = Vec::new();
             for (i, observation) in list.iter().enumerate() {
                 let base = format!("/observations/{i}");
-                match parse_one(model, observation, &base, &mut one) {
+                match parse_one(model, observation, &base, &mut one, accepted) {
                     Ok(()) if first.is_none() => values.extend_from_slice(&one),
                     Ok(()) => {}
                     Err(problem) => {

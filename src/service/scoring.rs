@@ -9,7 +9,9 @@
 //! a batch:          {request_id, model, version, link, level, count, results: [{index, <answer fields>, [receipt]}], notes, [average_effects], [at_means]}
 //! notes             no_covariance (no intervals can be given), saturated_interval (a
 //!                   probability interval of zero width: within rounding of 0 or 1), not_live
-//!                   (a stored version asked for by label, not the live one: see [`NOT_LIVE`])
+//!                   (a stored version asked for by label, not the live one: see [`NOT_LIVE`]),
+//!                   announced_ignored (fields a stored version announces, accepted and not
+//!                   used by the live version: see [`ANNOUNCED_IGNORED`])
 //! ```
 //!
 //! Receipts are sealed by monitoring ([`crate::metrics::monitor::Monitor::record_scored`]) and
@@ -74,12 +76,29 @@ pub struct Scored<'a> {
     averages: Option<(Average, Vec<Average>)>,
     at_means: Option<Answer>,
     receipts: Vec<String>,
-    /// The live version's label, when the answering version is a stored one that is not live.
-    not_live: Option<String>,
+    /// Notes made for this request alone (not_live, announced_ignored): code and sentence.
+    request_notes: Vec<(&'static str, String)>,
 }
 
 /// The code of the note on an answer from a stored version that is not live.
 pub const NOT_LIVE: &str = "not_live";
+
+/// The code of the note on an answer whose observations sent fields that a stored version
+/// announces and the answering version does not use.
+pub const ANNOUNCED_IGNORED: &str = "announced_ignored";
+
+/// The note's sentence for announced fields `fields` (each with the version announcing it).
+pub fn announced_message(model: &Model, fields: &[(&str, &str)]) -> String {
+    let listed: Vec<String> = fields
+        .iter()
+        .map(|(field, version)| format!("'{field}' (announced by stored version '{version}')"))
+        .collect();
+    format!(
+        "version '{}' does not use {}: the field is accepted and ignored for scoring until the announcing version goes live",
+        model.version(),
+        listed.join(", ")
+    )
+}
 
 /// The note's sentence: which version answered, that it is not live, and what that means for
 /// its receipts and the monitoring series.
@@ -184,7 +203,7 @@ pub fn score<'a>(
         averages,
         at_means,
         receipts: Vec::new(),
-        not_live: None,
+        request_notes: Vec::new(),
     })
 }
 
@@ -320,19 +339,19 @@ impl Serialize for Scored<'_> {
         if self.answers.iter().any(zero_width) {
             notes.push(SATURATED);
         }
-        match &self.not_live {
-            None => map.serialize_entry("notes", &notes)?,
-            Some(live) => {
-                let mut all: Vec<serde_json::Value> = notes
+        if self.request_notes.is_empty() {
+            map.serialize_entry("notes", &notes)?;
+        } else {
+            let mut all: Vec<serde_json::Value> = notes
+                .iter()
+                .map(|n| serde_json::json!({"code": n.code, "message": n.message}))
+                .collect();
+            all.extend(
+                self.request_notes
                     .iter()
-                    .map(|n| serde_json::json!({"code": n.code, "message": n.message}))
-                    .collect();
-                all.push(serde_json::json!({
-                    "code": NOT_LIVE,
-                    "message": not_live_message(model, live),
-                }));
-                map.serialize_entry("notes", &all)?;
-            }
+                    .map(|(code, message)| serde_json::json!({"code": code, "message": message})),
+            );
+            map.serialize_entry("notes", &all)?;
         }
         if let Some((probability, effects)) = &self.averages {
             map.serialize_entry(
@@ -374,7 +393,13 @@ impl Scored<'_> {
     /// Mark the answer as coming from a stored version that is not live, `live_version` being
     /// the live one (a `not_live` note says so).
     pub fn set_not_live(&mut self, live_version: &str) {
-        self.not_live = Some(live_version.to_string());
+        let message = not_live_message(self.model, live_version);
+        self.request_notes.push((NOT_LIVE, message));
+    }
+
+    /// Add a note made for this request alone.
+    pub fn add_note(&mut self, code: &'static str, message: String) {
+        self.request_notes.push((code, message));
     }
 
     /// The answer's JSON bytes.

@@ -138,7 +138,7 @@ pub enum CannotShadow {
         version: String,
     },
     /// The candidate needs a covariate that callers of the live version do not send.
-    #[error("version '{candidate}' needs covariate '{covariate}', which callers of live version '{live}' do not send, so it cannot be scored on their requests")]
+    #[error("version '{candidate}' needs covariate '{covariate}', which callers of live version '{live}' do not send, so it cannot be scored on their requests; a version that announces it (ogive fit --announce {covariate}) is shadowed on the calls that send it")]
     Missing {
         /// The candidate's version.
         candidate: String,
@@ -240,7 +240,22 @@ pub fn check_shadowable(live: &Model, candidate: &Model) -> Result<(), CannotSha
             version: live.version().to_string(),
         });
     }
+    if reads_announced(live, candidate) {
+        return Ok(());
+    }
     translation(live, candidate).map(|_| ())
+}
+
+/// Whether `candidate` needs covariates that `live` lacks and announces every one of them
+/// (`registry::announce`): such a shadow parses each request itself and is scored on the
+/// observations that send them ([`Shadowing::compare_parsed`]).
+pub fn reads_announced(live: &Model, candidate: &Model) -> bool {
+    let mut new = candidate
+        .covariates
+        .iter()
+        .filter(|c| live.covariate_index(&c.name).is_none())
+        .peekable();
+    new.peek().is_some() && new.all(|c| candidate.file.announces.contains(&c.name))
 }
 
 impl Translation {
@@ -437,37 +452,63 @@ impl Shadowing {
             return;
         };
         let live = &*entry.live;
-        if candidate.version() == live.version() || answers.is_empty() || self.share.get() <= 0.0 {
-            return;
-        }
         let width = live.covariates.len();
         if values.len() != answers.len() * width {
             return;
         }
-        let first = self.seen.fetch_add(answers.len() as u64, Ordering::Relaxed);
-        let Ok(translation) = translation(live, candidate) else {
+        let translation = translation(live, candidate);
+        let mut buffer = Vec::new();
+        self.record(live, candidate, answers, |i| {
             // Refused when the shadow is set; a live version swapped in since may no longer
-            // carry what the candidate needs.
-            let sampled = (0..answers.len() as u64)
-                .filter(|i| self.share.samples(first + i))
-                .count();
-            self.unscored
-                .with_label_values(&[live.name(), candidate.version()])
-                .inc_by(sampled as u64);
+            // carry what the candidate needs: then nothing is scored.
+            let observation = &values[i * width..(i + 1) * width];
+            match &translation {
+                Ok(t) => t.probability(candidate, observation, &mut buffer),
+                Err(_) => None,
+            }
+        });
+    }
+
+    /// Score `entry`'s shadow on the observations as it parsed them itself (`rows[i]` is
+    /// `None` where observation `i` does not send what it needs, such as an announced
+    /// covariate), and record the comparison with the live `answers`.
+    pub fn compare_parsed(&self, entry: &Entry, rows: &[Option<Vec<Value>>], answers: &[Answer]) {
+        let Some(candidate) = entry.shadow.as_deref() else {
             return;
         };
+        if rows.len() != answers.len() {
+            return;
+        }
+        self.record(&entry.live, candidate, answers, |i| {
+            let values = rows[i].as_deref()?;
+            let p = Scorer::probability(candidate, values);
+            p.is_finite().then_some(p)
+        });
+    }
+
+    /// Record the comparison of the live `answers` with the candidate's probabilities
+    /// `candidate_probability(i)` (`None`: not scored) over the sampled share.
+    fn record(
+        &self,
+        live: &Model,
+        candidate: &Model,
+        answers: &[Answer],
+        mut candidate_probability: impl FnMut(usize) -> Option<f64>,
+    ) {
+        if candidate.version() == live.version() || answers.is_empty() || self.share.get() <= 0.0 {
+            return;
+        }
+        let first = self.seen.fetch_add(answers.len() as u64, Ordering::Relaxed);
         let histogram = self
             .abs_difference
             .with_label_values(&[live.name(), candidate.version()]);
         let (live_threshold, candidate_threshold) = (threshold(live), threshold(candidate));
-        let mut buffer = Vec::new();
         let (mut scored, mut unscored, mut disagreements) = (0u64, 0u64, 0u64);
         for (i, answer) in answers.iter().enumerate() {
             if !self.share.samples(first + i as u64) {
                 continue;
             }
-            let observation = &values[i * width..(i + 1) * width];
-            let Some(q) = translation.probability(candidate, observation, &mut buffer) else {
+            let Some(q) = candidate_probability(i) else {
                 unscored += 1;
                 continue;
             };

@@ -608,13 +608,9 @@ fn the_curve_etag_changes_only_with_the_live_version() {
     file["version"] = json!("2026-02");
     let mut snapshot = Snapshot::default();
     for m in [model(&file), model(&plain_file())] {
-        snapshot.models.insert(
-            m.name().to_string(),
-            Arc::new(Entry {
-                live: Arc::new(m),
-                shadow: None,
-            }),
-        );
+        snapshot
+            .models
+            .insert(m.name().to_string(), Arc::new(Entry::serving(Arc::new(m))));
     }
     server.state().registry.replace(snapshot);
     let after = server.send(

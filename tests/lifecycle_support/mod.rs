@@ -95,6 +95,7 @@ pub fn base(name: &str, version: &str) -> ModelFile {
         fitted_probabilities: None,
         check_cases: Vec::new(),
         decision: None,
+        announces: Vec::new(),
         provenance: Provenance {
             fitted_by: "lifecycle_support".into(),
             fitted_at: "2026-01-01T00:00:00Z".into(),

@@ -6,7 +6,8 @@
 //!   surrounding spaces, since terms write `name=level` and products join with `*`), a reference
 //!   among them, and training counts only for its own levels;
 //! - a numeric covariate has no levels, a finite training min ≤ mean ≤ max, a standard
-//!   deviation ≥ 0 when given, a binary one a range inside [0, 1], and a valid histogram.
+//!   deviation ≥ 0 when given, a binary one a range inside [0, 1], and a valid histogram;
+//! - each announced covariate (`announces`) is a covariate of the file, named once.
 
 use std::collections::HashSet;
 
@@ -46,7 +47,28 @@ pub(in crate::model) fn covariates(file: &ModelFile) -> Result<Vec<Covariate>, M
             numeric(i, spec)?
         });
     }
+    announced(file, &seen)?;
     Ok(out)
+}
+
+/// The announced covariates: each one of the file's covariates, named once.
+fn announced(file: &ModelFile, covariates: &HashSet<&str>) -> Result<(), ModelError> {
+    let mut named = HashSet::new();
+    for (i, name) in file.announces.iter().enumerate() {
+        let at = format!("announces[{i}]");
+        if !covariates.contains(name.as_str()) {
+            return Err(err(
+                at,
+                ModelProblem::Missing(format!(
+                    "'{name}' is announced but is not a covariate of this file; announce only covariates listed in 'covariates'"
+                )),
+            ));
+        }
+        if !named.insert(name.as_str()) {
+            return Err(err(at, ModelProblem::Duplicate(name.clone())));
+        }
+    }
+    Ok(())
 }
 
 /// A categorical covariate: its levels, reference and level counts.
@@ -216,6 +238,18 @@ mod tests {
 
     use super::super::fixture::{accepted, refused};
     use crate::model::ModelProblem;
+
+    #[test]
+    fn an_announced_covariate_is_one_of_the_file_named_once() {
+        let model = accepted(|m| m["announces"] = json!(["region"]));
+        assert_eq!(model.file().announces, ["region"]);
+        let e = refused(|m| m["announces"] = json!(["sector"]));
+        assert_eq!(e.field, "announces[0]");
+        assert!(e.to_string().contains("'sector'"), "{e}");
+        let e = refused(|m| m["announces"] = json!(["region", "region"]));
+        assert_eq!(e.field, "announces[1]");
+        assert!(matches!(e.problem, ModelProblem::Duplicate(_)));
+    }
 
     #[test]
     fn no_covariates_at_all() {

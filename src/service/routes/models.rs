@@ -162,6 +162,18 @@ pub async fn describe(
     if let Some(shadow) = &entry.shadow {
         map.insert("shadow_version".into(), json!(shadow.version()));
     }
+    if !entry.announced.is_empty() {
+        map.insert(
+            "announced".into(),
+            Json::Array(
+                entry
+                    .announced
+                    .iter()
+                    .map(|a| json!({"covariate": a.field, "version": a.version}))
+                    .collect(),
+            ),
+        );
+    }
     map.insert(
         "example".into(),
         Json::Object(crate::service::example::example_observation(model)),

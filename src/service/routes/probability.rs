@@ -17,17 +17,18 @@ use actix_web::web::Bytes;
 use actix_web::{web, HttpMessage, HttpRequest, HttpResponse};
 
 use super::models::find;
-use crate::model::Model;
+use crate::model::{Model, Value};
 use crate::registry::{gate, Entry};
 use crate::service::admin::refusals::gate_problem;
 use crate::service::body::{parse_json, read_json_bytes};
 use crate::service::compute::{Admitted, INLINE_BODY_BYTES};
 use crate::service::dto::{parse_probability_request, Observations};
 use crate::service::middleware::Scored;
-use crate::service::observations::parse_all;
+use crate::service::observations::{parse_all, parse_object};
 use crate::service::problem::{Kind, Problem};
 use crate::service::request_id::RequestId;
-use crate::service::scoring::score;
+use crate::service::scoring::{announced_message, score, ANNOUNCED_IGNORED};
+use crate::service::shadow::reads_announced;
 use crate::service::state::AppState;
 
 /// Which version answers a request: the live one, or a stored one asked for by its label.
@@ -165,7 +166,19 @@ fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) ->
             .compute
             .check_budget(count, model.coefficients.len())?;
         let admission = state.compute.admit(count)?;
-        let values = parse_all(model, request.observations)?;
+        // Fields that stored versions announce: the live version accepts and ignores them.
+        let accepted: Vec<&str> = if target.live {
+            target
+                .entry
+                .announced
+                .iter()
+                .map(|a| a.field.as_str())
+                .filter(|f| model.covariate_index(f).is_none())
+                .collect()
+        } else {
+            Vec::new()
+        };
+        let values = parse_all(model, request.observations, &accepted)?;
         let metrics = if target.live {
             state.metrics.scoring(model)
         } else {
@@ -187,11 +200,67 @@ fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) ->
         if !target.live {
             scored.set_not_live(target.entry.live.version());
         }
+        let sent = announced_sent(&target.entry, &accepted, request.observations);
+        if !sent.is_empty() {
+            scored.add_note(ANNOUNCED_IGNORED, announced_message(model, &sent));
+        }
         let json = scored.to_json()?;
-        if let (Some(shadow), true) = (&state.shadow, target.live) {
-            shadow.compare(&target.entry, &values, scored.answers());
+        match (&state.shadow, &target.entry.shadow) {
+            (Some(shadow), Some(candidate)) if target.live => {
+                if reads_announced(model, candidate) {
+                    let rows = parsed_by(candidate, request.observations);
+                    shadow.compare_parsed(&target.entry, &rows, scored.answers());
+                } else {
+                    shadow.compare(&target.entry, &values, scored.answers());
+                }
+            }
+            _ => {}
         }
         Ok((json, admission))
     })();
     Answered { result, logged }
+}
+
+/// The announced fields (each with the version announcing it) that some observation sends.
+fn announced_sent<'a>(
+    entry: &'a Entry,
+    accepted: &[&str],
+    observations: Observations<'_>,
+) -> Vec<(&'a str, &'a str)> {
+    if accepted.is_empty() {
+        return Vec::new();
+    }
+    let sends = |field: &str| match observations {
+        Observations::One(object) => object.contains_key(field),
+        Observations::Many(list) => list
+            .iter()
+            .any(|o| o.as_object().is_some_and(|o| o.contains_key(field))),
+    };
+    entry
+        .announced
+        .iter()
+        .filter(|a| accepted.contains(&a.field.as_str()) && sends(&a.field))
+        .map(|a| (a.field.as_str(), a.version.as_str()))
+        .collect()
+}
+
+/// Each observation as `candidate` reads it, or `None` where it cannot (an announced
+/// covariate not sent, a value it refuses): for a shadow that needs announced covariates.
+/// Fields the candidate does not know (kept from the live version) are ignored.
+fn parsed_by(candidate: &Model, observations: Observations<'_>) -> Vec<Option<Vec<Value>>> {
+    let read = |object: &serde_json::Map<String, serde_json::Value>| {
+        let unknown: Vec<&str> = object
+            .keys()
+            .map(String::as_str)
+            .filter(|k| candidate.covariate_index(k).is_none())
+            .collect();
+        let mut values = Vec::with_capacity(candidate.covariates.len());
+        parse_object(candidate, object, "", &mut values, &unknown)
+            .is_ok()
+            .then_some(values)
+    };
+    match observations {
+        Observations::One(object) => vec![read(object)],
+        Observations::Many(list) => list.iter().map(|o| o.as_object().and_then(read)).collect(),
+    }
 }
