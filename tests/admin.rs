@@ -384,6 +384,51 @@ fn a_file_that_fails_validation_is_refused_naming_what_is_wrong() {
     assert_serves(&d, "v1", &model_bytes(NAME, "v1"), &observations(3)[2]);
 }
 
+#[test]
+fn a_model_past_a_size_limit_is_refused_at_upload_naming_the_limit() {
+    let d = three_versions(Share::ALL);
+    let contract = Contract::fetch(&d);
+    let template = "/models/{name}/versions/{version}";
+
+    // A category of 1,001 levels: an identifier, not a category (the limit is 1,000).
+    let levels: Vec<String> = (0..1_001).map(|i| format!("p{i:04}")).collect();
+    let levels: Vec<&str> = levels.iter().map(String::as_str).collect();
+    let file = with_covariate(base(NAME, "v4"), categorical("postcode", &levels, "p0000"));
+    let reply = d.upload(NAME, "v4", &bytes_of(file), "");
+    contract.check(template, "put", &reply);
+    let problem = reply.expect_problem(422, "model-too-large");
+    assert_eq!(problem["limit"], json!(1_000), "{problem}");
+    assert_eq!(problem["count"], json!(1_001), "{problem}");
+    let pointer = problem["pointer"].as_str().expect("a pointer");
+    assert!(
+        pointer.starts_with("/covariates/") && pointer.ends_with("/levels"),
+        "{problem}"
+    );
+    let detail = problem["detail"].as_str().expect("a detail");
+    assert!(
+        detail.contains("postcode") && detail.contains("1000"),
+        "{detail}"
+    );
+
+    // 257 terms, one past the limit: refused before validation reads a term.
+    let mut file: Json = serde_json::from_slice(&model_bytes(NAME, "v4")).expect("JSON");
+    let terms = file["terms"].as_array_mut().expect("terms");
+    let extra = terms[1].clone();
+    while terms.len() < 257 {
+        terms.push(extra.clone());
+    }
+    let reply = d.upload(NAME, "v4", file.to_string().as_bytes(), "");
+    contract.check(template, "put", &reply);
+    let problem = reply.expect_problem(422, "model-too-large");
+    assert_eq!(problem["pointer"], json!("/terms"), "{problem}");
+    assert_eq!(problem["limit"], json!(256), "{problem}");
+    assert_eq!(problem["count"], json!(257), "{problem}");
+
+    // Nothing was written, and v1 still serves.
+    assert_eq!(stored_versions(&d, NAME), ["v1.json", "v2.json", "v3.json"]);
+    assert_serves(&d, "v1", &model_bytes(NAME, "v1"), &observations(3)[2]);
+}
+
 /// `v1` with `guarantor` removed and a count `seasonal` added.
 fn breaking_candidate(version: &str) -> Vec<u8> {
     let file = without_covariate(base(NAME, version), "guarantor");
