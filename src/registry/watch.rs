@@ -139,6 +139,11 @@ impl Watcher {
         &self.unserved
     }
 
+    /// Why the live version of `name` was last refused, if its last load failed.
+    pub fn refusal(&self, name: &str) -> Option<&str> {
+        self.watched.get(name)?.last_refusal.as_deref()
+    }
+
     /// Look at the directory once, swap changed models into `registry`, and say what happened.
     pub fn poll(&mut self, registry: &Registry) -> Vec<WatchEvent> {
         let mut events = Vec::new();

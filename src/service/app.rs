@@ -20,6 +20,7 @@ use super::admin::{self, AdminState, AdminToken};
 use super::follow::{FollowHandle, Follower};
 use super::shadow::{Shadowing, Share};
 use super::shutdown::{self, first_of};
+use super::state::Failures;
 use super::{public_server, AppState, Settings};
 use crate::metrics::monitor::{Monitor, MonitorSettings};
 use crate::metrics::Metrics;
@@ -281,12 +282,12 @@ fn bind(addr: SocketAddr) -> io::Result<TcpListener> {
 }
 
 /// Load every model of `root` into a new registry, logging what loaded, what was repaired and
-/// what failed (each failure also counted in `ogive_model_load_errors_total`); the names
-/// of the models that failed.
+/// what failed (each failure also counted in `ogive_model_load_errors_total`); the models that
+/// failed, each with what failed.
 fn load_models(
     root: &std::path::Path,
     metrics: &Metrics,
-) -> anyhow::Result<(Arc<Registry>, Vec<String>)> {
+) -> anyhow::Result<(Arc<Registry>, Failures)> {
     let report = load_directory(root)
         .with_context(|| format!("loading the model directory {}", root.display()))?;
     for repair in &report.repairs {
@@ -318,7 +319,7 @@ fn load_models(
     let failed = report
         .failures
         .iter()
-        .map(|(name, _)| name.clone())
+        .map(|(name, error)| (name.clone(), error.to_string()))
         .collect();
     let registry = Arc::new(Registry::default());
     registry.replace(report.snapshot);

@@ -28,7 +28,7 @@ use std::thread::JoinHandle;
 use std::time::Duration;
 
 use super::shadow::Shadowing;
-use super::state::{AppState, Health};
+use super::state::{AppState, Failures, Health};
 use crate::metrics::Metrics;
 use crate::registry::announce::Announcements;
 use crate::registry::watch::{WatchEvent, Watcher, MAX_INTERVAL};
@@ -80,7 +80,17 @@ impl Follower {
         let mut watcher = self.watcher.lock().unwrap_or_else(PoisonError::into_inner);
         let events = watcher.poll(&self.registry);
         self.health.set_models_loaded(watcher.unserved().is_empty());
-        self.health.set_failed(watcher.unserved());
+        let failures: Failures = watcher
+            .unserved()
+            .iter()
+            .map(|name| {
+                let reason = watcher
+                    .refusal(name)
+                    .unwrap_or("its live version has not loaded yet");
+                (name.clone(), reason.to_string())
+            })
+            .collect();
+        self.health.set_failed(&failures);
         drop(watcher);
         for event in events {
             self.handle(event);

@@ -12,13 +12,16 @@ use crate::metrics::monitor::Monitor;
 use crate::metrics::Metrics;
 use crate::registry::Registry;
 
+/// Model directory entries that failed to load, each with what failed, in name order.
+pub type Failures = Vec<(String, String)>;
+
 /// Readiness inputs: whether every model directory entry has a valid live version, and whether
 /// the process is draining for shutdown. Liveness needs no flag: answering is the proof.
 #[derive(Debug)]
 pub struct Health {
     models_loaded: AtomicBool,
     draining: AtomicBool,
-    failed: std::sync::RwLock<Vec<String>>,
+    failed: std::sync::RwLock<Failures>,
 }
 
 impl Health {
@@ -31,18 +34,18 @@ impl Health {
         }
     }
 
-    /// Record which model directory entries failed to load (the directory watcher calls this
-    /// after each look): a live pointer naming a version that is not stored, an unreadable or
-    /// invalid version file.
-    pub fn set_failed(&self, names: &[String]) {
+    /// Record which model directory entries failed to load and why, in name order (the loader
+    /// at start and the directory watcher after each look call this): a live pointer naming a
+    /// version that is not stored, an unreadable or invalid version file.
+    pub fn set_failed(&self, failures: &[(String, String)]) {
         let mut failed = self.failed.write().unwrap_or_else(|e| e.into_inner());
-        if failed.as_slice() != names {
-            *failed = names.to_vec();
+        if failed.as_slice() != failures {
+            *failed = failures.to_vec();
         }
     }
 
-    /// The model directory entries that failed to load, in name order.
-    pub fn failed(&self) -> Vec<String> {
+    /// The model directory entries that failed to load, each with what failed, in name order.
+    pub fn failures(&self) -> Failures {
         self.failed.read().map(|f| f.clone()).unwrap_or_default()
     }
 
@@ -50,7 +53,7 @@ impl Health {
     pub fn has_failed(&self, name: &str) -> bool {
         self.failed
             .read()
-            .is_ok_and(|f| f.iter().any(|n| n == name))
+            .is_ok_and(|f| f.iter().any(|(n, _)| n == name))
     }
 
     /// Record whether every model directory entry now has a valid live version (the loader and,

@@ -134,6 +134,10 @@ fn a_live_pointer_naming_a_missing_version_is_reported_as_failed_to_load() {
     assert_eq!(ready.status, 503, "{}", ready.body);
     let ready: Json = serde_json::from_str(&ready.body).expect("JSON");
     assert_eq!(ready["failed_to_load"], json!(["ghost"]), "{ready}");
+    let error = ready["load_errors"]["ghost"].as_str().expect("what failed");
+    assert!(error.contains("3.0"), "{ready}");
+    let reasons = ready["reasons"].to_string();
+    assert!(reasons.contains("model 'ghost' failed to load"), "{ready}");
     assert_eq!(ready["models"], json!(1));
 
     let described = raw_request(addr, "GET", "/models/ghost", "", b"");

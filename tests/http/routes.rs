@@ -187,7 +187,7 @@ fn an_unknown_model_error_lists_the_models_that_are_served() {
 }
 
 #[test]
-fn readiness_is_503_while_a_model_failed_to_load() {
+fn readiness_is_503_while_a_model_failed_to_load_and_names_what_failed() {
     let dir = copy_models(&http_models());
     let broken = dir.path().join("broken-test");
     std::fs::create_dir_all(broken.join("versions")).expect("mkdir");
@@ -200,6 +200,22 @@ fn readiness_is_503_while_a_model_failed_to_load() {
     let ready = ready.json();
     assert_eq!(ready["models_loaded"], json!(false));
     assert_eq!(ready["failed_to_load"], json!(["broken-test"]), "{ready}");
+    // Which model, and what failed: the file's syntax error, with its place.
+    let error = ready["load_errors"]["broken-test"]
+        .as_str()
+        .expect("an error");
+    assert!(error.contains("v1") && error.contains("line 1"), "{ready}");
+    let reasons: Vec<&str> = ready["reasons"]
+        .as_array()
+        .expect("reasons")
+        .iter()
+        .filter_map(Json::as_str)
+        .collect();
+    assert_eq!(
+        reasons,
+        [format!("model 'broken-test' failed to load: {error}")],
+        "{ready}"
+    );
     assert_eq!(server.get("/livez").status, 200);
 }
 

@@ -1,6 +1,7 @@
 //! `GET /livez` (the process answers), `GET /readyz` (a model served, every model loaded and not
-//! draining; the entries that failed to load are named in `failed_to_load`, and `reasons` says
-//! in words why the process is not ready) and `GET /metrics` (the Prometheus
+//! draining; the entries that failed to load are named in `failed_to_load`, what failed for
+//! each in `load_errors`, and `reasons` says in words why the process is not ready, naming each
+//! model that failed and what failed) and `GET /metrics` (the Prometheus
 //! text format). Both probes also answer HEAD.
 
 use actix_web::http::header;
@@ -22,24 +23,35 @@ pub async fn readyz(state: web::Data<AppState>) -> HttpResponse {
     let health = &state.health;
     let models = state.registry.snapshot().models.len();
     let ready = ready(&state);
+    let failures = health.failures();
     let mut reasons = Vec::new();
     if models == 0 {
         reasons.push(
             "no model is served: the model directory has no model with a live version (upload \
-             one and promote it)",
+             one and promote it)"
+                .to_string(),
         );
     }
-    if !health.models_loaded() {
-        reasons.push("a model with a live pointer failed to load (see the log and ogive_model_load_errors_total)");
+    for (model, error) in &failures {
+        reasons.push(format!("model '{model}' failed to load: {error}"));
+    }
+    if !health.models_loaded() && failures.is_empty() {
+        reasons.push("a model with a live pointer failed to load (see the log and ogive_model_load_errors_total)".to_string());
     }
     if health.draining() {
-        reasons.push("the process is draining for shutdown");
+        reasons.push("the process is draining for shutdown".to_string());
     }
+    let failed_to_load: Vec<&str> = failures.iter().map(|(m, _)| m.as_str()).collect();
+    let load_errors: serde_json::Map<String, serde_json::Value> = failures
+        .iter()
+        .map(|(m, e)| (m.clone(), json!(e)))
+        .collect();
     let body = json!({
         "status": if ready { "ready" } else { "not_ready" },
         "models": models,
         "models_loaded": health.models_loaded(),
-        "failed_to_load": health.failed(),
+        "failed_to_load": failed_to_load,
+        "load_errors": load_errors,
         "draining": health.draining(),
         "reasons": reasons,
     });
