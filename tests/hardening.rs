@@ -13,6 +13,8 @@
 //! admin.rs           the binary: tokens on the admin listener, and never in the log; two
 //!                    Authorization headers, a one-character token, the header limit, the
 //!                    request counts, a read-only model directory
+//! connections.rs     a client that never reads is abandoned after the stalled-write
+//!                    timeout; connections past the connection cap wait unaccepted
 //! load.rs            the work budget, the in-flight caps (503 + Retry-After), batches on the
 //!                    scoring pool
 //! operation.rs       HEAD on the probes, Connection: close while draining, a live pointer
@@ -27,6 +29,8 @@ mod admin;
 #[allow(dead_code)]
 #[path = "http/catalogue.rs"]
 mod catalogue;
+#[path = "hardening/connections.rs"]
+mod connections;
 #[allow(dead_code)]
 #[path = "http/fixture.rs"]
 mod fixture;

@@ -93,6 +93,14 @@ pub struct ServeArgs {
     /// Most request-body bytes being read at once (beyond: 503 with Retry-After).
     #[arg(long, env = "OGIVE_MAX_INFLIGHT_BODY_BYTES", default_value_t = Limits::default().max_inflight_body_bytes)]
     pub max_inflight_body_bytes: usize,
+    /// Most connections the public listener holds at once; more wait in the kernel's accept
+    /// queue until one closes.
+    #[arg(long, env = "OGIVE_MAX_CONNECTIONS", default_value_t = Limits::default().max_connections)]
+    pub max_connections: usize,
+    /// Time a connection may go without the client taking any of its answer before it is
+    /// abandoned, in milliseconds (Linux).
+    #[arg(long, env = "OGIVE_WRITE_STALL_TIMEOUT_MS", default_value_t = Limits::default().write_stall_timeout_ms)]
+    pub write_stall_timeout_ms: u64,
     /// Time a client has to send the request head, in milliseconds.
     #[arg(long, env = "OGIVE_CLIENT_REQUEST_TIMEOUT_MS", default_value_t = Limits::default().client_request_timeout_ms)]
     pub client_request_timeout_ms: u64,
@@ -203,7 +211,8 @@ impl ServeArgs {
                 max_work_units: self.max_work_units,
                 max_inflight_observations: self.max_inflight_observations,
                 max_inflight_body_bytes: self.max_inflight_body_bytes,
-                ..Limits::default()
+                max_connections: self.max_connections,
+                write_stall_timeout_ms: self.write_stall_timeout_ms,
             },
             drain_delay_ms: self.drain_delay_ms,
             shutdown_timeout_ms: self.shutdown_timeout_ms,

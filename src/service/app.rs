@@ -275,10 +275,20 @@ impl Application {
     }
 }
 
+/// Connections the kernel completes and queues for the public listener beyond those it holds
+/// (`--max-connections`); actix-web's own default. Past the queue, new connections wait in the
+/// client's SYN retries: the server spends no memory on them.
+const BACKLOG: i32 = 1024;
+
 fn bind(addr: SocketAddr) -> io::Result<TcpListener> {
-    let listener = TcpListener::bind(addr)?;
-    listener.set_nonblocking(true)?;
-    Ok(listener)
+    use socket2::{Domain, Socket, Type};
+    let socket = Socket::new(Domain::for_address(addr), Type::STREAM, None)?;
+    // As std's TcpListener::bind does on Unix: a restart can bind while old connections linger.
+    socket.set_reuse_address(true)?;
+    socket.bind(&addr.into())?;
+    socket.listen(BACKLOG)?;
+    socket.set_nonblocking(true)?;
+    Ok(socket.into())
 }
 
 /// Load every model of `root` into a new registry, logging what loaded, what was repaired and

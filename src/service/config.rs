@@ -29,8 +29,12 @@ pub struct Limits {
     pub keep_alive_ms: u64,
     /// Time a client has to acknowledge a closed connection.
     pub client_disconnect_timeout_ms: u64,
-    /// Most concurrent connections per worker.
-    pub max_connections_per_worker: usize,
+    /// Most connections open at once over the listener (each worker takes its share, rounded
+    /// up); connections past it wait in the kernel's accept queue until one closes.
+    pub max_connections: usize,
+    /// Longest a connection may go without the client taking any of the bytes written to it
+    /// (a stalled reader) before the kernel abandons it (`TCP_USER_TIMEOUT`, Linux).
+    pub write_stall_timeout_ms: u64,
     /// Most scoring jobs running at once on the pool (0: one per available core).
     pub compute_threads: usize,
     /// Most work one request may ask for: observations × terms².
@@ -52,7 +56,8 @@ impl Default for Limits {
             body_timeout_ms: 30_000,
             keep_alive_ms: 5_000,
             client_disconnect_timeout_ms: 1_000,
-            max_connections_per_worker: 25_000,
+            max_connections: 1_000,
+            write_stall_timeout_ms: 30_000,
             compute_threads: 0,
             max_work_units: 25_000_000,
             max_inflight_observations: 20_000,

@@ -11,6 +11,7 @@
 //! problem.rs      RFC 9457 problem details, the one error type
 //! body.rs         JSON bodies: the one reader, strict parsing, size and time limits
 //! compute.rs      the scoring pool, the work budget, the in-flight caps
+//! connection.rs   the connection cap and the stalled-write timeout
 //! dto.rs          request parsing and response views
 //! observations.rs observations → engine values, service bounds
 //! scoring.rs      driving the engine for a probability request
@@ -35,6 +36,7 @@ pub(crate) mod app;
 pub mod body;
 pub mod compute;
 pub(crate) mod config;
+pub(crate) mod connection;
 pub(crate) mod cors;
 pub(crate) mod curve;
 pub mod dto;
@@ -91,7 +93,13 @@ fn public_server(state: AppState, listener: TcpListener) -> io::Result<actix_web
     .client_request_timeout(Duration::from_millis(limits.client_request_timeout_ms))
     .client_disconnect_timeout(Duration::from_millis(limits.client_disconnect_timeout_ms))
     .keep_alive(Duration::from_millis(limits.keep_alive_ms))
-    .max_connections(limits.max_connections_per_worker)
+    .max_connections(connection::per_worker(
+        limits.max_connections,
+        settings.worker_count(),
+    ))
+    .on_connect(connection::on_connect(Duration::from_millis(
+        limits.write_stall_timeout_ms,
+    )))
     .listen(listener)?
     .run();
     Ok(server)

@@ -34,6 +34,10 @@ use super::follow::Follower;
 use super::middleware;
 use super::state::AppState;
 
+/// Most connections the admin listener holds at once: its callers are a few operators and
+/// deploy jobs, and its one worker should not take the public listener's share of memory.
+pub const MAX_CONNECTIONS: usize = 64;
+
 /// What every admin handler shares.
 #[derive(Debug, Clone)]
 pub struct AdminState {
@@ -102,6 +106,10 @@ impl Listener {
         .client_request_timeout(Duration::from_millis(limits.client_request_timeout_ms))
         .client_disconnect_timeout(Duration::from_millis(limits.client_disconnect_timeout_ms))
         .keep_alive(Duration::from_millis(limits.keep_alive_ms))
+        .max_connections(MAX_CONNECTIONS)
+        .on_connect(crate::service::connection::on_connect(
+            Duration::from_millis(limits.write_stall_timeout_ms),
+        ))
         .listen(self.listener)?
         .run();
         Ok(server)
