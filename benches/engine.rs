@@ -20,19 +20,20 @@
 //! Run: `cargo bench --bench engine`. To skip the criterion groups and print only the ratios,
 //! give a filter that matches no group: `cargo bench --bench engine -- ratios-only`.
 
-#[path = "../tests/common/mod.rs"]
-mod common;
+#[allow(dead_code)]
+#[path = "../tests/support/reference.rs"]
+mod reference;
 
 use std::hint::black_box;
 use std::time::{Duration, Instant};
 
-use common::{CovariatePart, ModelParts};
 use criterion::{Criterion, Throughput};
 use ogive::engine::{Options, Scorer};
 use ogive::link::Link;
 use ogive::model::{CovariateKind, Model, Value};
 use rand::rngs::StdRng;
 use rand::{Rng, SeedableRng};
+use reference::{CovariatePart, ModelParts};
 
 /// Observations per batch.
 const BATCH: usize = 1024;

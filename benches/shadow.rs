@@ -17,14 +17,15 @@
 //!
 //! Run: `cargo bench --bench shadow`.
 
-#[path = "../tests/lifecycle_support/mod.rs"]
-mod lifecycle_support;
+#[allow(dead_code)]
+#[path = "../tests/support/models.rs"]
+mod models;
 
 use std::hint::black_box;
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
-use lifecycle_support::{base, bytes_of, model_bytes, without_covariate};
+use models::{base, bytes_of, model_bytes, without_covariate};
 use ogive::engine::{Answer, Options, Scorer};
 use ogive::model::{Model, Value};
 use ogive::registry::Entry;

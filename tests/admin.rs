@@ -6,28 +6,26 @@
 //! Identity tests: the public listener must serve exactly what the engine computes with the
 //! version it names, and the shadow report must equal the figures the test computes from the
 //! engine's probabilities of both versions. The models are invented inputs
-//! (`lifecycle_support`), never reference values.
+//! (`support::models`), never reference values.
 
-mod lifecycle_support;
-#[allow(dead_code)]
-#[path = "support/server.rs"]
-mod server;
+mod support;
 
 use std::io::{BufRead, BufReader};
 use std::process::{Command, Stdio};
 use std::sync::mpsc;
 use std::time::{Duration, Instant};
 
-use lifecycle_support::{
-    base, bytes_of, categorical, model_bytes, numeric, place_version, replaced_covariate,
-    tampered_bytes, with_covariate, without_covariate,
-};
 use ogive::model::CovariateKind;
 use ogive::registry::gate::contract_changes;
 use ogive::registry::lifecycle;
 use ogive::service::shadow::{Share, DIFFERENCE_BUCKETS};
 use serde_json::{json, Value as Json};
-use server::{engine_probability, model_of, observations, seed, Reply, TestServer, TOKEN, WHO};
+use support::contract::Contract;
+use support::models::{
+    base, bytes_of, categorical, model_bytes, numeric, place_version, replaced_covariate,
+    tampered_bytes, with_covariate, without_covariate,
+};
+use support::server::{engine_probability, model_of, observations, seed, TestServer, TOKEN, WHO};
 
 const NAME: &str = "uptake";
 
@@ -42,83 +40,10 @@ fn three_versions(share: Share) -> TestServer {
     TestServer::serve(dir, share)
 }
 
-/// The served admin document, and checks of replies against it.
-struct Contract {
-    doc: Json,
-}
-
-impl Contract {
-    fn fetch(d: &TestServer) -> Contract {
-        Contract {
-            doc: d.admin("GET", "/openapi.json", None).expect(200),
-        }
-    }
-
-    /// The reply's body matches the schema documented for `template`, `method` and its status.
-    #[track_caller]
-    fn check(&self, template: &str, method: &str, reply: &Reply) {
-        let operation = &self.doc["paths"][template][method];
-        assert!(
-            operation.is_object(),
-            "{method} {template} is not documented"
-        );
-        let status = reply.status.to_string();
-        let response = match &operation["responses"][&status] {
-            Json::Object(_) => &operation["responses"][&status],
-            _ => &operation["responses"]["default"],
-        };
-        assert!(
-            response.is_object(),
-            "{method} {template}: status {status} is not documented"
-        );
-        assert!(reply.header("x-request-id").is_some(), "no X-Request-Id");
-        let media = reply
-            .header("content-type")
-            .and_then(|c| c.split(';').next())
-            .expect("a content type");
-        let schema = &response["content"][media]["schema"];
-        assert!(
-            schema.is_object(),
-            "{method} {template} {status}: {media} is not documented"
-        );
-        let root = json!({
-            "$schema": "https://json-schema.org/draft/2020-12/schema",
-            "components": self.doc["components"],
-            "$ref": schema["$ref"].as_str().unwrap_or("#/components/schemas/Problem"),
-        });
-        let root = if schema["$ref"].is_string() {
-            root
-        } else {
-            json!({"$schema": "https://json-schema.org/draft/2020-12/schema", "type": schema["type"]})
-        };
-        let validator = jsonschema::validator_for(&root).expect("a valid schema");
-        let errors: Vec<String> = validator
-            .iter_errors(&reply.json())
-            .map(|e| format!("{e} at {}", e.instance_path()))
-            .collect();
-        assert!(
-            errors.is_empty(),
-            "{method} {template} {status} does not match the document: {errors:?}\n{}",
-            reply.text
-        );
-    }
-}
-
-impl Contract {
-    fn validator(&self, schema: &str) -> jsonschema::Validator {
-        let root = json!({
-            "$schema": "https://json-schema.org/draft/2020-12/schema",
-            "$ref": format!("#/components/schemas/{schema}"),
-            "components": self.doc["components"],
-        });
-        jsonschema::validator_for(&root).unwrap_or_else(|e| panic!("schema {schema}: {e}"))
-    }
-}
-
 #[test]
 fn the_admin_document_refuses_the_bodies_the_routes_refuse() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let promote = contract.validator("PromoteRequest");
     let long = "x".repeat(501);
     for body in [
@@ -241,12 +166,12 @@ fn every_route_refuses_a_missing_other_empty_or_wrong_token() {
 fn uploads_are_validated_stored_byte_for_byte_and_repeatable() {
     let dir = tempfile::tempdir().expect("a temporary directory");
     let d = TestServer::serve(dir, Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let template = "/models/{name}/versions/{version}";
     let v1 = model_bytes(NAME, "v1");
 
     let reply = d.upload(NAME, "v1", &v1, "?reason=first%20fit");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     let body = reply.expect(201);
     assert_eq!(body["novelty"], "new");
     assert_eq!(body["compared_with"], Json::Null);
@@ -255,11 +180,11 @@ fn uploads_are_validated_stored_byte_for_byte_and_repeatable() {
     assert_eq!(on_disk, v1, "the stored file is the uploaded bytes");
 
     let reply = d.upload(NAME, "v1", &v1, "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     assert_eq!(reply.expect(200)["novelty"], "already_stored");
 
     let reply = d.upload(NAME, "v1", &model_bytes(NAME, "v1")[..v1.len() - 1], "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     reply.expect_problem(409, "version-exists");
 
     // A model with a stored version but nothing live is not served; with nothing else served
@@ -270,7 +195,7 @@ fn uploads_are_validated_stored_byte_for_byte_and_repeatable() {
     d.get(&format!("/models/{NAME}"))
         .expect_problem(404, "unknown-model");
     let reply = d.promote(NAME, "v1", false);
-    contract.check("/models/{name}/live", "post", &reply);
+    contract.check_reply("/models/{name}/live", "post", &reply, "the reply");
     let moved = reply.expect(200);
     assert_eq!(moved["from"], Json::Null);
     assert_eq!(moved["serving"], "v1");
@@ -311,13 +236,13 @@ fn uploads_are_validated_stored_byte_for_byte_and_repeatable() {
 #[test]
 fn a_file_that_fails_validation_is_refused_naming_what_is_wrong() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let template = "/models/{name}/versions/{version}";
 
     // Check cases that do not reproduce.
     let tampered = tampered_bytes(NAME, "v4");
     let reply = d.upload(NAME, "v4", &tampered, "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     let problem = reply.expect_problem(422, "invalid-model-file");
     assert_eq!(problem["field"], "check_cases[0].probability");
     assert_eq!(problem["pointer"], "/check_cases/0/probability");
@@ -337,7 +262,7 @@ fn a_file_that_fails_validation_is_refused_naming_what_is_wrong() {
     let mut file: Json = serde_json::from_slice(&model_bytes(NAME, "v4")).expect("JSON");
     file["terms"][2]["term"] = json!("tenancy");
     let reply = d.upload(NAME, "v4", file.to_string().as_bytes(), "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     let problem = reply.expect_problem(422, "invalid-model-file");
     assert_eq!(problem["field"], "terms[2].term", "{problem}");
     assert!(problem["detail"]
@@ -346,17 +271,17 @@ fn a_file_that_fails_validation_is_refused_naming_what_is_wrong() {
 
     // Not a model file at all.
     let reply = d.upload(NAME, "v4", br#"{"name": 1}"#, "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     reply.expect_problem(422, "invalid-model-file");
     let reply = d.upload(NAME, "v4", b"{", "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     let problem = reply.expect_problem(422, "invalid-model-file");
     assert_eq!(problem["field"], "(line 1, column 1)", "{problem}");
     assert!(problem.get("pointer").is_none(), "{problem}");
 
     // A file of another model or another version.
     let reply = d.upload(NAME, "v4", &model_bytes("other", "v4"), "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     let problem = reply.expect_problem(422, "label-mismatch");
     assert_eq!(problem["pointer"], "/name");
     assert_eq!(problem["in_file"], "other");
@@ -367,7 +292,7 @@ fn a_file_that_fails_validation_is_refused_naming_what_is_wrong() {
 
     // Labels that break their rule.
     let reply = d.upload("Up_Take", "v4", &model_bytes(NAME, "v4"), "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     assert_eq!(
         reply.expect_problem(422, "invalid-label")["parameter"],
         "name"
@@ -387,7 +312,7 @@ fn a_file_that_fails_validation_is_refused_naming_what_is_wrong() {
 #[test]
 fn a_model_past_a_size_limit_is_refused_at_upload_naming_the_limit() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let template = "/models/{name}/versions/{version}";
 
     // A category of 1,001 levels: an identifier, not a category (the limit is 1,000).
@@ -395,7 +320,7 @@ fn a_model_past_a_size_limit_is_refused_at_upload_naming_the_limit() {
     let levels: Vec<&str> = levels.iter().map(String::as_str).collect();
     let file = with_covariate(base(NAME, "v4"), categorical("postcode", &levels, "p0000"));
     let reply = d.upload(NAME, "v4", &bytes_of(file), "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     let problem = reply.expect_problem(422, "model-too-large");
     assert_eq!(problem["limit"], json!(1_000), "{problem}");
     assert_eq!(problem["count"], json!(1_001), "{problem}");
@@ -418,7 +343,7 @@ fn a_model_past_a_size_limit_is_refused_at_upload_naming_the_limit() {
         terms.push(extra.clone());
     }
     let reply = d.upload(NAME, "v4", file.to_string().as_bytes(), "");
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     let problem = reply.expect_problem(422, "model-too-large");
     assert_eq!(problem["pointer"], json!("/terms"), "{problem}");
     assert_eq!(problem["limit"], json!(256), "{problem}");
@@ -441,7 +366,7 @@ fn breaking_candidate(version: &str) -> Vec<u8> {
 #[test]
 fn a_breaking_candidate_needs_allow_breaking_and_the_answer_lists_the_changes() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let v1 = model_bytes(NAME, "v1");
     let candidate = breaking_candidate("v9");
     let expected_changes = json!([
@@ -466,7 +391,12 @@ fn a_breaking_candidate_needs_allow_breaking_and_the_answer_lists_the_changes() 
     };
 
     let reply = d.upload(NAME, "v9", &candidate, "");
-    contract.check("/models/{name}/versions/{version}", "put", &reply);
+    contract.check_reply(
+        "/models/{name}/versions/{version}",
+        "put",
+        &reply,
+        "the reply",
+    );
     let problem = reply.expect_problem(422, "breaking-change");
     check_changes(&problem["changes"]);
     assert_eq!(problem["live"], "v1");
@@ -485,18 +415,23 @@ fn a_breaking_candidate_needs_allow_breaking_and_the_answer_lists_the_changes() 
     assert_eq!(stored_versions(&d, NAME), ["v1.json", "v2.json", "v3.json"]);
 
     let reply = d.upload(NAME, "v9", &candidate, "?allow_breaking=true");
-    contract.check("/models/{name}/versions/{version}", "put", &reply);
+    contract.check_reply(
+        "/models/{name}/versions/{version}",
+        "put",
+        &reply,
+        "the reply",
+    );
     let body = reply.expect(201);
     check_changes(&body["changes"]);
     assert_eq!(body["compared_with"], "v1");
 
     let reply = d.promote(NAME, "v9", false);
-    contract.check("/models/{name}/live", "post", &reply);
+    contract.check_reply("/models/{name}/live", "post", &reply, "the reply");
     check_changes(&reply.expect_problem(422, "breaking-change")["changes"]);
     assert_serves(&d, "v1", &v1, &observations(2)[1]);
 
     let reply = d.promote(NAME, "v9", true);
-    contract.check("/models/{name}/live", "post", &reply);
+    contract.check_reply("/models/{name}/live", "post", &reply, "the reply");
     let moved = reply.expect(200);
     check_changes(&moved["changes"]);
     assert_eq!(moved["serving"], "v9");
@@ -514,25 +449,25 @@ fn a_breaking_candidate_needs_allow_breaking_and_the_answer_lists_the_changes() 
 #[test]
 fn refused_promotions_leave_the_old_version_serving() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let template = "/models/{name}/live";
     let v1 = model_bytes(NAME, "v1");
     let observation = &observations(5)[4];
 
     let reply = d.promote(NAME, "v8", false);
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     let problem = reply.expect_problem(404, "unknown-version");
     assert_eq!(problem["stored"], json!(["v1", "v2", "v3"]));
     assert_serves(&d, "v1", &v1, observation);
 
     let reply = d.promote("absent", "v1", false);
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     reply.expect_problem(404, "unknown-model");
 
     // A version file placed on the volume by hand that fails its check cases.
     place_version(d.root(), NAME, "v7", &tampered_bytes(NAME, "v7"));
     let reply = d.promote(NAME, "v7", true);
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     let problem = reply.expect_problem(422, "invalid-model-file");
     assert_eq!(problem["field"], "check_cases[0].probability");
     assert_serves(&d, "v1", &v1, observation);
@@ -553,7 +488,7 @@ fn refused_promotions_leave_the_old_version_serving() {
         (json!(["v2"]), "invalid-body", ""),
     ] {
         let reply = d.admin_json("POST", &format!("/models/{NAME}/live"), &body);
-        contract.check(template, "post", &reply);
+        contract.check_reply(template, "post", &reply, "the reply");
         let problem = reply.expect_problem(422, slug);
         assert_eq!(problem["pointer"], pointer, "{body}: {problem}");
         assert_serves(&d, "v1", &v1, observation);
@@ -563,7 +498,7 @@ fn refused_promotions_leave_the_old_version_serving() {
         &format!("/models/{NAME}/live"),
         Some(b"{\"version\""),
     );
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     reply.expect_problem(400, "malformed-json");
 
     // Promoting the live version changes nothing and records nothing.
@@ -579,7 +514,7 @@ fn refused_promotions_leave_the_old_version_serving() {
     assert_eq!(before["records"], after["records"]);
 
     let reply = d.admin("GET", &format!("/models/{NAME}/live"), None);
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     let problem = reply.expect_problem(405, "method-not-allowed");
     assert_eq!(reply.header("allow"), Some("POST"), "{problem}");
 }
@@ -587,13 +522,13 @@ fn refused_promotions_leave_the_old_version_serving() {
 #[test]
 fn rollback_walks_back_down_the_promotions_then_refuses() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let template = "/models/{name}/rollback";
     let bytes = |v: &str| model_bytes(NAME, v);
     let observation = &observations(7)[6];
 
     let reply = d.rollback(NAME);
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     let problem = reply.expect_problem(409, "nothing-to-roll-back");
     assert_eq!(problem["live"], "v1");
 
@@ -607,7 +542,7 @@ fn rollback_walks_back_down_the_promotions_then_refuses() {
         &format!("/models/{NAME}/rollback"),
         &json!({"reason": "calibration drifted"}),
     );
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     let moved = reply.expect(200);
     assert_eq!(
         (moved["from"].as_str(), moved["to"].as_str()),
@@ -622,7 +557,7 @@ fn rollback_walks_back_down_the_promotions_then_refuses() {
     assert_eq!(moved["to"], "v1");
     assert_serves(&d, "v1", &bytes("v1"), observation);
     let reply = d.rollback(NAME);
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     reply.expect_problem(409, "nothing-to-roll-back");
     assert_serves(&d, "v1", &bytes("v1"), observation);
 
@@ -637,17 +572,17 @@ fn rollback_walks_back_down_the_promotions_then_refuses() {
     d.upload("fresh", "v1", &model_bytes("fresh", "v1"), "")
         .expect(201);
     let reply = d.rollback("fresh");
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     reply.expect_problem(409, "no-live-version");
     let reply = d.rollback("absent");
-    contract.check(template, "post", &reply);
+    contract.check_reply(template, "post", &reply, "the reply");
     reply.expect_problem(404, "unknown-model");
 }
 
 #[test]
 fn the_history_records_what_happened_when_and_who_did_it() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     d.upload(NAME, "v4", &model_bytes(NAME, "v4"), "?reason=refit")
         .expect(201);
     d.admin_json(
@@ -662,7 +597,7 @@ fn the_history_records_what_happened_when_and_who_did_it() {
     d.rollback(NAME).expect(200);
 
     let reply = d.admin("GET", &format!("/models/{NAME}/history"), None);
-    contract.check("/models/{name}/history", "get", &reply);
+    contract.check_reply("/models/{name}/history", "get", &reply, "the reply");
     let history = reply.expect(200);
     let records = history["records"].as_array().expect("records");
     let summary: Vec<(String, Option<String>, String, String)> = records
@@ -709,10 +644,10 @@ fn the_history_records_what_happened_when_and_who_did_it() {
     assert_eq!(history["warnings"], json!([]));
 
     let reply = d.admin("GET", "/models/absent/history", None);
-    contract.check("/models/{name}/history", "get", &reply);
+    contract.check_reply("/models/{name}/history", "get", &reply, "the reply");
     reply.expect_problem(404, "unknown-model");
     let reply = d.admin("GET", "/models/NOT_A_NAME/history", None);
-    contract.check("/models/{name}/history", "get", &reply);
+    contract.check_reply("/models/{name}/history", "get", &reply, "the reply");
     reply.expect_problem(422, "invalid-label");
 }
 
@@ -800,7 +735,7 @@ fn assert_report(report: &Json, expected: &Expected) {
 #[test]
 fn a_shadow_with_another_threshold_says_disagreements_may_come_from_the_thresholds() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let mut file = base(NAME, "v7");
     file.decision = Some(ogive::model::file::DecisionSpec {
         threshold: Some(0.3),
@@ -810,7 +745,7 @@ fn a_shadow_with_another_threshold_says_disagreements_may_come_from_the_threshol
     d.upload(NAME, "v7", &candidate, "?allow_breaking=true")
         .expect(201);
     let reply = d.set_shadow(NAME, "v7");
-    contract.check("/models/{name}/shadow", "put", &reply);
+    contract.check_reply("/models/{name}/shadow", "put", &reply, "the reply");
     let set = reply.expect(200);
     let changes = set["changes"].as_array().expect("changes");
     assert_eq!(changes.len(), 1, "{set}");
@@ -829,7 +764,7 @@ fn a_shadow_with_another_threshold_says_disagreements_may_come_from_the_threshol
     )
     .expect(200);
     let reply = d.shadow_report(NAME);
-    contract.check("/models/{name}/shadow", "get", &reply);
+    contract.check_reply("/models/{name}/shadow", "get", &reply, "the reply");
     let report = reply.expect(200);
     assert_eq!(report["thresholds"], json!({"live": 0.5, "shadow": 0.3}));
     assert_eq!(report["notes"], json!([note]));
@@ -838,7 +773,7 @@ fn a_shadow_with_another_threshold_says_disagreements_may_come_from_the_threshol
 #[test]
 fn a_shadow_scores_every_request_without_changing_the_answers() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let path = format!("/models/{NAME}/probability");
     let all = observations(60);
     let single = |o: &Json| json!({"observation": o, "average_effects": false});
@@ -856,7 +791,7 @@ fn a_shadow_scores_every_request_without_changing_the_answers() {
     );
 
     let reply = d.set_shadow(NAME, "v3");
-    contract.check("/models/{name}/shadow", "put", &reply);
+    contract.check_reply("/models/{name}/shadow", "put", &reply, "the reply");
     let set = reply.expect(200);
     assert_eq!(
         (
@@ -884,7 +819,7 @@ fn a_shadow_scores_every_request_without_changing_the_answers() {
     }
 
     let reply = d.shadow_report(NAME);
-    contract.check("/models/{name}/shadow", "get", &reply);
+    contract.check_reply("/models/{name}/shadow", "get", &reply, "the reply");
     let report = reply.expect(200);
     let (v1, v3) = (model_bytes(NAME, "v1"), model_bytes(NAME, "v3"));
     let expected = expected_figures(&v1, &v3, &all);
@@ -899,12 +834,12 @@ fn a_shadow_scores_every_request_without_changing_the_answers() {
     assert!(metrics.contains(&count), "no {count}");
 
     let reply = d.admin("DELETE", &format!("/models/{NAME}/shadow"), None);
-    contract.check("/models/{name}/shadow", "delete", &reply);
+    contract.check_reply("/models/{name}/shadow", "delete", &reply, "the reply");
     let cleared = reply.expect(200);
     assert_eq!(cleared["cleared"], "v3");
     assert_eq!(cleared["report"], report);
     let reply = d.shadow_report(NAME);
-    contract.check("/models/{name}/shadow", "get", &reply);
+    contract.check_reply("/models/{name}/shadow", "get", &reply, "the reply");
     reply.expect_problem(404, "no-shadow");
     d.admin("DELETE", &format!("/models/{NAME}/shadow"), None)
         .expect_problem(404, "no-shadow");
@@ -1024,17 +959,17 @@ fn a_candidate_with_other_covariates_is_scored_by_covariate_and_level_name() {
 #[test]
 fn shadow_refusals_say_why() {
     let d = three_versions(Share::ALL);
-    let contract = Contract::fetch(&d);
+    let contract = Contract::admin(&d);
     let template = "/models/{name}/shadow";
     let put = |name: &str, body: &Json| d.set_shadow_body(name, body);
 
     let reply = put(NAME, &json!({"version": "v8"}));
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     let problem = reply.expect_problem(404, "unknown-version");
     assert_eq!(problem["stored"], json!(["v1", "v2", "v3"]));
 
     let reply = put(NAME, &json!({"version": "v1"}));
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     assert_eq!(
         reply.expect_problem(422, "cannot-shadow")["pointer"],
         "/version"
@@ -1048,23 +983,23 @@ fn shadow_refusals_say_why() {
     )
     .expect(201);
     let reply = put(NAME, &json!({"version": "v9"}));
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     let problem = reply.expect_problem(422, "cannot-shadow");
     assert_eq!(problem["covariate"], "seasonal");
 
     place_version(d.root(), NAME, "v7", &tampered_bytes(NAME, "v7"));
     let reply = put(NAME, &json!({"version": "v7"}));
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     reply.expect_problem(422, "invalid-model-file");
 
     let reply = put("absent", &json!({"version": "v1"}));
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     reply.expect_problem(404, "unknown-model");
     let reply = put(NAME, &json!({"version": "v2", "share": 1}));
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     reply.expect_problem(422, "unknown-field");
     let reply = put(NAME, &json!({"version": "../v2"}));
-    contract.check(template, "put", &reply);
+    contract.check_reply(template, "put", &reply, "the reply");
     reply.expect_problem(422, "invalid-label");
 
     let reply = d.shadow_report(NAME);

@@ -16,17 +16,17 @@
 //! SIGKILL cannot cut one `write` call short, so these kills never tear a history line; torn
 //! lines (what a power cut leaves) are made by hand and tested in `tests/lifecycle.rs`.
 
-mod lifecycle_support;
+mod support;
 
 use std::path::Path;
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
-use lifecycle_support as support;
 use ogive::model::Model;
 use ogive::registry::lifecycle;
 use ogive::registry::store::{atomic, Action, HistoryWarning, ModelDir};
 use rand::{Rng, SeedableRng};
+use support::models;
 
 const NAME: &str = "arrears";
 const VERSIONS: [&str; 4] = ["v1", "v2", "v3", "v4"];
@@ -177,7 +177,7 @@ fn operations_killed_at_random_moments_leave_history_and_pointer_in_agreement() 
             root.path(),
             NAME,
             version,
-            &support::model_bytes(NAME, version),
+            &models::model_bytes(NAME, version),
             false,
             "crash-test:setup",
             None,
@@ -331,7 +331,7 @@ fn a_move_recorded_before_a_crash_is_completed_at_the_next_server_start() {
             root.path(),
             NAME,
             version,
-            &support::model_bytes(NAME, version),
+            &models::model_bytes(NAME, version),
             false,
             "crash-test:setup",
             None,

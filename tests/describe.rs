@@ -2,33 +2,14 @@
 //! means and coefficient table against statsmodels on the Spector & Mazzeo data, the warnings
 //! a data file raises, the cautions, and the SVG plots read back point by point.
 
-#[path = "reference/describe/support.rs"]
 mod support;
 
 use ogive::engine::{effect_slots, Options, Scorer};
 use ogive::model::{CovariateKind, Model, Value};
 use serde_json::Value as Json;
-use support::{fixture, model_json, portfolio_json, run, write_model};
-
-/// Tolerances, each beside the source it compares with.
-mod tolerance {
-    /// statsmodels 0.15 `get_margeff(...).margeff`: closed-form effects at the same β, so they
-    /// agree to rounding.
-    pub const STATSMODELS_EFFECT: f64 = 1e-10;
-    /// statsmodels 0.15 `get_margeff(...).margeff_se`: the delta method with the same
-    /// covariance (observed agreement ~1e-15).
-    pub const STATSMODELS_EFFECT_SE: f64 = 1e-10;
-    /// statsmodels 0.15 `bse`, `tvalues`, `pvalues` (scipy's normal survival function),
-    /// `conf_int()`: the same formulas on the same covariance.
-    pub const STATSMODELS_COEFFICIENTS: f64 = 1e-12;
-    /// Reading a plotted point back from the SVG path: coordinates are written to 1/1000
-    /// pixel, so the data value is known to half that over the panel's pixel height.
-    pub const PIXEL: f64 = 0.0005;
-}
-
-fn relative(a: f64, b: f64) -> f64 {
-    (a - b).abs() / a.abs().max(b.abs()).max(1e-300)
-}
+use support::cli::{fixture, model_json, portfolio_json, run, write_model};
+use support::close::relative_difference;
+use support::tolerances::describe as tolerance;
 
 fn describe_json(model: &Json, extra: &[&str]) -> Json {
     let dir = tempfile::tempdir().expect("tempdir");
@@ -62,17 +43,17 @@ fn check_effects(rows: &Json, expected: &Json, source: &str) {
         let effect = row["effect"].as_f64().unwrap();
         let se = row["std_error"].as_f64().unwrap();
         assert!(
-            relative(effect, effects[i]) < tolerance::STATSMODELS_EFFECT,
+            relative_difference(effect, effects[i]) < tolerance::STATSMODELS_EFFECT,
             "{source}: {} effect {effect} vs {}",
             names[i],
             effects[i]
         );
         assert!(
-            relative(se, std_errors[i]) < tolerance::STATSMODELS_EFFECT_SE,
+            relative_difference(se, std_errors[i]) < tolerance::STATSMODELS_EFFECT_SE,
             "{source}: {} se {se} vs {} (rel {:e})",
             names[i],
             std_errors[i],
-            relative(se, std_errors[i])
+            relative_difference(se, std_errors[i])
         );
     }
 }
@@ -80,7 +61,7 @@ fn check_effects(rows: &Json, expected: &Json, source: &str) {
 #[test]
 fn average_marginal_effects_match_statsmodels() {
     let f = fixture();
-    let data = support::data_path();
+    let data = support::cli::data_path();
     for link in ["logit", "probit"] {
         let report = describe_json(&model_json(link), &["--data", data.to_str().unwrap()]);
         let source =
@@ -143,7 +124,7 @@ fn coefficient_table_matches_statsmodels() {
                 ("upper", get("upper"), interval[1]),
             ] {
                 assert!(
-                    relative(ours, theirs) < tolerance::STATSMODELS_COEFFICIENTS,
+                    relative_difference(ours, theirs) < tolerance::STATSMODELS_COEFFICIENTS,
                     "{link} {} {name}: {ours} vs {theirs}",
                     row["term"]
                 );
@@ -187,7 +168,7 @@ fn data_warnings_are_counted_per_covariate() {
 fn text_report_has_every_section_and_the_cautions() {
     let dir = tempfile::tempdir().expect("tempdir");
     let path = write_model(dir.path(), "model.json", &model_json("probit"));
-    let data = support::data_path();
+    let data = support::cli::data_path();
     let result = run(
         &[
             "describe",

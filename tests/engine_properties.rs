@@ -17,18 +17,19 @@
 //! And two facts of the trade (common practice): a logit effect at p = ½ is β/4; a probit
 //! effect at p = ½ is β/√(2π) ≈ 0.3989·β.
 
-mod common;
+mod support;
 
-use common::tolerances::{
-    CLOSED_FORM, EFFECT_SCALE, FINITE_DIFFERENCE, NUMERICAL_JACOBIAN, ROUNDING, STD_ERROR_SCALE,
-};
-use common::{assert_close, CovariatePart, ModelParts};
 use ogive::engine::{Averager, EffectKind, Options, Scorer};
 use ogive::link::{Link, ALL_LINKS};
 use ogive::model::{CovariateKind, Model, Value};
 use proptest::prelude::*;
 use rand::rngs::StdRng;
 use rand::{Rng, SeedableRng};
+use support::close::assert_close;
+use support::reference::{CovariatePart, ModelParts};
+use support::tolerances::{
+    CLOSED_FORM, EFFECT_SCALE, FINITE_DIFFERENCE, NUMERICAL_JACOBIAN, ROUNDING, STD_ERROR_SCALE,
+};
 
 /// The shape of a random model: which covariates and terms it has. The numbers (coefficients,
 /// covariance, observations) are drawn from `seed`, so a failing case is reproducible from the

@@ -13,13 +13,14 @@
 //! training ranges and means from the rows, the first rows as check cases with statsmodels'
 //! probabilities) and every row is scored with the engine.
 
-mod common;
+mod support;
 
-use common::tolerances::{ENGINE_ABSOLUTE_FLOOR, ENGINE_VS_STATSMODELS};
-use common::{assert_close, fixture, fixture_model, numbers, rows};
 use ogive::engine::{Average, Averager, Effect, EffectSlot, Interval, Options, Scorer};
 use ogive::model::{Model, Value};
 use serde_json::Value as Json;
+use support::close::assert_close;
+use support::reference::{fixture, fixture_model, numbers, rows};
+use support::tolerances::{ENGINE_ABSOLUTE_FLOOR, ENGINE_VS_STATSMODELS};
 
 const FIXTURES: [&str; 2] = ["engine/spector.json", "engine/simulated.json"];
 

@@ -5,34 +5,16 @@
 //! its own data; the model directory's stored and live versions; and the errors a bad file or a
 //! bad request gets.
 
-#[path = "reference/describe/support.rs"]
 mod support;
 
 use serde_json::Value as Json;
 use sha2::{Digest, Sha256};
-use support::{data_path, model_json, run, write_model};
-
-/// Tolerances, each beside the source it compares with.
-mod tolerance {
-    /// Figures from the process against scikit-learn / statsmodels / numpy on the Spector rows:
-    /// relative. ogive's probabilities from the model file agree with statsmodels' `predict`
-    /// to about 1e-15 (the file carries the coefficients to the last digit), and the figures
-    /// are smooth in them; 1e-9 leaves room for the different summation orders on 32 rows.
-    pub const REFERENCE: f64 = 1e-9;
-    /// Below this a figure is compared absolutely (an intercept of 1e-16 is 0).
-    pub const FLOOR: f64 = 1e-6;
-    /// The likelihood equations of a logit with an intercept, at the statsmodels estimate
-    /// (Newton, tol 1e-14): Σ (y − p) = 0 and Σ (y − p) z = 0, so on the training rows the
-    /// calibration intercept is 0 and the slope 1 (common practice). Absolute.
-    pub const SCORE_EQUATIONS: f64 = 1e-7;
-}
+use support::cli::{data_path, model_json, run, write_model};
+use support::close::assert_close;
+use support::tolerances::evaluate_process as tolerance;
 
 fn reference() -> Json {
-    let path = concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/tests/reference/evaluate/evaluate.json"
-    );
-    serde_json::from_str(&std::fs::read_to_string(path).expect("evaluate.json")).expect("JSON")
+    support::reference::fixture("evaluate/evaluate.json")
 }
 
 fn f(v: &Json) -> f64 {
@@ -41,12 +23,12 @@ fn f(v: &Json) -> f64 {
 
 #[track_caller]
 fn close(actual: &Json, expected: &Json, what: &str) {
-    let (a, e) = (f(actual), f(expected));
-    let scale = e.abs().max(tolerance::FLOOR);
-    assert!(
-        (a - e).abs() <= tolerance::REFERENCE * scale,
-        "{what}: got {a:e}, expected {e:e} (relative {:e})",
-        tolerance::REFERENCE
+    assert_close(
+        f(actual),
+        f(expected),
+        tolerance::REFERENCE,
+        tolerance::FLOOR,
+        what,
     );
 }
 

@@ -4,18 +4,13 @@
 //! report computed for another model, version or file (naming both), changing nothing; and the
 //! same through the admin listener's promotion body (`"evidence"`).
 
-mod lifecycle_support;
-#[allow(dead_code)]
-#[path = "support/server.rs"]
-mod server;
-#[path = "reference/describe/support.rs"]
 mod support;
 
 use std::path::{Path, PathBuf};
 
 use serde_json::Value as Json;
 use sha2::{Digest, Sha256};
-use support::{data_path, model_json, run, write_model};
+use support::cli::{data_path, model_json, run, write_model};
 
 const NAME: &str = "spector-logit";
 
@@ -68,7 +63,7 @@ fn evaluate(models: &Path, version: &str, against_live: bool, out: &Path) -> Jso
     serde_json::from_str(&result.stdout).expect("JSON")
 }
 
-fn promote(models: &Path, version: &str, evidence: &Path) -> support::Run {
+fn promote(models: &Path, version: &str, evidence: &Path) -> support::cli::Run {
     run(
         &[
             "promote",
@@ -236,7 +231,7 @@ fn a_file_that_is_not_an_evaluation_report_is_refused_before_anything_moves() {
 #[test]
 fn the_admin_promotion_takes_evidence_and_refuses_it_for_another_version() {
     use ogive::service::shadow::Share;
-    use server::TestServer;
+    use support::server::TestServer;
 
     let dir = tempfile::tempdir().unwrap();
     let models = model_directory(dir.path());
@@ -285,7 +280,7 @@ fn the_admin_promotion_takes_evidence_and_refuses_it_for_another_version() {
     let stored: Json = serde_json::from_slice(&std::fs::read(&files[0]).unwrap()).unwrap();
     assert_eq!(stored, of_2, "the report is stored as sent");
     let record = history_lines(d.dir.path()).pop().unwrap();
-    assert_eq!(record["who"], server::WHO);
+    assert_eq!(record["who"], support::server::WHO);
     assert_eq!(
         record["evidence"]["sha256"],
         sha256_hex(&std::fs::read(&files[0]).unwrap())

@@ -4,61 +4,18 @@
 //! DeLong and Hosmer–Lemeshow written in that script from the papers). Then the identities the
 //! figures must satisfy whatever the data, and the edge cases a reference cannot give.
 
+mod support;
+
 use ogive::evaluate::{
     compare, evaluate, EvaluateError, Favours, Forecast, ModelEvaluation, ModelRows, Names,
     PairedRows, RELIABILITY_BINS,
 };
 use serde_json::Value as Json;
-
-/// Tolerances of this file, each beside the source it compares with.
-mod tolerance {
-    /// Brier score, log loss and AUC against scikit-learn 1.9 (`brier_score_loss`, `log_loss`,
-    /// `roc_auc_score`): relative. Both sides sum the same few thousand terms in a different
-    /// order (numpy sums pairwise), so they agree to a few ulps a term.
-    pub const SKLEARN: f64 = 1e-12;
-    /// DeLong standard errors, covariances and the paired z against the numpy midrank
-    /// algorithm of Sun & Xu (2014): relative. Same placements, sums in another order.
-    pub const DELONG: f64 = 1e-10;
-    /// Calibration intercept and slope with their standard errors against statsmodels 0.15
-    /// GLM Binomial fitted by Newton (tol 1e-14): relative. Two Newton runs to the same
-    /// maximum agree to the precision of the score equations (observed ~1e-15); 1e-10 leaves
-    /// room for the logit of p computed as ln p − ln(1 − p) here and by scipy there.
-    pub const STATSMODELS_GLM: f64 = 1e-10;
-    /// Wilson intervals against statsmodels `proportion_confint(method='wilson')`, and the
-    /// reliability table against `calibration_curve`: relative; closed forms on the same
-    /// counts.
-    pub const CLOSED_FORM: f64 = 1e-12;
-    /// Murphy's terms and Hosmer–Lemeshow against numpy sums over the same bins and groups:
-    /// relative, with absolute floor [`SUM_FLOOR`] for terms near 0. ogive keeps running sums
-    /// (Σp, Σp²) where numpy subtracts means first, and recovers p from the stored logit.
-    pub const SUMS: f64 = 1e-9;
-    /// Below this a Murphy term or a mean difference is compared absolutely.
-    pub const SUM_FLOOR: f64 = 1e-6;
-    /// p-values against scipy's normal and χ² survival functions: relative (statrs and scipy
-    /// evaluate the same incomplete gamma and erfc to about 1e-14; the statistic they are
-    /// given already differs by [`SUMS`]).
-    pub const P_VALUE: f64 = 1e-7;
-    /// The identity REL − RES + UNC + within-bin = Brier: absolute. Each term is a sum of a few
-    /// thousand products below 1.
-    pub const IDENTITY: f64 = 1e-12;
-}
+use support::close::assert_close;
+use support::tolerances::evaluate as tolerance;
 
 fn fixture() -> Json {
-    let path = concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/tests/reference/evaluate/evaluate.json"
-    );
-    let text = std::fs::read_to_string(path).unwrap_or_else(|e| panic!("cannot read {path}: {e}"));
-    serde_json::from_str(&text).unwrap_or_else(|e| panic!("{path} is not JSON: {e}"))
-}
-
-#[track_caller]
-fn close(actual: f64, expected: f64, relative: f64, floor: f64, what: &str) {
-    let scale = expected.abs().max(floor);
-    assert!(
-        (actual - expected).abs() <= relative * scale,
-        "{what}: got {actual:e}, expected {expected:e} (tolerance {relative:e} of {scale:e})"
-    );
+    support::reference::fixture("evaluate/evaluate.json")
 }
 
 fn f(v: &Json) -> f64 {
@@ -109,70 +66,70 @@ fn rows_of(probabilities: &[f64], outcomes: &[bool]) -> ModelRows {
 fn check_model(case: &str, got: &ModelEvaluation, want: &Json) {
     let what = |figure: &str| format!("{case}: {figure}");
     use tolerance::*;
-    close(
+    assert_close(
         got.brier,
         f(&want["brier"]),
         SKLEARN,
         0.0,
-        &what("Brier (sklearn brier_score_loss)"),
+        what("Brier (sklearn brier_score_loss)"),
     );
-    close(
+    assert_close(
         got.log_loss,
         f(&want["log_loss"]),
         SKLEARN,
         0.0,
-        &what("log loss (sklearn log_loss)"),
+        what("log loss (sklearn log_loss)"),
     );
-    close(
+    assert_close(
         got.brier_interval.std_error,
         f(&want["brier_std_error"]),
         SUMS,
         0.0,
-        &what("Brier SE (numpy std(ddof=1)/√N)"),
+        what("Brier SE (numpy std(ddof=1)/√N)"),
     );
-    close(
+    assert_close(
         got.log_loss_interval.std_error,
         f(&want["log_loss_std_error"]),
         SUMS,
         0.0,
-        &what("log loss SE (numpy std(ddof=1)/√N)"),
+        what("log loss SE (numpy std(ddof=1)/√N)"),
     );
     let rate = floats(&want["event_rate_wilson"]);
-    close(
+    assert_close(
         got.event_rate_interval.lower,
         rate[0],
         CLOSED_FORM,
         0.0,
-        &what("event rate Wilson lower (statsmodels proportion_confint)"),
+        what("event rate Wilson lower (statsmodels proportion_confint)"),
     );
-    close(
+    assert_close(
         got.event_rate_interval.upper,
         rate[1],
         CLOSED_FORM,
         0.0,
-        &what("event rate Wilson upper (statsmodels proportion_confint)"),
+        what("event rate Wilson upper (statsmodels proportion_confint)"),
     );
-    close(
+    assert_close(
         got.auc.estimate,
         f(&want["auc"]),
         SKLEARN,
         0.0,
-        &what("AUC (sklearn roc_auc_score)"),
+        what("AUC (sklearn roc_auc_score)"),
     );
-    close(
+    assert_close(
         got.auc.std_error,
         f(&want["auc_std_error"]),
         DELONG,
         0.0,
-        &what("AUC SE (DeLong, Sun & Xu)"),
+        what("AUC SE (DeLong, Sun & Xu)"),
     );
     let q = 1.959963984540054; // scipy.stats.norm.ppf(0.975)
-    close(
+    assert_close(
         got.auc.interval.lower,
         got.auc.estimate - q * f(&want["auc_std_error"]),
         DELONG,
         1.0,
-        &what("AUC lower"),
+        what("AUC lower"),
     );
 
     for (fit, key) in [
@@ -180,26 +137,26 @@ fn check_model(case: &str, got: &ModelEvaluation, want: &Json) {
         (&got.calibration_slope, "calibration_slope"),
     ] {
         let reference = &want[key];
-        close(
+        assert_close(
             fit.estimate,
             f(&reference["estimate"]),
             STATSMODELS_GLM,
             1e-3,
-            &what(&format!("{key} (statsmodels GLM)")),
+            what(&format!("{key} (statsmodels GLM)")),
         );
-        close(
+        assert_close(
             fit.std_error,
             f(&reference["std_error"]),
             STATSMODELS_GLM,
             0.0,
-            &what(&format!("{key} SE (statsmodels GLM bse)")),
+            what(&format!("{key} SE (statsmodels GLM bse)")),
         );
-        close(
+        assert_close(
             fit.interval.upper,
             f(&reference["estimate"]) + q * f(&reference["std_error"]),
             STATSMODELS_GLM,
             1e-3,
-            &what(&format!("{key} upper")),
+            what(&format!("{key} upper")),
         );
     }
 
@@ -223,67 +180,67 @@ fn check_model(case: &str, got: &ModelEvaluation, want: &Json) {
             continue;
         }
         let label = |s: &str| what(&format!("bin {k} {s}"));
-        close(
+        assert_close(
             bin.observed.unwrap(),
             f(&reference["observed"]),
             CLOSED_FORM,
             0.0,
-            &label("observed (sklearn calibration_curve)"),
+            label("observed (sklearn calibration_curve)"),
         );
-        close(
+        assert_close(
             bin.mean_probability.unwrap(),
             f(&reference["mean_probability"]),
             CLOSED_FORM,
             0.0,
-            &label("mean p (sklearn calibration_curve)"),
+            label("mean p (sklearn calibration_curve)"),
         );
         let wilson = floats(&reference["wilson"]);
         let interval = bin.observed_interval.unwrap();
-        close(
+        assert_close(
             interval.lower,
             wilson[0],
             CLOSED_FORM,
             1e-3,
-            &label("Wilson lower (statsmodels proportion_confint)"),
+            label("Wilson lower (statsmodels proportion_confint)"),
         );
-        close(
+        assert_close(
             interval.upper,
             wilson[1],
             CLOSED_FORM,
             1e-3,
-            &label("Wilson upper (statsmodels proportion_confint)"),
+            label("Wilson upper (statsmodels proportion_confint)"),
         );
     }
 
     let murphy = &want["murphy"];
     let d = &got.brier_decomposition;
-    close(
+    assert_close(
         d.reliability,
         f(&murphy["reliability"]),
         SUMS,
         SUM_FLOOR,
-        &what("REL (numpy)"),
+        what("REL (numpy)"),
     );
-    close(
+    assert_close(
         d.resolution,
         f(&murphy["resolution"]),
         SUMS,
         SUM_FLOOR,
-        &what("RES (numpy)"),
+        what("RES (numpy)"),
     );
-    close(
+    assert_close(
         d.uncertainty,
         f(&murphy["uncertainty"]),
         SUMS,
         SUM_FLOOR,
-        &what("UNC (numpy)"),
+        what("UNC (numpy)"),
     );
-    close(
+    assert_close(
         d.within_bin,
         f(&murphy["within_bin"]),
         SUMS,
         SUM_FLOOR,
-        &what("within-bin (numpy)"),
+        what("within-bin (numpy)"),
     );
 
     let hl = &want["hosmer_lemeshow"];
@@ -305,34 +262,34 @@ fn check_model(case: &str, got: &ModelEvaluation, want: &Json) {
             reference["observed"].as_u64().unwrap(),
             "{case}: group events"
         );
-        close(
+        assert_close(
             g.expected,
             f(&reference["expected"]),
             SUMS,
             0.0,
-            &what("group expected events"),
+            what("group expected events"),
         );
-        close(
+        assert_close(
             g.expected + g.expected_non_events,
             g.rows as f64,
             SUMS,
             0.0,
-            &what("E + F = n"),
+            what("E + F = n"),
         );
     }
-    close(
+    assert_close(
         got_hl.statistic,
         f(&hl["statistic"]),
         SUMS,
         0.0,
-        &what("Hosmer–Lemeshow H (numpy)"),
+        what("Hosmer–Lemeshow H (numpy)"),
     );
-    close(
+    assert_close(
         got_hl.p_value,
         f(&hl["p_value"]),
         P_VALUE,
         1e-300,
-        &what("Hosmer–Lemeshow p (scipy chi2.sf)"),
+        what("Hosmer–Lemeshow p (scipy chi2.sf)"),
     );
 }
 
@@ -380,74 +337,74 @@ fn paired_comparison_matches_numpy_delong_and_row_differences() {
         let what = |s: &str| format!("{}: {s}", case.name);
 
         let auc = &want["auc"];
-        close(
+        assert_close(
             got.auc.difference,
             f(&auc["difference"]),
             SKLEARN,
             1e-3,
-            &what("AUC difference (sklearn)"),
+            what("AUC difference (sklearn)"),
         );
-        close(
+        assert_close(
             got.auc.std_error,
             f(&auc["std_error"]),
             DELONG,
             0.0,
-            &what("paired AUC SE (DeLong)"),
+            what("paired AUC SE (DeLong)"),
         );
-        close(
+        assert_close(
             got.auc.correlation,
             f(&auc["correlation"]),
             DELONG,
             0.0,
-            &what("AUC correlation (DeLong)"),
+            what("AUC correlation (DeLong)"),
         );
-        close(got.auc.z, f(&auc["z"]), DELONG, 1e-3, &what("paired z"));
-        close(
+        assert_close(got.auc.z, f(&auc["z"]), DELONG, 1e-3, what("paired z"));
+        assert_close(
             got.auc.p_value,
             f(&auc["p_value"]),
             P_VALUE,
             1e-300,
-            &what("paired p (scipy norm.sf)"),
+            what("paired p (scipy norm.sf)"),
         );
         let interval = floats(&auc["interval"]);
-        close(
+        assert_close(
             got.auc.interval.lower,
             interval[0],
             DELONG,
             1e-3,
-            &what("AUC difference lower"),
+            what("AUC difference lower"),
         );
-        close(
+        assert_close(
             got.auc.interval.upper,
             interval[1],
             DELONG,
             1e-3,
-            &what("AUC difference upper"),
+            what("AUC difference upper"),
         );
 
         for (figure, key) in [(&got.brier, "brier"), (&got.log_loss, "log_loss")] {
             let reference = &want[key];
             let floor = f(&reference["std_error"]);
-            close(
+            assert_close(
                 figure.mean,
                 f(&reference["mean"]),
                 SUMS,
                 floor,
-                &what(&format!("{key} mean difference (numpy)")),
+                what(&format!("{key} mean difference (numpy)")),
             );
-            close(
+            assert_close(
                 figure.std_error,
                 f(&reference["std_error"]),
                 SUMS,
                 0.0,
-                &what(&format!("{key} difference SE (numpy)")),
+                what(&format!("{key} difference SE (numpy)")),
             );
-            close(
+            assert_close(
                 figure.p_value,
                 f(&reference["p_value"]),
                 P_VALUE,
                 1e-300,
-                &what(&format!("{key} p (scipy norm.sf)")),
+                what(&format!("{key} p (scipy norm.sf)")),
             );
         }
 
@@ -498,12 +455,12 @@ fn murphy_decomposition_adds_up_to_the_brier_score() {
         let d = got.brier_decomposition;
         let brier = f(&case.json["first"]["figures"]["brier"]);
         let sum = d.reliability - d.resolution + d.uncertainty + d.within_bin;
-        close(
+        assert_close(
             sum,
             brier,
             tolerance::IDENTITY,
             1.0,
-            &format!("{}: REL − RES + UNC + WB", case.name),
+            format!("{}: REL − RES + UNC + WB", case.name),
         );
         if case.name == "binned forecasts" {
             assert!(
@@ -512,7 +469,7 @@ fn murphy_decomposition_adds_up_to_the_brier_score() {
                 d.within_bin
             );
             let murphy = d.reliability - d.resolution + d.uncertainty;
-            close(
+            assert_close(
                 murphy,
                 brier,
                 tolerance::IDENTITY,
@@ -560,14 +517,14 @@ fn hosmer_lemeshow_keeps_its_digits_for_a_group_predicted_certain() {
     let (p, c) = (1.0 / (1.0 + (-logit).exp()), 1.0 / (1.0 + logit.exp()));
     let n = certain as f64;
     let expected = (1.0 - n * c).powi(2) / (n * p * c);
-    close(
+    assert_close(
         top.expected_non_events,
         n * c,
         1e-12,
         0.0,
         "F of the certain group",
     );
-    close(
+    assert_close(
         hl.statistic,
         expected,
         1e-6,
@@ -602,7 +559,7 @@ fn hosmer_lemeshow_keeps_its_digits_for_a_group_predicted_certain() {
         "H = {}",
         all_events.statistic
     );
-    close(
+    assert_close(
         all_events.statistic - term + expected,
         hl.statistic,
         // 1e-10 of 1e12 is 100, far below the other groups' 4.5e3: a wrong sum shows.

@@ -2,11 +2,11 @@
 //! and a check that no CSV, however broken, makes the fit panic. Rows are data rows counted
 //! from 1 after the header.
 
-mod fit_support;
+mod support;
 
-use fit_support::*;
 use ogive::fit::{CategoricalSpec, FitError};
 use rand::{Rng, SeedableRng};
+use support::fit::*;
 
 fn failure(csv: &str, terms: &str, adjust: impl FnOnce(&mut ogive::fit::FitRequest)) -> String {
     let file = temp_csv(csv);

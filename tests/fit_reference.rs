@@ -1,15 +1,15 @@
 //! `ogive fit` against outside sources: statsmodels 0.15 fixtures written by
 //! `tests/reference/fit/make_fit_fixtures.py` (Spector & Mazzeo data as statsmodels ships it,
 //! and two simulated datasets), Greene's printed Spector logit, and Amemiya's logit/probit ratio.
-//! Each check names its source and its tolerance (constants in `fit_support`).
+//! Each check names its source and its tolerance (constants in `support::fit`).
 
-mod fit_support;
+mod support;
 
-use fit_support::*;
 use ogive::fit::{CategoricalSpec, CovarianceType, Fitted};
 use ogive::link::Link;
 use ogive::model::Model;
 use serde_json::Value as Json;
+use support::fit::*;
 
 fn spector(link: Link, covariance: CovarianceType) -> Fitted {
     let mut r = request(&reference_file("spector.csv"), "GRADE", "GPA, TUCE, PSI");
@@ -28,13 +28,13 @@ fn compare(fitted: &Fitted, reference: &Json, source: &str) {
             coefficient(fitted, term),
             b,
             COEFFICIENT_VS_STATSMODELS,
-            &format!("{source}: coefficient of {term}"),
+            format!("{source}: coefficient of {term}"),
         );
         assert_relative(
             std_error(fitted, term),
             se,
             STD_ERROR_VS_STATSMODELS,
-            &format!("{source}: standard error of {term}"),
+            format!("{source}: standard error of {term}"),
         );
     }
     assert_eq!(fitted.file.terms.len(), terms.len(), "{source}: term count");
@@ -42,14 +42,14 @@ fn compare(fitted: &Fitted, reference: &Json, source: &str) {
         fitted.report.log_likelihood,
         reference["log_likelihood"].as_f64().expect("llf"),
         LOG_LIKELIHOOD_VS_STATSMODELS,
-        &format!("{source}: log-likelihood"),
+        format!("{source}: log-likelihood"),
     );
     if let Some(null) = reference["null_log_likelihood"].as_f64() {
         assert_relative(
             fitted.report.null_log_likelihood,
             null,
             LOG_LIKELIHOOD_VS_STATSMODELS,
-            &format!("{source}: null log-likelihood"),
+            format!("{source}: null log-likelihood"),
         );
     }
     // `ogive check` accepts what `ogive fit` writes: the same validation, from the bytes.
@@ -66,7 +66,7 @@ fn compare_hc0(fitted: &Fitted, reference: &Json, source: &str) {
             std_error(fitted, term),
             se,
             STD_ERROR_VS_STATSMODELS,
-            &format!("{source}: HC0 standard error of {term}"),
+            format!("{source}: HC0 standard error of {term}"),
         );
     }
 }

@@ -16,16 +16,16 @@
 //! 96.7%), hence n = 1,000 here. The seed base was moved once (from 7000, where cauchit covered
 //! 197 of 200, a 2% event) and is otherwise untouched.
 
-mod fit_support;
+mod support;
 
 use std::fmt::Write;
 
-use fit_support::*;
 use ogive::engine::{Options, Scorer};
 use ogive::link::{Link, ALL_LINKS};
 use ogive::model::Model;
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, Normal};
+use support::fit::*;
 
 /// True coefficients of `intercept, x, w` for each link, chosen so that probabilities spread
 /// over (0.05, 0.95) for the bulk of the data.

@@ -6,16 +6,13 @@
 //! The data are simulated (Rust `rand`, fixed seed) only as input: the check compares the fit
 //! with itself, not with a value.
 
-mod fit_support;
+mod support;
 
 use std::fmt::Write;
 
-use fit_support::*;
 use ogive::link::Link;
 use rand::{Rng, SeedableRng};
-
-/// The agreement promised between thread counts, relative.
-const THREADS_AGREE: f64 = 1e-10;
+use support::fit::*;
 
 /// 70,000 rows: more than four 16,384-row reduction blocks and several 1 MiB reading blocks,
 /// with a categorical column whose levels first appear in different blocks.
@@ -96,7 +93,7 @@ fn one_thread_and_many_fit_the_same_model() {
             assert_eq!(a.len(), b.len());
             assert!(a.len() > 30, "the comparison should cover the whole model");
             for ((what, x), (_, y)) in a.iter().zip(&b) {
-                assert_relative(*y, *x, THREADS_AGREE, &format!("{link} {what}"));
+                assert_relative(*y, *x, THREADS_AGREE, format!("{link} {what}"));
             }
             assert_eq!(one.report.iterations, many.report.iterations, "{link}");
         }

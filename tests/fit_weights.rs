@@ -3,7 +3,7 @@
 //! - statsmodels 0.15 fixtures written by `tests/reference/weights/make_weight_fixtures.py`:
 //!   GLM(freq_weights=...) against `--weights`, GLM(var_weights=..., cov_type='HC0') against
 //!   `--sampling-weights`, logit and probit (coefficients, every covariance entry, weighted
-//!   log-likelihoods); tolerances from `fit_support`.
+//!   log-likelihoods); tolerances from `support::fit`.
 //! - Identity: whole frequency weights give the fit of the file with each row repeated.
 //! - Simulation with known truth (common practice): an outcome-stratified sample of a simulated
 //!   population, fitted with `--population-rate`, recovers the population intercept within the
@@ -11,11 +11,10 @@
 //!   ln[((1 − τ)/τ)·(ȳ/(1 − ȳ))] (King and Zeng 2001, closed form).
 //! - Bad weights are refused naming the row and the column.
 
-mod fit_support;
+mod support;
 
 use std::fmt::Write;
 
-use fit_support::*;
 use ogive::engine::Options;
 use ogive::fit::{
     CovarianceType, Fitted, PopulationMethod, PopulationRate, WeightColumn, WeightKind,
@@ -25,14 +24,7 @@ use ogive::model::file::WeightingMethod;
 use ogive::model::Model;
 use rand::{Rng, SeedableRng};
 use serde_json::Value as Json;
-
-/// Repeated rows against frequency weights: the same sums in a different grouping, so only
-/// rounding separates them (relative).
-const REPEATED_ROWS: f64 = 1e-9;
-
-/// The corrected intercept against the closed form applied to the uncorrected fit: one
-/// subtraction (relative).
-const CLOSED_FORM_SHIFT: f64 = 1e-12;
+use support::fit::*;
 
 fn weights_fixture() -> Json {
     let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
@@ -88,7 +80,7 @@ fn compare(fitted: &Fitted, reference: &Json, terms: &[String], what: &str) {
             coefficient(fitted, term),
             b,
             COEFFICIENT_VS_STATSMODELS,
-            &format!("{what}: coefficient of {term}"),
+            format!("{what}: coefficient of {term}"),
         );
     }
     // A standard error's relative tolerance, doubled for a variance.
@@ -102,13 +94,13 @@ fn compare(fitted: &Fitted, reference: &Json, terms: &[String], what: &str) {
         fitted.report.log_likelihood,
         reference["log_likelihood"].as_f64().expect("llf"),
         LOG_LIKELIHOOD_VS_STATSMODELS,
-        &format!("{what}: weighted log-likelihood"),
+        format!("{what}: weighted log-likelihood"),
     );
     assert_relative(
         fitted.report.null_log_likelihood,
         reference["null_log_likelihood"].as_f64().expect("llnull"),
         LOG_LIKELIHOOD_VS_STATSMODELS,
-        &format!("{what}: weighted null log-likelihood"),
+        format!("{what}: weighted null log-likelihood"),
     );
 }
 

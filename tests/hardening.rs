@@ -31,26 +31,21 @@ mod admin;
 mod catalogue;
 #[path = "hardening/connections.rs"]
 mod connections;
-#[allow(dead_code)]
-#[path = "http/fixture.rs"]
-mod fixture;
 #[path = "hardening/load.rs"]
 mod load;
 #[path = "hardening/operation.rs"]
 mod operation;
-#[allow(dead_code)]
-#[path = "support/server.rs"]
-mod server;
+mod support;
 
 use std::io::{ErrorKind, Read, Write};
 use std::net::{SocketAddr, TcpStream};
 use std::time::{Duration, Instant};
 
-use fixture::lease_observation;
 use ogive::service::body::DRAIN_FACTOR;
 use ogive::service::Settings;
 use serde_json::{json, Value as Json};
-use server::{test_settings, TestServer};
+use support::http_models::lease_observation;
+use support::server::{test_settings, TestServer};
 
 /// Longest any single wait in these tests may take before the test fails instead of hanging.
 const DEADLINE: Duration = Duration::from_secs(20);
@@ -399,7 +394,7 @@ fn a_body_over_the_limit_gets_413_before_the_client_has_sent_it_all() {
 fn the_admin_routes_do_not_exist_on_the_public_listener() {
     let server = TestServer::start_with(hardened_settings());
     let addr = address(&server);
-    let model_file = fixture::lease_file().to_string();
+    let model_file = support::http_models::lease_file().to_string();
     let version = json!({"version": "2026-01"}).to_string();
     let json_type = "Content-Type: application/json\r\nAuthorization: Bearer a-token\r\n";
     for (method, path, body) in [

@@ -21,16 +21,12 @@ mod concurrency;
 mod contract;
 #[path = "http/dashboards.rs"]
 mod dashboards;
-#[path = "http/fixture.rs"]
-mod fixture;
 #[path = "http/malformed.rs"]
 mod malformed;
 #[path = "http/operation.rs"]
 mod operation;
 #[path = "http/routes.rs"]
 mod routes;
-#[allow(dead_code)]
-#[path = "support/server.rs"]
-mod server;
 #[path = "http/strict.rs"]
 mod strict;
+mod support;

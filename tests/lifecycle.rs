@@ -3,24 +3,24 @@
 //! racing from threads and from processes, the `ogive` subcommands, and a watching registry
 //! picking up a promotion made by the CLI.
 //!
-//! The models are invented inputs built by `lifecycle_support`; nothing here is a reference
+//! The models are invented inputs built by `support::models`; nothing here is a reference
 //! value. The checks are identities of the directory: what the pointer names, what the
 //! history records, and what the registry serves.
 
-mod lifecycle_support;
+mod support;
 
 use std::path::Path;
 use std::process::{Command, Output};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
-use lifecycle_support as support;
 use ogive::model::{CovariateKind, Model};
 use ogive::registry::gate::{self, ContractChange, GateError, Novelty};
 use ogive::registry::lifecycle::{self, LifecycleError, ViewWarning};
 use ogive::registry::store::{Action, HistoryWarning, ModelDir};
 use ogive::registry::watch::{WatchEvent, Watcher};
 use ogive::registry::Registry;
+use support::models;
 use tempfile::TempDir;
 
 const NAME: &str = "arrears";
@@ -34,7 +34,7 @@ fn upload(root: &Path, version: &str) {
         root,
         NAME,
         version,
-        &support::model_bytes(NAME, version),
+        &models::model_bytes(NAME, version),
         false,
         "test:setup",
         None,
@@ -100,7 +100,7 @@ fn assert_recent_rfc3339(when: &str) {
 #[test]
 fn an_upload_stores_the_version_and_records_who_stored_it() {
     let root = root();
-    let bytes = support::model_bytes(NAME, "v1");
+    let bytes = models::model_bytes(NAME, "v1");
     let uploaded = lifecycle::upload(
         root.path(),
         NAME,
@@ -138,7 +138,7 @@ fn the_same_bytes_uploaded_again_are_accepted_without_writing() {
         root.path(),
         NAME,
         "v1",
-        &support::model_bytes(NAME, "v1"),
+        &models::model_bytes(NAME, "v1"),
         false,
         "test:retry",
         None,
@@ -156,9 +156,9 @@ fn the_same_bytes_uploaded_again_are_accepted_without_writing() {
 fn a_version_label_is_never_overwritten() {
     let root = root();
     upload(root.path(), "v1");
-    let mut other = support::base(NAME, "v1");
+    let mut other = models::base(NAME, "v1");
     other.description = "a different fit under the same label".into();
-    let error = try_upload(root.path(), "v1", &support::bytes_of(other), true)
+    let error = try_upload(root.path(), "v1", &models::bytes_of(other), true)
         .expect_err("overwrite refused");
     assert!(matches!(
         error,
@@ -171,7 +171,7 @@ fn a_version_label_is_never_overwritten() {
     );
     assert_eq!(
         std::fs::read(root.path().join("arrears/versions/v1.json")).expect("read"),
-        support::model_bytes(NAME, "v1"),
+        models::model_bytes(NAME, "v1"),
         "the stored bytes are untouched"
     );
 }
@@ -183,7 +183,7 @@ fn an_upload_whose_file_names_another_model_or_version_is_refused() {
         root.path(),
         NAME,
         "v1",
-        &support::model_bytes("other-model", "v1"),
+        &models::model_bytes("other-model", "v1"),
         false,
         "test",
         None,
@@ -197,7 +197,7 @@ fn an_upload_whose_file_names_another_model_or_version_is_refused() {
         root.path(),
         NAME,
         "v2",
-        &support::model_bytes(NAME, "v1"),
+        &models::model_bytes(NAME, "v1"),
         false,
         "test",
         None,
@@ -213,7 +213,7 @@ fn an_upload_whose_file_names_another_model_or_version_is_refused() {
 #[test]
 fn an_upload_with_bad_labels_is_refused_before_touching_the_disk() {
     let root = root();
-    let bytes = support::model_bytes(NAME, "v1");
+    let bytes = models::model_bytes(NAME, "v1");
     let error = lifecycle::upload(root.path(), "../up", "v1", &bytes, false, "t", None)
         .expect_err("bad name");
     assert!(matches!(error, LifecycleError::Gate(GateError::BadModelName(ref n)) if n == "../up"));
@@ -235,7 +235,7 @@ fn an_upload_that_does_not_validate_names_the_field_at_fault() {
         root.path(),
         NAME,
         "v1",
-        &support::tampered_bytes(NAME, "v1"),
+        &models::tampered_bytes(NAME, "v1"),
         false,
         "t",
         None,
@@ -260,8 +260,8 @@ fn an_upload_with_other_covariates_than_the_live_version_needs_allow_breaking() 
     let root = root();
     upload(root.path(), "v1");
     promote(root.path(), "v1");
-    let breaking = support::bytes_of(support::without_covariate(
-        support::base(NAME, "v2"),
+    let breaking = models::bytes_of(models::without_covariate(
+        models::base(NAME, "v2"),
         "tenure",
     ));
     let error =
@@ -346,12 +346,7 @@ fn a_stored_file_that_fails_validation_is_never_promoted() {
     let root = root();
     upload(root.path(), "v1");
     promote(root.path(), "v1");
-    support::place_version(
-        root.path(),
-        NAME,
-        "v2",
-        &support::tampered_bytes(NAME, "v2"),
-    );
+    models::place_version(root.path(), NAME, "v2", &models::tampered_bytes(NAME, "v2"));
     let error = lifecycle::promote(root.path(), NAME, "v2", false, "t", None)
         .expect_err("invalid file refused");
     assert!(
@@ -361,7 +356,7 @@ fn a_stored_file_that_fails_validation_is_never_promoted() {
     );
     assert_eq!(live(root.path()).as_deref(), Some("v1"));
     // A file misplaced under another label is refused too.
-    support::place_version(root.path(), NAME, "v3", &support::model_bytes(NAME, "v1"));
+    models::place_version(root.path(), NAME, "v3", &models::model_bytes(NAME, "v1"));
     let error = lifecycle::promote(root.path(), NAME, "v3", false, "t", None)
         .expect_err("misplaced file refused");
     assert_eq!(
@@ -376,11 +371,11 @@ fn a_breaking_promotion_is_refused_with_what_callers_must_change_unless_allowed(
     let root = root();
     upload(root.path(), "v1");
     promote(root.path(), "v1");
-    let candidate = support::with_covariate(
-        support::without_covariate(support::base(NAME, "v2"), "guarantor"),
-        support::numeric("arrears_count", CovariateKind::Count),
+    let candidate = models::with_covariate(
+        models::without_covariate(models::base(NAME, "v2"), "guarantor"),
+        models::numeric("arrears_count", CovariateKind::Count),
     );
-    support::place_version(root.path(), NAME, "v2", &support::bytes_of(candidate));
+    models::place_version(root.path(), NAME, "v2", &models::bytes_of(candidate));
     let error = lifecycle::promote(root.path(), NAME, "v2", false, "t", None)
         .expect_err("breaking promotion refused");
     assert_eq!(
@@ -428,8 +423,8 @@ fn a_promotion_over_an_unloadable_live_version_needs_allow_breaking() {
 // ---------------------------------------------------------------- the gate's list
 
 fn changes_to(candidate: ogive::model::ModelFile) -> Vec<String> {
-    let live = Model::from_file(support::finished(support::base(NAME, "v1"))).expect("live");
-    let candidate = Model::from_file(support::finished(candidate)).expect("candidate");
+    let live = Model::from_file(models::finished(models::base(NAME, "v1"))).expect("live");
+    let candidate = Model::from_file(models::finished(candidate)).expect("candidate");
     gate::contract_changes(&live, &candidate)
         .iter()
         .map(ToString::to_string)
@@ -438,33 +433,33 @@ fn changes_to(candidate: ogive::model::ModelFile) -> Vec<String> {
 
 #[test]
 fn the_gate_lists_every_kind_of_covariate_change() {
-    let base = || support::base(NAME, "v2");
+    let base = || models::base(NAME, "v2");
     assert!(
         changes_to(base()).is_empty(),
         "same covariates, new coefficients"
     );
     assert_eq!(
-        changes_to(support::without_covariate(base(), "income")),
+        changes_to(models::without_covariate(base(), "income")),
         ["stop sending 'income': the candidate has no such covariate and refuses the field"]
     );
     assert_eq!(
-        changes_to(support::with_covariate(
+        changes_to(models::with_covariate(
             base(),
-            support::categorical("channel", &["branch", "online"], "branch")
+            models::categorical("channel", &["branch", "online"], "branch")
         )),
         ["send the new categorical covariate 'channel' in every observation"]
     );
     assert_eq!(
-        changes_to(support::replaced_covariate(
+        changes_to(models::replaced_covariate(
             base(),
-            support::numeric("tenure", CovariateKind::Continuous)
+            models::numeric("tenure", CovariateKind::Continuous)
         )),
         ["send 'tenure' as a continuous value instead of a count one"]
     );
     assert_eq!(
-        changes_to(support::replaced_covariate(
+        changes_to(models::replaced_covariate(
             base(),
-            support::categorical("region", &["north", "south", "west", "islands"], "north")
+            models::categorical("region", &["north", "south", "west", "islands"], "north")
         )),
         [
             "stop sending level(s) 'east' of 'region': the candidate refuses them",
@@ -472,9 +467,9 @@ fn the_gate_lists_every_kind_of_covariate_change() {
         ]
     );
     assert_eq!(
-        changes_to(support::replaced_covariate(
+        changes_to(models::replaced_covariate(
             base(),
-            support::categorical("region", &["north", "south", "east"], "south")
+            models::categorical("region", &["north", "south", "east"], "south")
         )),
         ["read the effects of 'region' as changes from level 'south' instead of 'north'"]
     );
@@ -514,17 +509,17 @@ fn contract_between(
     live: ogive::model::ModelFile,
     candidate: ogive::model::ModelFile,
 ) -> Vec<ContractChange> {
-    let live = Model::from_file(support::finished(live)).expect("live");
-    let candidate = Model::from_file(support::finished(candidate)).expect("candidate");
+    let live = Model::from_file(models::finished(live)).expect("live");
+    let candidate = Model::from_file(models::finished(candidate)).expect("candidate");
     gate::contract_changes(&live, &candidate)
 }
 
 #[test]
 fn a_refit_that_drops_the_threshold_and_bands_is_a_contract_change() {
     let bands = [("low", 0.1), ("medium", 0.3), ("high", 1.0)];
-    let live = decided(support::base(NAME, "v1"), Some(0.3), &bands);
+    let live = decided(models::base(NAME, "v1"), Some(0.3), &bands);
     // The routine refit that forgot --threshold and --band: answers would lose both fields.
-    let changes = contract_between(live.clone(), support::base(NAME, "v2"));
+    let changes = contract_between(live.clone(), models::base(NAME, "v2"));
     let said: Vec<String> = changes.iter().map(ToString::to_string).collect();
     assert_eq!(
         said,
@@ -543,7 +538,7 @@ fn a_refit_that_drops_the_threshold_and_bands_is_a_contract_change() {
     );
     // Moved bounds and a moved threshold are changes too; the same decision is none.
     let moved = decided(
-        support::base(NAME, "v2"),
+        models::base(NAME, "v2"),
         Some(0.5),
         &[("low", 0.2), ("high", 1.0)],
     );
@@ -558,10 +553,10 @@ fn a_refit_that_drops_the_threshold_and_bands_is_a_contract_change() {
             "read 'band' as low below 0.2, high below 1 instead of low below 0.1, medium below 0.3, high below 1",
         ]
     );
-    let same = decided(support::base(NAME, "v2"), Some(0.3), &bands);
+    let same = decided(models::base(NAME, "v2"), Some(0.3), &bands);
     assert!(contract_between(live.clone(), same).is_empty());
     // A candidate that adds a decision the live version lacks changes answers as well.
-    let added = contract_between(support::base(NAME, "v1"), live);
+    let added = contract_between(models::base(NAME, "v1"), live);
     assert_eq!(
         added.iter().map(ToString::to_string).collect::<Vec<_>>(),
         [
@@ -580,9 +575,9 @@ fn a_refit_that_drops_the_threshold_and_bands_is_a_contract_change() {
 
 #[test]
 fn a_refit_that_changes_what_the_outcome_means_is_a_contract_change() {
-    let mut candidate = support::base(NAME, "v2");
+    let mut candidate = models::base(NAME, "v2");
     candidate.outcome.meaning = "event = 1 means event = 1".into();
-    let changes = contract_between(support::base(NAME, "v1"), candidate);
+    let changes = contract_between(models::base(NAME, "v1"), candidate);
     assert_eq!(changes.len(), 1);
     assert_eq!(
         changes[0].to_string(),
@@ -593,22 +588,22 @@ fn a_refit_that_changes_what_the_outcome_means_is_a_contract_change() {
         "--outcome-meaning 'the event happened'"
     );
     // Surrounding space is not a change of meaning.
-    let mut spaced = support::base(NAME, "v2");
+    let mut spaced = models::base(NAME, "v2");
     spaced.outcome.meaning = " the event happened ".into();
-    assert!(contract_between(support::base(NAME, "v1"), spaced).is_empty());
+    assert!(contract_between(models::base(NAME, "v1"), spaced).is_empty());
 }
 
 #[test]
 fn every_covariate_change_says_how_a_refit_keeps_the_contract() {
-    let mut unit = support::base(NAME, "v2");
+    let mut unit = models::base(NAME, "v2");
     unit.covariates[0].unit = None;
-    let reference = support::replaced_covariate(
-        support::base(NAME, "v2"),
-        support::categorical("region", &["north", "south", "east"], "south"),
+    let reference = models::replaced_covariate(
+        models::base(NAME, "v2"),
+        models::categorical("region", &["north", "south", "east"], "south"),
     );
     let keep: Vec<String> = [unit, reference]
         .into_iter()
-        .flat_map(|c| contract_between(support::base(NAME, "v1"), c))
+        .flat_map(|c| contract_between(models::base(NAME, "v1"), c))
         .map(|c| c.to_keep())
         .collect();
     assert_eq!(
@@ -621,10 +616,10 @@ fn every_covariate_change_says_how_a_refit_keeps_the_contract() {
 fn a_breaking_upload_is_refused_with_the_threshold_and_bands_it_drops() {
     let root = root();
     let bands = [("low", 0.1), ("high", 1.0)];
-    let v1 = support::bytes_of(decided(support::base(NAME, "v1"), Some(0.3), &bands));
+    let v1 = models::bytes_of(decided(models::base(NAME, "v1"), Some(0.3), &bands));
     try_upload(root.path(), "v1", &v1, false).expect("first upload");
     promote(root.path(), "v1");
-    let v2 = support::bytes_of(support::base(NAME, "v2"));
+    let v2 = models::bytes_of(models::base(NAME, "v2"));
     let error = try_upload(root.path(), "v2", &v2, false).expect_err("refused");
     let LifecycleError::Gate(GateError::Breaking { changes, .. }) = &error else {
         panic!("expected a breaking-change refusal, got {error}");
@@ -654,12 +649,12 @@ fn a_breaking_upload_is_refused_with_the_threshold_and_bands_it_drops() {
 
 #[test]
 fn the_gate_lists_several_changes_in_covariate_order_and_new_ones_last() {
-    let candidate = support::with_covariate(
-        support::replaced_covariate(
-            support::without_covariate(support::base(NAME, "v2"), "income"),
-            support::numeric("guarantor", CovariateKind::Continuous),
+    let candidate = models::with_covariate(
+        models::replaced_covariate(
+            models::without_covariate(models::base(NAME, "v2"), "income"),
+            models::numeric("guarantor", CovariateKind::Continuous),
         ),
-        support::numeric("age", CovariateKind::Continuous),
+        models::numeric("age", CovariateKind::Continuous),
     );
     assert_eq!(
         changes_to(candidate),
@@ -673,9 +668,9 @@ fn the_gate_lists_several_changes_in_covariate_order_and_new_ones_last() {
 
 #[test]
 fn allowed_breaking_changes_are_returned_not_refused() {
-    let live = Model::from_file(support::finished(support::base(NAME, "v1"))).expect("live");
-    let candidate = Model::from_file(support::finished(support::without_covariate(
-        support::base(NAME, "v2"),
+    let live = Model::from_file(models::finished(models::base(NAME, "v1"))).expect("live");
+    let candidate = Model::from_file(models::finished(models::without_covariate(
+        models::base(NAME, "v2"),
         "region",
     )))
     .expect("candidate");
@@ -761,13 +756,13 @@ fn a_rollback_to_a_file_that_no_longer_validates_keeps_the_live_version() {
     let root = root();
     // Placed by hand, so no upload digest stands before the validation this test is about (an
     // uploaded file changed later is refused for that first, see the tests at the end).
-    support::place_version(root.path(), NAME, "v1", &support::model_bytes(NAME, "v1"));
-    support::place_live(root.path(), NAME, "v1");
+    models::place_version(root.path(), NAME, "v1", &models::model_bytes(NAME, "v1"));
+    models::place_live(root.path(), NAME, "v1");
     upload(root.path(), "v2");
     promote(root.path(), "v2");
     std::fs::write(
         root.path().join("arrears/versions/v1.json"),
-        support::tampered_bytes(NAME, "v1"),
+        models::tampered_bytes(NAME, "v1"),
     )
     .expect("damage");
     let error = lifecycle::rollback(root.path(), NAME, "t", None).expect_err("refused");
@@ -785,8 +780,8 @@ fn a_rollback_across_a_breaking_change_reports_the_changes() {
     let root = root();
     upload(root.path(), "v1");
     promote(root.path(), "v1");
-    let breaking = support::without_covariate(support::base(NAME, "v2"), "tenure");
-    try_upload(root.path(), "v2", &support::bytes_of(breaking), true).expect("upload");
+    let breaking = models::without_covariate(models::base(NAME, "v2"), "tenure");
+    try_upload(root.path(), "v2", &models::bytes_of(breaking), true).expect("upload");
     lifecycle::promote(root.path(), NAME, "v2", true, "t", None).expect("promote");
     let back = lifecycle::rollback(root.path(), NAME, "t", None).expect("rollback");
     assert_eq!(
@@ -806,7 +801,7 @@ fn a_pointer_moved_by_hand_is_reported_and_rolled_back_over() {
     }
     promote(root.path(), "v1");
     promote(root.path(), "v2");
-    support::place_live(root.path(), NAME, "v3");
+    models::place_live(root.path(), NAME, "v3");
     let view = lifecycle::history(root.path(), NAME).expect("history");
     assert_eq!(view.live.as_deref(), Some("v3"));
     assert_eq!(view.rollback_to.as_deref(), Some("v2"));
@@ -1136,11 +1131,11 @@ fn the_cli_lists_breaking_changes_and_promotes_them_only_when_allowed() {
     let root = root();
     upload(root.path(), "v1");
     promote(root.path(), "v1");
-    let breaking = support::replaced_covariate(
-        support::base(NAME, "v2"),
-        support::numeric("tenure", CovariateKind::Continuous),
+    let breaking = models::replaced_covariate(
+        models::base(NAME, "v2"),
+        models::numeric("tenure", CovariateKind::Continuous),
     );
-    support::place_version(root.path(), NAME, "v2", &support::bytes_of(breaking));
+    models::place_version(root.path(), NAME, "v2", &models::bytes_of(breaking));
     let models = root.path().to_str().expect("utf-8 path");
     let out = ogive(&["promote", "--models", models, NAME, "v2"]);
     assert_eq!(out.status.code(), Some(2));
@@ -1228,7 +1223,7 @@ fn a_promotion_by_the_cli_reaches_a_watching_registry() {
     let model = registry.snapshot().models[NAME].live.clone();
     assert_eq!(
         model.file(),
-        Model::from_json(&support::model_bytes(NAME, "v2"))
+        Model::from_json(&models::model_bytes(NAME, "v2"))
             .expect("valid")
             .file(),
         "the registry serves the whole v2 file"
@@ -1249,13 +1244,8 @@ fn a_file_that_fails_validation_never_replaces_the_serving_version() {
         "{events:?}"
     );
     // A deploy drops a damaged file in and points live at it by hand.
-    support::place_version(
-        root.path(),
-        NAME,
-        "v2",
-        &support::tampered_bytes(NAME, "v2"),
-    );
-    support::place_live(root.path(), NAME, "v2");
+    models::place_version(root.path(), NAME, "v2", &models::tampered_bytes(NAME, "v2"));
+    models::place_live(root.path(), NAME, "v2");
     let events = watcher.poll(&registry);
     match events.as_slice() {
         [WatchEvent::Refused {
@@ -1276,8 +1266,8 @@ fn a_file_that_fails_validation_never_replaces_the_serving_version() {
     );
     // Pointing live at a good version serves it again. (An upload would be refused now: the
     // live file it would be compared with does not load.)
-    support::place_version(root.path(), NAME, "v3", &support::model_bytes(NAME, "v3"));
-    support::place_live(root.path(), NAME, "v3");
+    models::place_version(root.path(), NAME, "v3", &models::model_bytes(NAME, "v3"));
+    models::place_live(root.path(), NAME, "v3");
     let events = watcher.poll(&registry);
     assert!(
         matches!(events.as_slice(), [WatchEvent::Served { version, previous: Some(p), .. }] if version == "v3" && p == "v1"),
@@ -1311,7 +1301,7 @@ fn the_watcher_notices_new_models_ignores_temporaries_and_keeps_vanished_ones() 
         root.path(),
         "uptake",
         "a",
-        &support::model_bytes("uptake", "a"),
+        &models::model_bytes("uptake", "a"),
         false,
         "t",
         None,
@@ -1351,7 +1341,7 @@ fn a_watcher_started_after_the_startup_load_adopts_what_is_served() {
 fn a_model_with_a_live_pointer_that_does_not_load_is_unserved() {
     let root = root();
     upload(root.path(), "v1");
-    support::place_live(root.path(), NAME, "v7");
+    models::place_live(root.path(), NAME, "v7");
     let registry = Registry::default();
     let mut watcher = Watcher::new(root.path());
     let events = watcher.poll(&registry);
@@ -1393,7 +1383,7 @@ fn a_version_swapped_in_by_its_promoter_is_not_loaded_again() {
 #[test]
 fn setting_a_live_version_keeps_the_shadow_and_the_other_models() {
     let load = |name: &str, version: &str| {
-        Arc::new(Model::from_json(&support::model_bytes(name, version)).expect("valid"))
+        Arc::new(Model::from_json(&models::model_bytes(name, version)).expect("valid"))
     };
     let registry = Registry::default();
     assert!(registry.set_live(load(NAME, "v1")).is_none());
@@ -1415,9 +1405,9 @@ fn setting_a_live_version_keeps_the_shadow_and_the_other_models() {
 
 /// Valid bytes for version `version` that differ from the stored ones (another description).
 fn other_content(version: &str) -> Vec<u8> {
-    let mut other = support::base(NAME, version);
+    let mut other = models::base(NAME, version);
     other.description = "another fit written over the stored file".into();
-    support::bytes_of(other)
+    models::bytes_of(other)
 }
 
 /// The SHA-256 of a file as `sha256sum` (GNU coreutils) prints it, when the tool is there.
@@ -1439,7 +1429,7 @@ fn an_upload_records_the_sha256_of_the_bytes_stored() {
     // digest of the uploaded bytes (the function itself is checked against FIPS 180-2).
     let file = root.path().join("arrears/versions/v1.json");
     let expected = sha256sum(&file)
-        .unwrap_or_else(|| ogive::registry::store::sha256_hex(&support::model_bytes(NAME, "v1")));
+        .unwrap_or_else(|| ogive::registry::store::sha256_hex(&models::model_bytes(NAME, "v1")));
     assert_eq!(digest, expected);
     assert_eq!(digest.len(), 64);
     // Promotions carry none; the line format stays the same for them.
@@ -1456,11 +1446,11 @@ fn a_stored_file_changed_under_its_label_is_refused_and_the_stored_content_keeps
     let registry = Registry::default();
     let mut watcher = Watcher::new(root.path());
     assert_eq!(watcher.poll(&registry).len(), 1);
-    let stored = support::model_bytes(NAME, "v1");
+    let stored = models::model_bytes(NAME, "v1");
     let recorded = ogive::registry::store::sha256_hex(&stored);
     let changed = other_content("v1");
     let found = ogive::registry::store::sha256_hex(&changed);
-    support::place_version(root.path(), NAME, "v1", &changed);
+    models::place_version(root.path(), NAME, "v1", &changed);
 
     // The watcher refuses it, naming the file and both digests; the stored content serves on.
     let events = watcher.poll(&registry);
@@ -1496,7 +1486,7 @@ fn a_stored_file_changed_under_its_label_is_refused_and_the_stored_content_keeps
     let error = lifecycle::promote(root.path(), NAME, "v2", false, "t", None)
         .expect_err("the live file cannot be compared");
     assert!(message(&error).contains(&found), "{error}");
-    support::place_version(root.path(), NAME, "v2", &other_content("v2"));
+    models::place_version(root.path(), NAME, "v2", &other_content("v2"));
     let error = lifecycle::promote(root.path(), NAME, "v2", true, "t", None)
         .expect_err("a changed candidate is refused");
     assert!(
@@ -1512,7 +1502,7 @@ fn a_stored_file_changed_under_its_label_is_refused_and_the_stored_content_keeps
     );
 
     // Putting the stored bytes back serves again.
-    support::place_version(root.path(), NAME, "v1", &stored);
+    models::place_version(root.path(), NAME, "v1", &stored);
     let events = watcher.poll(&registry);
     assert!(
         matches!(events.as_slice(), [WatchEvent::Served { version, .. }] if version == "v1"),
@@ -1523,13 +1513,13 @@ fn a_stored_file_changed_under_its_label_is_refused_and_the_stored_content_keeps
 #[test]
 fn a_hand_placed_version_is_held_to_the_content_first_served_under_its_label() {
     let root = root();
-    support::place_version(root.path(), NAME, "v1", &support::model_bytes(NAME, "v1"));
-    support::place_live(root.path(), NAME, "v1");
+    models::place_version(root.path(), NAME, "v1", &models::model_bytes(NAME, "v1"));
+    models::place_live(root.path(), NAME, "v1");
     let registry = Registry::default();
     let mut watcher = Watcher::new(root.path());
     assert_eq!(watcher.poll(&registry).len(), 1);
     // A redeploy ships other content under the same label: refused, v1 as first served stays.
-    support::place_version(root.path(), NAME, "v1", &other_content("v1"));
+    models::place_version(root.path(), NAME, "v1", &other_content("v1"));
     let events = watcher.poll(&registry);
     assert!(
         matches!(events.as_slice(), [WatchEvent::Refused { serving: Some(v), error, .. }]
@@ -1538,11 +1528,11 @@ fn a_hand_placed_version_is_held_to_the_content_first_served_under_its_label() {
     );
     assert_eq!(
         registry.snapshot().models[NAME].live.file().description,
-        support::base(NAME, "v1").description
+        models::base(NAME, "v1").description
     );
     // New content under a new label is served.
-    support::place_version(root.path(), NAME, "v2", &support::model_bytes(NAME, "v2"));
-    support::place_live(root.path(), NAME, "v2");
+    models::place_version(root.path(), NAME, "v2", &models::model_bytes(NAME, "v2"));
+    models::place_live(root.path(), NAME, "v2");
     let events = watcher.poll(&registry);
     assert!(
         matches!(events.as_slice(), [WatchEvent::Served { version, .. }] if version == "v2"),

@@ -7,14 +7,15 @@
 //! * Abramowitz & Stegun (1964), Table 26.1, for a handful of values of Φ and φ;
 //! * facts of the trade, marked "common practice".
 
-mod common;
+mod support;
 
-use common::tolerances::{
+use ogive::link::{normal_cdf, normal_quantile, Link, ALL_LINKS};
+use support::close::assert_close;
+use support::reference::fixture;
+use support::tolerances::{
     ABRAMOWITZ_STEGUN_TEN_DECIMALS, CLOSED_FORM, COMMON_PRACTICE_FOUR_DECIMALS,
     LINK_FINITE_DIFFERENCE, LINK_VS_SCIPY, QUANTILE_VS_SCIPY, ROUNDING,
 };
-use common::{assert_close, fixture};
-use ogive::link::{normal_cdf, normal_quantile, Link, ALL_LINKS};
 
 /// Which function of a link a fixture column holds.
 const COLUMNS: [&str; 4] = ["probability", "complement", "density", "density_derivative"];

@@ -6,22 +6,19 @@
 //! in `GET /models/{name}` never gets a failed call.
 //!
 //! Identity tests: answers are compared with the engine on the version that answered. The
-//! models are invented inputs (`lifecycle_support`), never reference values.
+//! models are invented inputs (`support::models`), never reference values.
 
-mod lifecycle_support;
-#[allow(dead_code)]
-#[path = "support/server.rs"]
-mod server;
+mod support;
 
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
-use lifecycle_support::{base, bytes_of, model_bytes, numeric, with_covariate};
 use ogive::model::CovariateKind;
 use ogive::service::shadow::Share;
 use serde_json::{json, Value as Json};
-use server::{engine_probability, model_of, observations, seed, TestServer};
+use support::models::{base, bytes_of, model_bytes, numeric, with_covariate};
+use support::server::{engine_probability, model_of, observations, seed, TestServer};
 
 const NAME: &str = "uptake";
 const NEW: &str = "employees";

@@ -14,35 +14,10 @@ use ogive::receipt::{ReceiptKeys, DEFAULT_MAX_AGE};
 use prometheus::{Encoder, Registry, TextEncoder};
 use serde_json::{json, Value as Json};
 
-#[allow(dead_code)]
-#[path = "support/server.rs"]
-mod server;
+mod support;
 
-/// Tolerances of this file, each with its reason.
-mod tolerance {
-    /// Brier score, log loss and AUC against scikit-learn 1.9: relative. Both sides sum the
-    /// same n ≤ 600 terms in a different order (numpy uses pairwise summation), so they agree
-    /// to a few ulps per term.
-    pub const SKLEARN: f64 = 1e-12;
-    /// Calibration-in-the-large against numpy: absolute (the value is a difference of means
-    /// and may be near 0).
-    pub const NUMPY_ABSOLUTE: f64 = 1e-13;
-    /// Calibration slope and intercept against statsmodels 0.15 Logit (Newton, tol 1e-14):
-    /// relative. Two Newton–Raphson runs to the same maximum agree to the precision of the
-    /// score equations, about 1e-12 of the parameters here; 1e-9 leaves room for summation order.
-    pub const STATSMODELS: f64 = 1e-9;
-    /// PSI against the hand computation of the same formula: relative.
-    pub const HAND: f64 = 1e-12;
-}
-
-#[track_caller]
-fn assert_close(actual: f64, expected: f64, relative: f64, what: &str) {
-    let scale = expected.abs().max(1e-300);
-    assert!(
-        (actual - expected).abs() <= relative * scale,
-        "{what}: got {actual:e}, expected {expected:e} (relative tolerance {relative:e})"
-    );
-}
+use support::close::assert_relative;
+use support::tolerances::monitoring as tolerance;
 
 /// The model the drift tests watch. Its training summaries are test input, chosen so that the
 /// training shares are round numbers:
@@ -198,7 +173,7 @@ fn input_psi_of_a_known_shift_matches_the_hand_computation() {
     assert_eq!(report[0].window_observations, 100);
     let amount = &report[0].covariates[0];
     assert_eq!(amount.covariate.as_deref(), Some("amount"));
-    assert_close(
+    assert_relative(
         amount.psi.expect("psi"),
         hand,
         tolerance::HAND,
@@ -223,7 +198,7 @@ fn input_psi_of_a_known_shift_matches_the_hand_computation() {
         ],
     )
     .expect("ogive_input_psi for amount");
-    assert_close(
+    assert_relative(
         gauge,
         hand,
         tolerance::HAND,
@@ -254,7 +229,7 @@ fn an_empty_bin_is_floored_at_the_documented_share() {
     let report = drift.report("lease-test");
     let sector = &report[0].covariates[1];
     assert_eq!(sector.covariate.as_deref(), Some("sector"));
-    assert_close(
+    assert_relative(
         sector.psi.expect("psi"),
         hand,
         tolerance::HAND,
@@ -262,7 +237,7 @@ fn an_empty_bin_is_floored_at_the_documented_share() {
     );
     let samples = scrape(&registry);
     let gauge = series(&samples, "ogive_input_psi", &[("covariate", "sector")]).expect("sector");
-    assert_close(
+    assert_relative(
         gauge,
         hand,
         tolerance::HAND,
@@ -287,7 +262,7 @@ fn a_binary_covariate_without_histogram_uses_its_training_share() {
     let report = drift.report("lease-test");
     let guarantor = &report[0].covariates[2];
     assert_eq!(guarantor.covariate.as_deref(), Some("guarantor"));
-    assert_close(
+    assert_relative(
         guarantor.psi.expect("psi"),
         hand,
         tolerance::HAND,
@@ -319,7 +294,7 @@ fn prediction_psi_bins_probabilities_by_the_fitted_histogram() {
     let hand = 2.0 * 0.3 * 4.0_f64.ln() + 2.0 * 0.1 * 1.5_f64.ln();
     let report = drift.report("lease-test");
     let prediction = report[0].prediction.as_ref().expect("prediction drift");
-    assert_close(
+    assert_relative(
         prediction.psi.expect("psi"),
         hand,
         tolerance::HAND,
@@ -332,7 +307,7 @@ fn prediction_psi_bins_probabilities_by_the_fitted_histogram() {
         &[("model", "lease-test"), ("version", "1")],
     )
     .expect("ogive_prediction_psi");
-    assert_close(gauge, hand, tolerance::HAND, "ogive_prediction_psi (hand)");
+    assert_relative(gauge, hand, tolerance::HAND, "ogive_prediction_psi (hand)");
 }
 
 #[test]
@@ -385,7 +360,7 @@ fn versions_keep_separate_windows_and_empty_windows_export_no_psi() {
             &[("version", version), ("covariate", "amount")],
         )
         .expect("amount PSI per version");
-        assert_close(
+        assert_relative(
             gauge,
             hand,
             tolerance::HAND,
@@ -511,25 +486,25 @@ fn figures_match_scikit_learn_numpy_and_statsmodels() {
         let what = |m: &str| format!("{m}, case '{}'", case.name);
         assert_eq!(f.count, case.predictions.len());
         // scikit-learn 1.9 brier_score_loss; relative 1e-12.
-        assert_close(
+        assert_relative(
             f.brier_score,
             reference(case, "brier_score"),
             tolerance::SKLEARN,
-            &what("Brier score vs sklearn brier_score_loss"),
+            what("Brier score vs sklearn brier_score_loss"),
         );
         // scikit-learn 1.9 log_loss; relative 1e-12 (no prediction within 1e-15 of 0 or 1).
-        assert_close(
+        assert_relative(
             f.log_loss,
             reference(case, "log_loss"),
             tolerance::SKLEARN,
-            &what("log loss vs sklearn log_loss"),
+            what("log loss vs sklearn log_loss"),
         );
         // scikit-learn 1.9 roc_auc_score; relative 1e-12.
-        assert_close(
+        assert_relative(
             f.roc_auc.expect("auc"),
             reference(case, "roc_auc"),
             tolerance::SKLEARN,
-            &what("AUC vs sklearn roc_auc_score"),
+            what("AUC vs sklearn roc_auc_score"),
         );
         // numpy mean(y) − mean(p); absolute 1e-13.
         let itl = reference(case, "in_the_large");
@@ -540,17 +515,17 @@ fn figures_match_scikit_learn_numpy_and_statsmodels() {
             f.calibration_in_the_large
         );
         // statsmodels 0.15 Logit(y, add_constant(logit(p))).fit(method="newton"); relative 1e-9.
-        assert_close(
+        assert_relative(
             f.calibration_slope.expect("slope"),
             reference(case, "calibration_slope"),
             tolerance::STATSMODELS,
-            &what("slope vs statsmodels Logit"),
+            what("slope vs statsmodels Logit"),
         );
-        assert_close(
+        assert_relative(
             f.calibration_intercept.expect("intercept"),
             reference(case, "calibration_intercept"),
             tolerance::STATSMODELS,
-            &what("intercept vs statsmodels Logit"),
+            what("intercept vs statsmodels Logit"),
         );
     }
 }
@@ -559,13 +534,13 @@ fn figures_match_scikit_learn_numpy_and_statsmodels() {
 fn log_loss_clips_predictions_at_1e_15() {
     // By hand: a prediction of 0 for an outcome of 1 costs −ln(1e-15) = 15 ln 10.
     assert_eq!(calibration::PROBABILITY_CLIP, 1e-15);
-    assert_close(
+    assert_relative(
         calibration::log_loss(&[0.0], &[true]),
         15.0 * 10.0_f64.ln(),
         1e-15,
         "log loss at p = 0, y = 1 (hand)",
     );
-    assert_close(
+    assert_relative(
         calibration::log_loss(&[1.0], &[false]),
         15.0 * 10.0_f64.ln(),
         1e-3,
@@ -580,13 +555,13 @@ fn one_outcome_class_leaves_slope_and_auc_undefined() {
     assert_eq!(f.roc_auc, None);
     assert_eq!(f.calibration_slope, None);
     // By hand: ((0.8)² + (0.6)² + (0.1)²)/3 and 1 − 0.5.
-    assert_close(
+    assert_relative(
         f.brier_score,
         (0.64 + 0.36 + 0.01) / 3.0,
         1e-15,
         "Brier (hand)",
     );
-    assert_close(
+    assert_relative(
         f.calibration_in_the_large,
         0.5,
         1e-15,
@@ -624,13 +599,13 @@ fn the_calibration_window_keeps_the_most_recent_outcomes() {
     let f = report[0].figures.expect("figures");
     assert_eq!(f.count, newer.predictions.len());
     // scikit-learn 1.9 on the newer case alone; relative 1e-12.
-    assert_close(
+    assert_relative(
         f.brier_score,
         reference(newer, "brier_score"),
         tolerance::SKLEARN,
         "windowed Brier vs sklearn",
     );
-    assert_close(
+    assert_relative(
         f.roc_auc.expect("auc"),
         reference(newer, "roc_auc"),
         tolerance::SKLEARN,
@@ -755,25 +730,25 @@ fn reported_outcomes_reach_the_calibration_gauges() {
     );
     let gauge = |name: &str| series(&samples, name, &labels).unwrap_or_else(|| panic!("{name}"));
     // Prometheus prints values with enough digits to round-trip, so the tolerances hold.
-    assert_close(
+    assert_relative(
         gauge("ogive_brier_score"),
         reference(case, "brier_score"),
         tolerance::SKLEARN,
         "ogive_brier_score vs sklearn brier_score_loss",
     );
-    assert_close(
+    assert_relative(
         gauge("ogive_log_loss"),
         reference(case, "log_loss"),
         tolerance::SKLEARN,
         "ogive_log_loss vs sklearn log_loss",
     );
-    assert_close(
+    assert_relative(
         gauge("ogive_roc_auc"),
         reference(case, "roc_auc"),
         tolerance::SKLEARN,
         "ogive_roc_auc vs sklearn roc_auc_score",
     );
-    assert_close(
+    assert_relative(
         gauge("ogive_calibration_slope"),
         reference(case, "calibration_slope"),
         tolerance::STATSMODELS,
@@ -864,17 +839,17 @@ fn fleet_counters_summed_over_replicas_give_the_figures_of_all_outcomes() {
         let what = |m: &str| format!("{model}: {m}");
         // scikit-learn 1.9 brier_score_loss and log_loss on all 20,000 rows; relative 1e-12
         // (numpy's probabilities and ogive's agree to about 1e-15).
-        assert_close(
+        assert_relative(
             total("ogive_outcome_squared_error_total") / n,
             expected("brier_score"),
             tolerance::SKLEARN,
-            &what("Brier score from the counters vs sklearn"),
+            what("Brier score from the counters vs sklearn"),
         );
-        assert_close(
+        assert_relative(
             total("ogive_outcome_log_loss_total") / n,
             expected("log_loss"),
             tolerance::SKLEARN,
-            &what("log loss from the counters vs sklearn"),
+            what("log loss from the counters vs sklearn"),
         );
         // numpy mean(y) − mean(p); absolute 1e-12 (a difference of means of 20,000 terms).
         let in_the_large =
@@ -917,17 +892,17 @@ fn fleet_counters_summed_over_replicas_give_the_figures_of_all_outcomes() {
         let (binned, bound) = (wins / pairs, ties / pairs);
         // The same binning in numpy (make_fleet_fixture.py): relative 1e-12, the same counts
         // summed in another order.
-        assert_close(
+        assert_relative(
             binned,
             expected("binned_auc"),
             1e-12,
-            &what("binned AUC vs numpy"),
+            what("binned AUC vs numpy"),
         );
-        assert_close(
+        assert_relative(
             bound,
             expected("tie_bound"),
             1e-12,
-            &what("tie bound vs numpy"),
+            what("tie bound vs numpy"),
         );
         // Against sklearn roc_auc_score: within the tie bound (a theorem), and within 0.005,
         // the resolution the bins were chosen for.
@@ -953,19 +928,19 @@ fn fleet_counters_summed_over_replicas_give_the_figures_of_all_outcomes() {
                 bin["count"].as_f64().expect("count"),
                 "{model} {label}"
             );
-            assert_close(
+            assert_relative(
                 fleet_sum(&scrapes, "ogive_reliability_positives_total", &labels) / count,
                 bin["prob_true"].as_f64().expect("prob_true"),
                 1e-12,
-                &what(&format!(
+                what(&format!(
                     "observed share in {label} vs sklearn calibration_curve"
                 )),
             );
-            assert_close(
+            assert_relative(
                 fleet_sum(&scrapes, "ogive_reliability_predicted_total", &labels) / count,
                 bin["prob_pred"].as_f64().expect("prob_pred"),
                 1e-12,
-                &what(&format!(
+                what(&format!(
                     "mean prediction in {label} vs sklearn calibration_curve"
                 )),
             );
@@ -1033,7 +1008,7 @@ fn drift_bin_counters_summed_over_replicas_give_the_psi_of_all_observations() {
     }
     // By hand: shares .4 .3 .2 .1 against .1 .2 .3 .4.
     let hand = term(0.4, 0.1) + term(0.3, 0.2) + term(0.2, 0.3) + term(0.1, 0.4);
-    assert_close(psi, hand, tolerance::HAND, "fleet PSI of amount vs hand");
+    assert_relative(psi, hand, tolerance::HAND, "fleet PSI of amount vs hand");
     // The prediction's bins: every probability was 0.1, in [0,0.25).
     let labels = [
         ("model", "lease-test"),
@@ -1064,7 +1039,8 @@ mod http {
     use serde_json::{json, Value as Json};
 
     use super::drift_file;
-    use crate::server::{seed, test_config, TestServer, TOKEN};
+    use crate::support::contract::Contract;
+    use crate::support::server::{seed, test_config, TestServer, TOKEN};
 
     /// A real server on 127.0.0.1:0 (public and admin listeners) serving the drift test model,
     /// monitoring on (with an ephemeral receipt key) or off.
@@ -1082,7 +1058,7 @@ mod http {
             &[("1", drift_file("1"))],
             Some("1"),
         );
-        let mut settings = crate::server::test_settings();
+        let mut settings = crate::support::server::test_settings();
         settings.shutdown_timeout_ms = 2_000;
         let monitoring = keys.map(|keys| Monitoring {
             windows: MonitorSettings {
@@ -1280,32 +1256,12 @@ mod http {
         server.stop();
     }
 
-    /// A validator for one schema of the served OpenAPI document.
-    fn schema(doc: &Json, name: &str) -> jsonschema::Validator {
-        let root = json!({
-            "$schema": "https://json-schema.org/draft/2020-12/schema",
-            "$ref": format!("#/components/schemas/{name}"),
-            "components": doc["components"],
-        });
-        jsonschema::validator_for(&root).unwrap_or_else(|e| panic!("schema {name}: {e}"))
-    }
-
-    #[track_caller]
-    fn assert_valid(doc: &Json, name: &str, instance: &Json) {
-        let errors: Vec<String> = schema(doc, name)
-            .iter_errors(instance)
-            .map(|e| format!("{e} at {}", e.instance_path()))
-            .collect();
-        assert!(errors.is_empty(), "{name}: {errors:?}\n{instance}");
-    }
-
     #[test]
     fn the_served_document_describes_the_monitoring_routes_truly() {
         let server = server(true);
-        let (_, doc) = get(&server, "/openapi.json");
-        let doc: Json = serde_json::from_str(&doc).expect("JSON");
-        let (_, admin_doc) = admin_get(&server, "/openapi.json", true);
-        let admin_doc: Json = serde_json::from_str(&admin_doc).expect("JSON");
+        let public = Contract::public(&server);
+        let admin = Contract::admin(&server);
+        let (doc, admin_doc) = (public.document(), admin.document());
         assert!(doc["paths"]["/models/{name}/outcomes"]["post"].is_object());
         assert!(admin_doc["paths"]["/models/{name}/monitoring"]["get"].is_object());
         assert!(
@@ -1330,31 +1286,31 @@ mod http {
             {"receipt": two["results"][0]["receipt"], "outcome": 0},
             {"receipt": "not-a-receipt", "outcome": 1},
         ]});
-        assert_valid(&doc, "OutcomeReport", &single);
-        assert_valid(&doc, "OutcomeReports", &batch);
+        public.check("OutcomeReport", &single, "OutcomeReport");
+        public.check("OutcomeReports", &batch, "OutcomeReports");
         for bad in [
             json!({"receipt": "x", "outcome": 2}),
             json!({"receipt": "x"}),
             json!({"receipt": "x", "outcome": 1, "extra": 0}),
         ] {
             assert!(
-                !schema(&doc, "OutcomeReport").is_valid(&bad),
+                !public.validator("OutcomeReport").is_valid(&bad),
                 "{bad} must be invalid"
             );
         }
         let (status, matched) = post(&server, "/models/lease-test/outcomes", None, &single);
         assert_eq!(status, 200);
-        assert_valid(&doc, "RecordedOutcome", &matched);
+        public.check("RecordedOutcome", &matched, "RecordedOutcome");
         let (status, results) = post(&server, "/models/lease-test/outcomes", None, &batch);
         assert_eq!(status, 200);
-        assert_valid(&doc, "OutcomeBatchResponse", &results);
+        public.check("OutcomeBatchResponse", &results, "OutcomeBatchResponse");
         let (status, problem) = post(&server, "/models/lease-test/outcomes", None, &single);
         assert_eq!(status, 409);
-        assert_valid(&doc, "Problem", &problem);
+        public.check("Problem", &problem, "Problem");
         let (status, report) = admin_get(&server, "/models/lease-test/monitoring", true);
         assert_eq!(status, 200);
         let report: Json = serde_json::from_str(&report).expect("JSON");
-        assert_valid(&admin_doc, "MonitorReport", &report);
+        admin.check("MonitorReport", &report, "MonitorReport");
         // The report is the admin listener's: the public one has no such route, and the admin
         // one wants the token.
         assert_eq!(get(&server, "/models/lease-test/monitoring").0, 404);

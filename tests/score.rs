@@ -2,7 +2,6 @@
 //! answers row for row, bad rows stop or are skipped as asked, shards partition the rows, and
 //! standard input and output work; any number of threads writes the bytes of one.
 
-#[path = "reference/describe/support.rs"]
 mod support;
 
 use std::collections::HashMap;
@@ -15,21 +14,9 @@ use ogive::batch::{
 use ogive::engine::{Options, Scorer, Warning};
 use ogive::model::{Model, Value};
 use rand::{Rng, SeedableRng};
-use support::{model_json, portfolio_json, run, write_model};
-
-/// Relative tolerance between a number read back from the CSV and the engine's own value. The
-/// CSV carries the shortest text that reads back to the same f64, so the two should be equal;
-/// 1e-12 leaves room for nothing but that.
-const CSV_ROUND_TRIP: f64 = 1e-12;
-
-/// Tolerance against statsmodels' fitted probabilities (statsmodels 0.15 Logit/Probit.predict
-/// on the Spector data, fixture written by tests/reference/describe/make_spector_fixtures.py):
-/// both evaluate F(xᵀβ) at the same β, so only rounding separates them.
-const STATSMODELS_PREDICT: f64 = 1e-12;
-
-fn close(a: f64, b: f64, tolerance: f64) -> bool {
-    (a - b).abs() <= tolerance * a.abs().max(b.abs()).max(1e-300)
-}
+use support::cli::{model_json, portfolio_json, run, write_model};
+use support::close::within;
+use support::tolerances::score::{CSV_ROUND_TRIP, STATSMODELS_PREDICT};
 
 /// The columns of the generated input files, covariates and pass-through columns mixed.
 const INPUT_COLUMNS: [&str; 7] = [
@@ -187,23 +174,23 @@ fn output_equals_the_engine_row_for_row() {
         assert_eq!(record[6], row.note);
         let answer = scorer.score(&model, &values(row), &options);
         let cell = |name: &str| number(&record[column[name]]);
-        assert!(close(
+        assert!(within(
             cell("probability"),
             answer.probability,
             CSV_ROUND_TRIP
         ));
-        assert!(close(
+        assert!(within(
             cell("linear_index"),
             answer.linear_index,
             CSV_ROUND_TRIP
         ));
         let interval = answer.interval.expect("interval");
-        assert!(close(
+        assert!(within(
             cell("probability_lower"),
             interval.lower,
             CSV_ROUND_TRIP
         ));
-        assert!(close(
+        assert!(within(
             cell("probability_upper"),
             interval.upper,
             CSV_ROUND_TRIP
@@ -211,11 +198,11 @@ fn output_equals_the_engine_row_for_row() {
         for effect in &answer.effects {
             let name = ogive::batch::effect_column(&model, &effect.slot);
             assert!(
-                close(cell(&name), effect.effect, CSV_ROUND_TRIP),
+                within(cell(&name), effect.effect, CSV_ROUND_TRIP),
                 "{name} in {}",
                 row.id
             );
-            assert!(close(
+            assert!(within(
                 cell(&format!("{name}_se")),
                 effect.std_error.expect("se"),
                 CSV_ROUND_TRIP
@@ -274,7 +261,7 @@ fn effect_columns_are_named_per_covariate_and_level() {
 #[test]
 fn spector_probabilities_match_statsmodels_predictions() {
     let dir = tempfile::tempdir().expect("tempdir");
-    let fixture = support::fixture();
+    let fixture = support::cli::fixture();
     for link in ["logit", "probit"] {
         let model_path = write_model(dir.path(), "spector.json", &model_json(link));
         let result = run(
@@ -283,7 +270,7 @@ fn spector_probabilities_match_statsmodels_predictions() {
                 "--model",
                 model_path.to_str().unwrap(),
                 "--data",
-                support::data_path().to_str().unwrap(),
+                support::cli::data_path().to_str().unwrap(),
                 "--out",
                 "-",
             ],
@@ -301,7 +288,7 @@ fn spector_probabilities_match_statsmodels_predictions() {
             // statsmodels 0.15 {Logit,Probit}.predict, Spector data; rel 1e-12.
             let expected = p.as_f64().unwrap();
             assert!(
-                close(number(&record[4]), expected, STATSMODELS_PREDICT),
+                within(number(&record[4]), expected, STATSMODELS_PREDICT),
                 "{link}: {} vs {expected}",
                 record[4]
             );

@@ -15,12 +15,9 @@
 //! is a bound on a poll, generous enough for a loaded machine. How fast swaps can go is a
 //! benchmark's question, not this test's.
 //!
-//! The models are invented inputs (`lifecycle_support`); the engine is the reference.
+//! The models are invented inputs (`support::models`); the engine is the reference.
 
-mod lifecycle_support;
-#[allow(dead_code)]
-#[path = "support/server.rs"]
-mod server;
+mod support;
 
 use std::collections::BTreeMap;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -28,11 +25,11 @@ use std::sync::Arc;
 use std::thread;
 use std::time::{Duration, Instant};
 
-use lifecycle_support::model_bytes;
 use ogive::registry::lifecycle;
 use ogive::service::shadow::Share;
 use serde_json::{json, Value as Json};
-use server::{engine_probability, model_of, observations, seed, TestServer};
+use support::models::model_bytes;
+use support::server::{engine_probability, model_of, observations, seed, TestServer};
 
 const NAME: &str = "steady";
 const CLIENTS: usize = 4;

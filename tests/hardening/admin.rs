@@ -15,7 +15,7 @@ use std::time::{Duration, Instant};
 
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_file, lease_observation};
+use crate::support::http_models::{lease_file, lease_observation};
 use crate::{raw_request, Raw, DEADLINE};
 
 /// The admin token: 32 hex digits, as `openssl rand -hex 16` would make one.

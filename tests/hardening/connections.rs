@@ -10,8 +10,8 @@ use std::time::{Duration, Instant};
 
 use serde_json::json;
 
-use crate::fixture::lease_observation;
-use crate::server::TestServer;
+use crate::support::http_models::lease_observation;
+use crate::support::server::TestServer;
 use crate::{assert_answers_others, hardened_settings, parse_response, DEADLINE};
 
 /// A connection whose receive buffer is as small as the kernel allows, so that the server

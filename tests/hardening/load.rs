@@ -8,8 +8,8 @@ use std::time::Instant;
 
 use serde_json::{json, Value as Json};
 
-use crate::fixture::lease_observation;
-use crate::server::{test_settings, TestServer};
+use crate::support::http_models::lease_observation;
+use crate::support::server::{test_settings, TestServer};
 use crate::{address, raw_request, Raw, DEADLINE};
 
 const PROBABILITY: &str = "/models/lease-test/probability";
@@ -179,7 +179,7 @@ fn two_hundred_clients_that_never_read_leave_memory_bounded_and_every_reader_ans
     use std::net::TcpStream;
     use std::process::{Command, Stdio};
 
-    let models = crate::server::http_models();
+    let models = crate::support::server::http_models();
     let mut child = Command::new(env!("CARGO_BIN_EXE_ogive"))
         .args(["serve", "--models"])
         .arg(&models)

@@ -10,8 +10,8 @@ use std::time::{Duration, Instant};
 use ogive::service::Config;
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_file, lease_observation};
-use crate::server::{test_config, TestServer};
+use crate::support::http_models::{lease_file, lease_observation};
+use crate::support::server::{test_config, TestServer};
 use crate::{address, hardened_settings, parse_response, raw_request, Raw, DEADLINE};
 
 /// Send `request` (a whole HTTP/1.1 request) on `stream` and read one response to its end,

@@ -5,7 +5,7 @@
 
 use serde_json::{json, Value as Json};
 
-use crate::fixture::lease_observation;
+use crate::support::http_models::lease_observation;
 
 /// Where the answer must locate the fault.
 #[derive(Debug, Clone, Copy)]

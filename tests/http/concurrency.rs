@@ -4,9 +4,9 @@
 use ogive::engine::{Options, Scorer};
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_file, model};
 use crate::routes::check_answer;
-use crate::server::TestServer;
+use crate::support::http_models::{lease_file, model};
+use crate::support::server::TestServer;
 
 const CLIENTS: usize = 12;
 const REQUESTS_PER_CLIENT: usize = 30;

@@ -4,81 +4,9 @@
 
 use serde_json::{json, Value as Json};
 
-use crate::fixture::lease_observation;
-use crate::server::{Reply, TestServer};
-
-/// The served document, read once.
-pub struct Contract {
-    doc: Json,
-}
-
-impl Contract {
-    /// The document `server` serves.
-    pub fn fetch(server: &TestServer) -> Contract {
-        Contract {
-            doc: server.get("/openapi.json").json(),
-        }
-    }
-
-    fn validator(&self, schema: &str) -> jsonschema::Validator {
-        let root = json!({
-            "$schema": "https://json-schema.org/draft/2020-12/schema",
-            "$ref": format!("#/components/schemas/{schema}"),
-            "components": self.doc["components"],
-        });
-        jsonschema::validator_for(&root).unwrap_or_else(|e| panic!("schema {schema}: {e}"))
-    }
-
-    #[track_caller]
-    fn check(&self, schema: &str, instance: &Json, what: &str) {
-        let validator = self.validator(schema);
-        let errors: Vec<String> = validator
-            .iter_errors(instance)
-            .map(|e| format!("{} at {}", e, e.instance_path()))
-            .collect();
-        assert!(
-            errors.is_empty(),
-            "{what} does not match {schema}: {errors:?}\n{instance}"
-        );
-    }
-
-    /// The documented response of `path`'s operation for `status`, checked: the media type and
-    /// the schema.
-    #[track_caller]
-    pub fn check_reply(&self, path: &str, method: &str, reply: &Reply, what: &str) {
-        let operation = &self.doc["paths"][path][method];
-        assert!(operation.is_object(), "{method} {path} is not documented");
-        let status = reply.status.to_string();
-        let response = if operation["responses"][&status].is_object() {
-            &operation["responses"][&status]
-        } else {
-            &operation["responses"]["default"]
-        };
-        assert!(
-            response.is_object(),
-            "{what}: status {status} is not documented"
-        );
-        assert!(
-            reply.header("x-request-id").is_some(),
-            "{what}: no X-Request-Id"
-        );
-        let Some(content) = response["content"].as_object() else {
-            assert!(reply.text.is_empty(), "{what}: undocumented body");
-            return;
-        };
-        let media = reply
-            .header("content-type")
-            .and_then(|c| c.split(';').next())
-            .expect("content type");
-        let schema = &content
-            .get(media)
-            .unwrap_or_else(|| panic!("{what}: media type {media} not documented"))["schema"];
-        if let Some(reference) = schema["$ref"].as_str() {
-            let name = reference.trim_start_matches("#/components/schemas/");
-            self.check(name, &reply.json(), what);
-        }
-    }
-}
+use crate::support::contract::Contract;
+use crate::support::http_models::lease_observation;
+use crate::support::server::TestServer;
 
 /// The JSON Pointers of every schema property, and every parameter, that has no description
 /// under `node`.
@@ -148,7 +76,7 @@ fn every_request_option_and_answer_field_is_described() {
 #[test]
 fn live_answers_match_the_served_document() {
     let server = TestServer::start();
-    let contract = Contract::fetch(&server);
+    let contract = Contract::public(&server);
     let get = |path: &str, template: &str, what: &str| {
         contract.check_reply(template, "get", &server.get(path), what);
     };
@@ -262,7 +190,7 @@ fn live_answers_match_the_served_document() {
 #[test]
 fn the_document_rejects_what_the_service_rejects() {
     let server = TestServer::start();
-    let contract = Contract::fetch(&server);
+    let contract = Contract::public(&server);
     let validator = contract.validator("ProbabilityRequest.lease-test");
     let mut cases = Vec::new();
     for (key, value) in [

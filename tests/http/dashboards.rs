@@ -8,8 +8,8 @@ use serde_json::json;
 
 use ogive::service::{Config, CorsOrigins, Monitoring};
 
-use crate::fixture::{lease_file, model};
-use crate::server::{copy_models, http_models, test_config, test_settings, TestServer};
+use crate::support::http_models::{lease_file, model};
+use crate::support::server::{copy_models, http_models, test_config, test_settings, TestServer};
 
 const DASHBOARD: &str = "https://dashboard.example.org";
 
@@ -19,7 +19,7 @@ fn server_allowing(origins: &[&str]) -> TestServer {
     TestServer::start_with(settings)
 }
 
-fn preflight(server: &TestServer, path: &str, origin: &str) -> crate::server::Reply {
+fn preflight(server: &TestServer, path: &str, origin: &str) -> crate::support::server::Reply {
     server.send(
         "OPTIONS",
         path,
@@ -68,7 +68,7 @@ fn a_listed_origin_can_read_answers_and_their_etags() {
         "/models/lease-test/probability",
         &[("Origin", DASHBOARD), ("Content-Type", "application/json")],
         Some(
-            json!({"observation": crate::fixture::lease_observation()})
+            json!({"observation": crate::support::http_models::lease_observation()})
                 .to_string()
                 .as_bytes(),
         ),
@@ -240,7 +240,7 @@ fn metric(text: &str, prefix: &str) -> Option<f64> {
 #[test]
 fn a_stored_version_that_is_not_live_answers_and_says_so() {
     let (server, stored) = serving_a_stored_version();
-    let observation = crate::fixture::lease_observation();
+    let observation = crate::support::http_models::lease_observation();
     let body = json!({"observation": observation});
     let answer = server.post("/models/lease-test/versions/2026-02/probability", &body);
     assert_eq!(answer.status, 200, "{}", answer.text);
@@ -272,7 +272,7 @@ fn a_stored_version_that_is_not_live_answers_and_says_so() {
         (p - expected).abs() <= 4e-16 * expected,
         "{p} vs {expected}"
     );
-    crate::contract::Contract::fetch(&server).check_reply(
+    crate::support::contract::Contract::public(&server).check_reply(
         "/models/{name}/versions/{version}/probability",
         "post",
         &server.post("/models/lease-test/versions/2026-02/probability", &body),
@@ -300,9 +300,9 @@ fn a_stored_version_that_is_not_live_answers_and_says_so() {
 #[test]
 fn a_stored_version_counts_in_no_live_series() {
     let (server, _) = serving_a_stored_version();
-    let mut far = crate::fixture::lease_observation();
+    let mut far = crate::support::http_models::lease_observation();
     far["years_trading"] = json!(500.0);
-    let batch = json!({"observations": [crate::fixture::lease_observation(), far]});
+    let batch = json!({"observations": [crate::support::http_models::lease_observation(), far]});
     let answer = server.post("/models/lease-test/versions/2026-02/probability", &batch);
     assert_eq!(answer.status, 200, "{}", answer.text);
     let results = answer.json()["results"].clone();
@@ -341,7 +341,7 @@ fn a_stored_version_counts_in_no_live_series() {
 #[test]
 fn the_live_version_by_label_is_the_live_answer() {
     let (server, _) = serving_a_stored_version();
-    let body = json!({"observation": crate::fixture::lease_observation(), "contributions": true});
+    let body = json!({"observation": crate::support::http_models::lease_observation(), "contributions": true});
     let by_label = server
         .post("/models/lease-test/versions/2026-01/probability", &body)
         .json();
@@ -361,7 +361,7 @@ fn the_live_version_by_label_is_the_live_answer() {
 #[test]
 fn a_version_that_is_not_stored_or_not_a_label_is_refused() {
     let (server, _) = serving_a_stored_version();
-    let body = json!({"observation": crate::fixture::lease_observation()});
+    let body = json!({"observation": crate::support::http_models::lease_observation()});
     let missing = server.post("/models/lease-test/versions/2027-01/probability", &body);
     assert_eq!(missing.status, 404, "{}", missing.text);
     let missing = missing.json();
@@ -403,7 +403,7 @@ fn a_stored_version_whose_bytes_changed_is_refused() {
     )
     .expect("history");
     assert!(!bytes.is_empty());
-    let body = json!({"observation": crate::fixture::lease_observation()});
+    let body = json!({"observation": crate::support::http_models::lease_observation()});
     let refused = server.post("/models/lease-test/versions/2026-02/probability", &body);
     assert_eq!(refused.status, 409, "{}", refused.text);
     assert_eq!(

@@ -4,8 +4,8 @@
 use serde_json::{json, Value as Json};
 
 use crate::catalogue::{catalogue, PROBABILITY};
-use crate::fixture::lease_observation;
-use crate::server::TestServer;
+use crate::support::http_models::lease_observation;
+use crate::support::server::TestServer;
 
 #[test]
 fn every_malformed_request_gets_its_problem_details() {

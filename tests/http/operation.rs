@@ -12,8 +12,8 @@ use std::time::{Duration, Instant};
 use ogive::registry::load::load_directory;
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_file, lease_observation, plain_file};
-use crate::server::{test_settings, TestServer};
+use crate::support::http_models::{lease_file, lease_observation, plain_file};
+use crate::support::server::{test_settings, TestServer};
 
 #[test]
 fn a_valid_request_id_is_echoed_and_an_invalid_one_replaced() {

@@ -13,10 +13,9 @@ use ogive::model::{Model, Value};
 use ogive::registry::{Entry, Snapshot};
 use serde_json::{json, Value as Json};
 
-use crate::fixture::{lease_file, lease_observation, model, plain_file};
-use crate::server::{copy_models, http_models, test_config, test_settings, TestServer};
-
-const SAME: f64 = 4e-16;
+use crate::support::http_models::{lease_file, lease_observation, model, plain_file};
+use crate::support::server::{copy_models, http_models, test_config, test_settings, TestServer};
+use crate::support::tolerances::http::SAME;
 
 #[track_caller]
 fn same(actual: &Json, expected: f64, what: &str) {

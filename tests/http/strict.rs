@@ -6,8 +6,8 @@
 
 use serde_json::{json, Value as Json};
 
-use crate::fixture::lease_observation;
-use crate::server::TestServer;
+use crate::support::http_models::lease_observation;
+use crate::support::server::TestServer;
 
 const PROBABILITY: &str = "/models/lease-test/probability";
 

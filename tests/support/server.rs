@@ -2,7 +2,6 @@
 //! starts it) on 127.0.0.1 port 0 with both listeners, serving a model directory in a temporary
 //! folder, on a thread of its own; and a blocking client for it.
 //!
-//! Include with `#[allow(dead_code)] #[path = "support/server.rs"] mod server;`.
 //! [`TestServer::start`] serves a copy of the committed HTTP test models
 //! (`tests/http/models`); [`TestServer::serve`] a directory the test filled;
 //! [`TestServer::launch`] any configuration.

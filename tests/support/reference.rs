@@ -1,15 +1,6 @@
-//! Helpers shared by the integration tests: reading the committed reference fixtures, building
-//! a validated [`Model`] from plain parts (always through a [`ModelFile`] and
-//! [`Model::from_file`], so every test model passes the same validation a served one does), and
-//! comparing numbers with a named source and tolerance.
-//!
-//! Tolerances live in [`tolerances`] and nowhere else. Each test binary uses a different subset
-//! of these helpers, hence the `dead_code` allowance.
-#![allow(dead_code)]
-
-pub mod tolerances;
-
-use std::fmt::Display;
+//! Reading the committed reference fixtures of `tests/reference/`, and building a validated
+//! [`Model`] from plain parts (always through a [`ModelFile`] and [`Model::from_file`], so every
+//! test model passes the same validation a served one does).
 use std::path::PathBuf;
 
 use ogive::link::Link;
@@ -32,29 +23,6 @@ pub fn fixture(relative: &str) -> Json {
         .unwrap_or_else(|e| panic!("cannot read fixture {}: {e}", path.display()));
     serde_json::from_str(&text)
         .unwrap_or_else(|e| panic!("fixture {} is not JSON: {e}", path.display()))
-}
-
-/// `|a − b| / max(|a|, |b|)`, 0 when both are equal (including both 0).
-pub fn relative_difference(a: f64, b: f64) -> f64 {
-    if a == b {
-        0.0
-    } else {
-        (a - b).abs() / a.abs().max(b.abs())
-    }
-}
-
-/// Assert `actual` matches `expected` to relative `tolerance`, or absolutely to
-/// `tolerance × floor` when `expected` is smaller than `floor` in magnitude.
-#[track_caller]
-pub fn assert_close(actual: f64, expected: f64, tolerance: f64, floor: f64, what: impl Display) {
-    let scale = expected.abs().max(floor);
-    let ok = (actual - expected).abs() <= tolerance * scale;
-    assert!(
-        ok && actual.is_finite() == expected.is_finite(),
-        "{what}: got {actual:e}, expected {expected:e} (difference {:e}, tolerance {tolerance:e} \
-         relative to {scale:e})",
-        (actual - expected).abs()
-    );
 }
 
 /// One covariate of a test model, with the training summary the file needs.
@@ -174,7 +142,7 @@ impl ModelParts {
                 .map(|(o, p)| json!({ "observation": o, "probability": p }))
                 .collect::<Vec<_>>(),
             "provenance": {
-                "fitted_by": "tests/common",
+                "fitted_by": "tests/support/reference.rs",
                 "fitted_at": "1970-01-01T00:00:00Z",
                 "observations": 0,
                 "notes": self.provenance,
@@ -282,5 +250,19 @@ pub fn numbers(value: &Json) -> Vec<f64> {
         .unwrap_or_else(|| panic!("expected an array of numbers, got {value}"))
         .iter()
         .map(|x| x.as_f64().unwrap_or_else(|| panic!("not a number: {x}")))
+        .collect()
+}
+
+/// A JSON array of strings.
+pub fn strings(value: &Json) -> Vec<String> {
+    value
+        .as_array()
+        .unwrap_or_else(|| panic!("expected an array of strings, got {value}"))
+        .iter()
+        .map(|x| {
+            x.as_str()
+                .unwrap_or_else(|| panic!("not text: {x}"))
+                .to_string()
+        })
         .collect()
 }

@@ -1,11 +1,9 @@
 //! Valid model files built in code, for tests of the model directory, the gate and the
-//! watcher. Include with `mod lifecycle_support;`.
+//! watcher.
 //!
 //! The models are invented inputs (never check values): four covariates of every kind, terms
 //! that use each of them, a diagonal covariance, and check cases whose probabilities the
 //! engine computes at the end, so that every variant a test derives stays valid.
-
-#![allow(dead_code)]
 
 use std::collections::BTreeMap;
 use std::path::Path;
@@ -97,7 +95,7 @@ pub fn base(name: &str, version: &str) -> ModelFile {
         decision: None,
         announces: Vec::new(),
         provenance: Provenance {
-            fitted_by: "lifecycle_support".into(),
+            fitted_by: "tests/support/models.rs".into(),
             fitted_at: "2026-01-01T00:00:00Z".into(),
             observations: 100,
             ..Provenance::default()

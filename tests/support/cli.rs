@@ -1,8 +1,7 @@
-//! Models and helpers shared by `tests/score.rs` and `tests/describe.rs` (each includes this
-//! file with `#[path]`).
+//! Models and a runner for the tests of the `ogive` commands (`score`, `describe`, `evaluate`).
 //!
 //! - [`model_json`] builds an ogive model file from the statsmodels fixture `spector.json`
-//!   (written by `make_spector_fixtures.py` beside this file). The coefficients and their
+//!   (written by `tests/reference/describe/make_spector_fixtures.py`). The coefficients and their
 //!   covariance are statsmodels' own estimates, so a test that scores with the model checks
 //!   ogive's effects against statsmodels' effects at the same estimate; the check cases are
 //!   statsmodels' fitted probabilities for the first rows of the data.
@@ -11,8 +10,6 @@
 //!   Its numbers are inputs to identity tests only ("the command's output equals the engine's
 //!   answer"), never check values.
 //! - [`run`] runs the `ogive` binary.
-
-#![allow(dead_code)]
 
 use std::path::PathBuf;
 

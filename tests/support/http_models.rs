@@ -1,5 +1,5 @@
 //! Test models of the committed HTTP test model directory (served by the test server,
-//! `tests/support/server.rs`), and an observation of them.
+//! [`super::server`]), and an observation of them.
 //!
 //! The models are invented inputs for identity tests (the service must return exactly what the
 //! engine computes); no value here is a reference value.
@@ -7,7 +7,7 @@
 use ogive::model::Model;
 use serde_json::{json, Value as Json};
 
-use crate::server::http_models;
+use super::server::http_models;
 
 fn read_model_file(name: &str, version: &str) -> Json {
     let path = http_models()
