@@ -1014,8 +1014,41 @@ fn shadow_refusals_say_why() {
 fn promoting_the_shadow_version_ends_the_shadow() {
     let d = three_versions(Share::ALL);
     d.set_shadow(NAME, "v2").expect(200);
+    assert_eq!(
+        std::fs::read_to_string(d.root().join(NAME).join("shadow")).expect("the shadow pointer"),
+        "v2\n"
+    );
+    for o in &observations(12) {
+        d.post(
+            &format!("/models/{NAME}/probability"),
+            &json!({"observation": o}),
+        )
+        .expect(200);
+    }
+    let report = d.shadow_report(NAME).expect(200);
+    assert_eq!(report["scored"], 12);
     let moved = d.promote(NAME, "v2", false).expect(200);
     assert_eq!(moved["serving"], "v2");
+    // The promotion's history line keeps the shadow's final report and both thresholds.
+    let note = &moved["record"]["shadow"];
+    assert_eq!(note["version"], "v2");
+    assert_eq!(note["thresholds"], json!({"live": 0.5, "shadow": 0.5}));
+    for figure in [
+        "scored",
+        "unscored",
+        "mean_abs_difference",
+        "disagreements",
+        "disagreement_rate",
+        "since",
+    ] {
+        assert_eq!(note["figures"][figure], report[figure], "{figure}: {note}");
+    }
+    let history = d
+        .admin("GET", &format!("/models/{NAME}/history"), None)
+        .expect(200);
+    let records = history["records"].as_array().expect("records");
+    assert_eq!(records.last(), Some(&moved["record"]));
+    assert!(!d.root().join(NAME).join("shadow").exists());
     d.shadow_report(NAME).expect_problem(404, "no-shadow");
     assert!(d.get(&format!("/models/{NAME}")).expect(200)["shadow_version"].is_null());
 

@@ -1,6 +1,7 @@
 //! `ogive promote`, `ogive rollback` and `ogive history`: the model lifecycle on the model
 //! directory itself, through [`crate::registry::lifecycle`] (which holds all the rules). A
-//! serving process sharing the directory picks the change up within a second.
+//! serving process sharing the directory picks the change up within a second. (`ogive shadow`
+//! is `shadow.rs`, with the same directory and actor flags.)
 
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -9,9 +10,10 @@ use anyhow::Context;
 
 use crate::evaluate::evidence::Evidence;
 use crate::registry::lifecycle::{self, HistoryView, Moved};
+use crate::registry::shadow::ShadowNote;
 use crate::registry::store::{Action, HistoryRecord};
 
-/// Where the model directory is and who is acting: shared by the three commands.
+/// Where the model directory is: shared by the lifecycle commands.
 #[derive(Debug, clap::Args)]
 pub struct Directory {
     /// The model directory.
@@ -38,7 +40,7 @@ pub struct Actor {
 }
 
 impl Actor {
-    fn who(&self) -> String {
+    pub(crate) fn who(&self) -> String {
         self.who
             .clone()
             .unwrap_or_else(|| format!("cli:{}", login_name(|key| std::env::var(key).ok())))
@@ -84,7 +86,7 @@ fn account_of(passwd: &str, uid: u32) -> Option<String> {
 #[derive(Debug, clap::Args)]
 pub struct PromoteArgs {
     #[command(flatten)]
-    directory: Directory,
+    pub(crate) directory: Directory,
     /// The model.
     pub name: String,
     /// The stored version to make live.
@@ -100,18 +102,18 @@ pub struct PromoteArgs {
     #[arg(long, value_name = "REPORT")]
     pub evidence: Option<PathBuf>,
     #[command(flatten)]
-    actor: Actor,
+    pub(crate) actor: Actor,
 }
 
 /// Arguments of `ogive rollback`.
 #[derive(Debug, clap::Args)]
 pub struct RollbackArgs {
     #[command(flatten)]
-    directory: Directory,
+    pub(crate) directory: Directory,
     /// The model.
     pub name: String,
     #[command(flatten)]
-    actor: Actor,
+    pub(crate) actor: Actor,
 }
 
 /// How `ogive history` prints.
@@ -130,7 +132,7 @@ const REPAIR_LOCK_WAIT: std::time::Duration = std::time::Duration::from_secs(5);
 #[derive(Debug, clap::Args)]
 pub struct HistoryArgs {
     #[command(flatten)]
-    directory: Directory,
+    pub(crate) directory: Directory,
     /// The model.
     pub name: String,
     /// Output format.
@@ -237,9 +239,17 @@ fn print_moved(moved: &Moved) {
     }
 }
 
-fn record_line(record: &HistoryRecord) -> String {
+/// One history record as a line for people.
+pub(crate) fn record_line(record: &HistoryRecord) -> String {
     let change = match (record.action, &record.from) {
         (Action::Upload, _) => format!("stored {}", record.to),
+        (Action::Shadow, Some(from)) => format!("shadow {from} → {}", record.to),
+        (Action::Shadow, None) => format!("shadow {}", record.to),
+        (Action::Unshadow, from) => format!(
+            "shadow {} ended; {} alone",
+            from.as_deref().unwrap_or("?"),
+            record.to
+        ),
         (_, Some(from)) => format!("{from} → {}", record.to),
         (_, None) => format!("nothing → {}", record.to),
     };
@@ -258,7 +268,37 @@ fn record_line(record: &HistoryRecord) -> String {
             e.file, e.sha256, e.auc, e.brier, e.calibration_slope
         ));
     }
+    if let Some(note) = &record.shadow {
+        line.push_str(&format!("  {}", shadow_note_text(note)));
+    }
     line
+}
+
+/// What a record keeps of a shadowing that ended, in words.
+pub(crate) fn shadow_note_text(note: &ShadowNote) -> String {
+    let threshold = |t: Option<f64>| t.map_or_else(|| "unknown".to_string(), |t| t.to_string());
+    let thresholds = format!(
+        "thresholds live {} and shadow {}",
+        threshold(note.thresholds.live),
+        threshold(note.thresholds.shadow)
+    );
+    let Some(f) = &note.figures else {
+        return format!(
+            "shadow {} ended ({thresholds}; no figures: ended on the directory, they are in the serving processes' series)",
+            note.version
+        );
+    };
+    let figure = |x: Option<f64>| x.map_or_else(|| "none".to_string(), |x| format!("{x:.4}"));
+    format!(
+        "shadow {} ended: {} scored ({} unscored) since {}, mean |Δp| {}, disagreements {} (share {}), {thresholds}",
+        note.version,
+        f.scored,
+        f.unscored,
+        f.since.as_deref().unwrap_or("the process started"),
+        figure(f.mean_abs_difference),
+        f.disagreements,
+        figure(f.disagreement_rate)
+    )
 }
 
 fn history_text(view: &HistoryView) -> String {

@@ -14,6 +14,7 @@ pub(crate) mod lifecycle;
 pub(crate) mod like;
 pub(crate) mod score;
 pub(crate) mod serve;
+pub(crate) mod shadow;
 
 /// Fit, check and serve binary-outcome regression models (logit, probit, cloglog, cauchit).
 #[derive(Debug, Parser)]
@@ -46,6 +47,9 @@ pub enum Command {
     Rollback(lifecycle::RollbackArgs),
     /// Print a model's promotion and rollback history.
     History(lifecycle::HistoryArgs),
+    /// Score a stored version beside a model's live version on every replica, its answers only
+    /// measured; or end that, or show what shadows.
+    Shadow(shadow::ShadowArgs),
 }
 
 /// Set up `tracing`: JSON lines for `serve`, compact text on stderr otherwise; level from
@@ -96,5 +100,6 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Promote(args) => lifecycle::promote(args),
         Command::Rollback(args) => lifecycle::rollback(args),
         Command::History(args) => lifecycle::history(args),
+        Command::Shadow(args) => shadow::run(args),
     }
 }

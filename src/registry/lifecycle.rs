@@ -1,6 +1,6 @@
-//! The lifecycle of a model's versions on disk: [`upload`], [`promote`], [`rollback`] and
-//! [`history`]. The admin routes and the `promote`, `rollback` and `history` subcommands are
-//! thin wrappers around these four functions.
+//! The lifecycle of a model's versions on disk: [`upload`], [`promote`], [`rollback`],
+//! [`set_shadow`], [`end_shadow`] and [`history`]. The admin routes and the `promote`,
+//! `rollback`, `shadow` and `history` subcommands are thin wrappers around these functions.
 //!
 //! Each changing operation runs under the model's exclusive lock, passes the [`gate`], and
 //! writes in an order chosen for crashes. The history is the truth and the `live` pointer its
@@ -36,6 +36,14 @@
 //! met), but it does validate the target file, and reports the contract changes it makes.
 //! Promoting the version that is already live changes nothing and records nothing.
 //!
+//! The shadow pointer (`NAME/shadow`, see [`crate::registry::shadow`]) is written the same way:
+//! its record first, then the pointer, under the lock; [`reconcile`] completes a shadow change
+//! whose pointer still shows the state before its record, by the same rule as for `live`. A
+//! promotion or rollback to the version that shadows ends the shadowing: its record keeps what
+//! the shadowing measured (`shadow`: the version, both thresholds, and the figures the caller
+//! passes, [`Promotion::shadow_figures`]), then the live pointer moves, then the shadow pointer
+//! is removed.
+//!
 //! Uploads are recorded in the history too (`action: "upload"`), so that it says who stored
 //! each version and with which SHA-256; an upload repeated with identical bytes writes nothing.
 //! Every version a promotion, rollback or comparison reads is checked against that digest
@@ -53,6 +61,7 @@ use std::time::Duration;
 use serde::Serialize;
 
 use super::gate::{self, ContractChange, GateError, Novelty};
+use super::shadow::{check_shadowable, CannotShadow, ShadowFigures, ShadowNote};
 use super::store::{
     atomic, Action, HistoryRecord, HistoryWarning, ModelDir, ModelLock, StoreError,
 };
@@ -117,6 +126,23 @@ pub enum LifecycleError {
         /// Why it could not be loaded.
         problem: String,
     },
+    /// A shadow set for a model with no live version.
+    #[error(
+        "model '{name}' has no live version, so nothing can shadow it; promote a version first"
+    )]
+    NothingToShadow {
+        /// The model.
+        name: String,
+    },
+    /// The candidate cannot shadow the live version.
+    #[error(transparent)]
+    CannotShadow(#[from] CannotShadow),
+    /// A shadow ended for a model that has none.
+    #[error("model '{name}' has no shadow in the model directory")]
+    NoShadow {
+        /// The model.
+        name: String,
+    },
     /// The version a rollback would return to does not pass the gate.
     #[error("cannot roll '{name}' back to '{target}', so '{live}' stays live: {problem}")]
     RollbackTargetInvalid {
@@ -174,6 +200,46 @@ pub struct Moved {
     /// The validated model now live, for a caller that serves it to swap in at once.
     #[serde(skip)]
     pub model: Model,
+}
+
+/// The result of [`set_shadow`] or [`end_shadow`].
+#[derive(Debug, Clone, Serialize)]
+pub struct ShadowMoved {
+    /// The model.
+    pub name: String,
+    /// The live version.
+    pub live: String,
+    /// The version that shadowed before, if any.
+    pub from: Option<String>,
+    /// The version that shadows now, if any.
+    pub to: Option<String>,
+    /// `false` when the shadow already was what was asked and nothing was written.
+    pub changed: bool,
+    /// The history record written, if any.
+    pub record: Option<HistoryRecord>,
+    /// The live version, validated (for the caller's report of contract changes).
+    #[serde(skip)]
+    pub live_model: Model,
+    /// The shadow version now, validated.
+    #[serde(skip)]
+    pub shadow_model: Option<Model>,
+}
+
+/// What a promotion takes beyond the version: [`promote`] takes the defaults but for
+/// `allow_breaking`, `who` and `reason`.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Promotion<'a> {
+    /// Promote even if the contract changes.
+    pub allow_breaking: bool,
+    /// Who, for the history.
+    pub who: &'a str,
+    /// Why, for the history.
+    pub reason: Option<&'a str>,
+    /// An evaluation report of the version.
+    pub evidence: Option<&'a Evidence>,
+    /// What the caller measured of the version's shadowing, if it is the shadow version:
+    /// kept in the history line when the promotion ends the shadowing.
+    pub shadow_figures: Option<&'a ShadowFigures>,
 }
 
 /// The result of [`history`].
@@ -281,7 +347,7 @@ pub fn replay(records: &[HistoryRecord], pointer: Option<&str>) -> Lineage {
     let mut previous: Vec<String> = Vec::new();
     for record in records {
         match record.action {
-            Action::Upload => {}
+            Action::Upload | Action::Shadow | Action::Unshadow => {}
             Action::Promote => {
                 move_live(&mut live, &mut previous, record.from.as_deref());
                 move_live(&mut live, &mut previous, Some(&record.to));
@@ -310,17 +376,50 @@ pub fn replay(records: &[HistoryRecord], pointer: Option<&str>) -> Lineage {
 }
 
 /// Under `lock`, complete a move the history records but the pointer does not show yet, by
-/// writing the pointer the last record names. Returns that record, or `None` when the pointer
-/// already agrees. The record's version passed the gate before it was written, so it is not
-/// checked again.
+/// writing the pointer the last record names, and likewise a shadow change
+/// ([`interrupted_shadow`]). Returns the move's record, or `None` when the live pointer already
+/// agrees. The record's version passed the gate before it was written, so it is not checked
+/// again.
 fn complete_interrupted_move(lock: &ModelLock) -> Result<Option<HistoryRecord>, LifecycleError> {
     let pointer = lock.dir().read_live()?;
+    let shadow = lock.dir().read_shadow()?;
     let history = lock.dir().read_history()?;
+    if let Some(target) = interrupted_shadow(&history.records, shadow.as_deref()) {
+        match target {
+            Some(version) => lock.write_shadow(&version)?,
+            None => lock.remove_shadow()?,
+        }
+    }
     let Some(record) = interrupted_move(&history.records, pointer.as_deref()) else {
         return Ok(None);
     };
     lock.write_live(&record.to)?;
     Ok(Some(record.clone()))
+}
+
+/// The shadow pointer before and after the last record that changed it: a shadow set
+/// (`from` → `to`), ended (`from` → none), or a promotion or rollback that ended one (its
+/// note's version → none).
+fn shadow_change(records: &[HistoryRecord]) -> Option<(Option<&str>, Option<&str>)> {
+    records.iter().rev().find_map(|r| match r.action {
+        Action::Shadow => Some((r.from.as_deref(), Some(r.to.as_str()))),
+        Action::Unshadow => Some((r.from.as_deref(), None)),
+        Action::Promote | Action::Rollback => r
+            .shadow
+            .as_ref()
+            .map(|note| (Some(note.version.as_str()), None)),
+        Action::Upload => None,
+    })
+}
+
+/// Where the shadow pointer should be, if it still shows the state before the last shadow
+/// change the history records (`Some(None)`: removed): a change recorded but not yet made.
+pub fn interrupted_shadow(
+    records: &[HistoryRecord],
+    pointer: Option<&str>,
+) -> Option<Option<String>> {
+    let (before, after) = shadow_change(records)?;
+    (pointer != after && pointer == before).then(|| after.map(str::to_string))
 }
 
 /// Bring model `name`'s pointer into line with its history (see the module docs), waiting at
@@ -334,7 +433,11 @@ pub fn reconcile(
 ) -> Result<Option<HistoryRecord>, LifecycleError> {
     let dir = existing_dir(root, name)?;
     let pointer = dir.read_live()?;
-    if interrupted_move(&dir.read_history()?.records, pointer.as_deref()).is_none() {
+    let shadow = dir.read_shadow()?;
+    let records = dir.read_history()?.records;
+    if interrupted_move(&records, pointer.as_deref()).is_none()
+        && interrupted_shadow(&records, shadow.as_deref()).is_none()
+    {
         return Ok(None);
     }
     let lock = dir.lock(wait)?;
@@ -486,12 +589,31 @@ pub fn promote_with_evidence(
     reason: Option<&str>,
     evidence: Option<&Evidence>,
 ) -> Result<Moved, LifecycleError> {
+    let promotion = Promotion {
+        allow_breaking,
+        who,
+        reason,
+        evidence,
+        shadow_figures: None,
+    };
+    promote_with(root, name, version, &promotion)
+}
+
+/// [`promote`] with everything a promotion may carry ([`Promotion`]): evidence as
+/// [`promote_with_evidence`] stores it, and, when `version` is the shadow version, the end of
+/// the shadowing with what it measured (see the module docs).
+pub fn promote_with(
+    root: &Path,
+    name: &str,
+    version: &str,
+    promotion: &Promotion<'_>,
+) -> Result<Moved, LifecycleError> {
     gate::check_labels(name, version)?;
     let dir = existing_dir(root, name)?;
     let lock = dir.lock(LOCK_WAIT)?;
     complete_interrupted_move(&lock)?;
     let candidate = load_stored(&dir, version)?;
-    if let Some(evidence) = evidence {
+    if let Some(evidence) = promotion.evidence {
         // load_stored has just read and verified this file.
         let bytes = dir.read_version_verified(version)?.unwrap_or_default();
         evidence.check_for(name, version, &bytes)?;
@@ -509,11 +631,18 @@ pub fn promote_with_evidence(
             model: candidate,
         });
     }
-    let changes = compare_with_live(&dir, live.as_deref(), &candidate, allow_breaking)?;
-    let mut record = HistoryRecord::now(Action::Promote, live.as_deref(), version, who, reason);
-    if let Some(evidence) = evidence {
+    let changes = compare_with_live(&dir, live.as_deref(), &candidate, promotion.allow_breaking)?;
+    let mut record = HistoryRecord::now(
+        Action::Promote,
+        live.as_deref(),
+        version,
+        promotion.who,
+        promotion.reason,
+    );
+    if let Some(evidence) = promotion.evidence {
         record.evidence = Some(store_evidence(&dir, version, &record.when, evidence)?);
     }
+    record.shadow = ending_shadow(&dir, live.as_deref(), &candidate, promotion.shadow_figures)?;
     move_pointer(&lock, &record)?;
     Ok(Moved {
         name: name.to_string(),
@@ -525,6 +654,26 @@ pub fn promote_with_evidence(
         record: Some(record),
         model: candidate,
     })
+}
+
+/// The note of the shadowing that going live with `candidate` ends, if `candidate` is the
+/// shadow version: both thresholds (the live one from `live`'s file, if it still reads) and
+/// `figures`.
+fn ending_shadow(
+    dir: &ModelDir,
+    live: Option<&str>,
+    candidate: &Model,
+    figures: Option<&ShadowFigures>,
+) -> Result<Option<ShadowNote>, LifecycleError> {
+    if dir.read_shadow()?.as_deref() != Some(candidate.version()) {
+        return Ok(None);
+    }
+    let live_model = live.and_then(|v| load_stored(dir, v).ok());
+    Ok(Some(ShadowNote::of(
+        live_model.as_ref(),
+        candidate,
+        figures.cloned(),
+    )))
 }
 
 /// Return model `name` to the version that was live before the latest promotion still in
@@ -564,7 +713,8 @@ pub fn rollback(
     let changes = load_stored(&dir, &live)
         .map(|live_model| gate::contract_changes(&live_model, &model))
         .unwrap_or_default();
-    let record = HistoryRecord::now(Action::Rollback, Some(&live), &target, who, reason);
+    let mut record = HistoryRecord::now(Action::Rollback, Some(&live), &target, who, reason);
+    record.shadow = ending_shadow(&dir, Some(&live), &model, None)?;
     move_pointer(&lock, &record)?;
     Ok(Moved {
         name: name.to_string(),
@@ -598,11 +748,151 @@ fn store_evidence(
     Ok(evidence.note(&format!("{EVIDENCE_DIR}/{file_name}")))
 }
 
-/// History first, pointer second: see the module docs for why.
+/// History first, pointer second (and the shadow pointer last, when the move ends a
+/// shadowing): see the module docs for why.
 fn move_pointer(lock: &ModelLock, record: &HistoryRecord) -> Result<(), LifecycleError> {
     lock.append_history(record)?;
     lock.write_live(&record.to)?;
+    if record.shadow.is_some() {
+        lock.remove_shadow()?;
+    }
     Ok(())
+}
+
+/// Make stored version `version` the shadow of model `name`'s live version: it must pass
+/// steps 1–2 of the gate and be able to shadow the live version
+/// ([`crate::registry::shadow::check_shadowable`]). A shadow it replaces is ended, its note
+/// carrying `replaced_figures` (what the caller measured of it). Setting the shadow it already
+/// has changes nothing and records nothing.
+pub fn set_shadow(
+    root: &Path,
+    name: &str,
+    version: &str,
+    who: &str,
+    reason: Option<&str>,
+    replaced_figures: Option<&ShadowFigures>,
+) -> Result<ShadowMoved, LifecycleError> {
+    gate::check_labels(name, version)?;
+    let dir = existing_dir(root, name)?;
+    let lock = dir.lock(LOCK_WAIT)?;
+    complete_interrupted_move(&lock)?;
+    let candidate = load_stored(&dir, version)?;
+    let live = dir
+        .read_live()?
+        .ok_or_else(|| LifecycleError::NothingToShadow {
+            name: name.to_string(),
+        })?;
+    let live_model = load_stored(&dir, &live)?;
+    check_shadowable(&live_model, &candidate)?;
+    let before = dir.read_shadow()?;
+    let mut moved = ShadowMoved {
+        name: name.to_string(),
+        live,
+        from: before.clone(),
+        to: Some(version.to_string()),
+        changed: false,
+        record: None,
+        live_model,
+        shadow_model: None,
+    };
+    if before.as_deref() != Some(version) {
+        let mut record =
+            HistoryRecord::now(Action::Shadow, before.as_deref(), version, who, reason);
+        if let Some(replaced) = &before {
+            record.shadow = Some(note_of(&dir, &moved.live_model, replaced, replaced_figures));
+        }
+        lock.append_history(&record)?;
+        lock.write_shadow(version)?;
+        moved.changed = true;
+        moved.record = Some(record);
+    }
+    moved.shadow_model = Some(candidate);
+    Ok(moved)
+}
+
+/// End model `name`'s shadowing: record it, with what the caller measured (`figures`), and
+/// remove the shadow pointer. Refused when nothing shadows.
+pub fn end_shadow(
+    root: &Path,
+    name: &str,
+    who: &str,
+    reason: Option<&str>,
+    figures: Option<&ShadowFigures>,
+) -> Result<ShadowMoved, LifecycleError> {
+    let dir = existing_dir(root, name)?;
+    let lock = dir.lock(LOCK_WAIT)?;
+    complete_interrupted_move(&lock)?;
+    let no_shadow = || LifecycleError::NoShadow {
+        name: name.to_string(),
+    };
+    let shadow = dir.read_shadow()?.ok_or_else(no_shadow)?;
+    let live = dir.read_live()?.ok_or_else(no_shadow)?;
+    let live_model = load_stored(&dir, &live)?;
+    let mut record = HistoryRecord::now(Action::Unshadow, Some(&shadow), &live, who, reason);
+    record.shadow = Some(note_of(&dir, &live_model, &shadow, figures));
+    lock.append_history(&record)?;
+    lock.remove_shadow()?;
+    Ok(ShadowMoved {
+        name: name.to_string(),
+        live,
+        from: Some(shadow),
+        to: None,
+        changed: true,
+        record: Some(record),
+        live_model,
+        shadow_model: None,
+    })
+}
+
+/// The note of `version` shadowing `live`; a version that no longer reads keeps the live
+/// threshold only (its own is then unknown, noted as the default).
+fn note_of(
+    dir: &ModelDir,
+    live: &Model,
+    version: &str,
+    figures: Option<&ShadowFigures>,
+) -> ShadowNote {
+    match load_stored(dir, version) {
+        Ok(shadow) => ShadowNote::of(Some(live), &shadow, figures.cloned()),
+        Err(_) => ShadowNote {
+            version: version.to_string(),
+            thresholds: super::shadow::NotedThresholds {
+                live: Some(super::shadow::threshold(live)),
+                shadow: None,
+            },
+            figures: figures.cloned(),
+        },
+    }
+}
+
+/// What shadows model `name` now: the shadow pointer's version, if any, and the history's
+/// records of shadows set and ended, oldest first. Reads without locking.
+pub fn shadow_view(root: &Path, name: &str) -> Result<ShadowView, LifecycleError> {
+    let dir = existing_dir(root, name)?;
+    let history = dir.read_history()?;
+    Ok(ShadowView {
+        name: name.to_string(),
+        live: dir.read_live()?,
+        shadow: dir.read_shadow()?,
+        records: history
+            .records
+            .into_iter()
+            .filter(|r| r.shadow.is_some() || matches!(r.action, Action::Shadow | Action::Unshadow))
+            .collect(),
+    })
+}
+
+/// The result of [`shadow_view`].
+#[derive(Debug, Clone, Serialize)]
+pub struct ShadowView {
+    /// The model.
+    pub name: String,
+    /// What the `live` file names.
+    pub live: Option<String>,
+    /// What the `shadow` file names.
+    pub shadow: Option<String>,
+    /// The records that set or ended a shadow, oldest first.
+    pub records: Vec<HistoryRecord>,
 }
 
 /// The history of model `name`: its records, where a rollback would go, and a warning per

@@ -17,6 +17,7 @@ pub mod gate;
 pub mod lifecycle;
 pub(crate) mod limits;
 pub mod load;
+pub mod shadow;
 pub mod store;
 pub mod watch;
 

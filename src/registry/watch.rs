@@ -1,5 +1,5 @@
-//! Watching the model directory: notice a moved `live` pointer, a replaced version file or a
-//! new model directory, and swap a freshly validated model into the [`Registry`].
+//! Watching the model directory: notice a moved `live` or `shadow` pointer, a replaced version
+//! file or a new model directory, and swap a freshly validated model into the [`Registry`].
 //!
 //! The watcher polls (every [`DEFAULT_INTERVAL`], never slower than [`MAX_INTERVAL`]) rather
 //! than subscribing to file-system events. Event APIs such as inotify see only changes made
@@ -15,6 +15,15 @@
 //! version keeps serving and the failure is reported once, as a [`WatchEvent::Refused`], to
 //! the caller's callback (the library never logs). The watcher does not apply the gate's
 //! covariate check: the promotion that moved the pointer did, or was told not to.
+//!
+//! The shadow pointer (`NAME/shadow`, [`crate::registry::shadow`]) is followed the same way,
+//! once the model serves: a pointer written anew (even naming the same version: a shadowing
+//! set again starts a new count) is read through [`lifecycle::read_stored`], as a promotion
+//! reads a version, and set as the entry's shadow ([`WatchEvent::Shadowed`]); a pointer
+//! removed ends it ([`WatchEvent::ShadowEnded`]); a pointer whose version does not load is
+//! reported once ([`WatchEvent::ShadowRefused`]) and the shadow ends, since the directory no
+//! longer says to score the old one. A pointer naming the live version is not followed: a
+//! version is not compared with itself.
 //!
 //! A version label names one content for good. The loader refuses a file whose SHA-256 differs
 //! from the one its upload recorded; for a version with no such record (placed by hand, or by
@@ -34,6 +43,7 @@ use std::sync::{Arc, Mutex};
 use std::thread::JoinHandle;
 use std::time::Duration;
 
+use super::lifecycle::{self, LifecycleError};
 use super::load::{load_live_with_digest, LoadError};
 use super::store::{model_names, sha256_hex, ContentChanged, FileStamp, ModelDir, StoreError};
 use super::Registry;
@@ -75,6 +85,33 @@ pub enum WatchEvent {
         /// The version still serving, if any.
         serving: Option<String>,
     },
+    /// A shadow began to be followed: set, set again, or found at start.
+    Shadowed {
+        /// The model.
+        name: String,
+        /// The live version it shadows.
+        live: String,
+        /// The shadow version.
+        version: String,
+        /// The shadow it replaced, if any.
+        previous: Option<String>,
+    },
+    /// The shadow pointer was removed (or names the live version now): nothing shadows.
+    ShadowEnded {
+        /// The model.
+        name: String,
+        /// The version that shadowed.
+        version: String,
+    },
+    /// The shadow pointer names a version that cannot be loaded; nothing shadows.
+    ShadowRefused {
+        /// The model.
+        name: String,
+        /// The version the pointer names.
+        version: String,
+        /// Why it cannot be loaded.
+        error: Box<LifecycleError>,
+    },
     /// The model directory itself could not be listed; everything keeps serving.
     DirectoryUnreadable {
         /// Why.
@@ -102,6 +139,18 @@ struct Watched {
     last_refusal: Option<String>,
     /// The SHA-256 of what this process served under each version label.
     served_digests: BTreeMap<String, String>,
+    /// The shadow pointer as last followed; `None` forces a look at the next poll.
+    shadow: Option<ShadowStamp>,
+}
+
+/// What a poll compares to decide whether the shadow pointer changed: its bytes, and the file's
+/// identity and time, since a pointer written anew is a new file (`store::atomic` renames a
+/// fresh one into place) even when it names the same version.
+#[derive(Debug, Clone, PartialEq, Eq)]
+struct ShadowStamp {
+    pointer: Option<Vec<u8>>,
+    inode: u64,
+    modified: Option<std::time::SystemTime>,
 }
 
 /// Polls one model directory and keeps a [`Registry`] in step with it.
@@ -176,6 +225,9 @@ impl Watcher {
         }
         for name in &names {
             if let Some(event) = self.poll_model(registry, name) {
+                events.push(event);
+            }
+            if let Some(event) = self.poll_shadow(registry, name) {
                 events.push(event);
             }
         }
@@ -258,6 +310,58 @@ impl Watcher {
                     name: name.to_string(),
                     serving,
                     error,
+                })
+            }
+        }
+    }
+
+    /// Follow model `name`'s shadow pointer (see the module docs), once the model serves.
+    fn poll_shadow(&mut self, registry: &Registry, name: &str) -> Option<WatchEvent> {
+        let dir = ModelDir::new(&self.root, name).ok()?;
+        let watched = self.watched.get_mut(name)?;
+        let entry = registry.snapshot().models.get(name).cloned()?;
+        let stamp = shadow_stamp(&dir)?;
+        if watched.shadow.as_ref() == Some(&stamp) {
+            return None;
+        }
+        watched.shadow = Some(stamp.clone());
+        let current = entry.shadow.as_ref().map(|s| s.version().to_string());
+        let label = stamp
+            .pointer
+            .as_deref()
+            .and_then(|bytes| std::str::from_utf8(bytes).ok())
+            .map(|text| text.trim().to_string());
+        let end = |registry: &Registry| {
+            registry.update_shadow(name, |_| None);
+            current.clone().map(|version| WatchEvent::ShadowEnded {
+                name: name.to_string(),
+                version,
+            })
+        };
+        let Some(label) = label.filter(|l| *l != entry.live.version()) else {
+            return end(registry);
+        };
+        match lifecycle::read_stored(&self.root, name, &label) {
+            Ok(candidate) => {
+                let candidate = Arc::new(candidate);
+                let before = registry.update_shadow(name, |_| Some(Arc::clone(&candidate)))?;
+                Some(WatchEvent::Shadowed {
+                    name: name.to_string(),
+                    live: before.live.version().to_string(),
+                    version: label,
+                    previous: current,
+                })
+            }
+            Err(error) => {
+                if matches!(error, LifecycleError::Store(StoreError::Io { .. })) {
+                    // Worth another look at the next poll.
+                    watched.shadow = None;
+                }
+                registry.update_shadow(name, |_| None);
+                Some(WatchEvent::ShadowRefused {
+                    name: name.to_string(),
+                    version: label,
+                    error: Box::new(error),
                 })
             }
         }
@@ -358,6 +462,34 @@ fn fingerprint(dir: &ModelDir) -> Option<Fingerprint> {
         fingerprint.version_file = dir.version_stamp(&label).ok()?;
     }
     Some(fingerprint)
+}
+
+/// The shadow pointer's stamp (no file: no bytes); `None` when it could not be read for a
+/// reason other than absence (then it is looked at again at the next poll).
+fn shadow_stamp(dir: &ModelDir) -> Option<ShadowStamp> {
+    use std::os::unix::fs::MetadataExt;
+    let path = dir.shadow_path();
+    let metadata = match fs::metadata(&path) {
+        Ok(metadata) => metadata,
+        Err(e) if e.kind() == io::ErrorKind::NotFound => {
+            return Some(ShadowStamp {
+                pointer: None,
+                inode: 0,
+                modified: None,
+            })
+        }
+        Err(_) => return None,
+    };
+    let pointer = match fs::read(&path) {
+        Ok(bytes) => Some(bytes),
+        Err(e) if e.kind() == io::ErrorKind::NotFound => None,
+        Err(_) => return None,
+    };
+    Some(ShadowStamp {
+        pointer,
+        inode: metadata.ino(),
+        modified: metadata.modified().ok(),
+    })
 }
 
 fn pointer_label(fingerprint: &Fingerprint) -> Option<String> {

@@ -13,7 +13,9 @@
 //! After each poll the follower logs what happened, counts refused files in
 //! `ogive_model_load_errors_total`, sets readiness (ready when every model with a `live`
 //! pointer has a version serving, [`Watcher::unserved`]), and clears a shadow whose version
-//! has just gone live (it would only be compared with itself). It then looks at what the
+//! has just gone live (it would only be compared with itself). A shadow the directory sets
+//! (through any replica's admin listener or `ogive shadow`) starts this process's count of it
+//! ([`Shadowing::begin`]); one it ends stops it. It then looks at what the
 //! stored versions of each served model announce (`registry::announce`) and records the
 //! fields the live version is to accept and ignore.
 //!
@@ -144,6 +146,33 @@ impl Follower {
                     .with_label_values(&[name.as_str()])
                     .inc();
                 tracing::error!(model = %name, serving = serving.as_deref(), error = %error, "live version refused; the serving version stays");
+            }
+            WatchEvent::Shadowed {
+                name,
+                live,
+                version,
+                previous,
+            } => {
+                if let Some(shadow) = &self.shadow {
+                    shadow.begin(&name, &live, &version);
+                }
+                tracing::info!(model = %name, live = %live, shadow = %version, replaced = previous.as_deref(), "shadow followed from the model directory");
+            }
+            WatchEvent::ShadowEnded { name, version } => {
+                if let Some(shadow) = &self.shadow {
+                    shadow.end(&name);
+                }
+                tracing::info!(model = %name, shadow = %version, "shadow ended in the model directory");
+            }
+            WatchEvent::ShadowRefused {
+                name,
+                version,
+                error,
+            } => {
+                if let Some(shadow) = &self.shadow {
+                    shadow.end(&name);
+                }
+                tracing::error!(model = %name, shadow = %version, error = %error, "shadow version refused; nothing shadows");
             }
             WatchEvent::Vanished { name, serving } => {
                 tracing::warn!(model = %name, serving = serving.as_deref(), "model directory vanished; its version keeps serving until a restart");

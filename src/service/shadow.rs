@@ -25,12 +25,9 @@
 //!
 //! so after N observations exactly ⌊N·s⌋ have been scored, evenly spread.
 //!
-//! A candidate may differ from the live version in its covariates (a breaking candidate
-//! uploaded with `allow_breaking`). The live version's values are carried over by covariate
-//! name, levels by level name; a covariate the candidate has but callers do not send makes it
-//! unable to shadow (refused when it is set, see [`check_shadowable`]); a sampled observation
-//! the candidate cannot take (a level it dropped, a value outside a log term's domain) is
-//! counted as unscored.
+//! Which candidate may shadow, and how the live version's values are carried over to it, is
+//! [`crate::registry::shadow`]'s; the shadow itself is held in the model directory, so every
+//! replica scores it.
 //!
 //! The exported series, lock-free to record (the label children are looked up once per
 //! request):
@@ -42,11 +39,11 @@
 //! ogive_shadow_disagreements_total{model,version}   counter
 //! ```
 //!
-//! The admin report ([`Shadowing::report`]) reads the same series, minus their values when the
-//! shadow was set through the admin listener ([`Shadowing::begin`]), so it covers the current
-//! shadowing only. The figures are this process's own; replicas each keep theirs, and shadows
-//! are not written to the model directory (a restart ends them). This module does no I/O and
-//! knows nothing of HTTP.
+//! The admin report ([`Shadowing::report`]) reads the same series, minus their values when this
+//! process's directory follower began following the shadow ([`Shadowing::begin`]), so it covers
+//! the current shadowing only. The figures are this process's own; replicas each keep theirs,
+//! and the fleet's are the sums of the series. This module does no I/O and knows nothing of
+//! HTTP.
 
 use std::collections::HashMap;
 use std::str::FromStr;
@@ -60,7 +57,11 @@ use serde::Serialize;
 
 use crate::engine::{Answer, Scorer};
 use crate::metrics::MetricsError;
-use crate::model::{CovariateKind, Model, Value};
+use crate::model::{Model, Value};
+pub use crate::registry::shadow::{
+    check_shadowable, reads_announced, threshold, CannotShadow, DEFAULT_THRESHOLD,
+};
+use crate::registry::shadow::{translation, ShadowFigures};
 use crate::registry::Entry;
 use crate::timestamp::rfc3339_millis;
 
@@ -68,9 +69,6 @@ use crate::timestamp::rfc3339_millis;
 /// to the largest possible one (a project choice).
 pub const DIFFERENCE_BUCKETS: [f64; 10] =
     [0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0];
-
-/// The decision threshold of a model file that sets none.
-pub const DEFAULT_THRESHOLD: f64 = 0.5;
 
 /// The share of observations scored by a shadow, in [0, 1].
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -124,182 +122,6 @@ impl FromStr for Share {
             .map_err(|_| BadShare(text.to_string()))?;
         Share::new(share).map_err(|_| BadShare(text.to_string()))
     }
-}
-
-/// Why a candidate cannot shadow the live version.
-#[derive(Debug, Clone, PartialEq, thiserror::Error)]
-pub enum CannotShadow {
-    /// The candidate is the live version.
-    #[error("version '{version}' is the live version of '{model}'; a shadow is another version scored beside it")]
-    IsLive {
-        /// The model.
-        model: String,
-        /// The version.
-        version: String,
-    },
-    /// The candidate needs a covariate that callers of the live version do not send.
-    #[error("version '{candidate}' needs covariate '{covariate}', which callers of live version '{live}' do not send, so it cannot be scored on their requests; a version that announces it (ogive fit --announce {covariate}) is shadowed on the calls that send it")]
-    Missing {
-        /// The candidate's version.
-        candidate: String,
-        /// The live version.
-        live: String,
-        /// The covariate.
-        covariate: String,
-    },
-    /// A covariate is categorical in one version and numeric in the other.
-    #[error("covariate '{covariate}' is {live_kind} in live version '{live}' but {candidate_kind} in version '{candidate}', so its values cannot be carried over")]
-    KindMismatch {
-        /// The candidate's version.
-        candidate: String,
-        /// The live version.
-        live: String,
-        /// The covariate.
-        covariate: String,
-        /// Its kind in the live version.
-        live_kind: &'static str,
-        /// Its kind in the candidate.
-        candidate_kind: &'static str,
-    },
-}
-
-/// Where a candidate's covariate value comes from in the live version's values.
-#[derive(Debug, Clone)]
-enum Source {
-    /// The number at this live covariate index.
-    Number(usize),
-    /// The level at this live covariate index, mapped to the candidate's level index.
-    Level(usize, Vec<Option<usize>>),
-}
-
-/// How to build a candidate's values from the live version's values.
-#[derive(Debug, Clone)]
-enum Translation {
-    /// The covariates are the same, in the same order, with the same levels.
-    Identity,
-    /// One source per candidate covariate.
-    Mapped(Vec<Source>),
-}
-
-fn same_layout(live: &Model, candidate: &Model) -> bool {
-    live.covariates.len() == candidate.covariates.len()
-        && live
-            .covariates
-            .iter()
-            .zip(&candidate.covariates)
-            .all(|(a, b)| a.name == b.name && a.kind == b.kind && a.levels == b.levels)
-}
-
-fn translation(live: &Model, candidate: &Model) -> Result<Translation, CannotShadow> {
-    if same_layout(live, candidate) {
-        return Ok(Translation::Identity);
-    }
-    let mut sources = Vec::with_capacity(candidate.covariates.len());
-    for covariate in &candidate.covariates {
-        let Some(j) = live.covariate_index(&covariate.name) else {
-            return Err(CannotShadow::Missing {
-                candidate: candidate.version().to_string(),
-                live: live.version().to_string(),
-                covariate: covariate.name.clone(),
-            });
-        };
-        let old = &live.covariates[j];
-        let categorical = (
-            old.kind == CovariateKind::Categorical,
-            covariate.kind == CovariateKind::Categorical,
-        );
-        sources.push(match categorical {
-            (false, false) => Source::Number(j),
-            (true, true) => Source::Level(
-                j,
-                old.levels
-                    .iter()
-                    .map(|l| covariate.levels.iter().position(|m| m == l))
-                    .collect(),
-            ),
-            _ => {
-                return Err(CannotShadow::KindMismatch {
-                    candidate: candidate.version().to_string(),
-                    live: live.version().to_string(),
-                    covariate: covariate.name.clone(),
-                    live_kind: old.kind.name(),
-                    candidate_kind: covariate.kind.name(),
-                })
-            }
-        });
-    }
-    Ok(Translation::Mapped(sources))
-}
-
-/// Whether `candidate` can shadow `live`: it is another version, and every covariate it needs
-/// can be carried over from what callers of `live` send.
-pub fn check_shadowable(live: &Model, candidate: &Model) -> Result<(), CannotShadow> {
-    if live.version() == candidate.version() {
-        return Err(CannotShadow::IsLive {
-            model: live.name().to_string(),
-            version: live.version().to_string(),
-        });
-    }
-    if reads_announced(live, candidate) {
-        return Ok(());
-    }
-    translation(live, candidate).map(|_| ())
-}
-
-/// Whether `candidate` needs covariates that `live` lacks and announces every one of them
-/// (`registry::announce`): such a shadow parses each request itself and is scored on the
-/// observations that send them ([`Shadowing::compare_parsed`]).
-pub fn reads_announced(live: &Model, candidate: &Model) -> bool {
-    let mut new = candidate
-        .covariates
-        .iter()
-        .filter(|c| live.covariate_index(&c.name).is_none())
-        .peekable();
-    new.peek().is_some() && new.all(|c| candidate.file.announces.contains(&c.name))
-}
-
-impl Translation {
-    /// The candidate's probability for one observation of the live version's values, or
-    /// `None` if the candidate cannot take it.
-    fn probability(
-        &self,
-        candidate: &Model,
-        observation: &[Value],
-        buffer: &mut Vec<Value>,
-    ) -> Option<f64> {
-        let values: &[Value] = match self {
-            Translation::Identity => observation,
-            Translation::Mapped(sources) => {
-                buffer.clear();
-                for source in sources {
-                    buffer.push(match source {
-                        Source::Number(j) => match observation[*j] {
-                            Value::Number(x) => Value::Number(x),
-                            _ => return None,
-                        },
-                        Source::Level(j, levels) => match observation[*j] {
-                            Value::Level(l) => Value::Level(levels.get(l).copied().flatten()?),
-                            _ => return None,
-                        },
-                    });
-                }
-                buffer
-            }
-        };
-        candidate.check_values(values).ok()?;
-        let p = Scorer::probability(candidate, values);
-        p.is_finite().then_some(p)
-    }
-}
-
-/// The decision threshold of `model`: its file's, or [`DEFAULT_THRESHOLD`].
-pub fn threshold(model: &Model) -> f64 {
-    model
-        .file
-        .decision
-        .as_ref()
-        .and_then(|d| d.threshold)
-        .unwrap_or(DEFAULT_THRESHOLD)
 }
 
 /// The series' values for one model and candidate version at one instant.
@@ -366,11 +188,11 @@ pub struct ShadowReport {
     pub shadow_version: String,
     /// The share of observations sampled.
     pub share: f64,
-    /// When the shadow was set through the admin listener (RFC 3339, UTC); `null` when the
-    /// figures count from the start of the process.
+    /// When this process began following the shadow from the model directory (RFC 3339,
+    /// UTC); `null` when the figures count from the start of the process.
     pub since: Option<String>,
-    /// The live version when the shadow was set (the figures compare against whichever version
-    /// was live at each request).
+    /// The live version when this process began following the shadow (the figures compare
+    /// against whichever version was live at each request).
     pub live_version_at_start: Option<String>,
     /// Observations scored by the candidate.
     pub scored: u64,
@@ -550,8 +372,8 @@ impl Shadowing {
         }
     }
 
-    /// Note that `candidate` now shadows version `live` of `model` (the admin listener calls
-    /// this when it sets a shadow), so that the report counts from here.
+    /// Note that `candidate` now shadows version `live` of `model` (the directory follower
+    /// calls this when it begins following a shadow), so that the report counts from here.
     pub fn begin(&self, model: &str, live: &str, candidate: &str) {
         let run = Run {
             candidate: candidate.to_string(),
@@ -632,6 +454,20 @@ impl Shadowing {
             },
             notes: threshold_note(live, candidate).into_iter().collect(),
         })
+    }
+}
+
+impl ShadowReport {
+    /// The figures the history keeps of this report when the shadowing ends.
+    pub fn figures(&self) -> ShadowFigures {
+        ShadowFigures {
+            since: self.since.clone(),
+            scored: self.scored,
+            unscored: self.unscored,
+            mean_abs_difference: self.mean_abs_difference,
+            disagreements: self.disagreements,
+            disagreement_rate: self.disagreement_rate,
+        }
     }
 }
 

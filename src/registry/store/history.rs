@@ -1,5 +1,5 @@
 //! `history.jsonl`: one JSON object per line, appended and never rewritten, recording every
-//! upload, promotion and rollback of one model.
+//! upload, promotion and rollback of one model, and every shadow set or ended.
 //!
 //! ```text
 //! {"when":"2026-05-04T09:12:45.120Z","action":"promote","from":"v1","to":"v2","who":"cli:ana","reason":"refit on May data"}
@@ -15,12 +15,24 @@
 //! {"when":"2026-05-04T09:10:02.004Z","action":"upload","from":null,"to":"v2","who":"cli:ana","sha256":"9f86d081…"}
 //! ```
 //!
+//! A shadow set records `"action":"shadow"` with `to` the shadow version and `from` the one it
+//! replaced (or `null`); a shadow ended records `"action":"unshadow"` with `from` the version
+//! that stopped shadowing and `to` the live version, which alone is scored from then on. A
+//! record that ends a shadowing (an unshadow, a shadow that replaced another, a promotion or
+//! rollback to the shadow version) carries `shadow`, what it measured
+//! ([`crate::registry::shadow::ShadowNote`]):
+//!
+//! ```text
+//! {"when":"…","action":"promote","from":"v1","to":"v2","who":"admin:deploy","shadow":{"version":"v2","thresholds":{"live":0.5,"shadow":0.5},"figures":{"since":"…","scored":1200,"unscored":0,"mean_abs_difference":0.0123,"disagreements":31,"disagreement_rate":0.0258}}}
+//! ```
+//!
 //! Reading never fails on content: a last line cut short by a crash is skipped with
 //! [`HistoryWarning::TornLastLine`], any other unreadable line with
 //! [`HistoryWarning::Unreadable`], and the warnings are returned, not printed. This module
 //! does not decide what the records mean for rollback; that is [`crate::registry::lifecycle`].
 
 use crate::evaluate::evidence::EvidenceNote;
+use crate::registry::shadow::ShadowNote;
 use std::fs::File;
 use std::io::{Read, Seek, SeekFrom};
 use std::time::SystemTime;
@@ -39,6 +51,10 @@ pub enum Action {
     Promote,
     /// The live pointer moved back from `from` to `to` by rollback.
     Rollback,
+    /// The shadow pointer was set to `to` (replacing `from`, if any).
+    Shadow,
+    /// The shadow pointer naming `from` was removed; `to` is the live version.
+    Unshadow,
 }
 
 impl Action {
@@ -48,6 +64,8 @@ impl Action {
             Action::Upload => "upload",
             Action::Promote => "promote",
             Action::Rollback => "rollback",
+            Action::Shadow => "shadow",
+            Action::Unshadow => "unshadow",
         }
     }
 }
@@ -76,6 +94,9 @@ pub struct HistoryRecord {
     /// SHA-256 and its headline figures.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub evidence: Option<EvidenceNote>,
+    /// For a record that ends a shadowing: the version, both thresholds and what was measured.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub shadow: Option<ShadowNote>,
 }
 
 impl HistoryRecord {
@@ -96,6 +117,7 @@ impl HistoryRecord {
             reason: reason.map(str::to_string),
             sha256: None,
             evidence: None,
+            shadow: None,
         }
     }
 

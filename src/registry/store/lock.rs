@@ -84,6 +84,28 @@ impl ModelLock {
         )
     }
 
+    /// Point `shadow` at `version`, atomically. The caller has checked that the version can
+    /// shadow the live one.
+    pub fn write_shadow(&self, version: &str) -> Result<(), StoreError> {
+        self.dir.version_path(version)?;
+        atomic::replace_file(
+            self.dir.path(),
+            super::SHADOW_FILE,
+            format!("{version}\n").as_bytes(),
+        )
+    }
+
+    /// Remove the `shadow` pointer (nothing shadows the live version any more), and fsync the
+    /// directory so the removal survives a crash. No pointer is no change.
+    pub fn remove_shadow(&self) -> Result<(), StoreError> {
+        let path = self.dir.shadow_path();
+        match std::fs::remove_file(&path) {
+            Ok(()) => atomic::sync_directory(self.dir.path()),
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(()),
+            Err(e) => Err(StoreError::io("remove", &path, e)),
+        }
+    }
+
     /// Store `bytes` as `versions/VERSION.json`. The caller has checked that no such version
     /// exists; holding the lock keeps it so until the rename.
     pub fn create_version(&self, version: &str, bytes: &[u8]) -> Result<(), StoreError> {

@@ -4,7 +4,10 @@
 //! ```text
 //! ROOT/NAME/versions/VERSION.json   one model file per version, never changed once written
 //! ROOT/NAME/live                    the live version's label and a newline, replaced atomically
-//! ROOT/NAME/history.jsonl           append-only record of uploads, promotions and rollbacks
+//! ROOT/NAME/shadow                  the shadow version's label and a newline, replaced
+//!                                   atomically; absent when nothing shadows (`registry::shadow`)
+//! ROOT/NAME/history.jsonl           append-only record of uploads, promotions, rollbacks and
+//!                                   shadows set or ended
 //! ROOT/NAME/.lock                   the promoters' lock (see `lock`)
 //! ```
 //!
@@ -39,6 +42,8 @@ use crate::model::{is_model_name, is_version_label};
 
 // One definition of the layout, shared with the startup loader.
 pub use super::load::{LIVE_FILE, VERSIONS_DIR};
+/// The shadow pointer inside a model directory.
+pub const SHADOW_FILE: &str = "shadow";
 /// The history inside a model directory.
 pub const HISTORY_FILE: &str = "history.jsonl";
 /// The lock file inside a model directory.
@@ -65,10 +70,10 @@ pub enum StoreError {
     /// A version label that could not be a file of the store.
     #[error("'{0}' is not a valid version label (letters, digits, '.', '_' and '-', starting with a letter or digit, at most 64)")]
     BadVersionLabel(String),
-    /// A `live` file whose content is not a version label.
+    /// A `live` or `shadow` file whose content is not a version label.
     #[error("{} does not hold a version label: {content:?}", path.display())]
     BadPointer {
-        /// The `live` file.
+        /// The `live` or `shadow` file.
         path: PathBuf,
         /// What it holds (at most 100 characters of it).
         content: String,
@@ -176,6 +181,11 @@ impl ModelDir {
         self.path.join(LIVE_FILE)
     }
 
+    /// `ROOT/NAME/shadow`.
+    pub fn shadow_path(&self) -> PathBuf {
+        self.path.join(SHADOW_FILE)
+    }
+
     /// `ROOT/NAME/history.jsonl`.
     pub fn history_path(&self) -> PathBuf {
         self.path.join(HISTORY_FILE)
@@ -205,21 +215,13 @@ impl ModelDir {
     /// is ignored, so a pointer written by hand or by a ConfigMap (with or without a final
     /// newline) reads the same.
     pub fn read_live(&self) -> Result<Option<String>, StoreError> {
-        let path = self.live_path();
-        let bytes = match fs::read(&path) {
-            Ok(bytes) => bytes,
-            Err(e) if e.kind() == io::ErrorKind::NotFound => return Ok(None),
-            Err(e) => return Err(StoreError::io("read", &path, e)),
-        };
-        let text = String::from_utf8_lossy(&bytes);
-        let label = text.trim();
-        if !is_version_label(label) {
-            return Err(StoreError::BadPointer {
-                path,
-                content: label.chars().take(100).collect(),
-            });
-        }
-        Ok(Some(label.to_string()))
+        read_pointer(self.live_path())
+    }
+
+    /// The shadow version's label, or `None` if there is no `shadow` file; read as
+    /// [`read_live`](ModelDir::read_live) reads `live`.
+    pub fn read_shadow(&self) -> Result<Option<String>, StoreError> {
+        read_pointer(self.shadow_path())
     }
 
     /// The bytes of a version file, or `None` if the version is not stored.
@@ -318,6 +320,24 @@ impl ModelDir {
     pub fn lock(&self, wait: Duration) -> Result<ModelLock, StoreError> {
         ModelLock::acquire(self, wait)
     }
+}
+
+/// The label a pointer file (`live`, `shadow`) holds, or `None` if there is no such file.
+fn read_pointer(path: PathBuf) -> Result<Option<String>, StoreError> {
+    let bytes = match fs::read(&path) {
+        Ok(bytes) => bytes,
+        Err(e) if e.kind() == io::ErrorKind::NotFound => return Ok(None),
+        Err(e) => return Err(StoreError::io("read", &path, e)),
+    };
+    let text = String::from_utf8_lossy(&bytes);
+    let label = text.trim();
+    if !is_version_label(label) {
+        return Err(StoreError::BadPointer {
+            path,
+            content: label.chars().take(100).collect(),
+        });
+    }
+    Ok(Some(label.to_string()))
 }
 
 /// The names of the model directories under `root`, sorted: sub-directories (or links to them)

@@ -30,9 +30,9 @@ use crate::evaluate::evidence::EvidenceError;
 use crate::model::ModelProblem;
 use crate::registry::gate::{ContractChange, GateError, OVERRIDE};
 use crate::registry::lifecycle::LifecycleError;
+use crate::registry::shadow::CannotShadow;
 use crate::registry::store::StoreError;
 use crate::service::problem::{escape_pointer_token, Kind, Problem};
-use crate::service::shadow::CannotShadow;
 
 /// One contract change as JSON: the gate's own fields plus `callers_must`, the sentence that
 /// says what callers must change if it goes live, and `to_keep`, how a refit avoids it.
@@ -212,7 +212,11 @@ pub fn lifecycle_problem(error: &LifecycleError) -> Problem {
         LifecycleError::UnknownVersion { stored, .. } => {
             Problem::new(Kind::UnknownVersion, detail).extension("stored", json!(stored))
         }
-        LifecycleError::NoLiveVersion { .. } => Problem::new(Kind::NoLiveVersion, detail),
+        LifecycleError::NoLiveVersion { .. } | LifecycleError::NothingToShadow { .. } => {
+            Problem::new(Kind::NoLiveVersion, detail)
+        }
+        LifecycleError::CannotShadow(cannot) => shadow_problem(cannot),
+        LifecycleError::NoShadow { .. } => Problem::new(Kind::NoShadow, detail),
         LifecycleError::NothingToRollBack { live, .. } => {
             Problem::new(Kind::NothingToRollBack, detail).extension("live", json!(live))
         }

@@ -10,16 +10,17 @@
 //!                                            → 200 {name, action, from, to, changed, changes, record, serving}
 //! POST   /models/{name}/rollback             {"reason": "…"} or no body → 200, the same shape
 //! GET    /models/{name}/history              → 200 {name, live, rollback_to, records, warnings, serving}
-//! PUT    /models/{name}/shadow               {"version": "V"} → 200 {model, live_version, shadow_version, replaced, share, changes}
+//! PUT    /models/{name}/shadow               {"version": "V", "reason": "…"} → 200 {model, live_version, shadow_version, replaced, share, changes, notes}
 //! GET    /models/{name}/shadow               → 200 the shadow report (see `service::shadow`)
-//! DELETE /models/{name}/shadow               → 200 {model, cleared, report}: the final report
+//! DELETE /models/{name}/shadow               → 200 {model, cleared, report}: this process's final report
 //! GET    /models/{name}/monitoring           → 200 drift and calibration (see `service::routes::monitoring`)
 //! GET    /openapi.json                       the admin listener's OpenAPI 3.1 document
 //! ```
 //!
-//! `who` in the history is the token's (`admin:LABEL`). Shadows live in this process only:
-//! they are not written to the model directory, so set one on each replica that should score
-//! it.
+//! `who` in the history is the token's (`admin:LABEL`). A shadow is written to the model
+//! directory (`NAME/shadow`, recorded in the history), so every replica sharing the directory
+//! scores it within a poll and keeps it across restarts; the report and the figures a history
+//! record keeps when a shadowing ends are those of the process that answered.
 
 use std::sync::{Arc, OnceLock};
 
@@ -27,21 +28,18 @@ use actix_web::http::header;
 use actix_web::{web, HttpRequest, HttpResponse};
 use serde_json::{json, Map, Value as Json};
 
-use super::refusals::{
-    changes_json, gate_problem, lifecycle_problem, shadow_problem, store_problem,
-};
+use super::refusals::{changes_json, lifecycle_problem};
 use super::AdminState;
 use crate::evaluate::evidence::Evidence;
 use crate::registry::gate::{self, Novelty};
 use crate::registry::lifecycle::{self, LifecycleError, Moved};
-use crate::registry::store::ModelDir;
 use crate::service::body::{read_json, read_json_document, read_optional_json};
 use crate::service::dto::json_kind;
 use crate::service::middleware::Guarded;
 use crate::service::problem::{echo, Kind, Problem};
 use crate::service::routes::models::find;
 use crate::service::routes::{method_not_allowed, not_found};
-use crate::service::shadow::{check_shadowable, Shadowing};
+use crate::service::shadow::Shadowing;
 
 /// The hand-written admin document.
 pub const DOCUMENT: &str = include_str!("openapi.json");
@@ -372,16 +370,24 @@ pub async fn promote(
     let reason = reason_member(&body)?;
     let evidence = evidence_member(&body)?;
     let name = name.into_inner();
+    // Promoting the shadow version ends its shadowing: the history keeps this process's report.
+    let shadow_figures = state.app.shadow.as_ref().and_then(|shadow| {
+        let snapshot = state.app.registry.snapshot();
+        let entry = snapshot.models.get(&name)?;
+        shadow
+            .report(entry)
+            .filter(|r| r.shadow_version == version)
+            .map(|r| r.figures())
+    });
     move_live(state, move |root, who| {
-        lifecycle::promote_with_evidence(
-            root,
-            &name,
-            &version,
+        let promotion = lifecycle::Promotion {
             allow_breaking,
             who,
-            reason.as_deref(),
-            evidence.as_ref(),
-        )
+            reason: reason.as_deref(),
+            evidence: evidence.as_ref(),
+            shadow_figures: shadow_figures.as_ref(),
+        };
+        lifecycle::promote_with(root, &name, &version, &promotion)
     })
     .await
 }
@@ -427,7 +433,9 @@ fn shadowing(state: &AdminState) -> Result<&Arc<Shadowing>, Problem> {
     })
 }
 
-/// `PUT /models/{name}/shadow`.
+/// `PUT /models/{name}/shadow`: written to the model directory
+/// ([`lifecycle::set_shadow`]), then followed here before the answer, and by every other
+/// replica within a poll.
 pub async fn set_shadow(
     req: HttpRequest,
     name: web::Path<String>,
@@ -436,51 +444,48 @@ pub async fn set_shadow(
 ) -> Result<HttpResponse, Problem> {
     let shadow = Arc::clone(shadowing(&state)?);
     let limit = state.app.settings.limits.max_body_bytes;
-    let body = object_body(&req, payload, limit, &["version"], true).await?;
+    let body = object_body(&req, payload, limit, &["version", "reason"], true).await?;
     let version = version_member(&body)?;
+    let reason = reason_member(&body)?;
     let name = name.into_inner();
     let entry = find(&state.app, &name)?;
-    let root = state.follower.root().to_path_buf();
-    let (label, wanted) = (name.clone(), version.clone());
-    let candidate = blocking(move || {
-        gate::check_labels(&label, &wanted).map_err(|e| gate_problem(&e))?;
-        let dir = ModelDir::new(&root, &label).map_err(|e| store_problem(&e))?;
-        let bytes = dir.read_version(&wanted).map_err(|e| store_problem(&e))?;
-        let Some(bytes) = bytes else {
-            let stored = dir.list_versions().unwrap_or_default();
-            return Err(lifecycle_problem(&LifecycleError::UnknownVersion {
-                name: label,
-                version: wanted,
-                stored,
-            }));
-        };
-        gate::check_file(&label, &wanted, &bytes).map_err(|e| gate_problem(&e))
+    // What this process measured of a shadow the new one replaces, for the history.
+    let replaced = shadow
+        .report(&entry)
+        .filter(|r| r.shadow_version != version)
+        .map(|r| r.figures());
+    let who = state.token.who();
+    let follower = Arc::clone(&state.follower);
+    let label = name.clone();
+    let moved = blocking(move || {
+        let moved = lifecycle::set_shadow(
+            follower.root(),
+            &label,
+            &version,
+            &who,
+            reason.as_deref(),
+            replaced.as_ref(),
+        )
+        .map_err(|e| lifecycle_problem(&e))?;
+        follower.poll();
+        Ok(moved)
     })
     .await?;
-    check_shadowable(&entry.live, &candidate).map_err(|e| shadow_problem(&e))?;
-    let changes = gate::contract_changes(&entry.live, &candidate);
-    let candidate = Arc::new(candidate);
-    shadow.begin(&name, entry.live.version(), &version);
-    let before = state
-        .app
-        .registry
-        .update_shadow(&name, |_| Some(Arc::clone(&candidate)));
-    let Some(before) = before else {
-        shadow.end(&name);
-        return Err(find(&state.app, &name).err().unwrap_or_else(|| {
-            Problem::new(Kind::UnknownModel, "the model stopped being served")
-        }));
-    };
-    let replaced = before.shadow.as_ref().map(|s| s.version().to_string());
-    tracing::info!(model = %name, live = before.live.version(), shadow = %version, replaced = replaced.as_deref(), who = %state.token.who(), "shadow set");
+    let candidate = moved
+        .shadow_model
+        .as_ref()
+        .ok_or_else(|| Problem::internal(&"a shadow set without its model"))?;
+    let changes = gate::contract_changes(&moved.live_model, candidate);
+    let version = candidate.version().to_string();
+    tracing::info!(model = %name, live = %moved.live, shadow = %version, replaced = moved.from.as_deref(), changed = moved.changed, who = %state.token.who(), "shadow set");
     Ok(HttpResponse::Ok().json(json!({
         "model": name,
-        "live_version": before.live.version(),
+        "live_version": moved.live,
         "shadow_version": version,
-        "replaced": replaced,
+        "replaced": moved.from,
         "share": shadow.share().get(),
         "changes": changes_json(&changes),
-        "notes": crate::service::shadow::threshold_note(&entry.live, &candidate).into_iter().collect::<Vec<_>>(),
+        "notes": crate::service::shadow::threshold_note(&moved.live_model, candidate).into_iter().collect::<Vec<_>>(),
     })))
 }
 
@@ -488,7 +493,7 @@ fn no_shadow(name: &str) -> Problem {
     let shown: String = name.chars().take(100).collect();
     Problem::new(
         Kind::NoShadow,
-        format!("model '{shown}' has no shadow in this process; set one with PUT /models/{shown}/shadow"),
+        format!("model '{shown}' has no shadow; set one with PUT /models/{shown}/shadow"),
     )
 }
 
@@ -505,22 +510,37 @@ pub async fn shadow_report(
         .json(report))
 }
 
-/// `DELETE /models/{name}/shadow`.
+/// `DELETE /models/{name}/shadow`: this process's final report, kept in the history record
+/// that ends the shadowing ([`lifecycle::end_shadow`]).
 pub async fn clear_shadow(
     name: web::Path<String>,
     state: web::Data<AdminState>,
 ) -> Result<HttpResponse, Problem> {
-    let shadow = shadowing(&state)?;
+    let shadow = Arc::clone(shadowing(&state)?);
+    let name = name.into_inner();
+    find(&state.app, &name)?;
+    // Follow the directory first, so the report is of the shadowing being ended.
+    let follower = Arc::clone(&state.follower);
+    blocking(move || {
+        follower.poll();
+        Ok(())
+    })
+    .await?;
     let entry = find(&state.app, &name)?;
-    let report = shadow.report(&entry).ok_or_else(|| no_shadow(&name))?;
-    let before = state.app.registry.update_shadow(&name, |_| None);
-    shadow.end(&name);
-    let cleared = before
-        .and_then(|e| e.shadow.as_ref().map(|s| s.version().to_string()))
-        .ok_or_else(|| no_shadow(&name))?;
+    let report = shadow.report(&entry);
+    let figures = report.as_ref().map(|r| r.figures());
+    let (who, follower, label) = (state.token.who(), Arc::clone(&state.follower), name.clone());
+    let moved = blocking(move || {
+        let moved = lifecycle::end_shadow(follower.root(), &label, &who, None, figures.as_ref())
+            .map_err(|e| lifecycle_problem(&e))?;
+        follower.poll();
+        Ok(moved)
+    })
+    .await?;
+    let cleared = moved.from.unwrap_or_default();
     tracing::info!(model = %name, shadow = %cleared, who = %state.token.who(), "shadow cleared");
     Ok(HttpResponse::Ok().json(json!({
-        "model": name.as_str(),
+        "model": name,
         "cleared": cleared,
         "report": report,
     })))
