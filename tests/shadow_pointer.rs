@@ -4,21 +4,22 @@
 //! kept in the history line, and followed by a watching registry as `live` is; `ogive shadow`
 //! does the same on the directory.
 //!
-//! The models are invented inputs built by `lifecycle_support`; nothing here is a reference
+//! The models are invented inputs built by `support::models`; nothing here is a reference
 //! value. The checks are identities of the directory: what the pointers name, what the
 //! history records, and what the registry serves.
 
-mod lifecycle_support;
+mod support;
 
 use std::path::Path;
 use std::process::Command;
 
-use lifecycle_support as support;
 use ogive::registry::lifecycle::{self, LifecycleError, Promotion};
 use ogive::registry::shadow::{NotedThresholds, ShadowFigures};
 use ogive::registry::store::{Action, HistoryRecord, ModelDir};
 use ogive::registry::watch::{WatchEvent, Watcher};
 use ogive::registry::Registry;
+use support::models;
+use support::server::seed;
 use tempfile::TempDir;
 
 const NAME: &str = "arrears";
@@ -26,19 +27,11 @@ const NAME: &str = "arrears";
 /// A directory with versions v1, v2 and v3 stored and v1 live.
 fn three_versions() -> TempDir {
     let root = tempfile::tempdir().expect("temporary directory");
-    for version in ["v1", "v2", "v3"] {
-        lifecycle::upload(
-            root.path(),
-            NAME,
-            version,
-            &support::model_bytes(NAME, version),
-            false,
-            "test:setup",
-            None,
-        )
-        .expect("upload");
-    }
-    lifecycle::promote(root.path(), NAME, "v1", false, "test:setup", None).expect("promote");
+    let versions: Vec<(&str, Vec<u8>)> = ["v1", "v2", "v3"]
+        .into_iter()
+        .map(|v| (v, models::model_bytes(NAME, v)))
+        .collect();
+    seed(root.path(), NAME, &versions, Some("v1"));
     root
 }
 
@@ -172,7 +165,7 @@ fn the_live_version_cannot_shadow_and_a_model_without_one_has_nothing_to_shadow(
         fresh.path(),
         NAME,
         "v1",
-        &support::model_bytes(NAME, "v1"),
+        &models::model_bytes(NAME, "v1"),
         false,
         "test",
         None,
@@ -241,7 +234,7 @@ fn a_shadow_change_recorded_but_not_written_is_completed_by_the_next_operation()
         root.path(),
         NAME,
         "v4",
-        &support::model_bytes(NAME, "v4"),
+        &models::model_bytes(NAME, "v4"),
         false,
         "test",
         None,
@@ -296,12 +289,7 @@ fn a_watching_registry_follows_the_shadow_pointer_as_it_follows_live() {
     assert_eq!(shadow_of(&registry), None);
 
     // A pointer naming a version that does not load is refused, once, and nothing shadows.
-    support::place_version(
-        root.path(),
-        NAME,
-        "v7",
-        &support::tampered_bytes(NAME, "v7"),
-    );
+    models::place_version(root.path(), NAME, "v7", &models::tampered_bytes(NAME, "v7"));
     std::fs::write(root.path().join(NAME).join("shadow"), "v7\n").expect("write");
     let events = watcher.poll(&registry);
     assert!(
