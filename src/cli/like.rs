@@ -42,7 +42,6 @@ pub struct Template {
     pub outcome_meaning: String,
     /// The model's name.
     pub name: String,
-    /// The link.
     pub link: Link,
     /// Categorical covariates with their reference levels.
     pub categorical: Vec<CategoricalSpec>,
@@ -54,9 +53,7 @@ pub struct Template {
     pub units: Vec<(String, String)>,
     /// The decision threshold.
     pub threshold: Option<f64>,
-    /// The bands.
     pub bands: Vec<Band>,
-    /// The description.
     pub description: String,
 }
 

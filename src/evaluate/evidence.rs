@@ -33,7 +33,6 @@ pub enum EvidenceError {
     OtherFile {
         /// The model.
         name: String,
-        /// The version.
         version: String,
         /// The digest the report names.
         found: String,
@@ -53,7 +52,6 @@ pub struct EvidenceNote {
     pub auc: f64,
     /// Its Brier score.
     pub brier: f64,
-    /// Its calibration slope.
     pub calibration_slope: f64,
 }
 
@@ -69,15 +67,12 @@ pub struct Evidence {
     pub sha256: String,
     /// The evaluated model's name.
     pub name: String,
-    /// Its version.
     pub version: String,
     /// SHA-256 of the model file the report scored with.
     pub model_sha256: String,
-    /// AUC.
     pub auc: f64,
     /// Brier score.
     pub brier: f64,
-    /// Calibration slope.
     pub calibration_slope: f64,
 }
 

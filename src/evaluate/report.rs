@@ -84,7 +84,6 @@ pub struct ModelSection {
     pub name: String,
     /// Its version label.
     pub version: String,
-    /// Its link.
     pub link: String,
     /// Where its file was read from.
     pub file: String,
@@ -114,7 +113,6 @@ pub struct WarningShares {
 /// One covariate's out-of-range counts.
 #[derive(Debug, Clone, Serialize)]
 pub struct OutOfRange {
-    /// The covariate.
     pub covariate: String,
     /// Rows below the training minimum.
     pub below: u64,

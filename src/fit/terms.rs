@@ -75,9 +75,7 @@ pub fn log_term_of(terms: &[TermText], covariate: &str) -> Option<String> {
 /// What the expansion needs to know of a covariate.
 #[derive(Debug, Clone)]
 pub struct CovariateShape {
-    /// Its name.
     pub name: String,
-    /// Its kind.
     pub kind: CovariateKind,
     /// Levels of a categorical covariate (sorted).
     pub levels: Vec<String>,

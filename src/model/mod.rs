@@ -30,7 +30,6 @@ pub const CHECK_CASE_TOLERANCE: f64 = 1e-9;
 pub struct Covariate {
     /// The field name.
     pub(crate) name: String,
-    /// Its kind.
     pub(crate) kind: CovariateKind,
     /// Its unit, if any.
     pub(crate) unit: Option<String>,
@@ -111,7 +110,6 @@ pub struct Joint {
 pub struct Model {
     /// The file it was built from, kept for describing and re-serialising it.
     pub(crate) file: ModelFile,
-    /// The link.
     pub(crate) link: Link,
     /// Covariates, in file order.
     pub(crate) covariates: Vec<Covariate>,

@@ -45,7 +45,6 @@ pub struct TooLarge {
     pub pointer: String,
     /// How many it has.
     pub count: usize,
-    /// The limit.
     pub limit: usize,
 }
 

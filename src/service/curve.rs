@@ -371,11 +371,8 @@ pub struct CurvePoint {
 /// The computed curve.
 #[derive(Debug, Clone)]
 pub struct Curve<'a> {
-    /// The model.
     pub model: &'a Model,
-    /// The request.
     pub request: CurveRequest,
-    /// The points.
     pub points: Vec<CurvePoint>,
 }
 

@@ -81,7 +81,6 @@ pub enum TokenError {
     TooShort {
         /// Where it came from.
         origin: String,
-        /// Its length.
         length: usize,
     },
     /// The token has a character that is not visible ASCII.
@@ -96,10 +95,7 @@ pub enum TokenError {
     #[error(
         "the admin token label {label:?} must be 1 to {MAX_LABEL} letters, digits, '-', '_' or '.'"
     )]
-    BadLabel {
-        /// The label.
-        label: String,
-    },
+    BadLabel { label: String },
 }
 
 /// The configured admin token and its label.
