@@ -61,6 +61,22 @@ use super::families::{self, Family};
 use schemars::JsonSchema;
 use serde::Serialize;
 
+/// The fewest outcomes in a window whose figures are read: below it a version's calibration
+/// reads [`Reading::Insufficient`]. The standard error of a mean of 0/1 outcomes is then above
+/// 0.5/√500 ≈ 0.022, which blurs differences of 0.05; the `ogive-fleet` recording rules and the
+/// calibration alerts use the same number.
+pub const MIN_OUTCOMES: usize = 500;
+
+/// Whether a window holds enough to read its figures.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, JsonSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum Reading {
+    /// Fewer outcomes than the minimum: the figures are given but mean little.
+    Insufficient,
+    /// At least the minimum.
+    Enough,
+}
+
 /// Outcomes kept per model version unless configured otherwise.
 pub const DEFAULT_WINDOW: usize = 10_000;
 
@@ -438,6 +454,10 @@ pub struct VersionCalibrationReport {
     pub window_capacity: usize,
     /// The figures over the window (absent before the first outcome).
     pub figures: Option<Figures>,
+    /// `insufficient` while the window holds fewer than `minimum_outcomes`.
+    pub reading: Reading,
+    /// The fewest outcomes whose figures are read ([`MIN_OUTCOMES`]).
+    pub minimum_outcomes: usize,
 }
 
 #[derive(Debug, Clone)]
@@ -617,11 +637,19 @@ impl CalibrationMonitor {
             .filter(|((model, _), _)| model == model_name)
             .map(|((_, version), state)| {
                 let mut window = state.window.lock().unwrap_or_else(PoisonError::into_inner);
+                let figures = window.figures();
+                let in_window = figures.as_ref().map_or(0, |f| f.count);
                 VersionCalibrationReport {
                     version,
                     outcomes_total: window.totals.outcomes,
                     window_capacity: self.window,
-                    figures: window.figures(),
+                    figures,
+                    reading: if in_window < MIN_OUTCOMES {
+                        Reading::Insufficient
+                    } else {
+                        Reading::Enough
+                    },
+                    minimum_outcomes: MIN_OUTCOMES,
                 }
             })
             .filter(|r| r.outcomes_total > 0)

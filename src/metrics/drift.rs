@@ -13,7 +13,12 @@
 //! after flooring, so a window that matches training exactly has PSI 0 and a bin empty on one
 //! side contributes at most (share − 1e-4)·ln(share / 1e-4). The bands 0.1 (moderate) and 0.25
 //! (major) are common practice, not a statistical test; with a small window the index is noisy,
-//! so each version also exports how many observations its window holds.
+//! so each version also exports how many observations its window holds, and the report reads a
+//! window of fewer than [`MIN_DRIFT_OBSERVATIONS`] as [`DriftBand::Insufficient`] rather than
+//! banding its PSI: with no drift at all a window of n observations over B bins shows a PSI of
+//! about (B − 1)/n (to first order the PSI is the chi-square statistic over n, whose
+//! expectation is B − 1), 0.01 for 10 bins and 1,000 observations but 0.09, nearly the moderate
+//! band, for 100, and anything at all for one. The fleet rules and alerts use the same minimum.
 //!
 //! Bins, per covariate kind:
 //!
@@ -93,6 +98,10 @@ pub const MODERATE_DRIFT: f64 = 0.1;
 /// The common-practice PSI level from which drift is called major.
 pub const MAJOR_DRIFT: f64 = 0.25;
 
+/// The fewest observations in a window whose PSI is read against the bands (see the module
+/// docs); the `ogive-fleet` recording rules and the drift alerts use the same number.
+pub const MIN_DRIFT_OBSERVATIONS: usize = 1_000;
+
 /// The most bins a tracked distribution may have (bin indices are stored as `u16`).
 const MAX_BINS: usize = u16::MAX as usize;
 
@@ -132,6 +141,9 @@ pub fn bin_of(edges: &[f64], x: f64) -> usize {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum DriftBand {
+    /// Fewer than 1,000 observations in the window: too few to read the PSI (it is still
+    /// given).
+    Insufficient,
     /// PSI below 0.1.
     Stable,
     /// PSI from 0.1 up to 0.25.
@@ -141,7 +153,17 @@ pub enum DriftBand {
 }
 
 impl DriftBand {
-    /// The band a PSI value falls in.
+    /// The reading of a PSI over a window of `observations`: [`DriftBand::Insufficient`] below
+    /// [`MIN_DRIFT_OBSERVATIONS`], else its band.
+    pub fn reading(psi: f64, observations: usize) -> DriftBand {
+        if observations < MIN_DRIFT_OBSERVATIONS {
+            DriftBand::Insufficient
+        } else {
+            DriftBand::of(psi)
+        }
+    }
+
+    /// The band a PSI value falls in, however many observations it was computed from.
     pub fn of(psi: f64) -> DriftBand {
         if psi >= MAJOR_DRIFT {
             DriftBand::Major
@@ -474,7 +496,8 @@ pub struct DistributionDrift {
     pub covariate: Option<String>,
     /// The population stability index; absent while the window is empty.
     pub psi: Option<f64>,
-    /// The common-practice band of the PSI.
+    /// The common-practice band of the PSI, or `insufficient` when the window holds fewer
+    /// than `minimum_observations`.
     pub band: Option<DriftBand>,
     /// Each bin with its training share and its share of the window.
     pub bins: Vec<BinShares>,
@@ -501,6 +524,9 @@ pub struct VersionDriftReport {
     pub window_observations: usize,
     /// The window's size.
     pub window_capacity: usize,
+    /// The fewest observations whose PSI is read against the bands
+    /// ([`MIN_DRIFT_OBSERVATIONS`]); below it every band reads `insufficient`.
+    pub minimum_observations: usize,
     /// Observations not recorded because the window was busy (see the module notes).
     pub dropped_samples: u64,
     /// Input drift, per tracked covariate, in model order.
@@ -570,7 +596,7 @@ impl VersionDrift {
             DistributionDrift {
                 covariate: c.covariate.map(|_| c.name.clone()),
                 psi,
-                band: psi.map(DriftBand::of),
+                band: psi.map(|psi| DriftBand::reading(psi, observations)),
                 bins: c
                     .ranges
                     .iter()
@@ -595,6 +621,7 @@ impl VersionDrift {
             version: version.to_string(),
             window_observations: observations,
             window_capacity: capacity,
+            minimum_observations: MIN_DRIFT_OBSERVATIONS,
             dropped_samples: self.dropped.load(Ordering::Relaxed),
             covariates,
             prediction,
@@ -1000,5 +1027,8 @@ mod tests {
         assert_eq!(DriftBand::of(0.1), DriftBand::Moderate);
         assert_eq!(DriftBand::of(0.2499), DriftBand::Moderate);
         assert_eq!(DriftBand::of(0.25), DriftBand::Major);
+        assert_eq!(DriftBand::reading(0.91, 999), DriftBand::Insufficient);
+        assert_eq!(DriftBand::reading(0.0, 1), DriftBand::Insufficient);
+        assert_eq!(DriftBand::reading(0.91, 1_000), DriftBand::Major);
     }
 }

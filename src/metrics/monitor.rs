@@ -119,10 +119,12 @@ pub struct MonitorReport {
 
 const REPORT_NOTES: [&str; 3] = [
     "psi: population stability index of the window against training, each bin's share floored at 1e-4; \
-     bands (common practice): stable below 0.1, moderate from 0.1, major from 0.25; a small window reads high",
+     bands (common practice): stable below 0.1, moderate from 0.1, major from 0.25; a window of fewer than \
+     minimum_observations (1,000) reads insufficient, since with no drift at all its PSI is about (bins - 1) / n",
     "values outside the training histogram count in its first or last bin",
     "log_loss clips predictions to [1e-15, 1 - 1e-15]; calibration_slope is the slope of a logistic \
-     regression of the outcome on the logit of the prediction (1 is ideal)",
+     regression of the outcome on the logit of the prediction (1 is ideal); a calibration window of fewer \
+     than minimum_outcomes (500) reads insufficient: the standard error of a mean outcome is then above 0.022",
 ];
 
 impl Monitor {
