@@ -173,16 +173,7 @@ fn next_operation(random: &mut impl Rng, expected: &Expected) -> Operation {
 fn operations_killed_at_random_moments_leave_history_and_pointer_in_agreement() {
     let root = tempfile::tempdir().expect("temporary directory");
     for version in VERSIONS {
-        lifecycle::upload(
-            root.path(),
-            NAME,
-            version,
-            &models::model_bytes(NAME, version),
-            false,
-            "crash-test:setup",
-            None,
-        )
-        .expect("upload");
+        models::store(root.path(), NAME, version, "crash-test:setup");
     }
     lifecycle::promote(root.path(), NAME, "v1", false, "crash-test:setup", None).expect("promote");
     let dir = ModelDir::new(root.path(), NAME).expect("name");
@@ -327,16 +318,7 @@ fn operations_killed_at_random_moments_leave_history_and_pointer_in_agreement() 
 fn a_move_recorded_before_a_crash_is_completed_at_the_next_server_start() {
     let root = tempfile::tempdir().expect("temporary directory");
     for version in ["v1", "v2"] {
-        lifecycle::upload(
-            root.path(),
-            NAME,
-            version,
-            &models::model_bytes(NAME, version),
-            false,
-            "crash-test:setup",
-            None,
-        )
-        .expect("upload");
+        models::store(root.path(), NAME, version, "crash-test:setup");
     }
     lifecycle::promote(root.path(), NAME, "v1", false, "crash-test:setup", None).expect("promote");
     // What a promoter killed between its two writes leaves: the record, not the pointer.

@@ -11,16 +11,19 @@
 //! It does not validate the manifests' schema (`kubernetes-validate --strict` does that in
 //! `.ci/deploy-checks.sh`) nor test the alert rules (`promtool test rules` does).
 
+mod support;
+
 use std::collections::BTreeSet;
 use std::io::{BufRead, BufReader};
 use std::net::SocketAddr;
 use std::path::{Path, PathBuf};
-use std::process::{Child, Command, ExitStatus, Stdio};
+use std::process::{Command, Stdio};
 use std::sync::mpsc;
 use std::time::{Duration, Instant};
 
 use clap::{CommandFactory, Parser};
 use ogive::cli::{Cli, Command as Subcommand};
+use support::process::{free_port, status_of, wait_for_exit, Killed};
 use yaml_rust2::{Yaml, YamlLoader};
 
 const DEPLOYMENT: &str = "deploy/kubernetes/deployment.yaml";
@@ -604,49 +607,6 @@ fn source_files(dir: &Path) -> Vec<PathBuf> {
     files
 }
 
-/// A running `ogive serve`, killed if the test ends early.
-struct Server {
-    child: Child,
-}
-
-impl Drop for Server {
-    fn drop(&mut self) {
-        let _ = self.child.kill();
-        let _ = self.child.wait();
-    }
-}
-
-/// A free loopback port (the kernel picks it; released at once for the server to take).
-fn free_port() -> u16 {
-    std::net::TcpListener::bind("127.0.0.1:0")
-        .and_then(|listener| listener.local_addr())
-        .expect("a free loopback port")
-        .port()
-}
-
-/// The status of a GET, or None when nothing accepts the connection.
-fn status_of(url: &str) -> Option<u16> {
-    let agent = ureq::AgentBuilder::new()
-        .timeout(Duration::from_secs(2))
-        .build();
-    match agent.get(url).call() {
-        Ok(response) => Some(response.status()),
-        Err(ureq::Error::Status(status, _)) => Some(status),
-        Err(ureq::Error::Transport(_)) => None,
-    }
-}
-
-fn wait_for_exit(child: &mut Child, limit: Duration) -> Option<ExitStatus> {
-    let started = Instant::now();
-    while started.elapsed() < limit {
-        if let Some(status) = child.try_wait().expect("child status") {
-            return Some(status);
-        }
-        std::thread::sleep(Duration::from_millis(50));
-    }
-    None
-}
-
 /// The behaviour the manifests rely on, from a real `ogive serve` on loopback with the demo
 /// models and the Deployment's own probe paths: /livez and /readyz answer 200 once the models
 /// are loaded; after SIGTERM /readyz turns 503 while the process still answers (the drain
@@ -677,7 +637,7 @@ fn serve_answers_the_probe_paths_and_drains_on_sigterm() {
         .stderr(Stdio::piped())
         .spawn()
         .expect("start ogive serve");
-    let mut server = Server { child };
+    let mut server = Killed { child };
     let stderr = server.child.stderr.take().expect("stderr");
     let (log_lines, logs) = mpsc::channel();
     std::thread::spawn(move || {

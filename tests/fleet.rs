@@ -12,11 +12,14 @@
 //!
 //! Bounded: each process must be ready within 30 s and is killed when the test ends.
 
+mod support;
+
 use std::path::{Path, PathBuf};
 use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
 use serde_json::{json, Value as Json};
+use support::process::free_port;
 
 /// One `ogive serve` process, killed when dropped.
 struct Replica {
@@ -29,13 +32,6 @@ impl Drop for Replica {
         let _ = self.child.kill();
         let _ = self.child.wait();
     }
-}
-
-fn free_port() -> u16 {
-    std::net::TcpListener::bind("127.0.0.1:0")
-        .and_then(|listener| listener.local_addr())
-        .expect("a free loopback port")
-        .port()
 }
 
 fn agent() -> ureq::Agent {

@@ -30,16 +30,7 @@ fn root() -> TempDir {
 }
 
 fn upload(root: &Path, version: &str) {
-    lifecycle::upload(
-        root,
-        NAME,
-        version,
-        &models::model_bytes(NAME, version),
-        false,
-        "test:setup",
-        None,
-    )
-    .expect("upload");
+    models::store(root, NAME, version, "test:setup");
 }
 
 /// Upload as a test client with no reason, for the checks of what the gate answers.
@@ -1297,16 +1288,7 @@ fn the_watcher_notices_new_models_ignores_temporaries_and_keeps_vanished_ones() 
     );
     assert!(watcher.unserved().is_empty());
     // A second model appears.
-    lifecycle::upload(
-        root.path(),
-        "uptake",
-        "a",
-        &models::model_bytes("uptake", "a"),
-        false,
-        "t",
-        None,
-    )
-    .expect("upload");
+    models::store(root.path(), "uptake", "a", "t");
     lifecycle::promote(root.path(), "uptake", "a", false, "t", None).expect("promote");
     let events = watcher.poll(&registry);
     assert!(

@@ -23,10 +23,13 @@
 //! deploy/README.md needs a registry and a cluster, so its blocks are marked; what is checked
 //! there is that the file it uploads exists and is the one the batch Job scores.
 
+mod support;
+
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
+use support::process::{copy_tree, free_port};
 
 /// The marker of a block that is not run.
 const SKIP: &str = "<!-- readme-commands: skip";
@@ -94,26 +97,6 @@ fn shell_blocks(markdown: &str) -> Vec<Block> {
         });
     }
     blocks
-}
-
-fn copy_tree(from: &Path, to: &Path) {
-    std::fs::create_dir_all(to).expect("create a folder of the copy");
-    for entry in std::fs::read_dir(from).expect("list") {
-        let entry = entry.expect("entry");
-        let target = to.join(entry.file_name());
-        if entry.file_type().expect("type").is_dir() {
-            copy_tree(&entry.path(), &target);
-        } else {
-            std::fs::copy(entry.path(), &target).expect("copy a file");
-        }
-    }
-}
-
-fn free_port() -> u16 {
-    std::net::TcpListener::bind("127.0.0.1:0")
-        .and_then(|l| l.local_addr())
-        .expect("a free loopback port")
-        .port()
 }
 
 fn write_executable(path: &Path, text: &str) {

@@ -12,6 +12,8 @@
 //! - [`server`]: the one test server (the real application on port 0) and its client;
 //!   [`http_models`]: the committed HTTP test models it serves.
 //! - [`contract`]: the one OpenAPI contract checker.
+//! - [`process`]: `ogive serve` as a real process: free ports, a child killed when dropped,
+//!   plain GETs, copying a folder.
 #![allow(dead_code)]
 
 pub mod cli;
@@ -20,6 +22,7 @@ pub mod contract;
 pub mod fit;
 pub mod http_models;
 pub mod models;
+pub mod process;
 pub mod reference;
 pub mod server;
 pub mod tolerances;

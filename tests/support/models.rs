@@ -13,6 +13,7 @@ use ogive::model::file::{
     CheckCase, CovariateSpec, Outcome, Provenance, TermSpec, TrainingSummary,
 };
 use ogive::model::{CovariateKind, Model, ModelFile, FORMAT_NAME, FORMAT_VERSION};
+use ogive::registry::lifecycle;
 use serde_json::{json, Map, Value};
 
 /// The base model file (without check cases): `income` (continuous, thousand EUR, with a log
@@ -274,4 +275,19 @@ pub fn tampered_bytes(name: &str, version: &str) -> Vec<u8> {
     let mut file = finished(base(name, version));
     file.check_cases[0].probability *= 1.01;
     serde_json::to_vec_pretty(&file).expect("encode")
+}
+
+/// Store the base model `name` at `version` in the model directory `root` through the gate,
+/// as `who` (no reason given).
+pub fn store(root: &Path, name: &str, version: &str, who: &str) {
+    lifecycle::upload(
+        root,
+        name,
+        version,
+        &model_bytes(name, version),
+        false,
+        who,
+        None,
+    )
+    .unwrap_or_else(|e| panic!("store {name} {version}: {e}"));
 }

@@ -62,21 +62,8 @@ pub fn http_models() -> std::path::PathBuf {
 /// A temporary copy of the model directory `from`.
 pub fn copy_models(from: &Path) -> tempfile::TempDir {
     let dir = tempfile::tempdir().expect("a temporary directory");
-    copy_tree(from, dir.path());
+    super::process::copy_tree(from, dir.path());
     dir
-}
-
-fn copy_tree(from: &Path, to: &Path) {
-    for entry in std::fs::read_dir(from).expect("read the model directory") {
-        let entry = entry.expect("an entry");
-        let target = to.join(entry.file_name());
-        if entry.file_type().expect("a file type").is_dir() {
-            std::fs::create_dir_all(&target).expect("mkdir");
-            copy_tree(&entry.path(), &target);
-        } else {
-            std::fs::copy(entry.path(), &target).expect("copy");
-        }
-    }
 }
 
 /// Put `versions` of model `name` into `root` through the lifecycle (as the CLI would) and
