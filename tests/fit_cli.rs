@@ -9,6 +9,31 @@ fn ogive() -> Command {
     Command::new(env!("CARGO_BIN_EXE_ogive"))
 }
 
+/// Run `command`, assert that it succeeded (showing its standard error if not), and return
+/// what it printed.
+#[track_caller]
+fn succeeded(command: &mut Command) -> std::process::Output {
+    let run = command.output().expect("run ogive fit");
+    assert!(
+        run.status.success(),
+        "{}",
+        String::from_utf8_lossy(&run.stderr)
+    );
+    run
+}
+
+/// Run the fit `command`, assert that it succeeded, and return the model file it wrote at `out`.
+#[track_caller]
+fn fitted(command: &mut Command, out: &std::path::Path) -> serde_json::Value {
+    succeeded(command);
+    model_json(out)
+}
+
+/// The model file at `out`, parsed.
+fn model_json(out: &std::path::Path) -> serde_json::Value {
+    serde_json::from_slice(&std::fs::read(out).expect("read the model file")).expect("JSON")
+}
+
 fn spector() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/reference/fit/spector.csv")
 }
@@ -80,25 +105,19 @@ fn fit_prints_the_summary_and_writes_a_file_that_check_accepts() {
 fn flags_can_come_from_environment_variables() {
     let dir = tempfile::tempdir().expect("temporary folder");
     let out = dir.path().join("probit.json");
-    let run = ogive()
-        .arg("fit")
-        .env("OGIVE_DATA", spector())
-        .env("OGIVE_OUTCOME", "GRADE")
-        .env("OGIVE_TERMS", "GPA, TUCE, PSI")
-        .env("OGIVE_LINK", "probit")
-        .env("OGIVE_NAME", "spector")
-        .env("OGIVE_VERSION", "2")
-        .env("OGIVE_OUT", &out)
-        .env("SOURCE_DATE_EPOCH", "1700000000")
-        .output()
-        .expect("run ogive fit");
-    assert!(
-        run.status.success(),
-        "{}",
-        String::from_utf8_lossy(&run.stderr)
+    let file = fitted(
+        ogive()
+            .arg("fit")
+            .env("OGIVE_DATA", spector())
+            .env("OGIVE_OUTCOME", "GRADE")
+            .env("OGIVE_TERMS", "GPA, TUCE, PSI")
+            .env("OGIVE_LINK", "probit")
+            .env("OGIVE_NAME", "spector")
+            .env("OGIVE_VERSION", "2")
+            .env("OGIVE_OUT", &out)
+            .env("SOURCE_DATE_EPOCH", "1700000000"),
+        &out,
     );
-    let file: serde_json::Value =
-        serde_json::from_slice(&std::fs::read(&out).expect("read")).expect("JSON");
     assert_eq!(file["link"], "probit");
     assert_eq!(file["version"], "2");
     assert_eq!(file["provenance"]["fitted_at"], "2023-11-14T22:13:20Z");
@@ -183,20 +202,15 @@ fn a_refit_like_the_live_file_keeps_the_whole_contract() {
     let dir = tempfile::tempdir().expect("temporary folder");
     let live = demo("model-files/lease-arrears/versions/1.0.0.json");
     let out = dir.path().join("candidate.json");
-    let run = ogive()
-        .args(["fit", "--version", "1.1.0"])
-        .arg("--like")
-        .arg(&live)
-        .arg("--data")
-        .arg(demo("demo-data/lease-arrears.csv"))
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .expect("run ogive fit");
-    assert!(
-        run.status.success(),
-        "{}",
-        String::from_utf8_lossy(&run.stderr)
+    succeeded(
+        ogive()
+            .args(["fit", "--version", "1.1.0"])
+            .arg("--like")
+            .arg(&live)
+            .arg("--data")
+            .arg(demo("demo-data/lease-arrears.csv"))
+            .arg("--out")
+            .arg(&out),
     );
     let (live, candidate) = (model_at(&live), model_at(&out));
     let changes = ogive::registry::gate::contract_changes(&live, &candidate);
@@ -214,20 +228,15 @@ fn a_refit_like_the_live_file_keeps_the_whole_contract() {
 
     // A flag beside --like overrides the file, and the gate shows exactly that change.
     let out = dir.path().join("lower-threshold.json");
-    let run = ogive()
-        .args(["fit", "--version", "1.1.1", "--threshold", "0.25"])
-        .arg("--like")
-        .arg(demo("model-files/lease-arrears/versions/1.0.0.json"))
-        .arg("--data")
-        .arg(demo("demo-data/lease-arrears.csv"))
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .expect("run ogive fit");
-    assert!(
-        run.status.success(),
-        "{}",
-        String::from_utf8_lossy(&run.stderr)
+    succeeded(
+        ogive()
+            .args(["fit", "--version", "1.1.1", "--threshold", "0.25"])
+            .arg("--like")
+            .arg(demo("model-files/lease-arrears/versions/1.0.0.json"))
+            .arg("--data")
+            .arg(demo("demo-data/lease-arrears.csv"))
+            .arg("--out")
+            .arg(&out),
     );
     let changes = ogive::registry::gate::contract_changes(&live, &model_at(&out));
     assert!(
@@ -273,32 +282,24 @@ fn the_repeatable_fit_flags_come_from_environment_variables_too() {
     let out = dir.path().join("regions.json");
     let data = PathBuf::from(env!("CARGO_MANIFEST_DIR"))
         .join("tests/reference/fit/simulated_categorical.csv");
-    let run = ogive()
-        .args([
-            "fit",
-            "--terms",
-            "income, tenure, region",
-            "--outcome",
-            "outcome",
-        ])
-        .args(["--name", "regions", "--version", "1"])
-        .arg("--data")
-        .arg(&data)
-        .arg("--out")
-        .arg(&out)
-        .env("OGIVE_CATEGORICAL", "region=south")
-        .env("OGIVE_CONTINUOUS", "income,tenure")
-        .env("OGIVE_UNIT", "income=thousand EUR,tenure=years")
-        .env("OGIVE_BAND", "low=0.2,high=1")
-        .output()
-        .expect("run ogive fit");
-    assert!(
-        run.status.success(),
-        "{}",
-        String::from_utf8_lossy(&run.stderr)
-    );
-    let file: serde_json::Value =
-        serde_json::from_slice(&std::fs::read(&out).expect("read")).expect("JSON");
+    let mut fit = ogive();
+    fit.args([
+        "fit",
+        "--terms",
+        "income, tenure, region",
+        "--outcome",
+        "outcome",
+    ])
+    .args(["--name", "regions", "--version", "1"])
+    .arg("--data")
+    .arg(&data)
+    .arg("--out")
+    .arg(&out)
+    .env("OGIVE_CATEGORICAL", "region=south")
+    .env("OGIVE_CONTINUOUS", "income,tenure")
+    .env("OGIVE_UNIT", "income=thousand EUR,tenure=years")
+    .env("OGIVE_BAND", "low=0.2,high=1");
+    let file = fitted(&mut fit, &out);
     let covariate = |name: &str| {
         file["covariates"]
             .as_array()
@@ -328,8 +329,7 @@ fn a_fit_without_an_outcome_meaning_says_only_what_is_known() {
         "{}",
         String::from_utf8_lossy(&run.stderr)
     );
-    let file: serde_json::Value =
-        serde_json::from_slice(&std::fs::read(&out).expect("read")).expect("JSON");
+    let file = model_json(&out);
     let meaning = file["outcome"]["meaning"].as_str().expect("meaning");
     assert_eq!(
         meaning,
