@@ -115,16 +115,21 @@ fn parse_response(bytes: &[u8]) -> Option<Raw> {
     })
 }
 
-/// One scoring request by a well-behaved client: it must be answered with a probability.
-fn assert_answers_others(addr: SocketAddr) {
-    let body = json!({"observation": lease_observation()}).to_string();
-    let reply = raw_request(
+/// A scoring request for one `observation` of the HTTP test model, on a connection of its own.
+fn raw_score(addr: SocketAddr, observation: &Json) -> Raw {
+    let body = json!({ "observation": observation }).to_string();
+    raw_request(
         addr,
         "POST",
         "/models/lease-test/probability",
         "Content-Type: application/json\r\n",
         body.as_bytes(),
-    );
+    )
+}
+
+/// One scoring request by a well-behaved client: it must be answered with a probability.
+fn assert_answers_others(addr: SocketAddr) {
+    let reply = raw_score(addr, &lease_observation());
     assert_eq!(reply.status, 200, "{}", reply.body);
     let answer: Json = serde_json::from_str(&reply.body).expect("JSON answer");
     assert!(answer["probability"].is_number(), "{answer}");

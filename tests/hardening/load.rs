@@ -29,6 +29,22 @@ fn batch(n: usize) -> Json {
     json!({"observations": vec![lease_observation(); n]})
 }
 
+/// The reply is a 503 overloaded problem that tells the client when to come back; its problem
+/// details.
+#[track_caller]
+fn overloaded(reply: &Raw) -> Json {
+    assert_eq!(
+        reply.status,
+        503,
+        "{}",
+        &reply.body[..reply.body.len().min(300)]
+    );
+    assert_eq!(reply.header("retry-after"), Some("1"));
+    let problem = problem(reply);
+    assert_eq!(problem["type"], json!("urn:ogive:problem:overloaded"));
+    problem
+}
+
 fn problem(reply: &Raw) -> Json {
     serde_json::from_str(&reply.body).unwrap_or_else(|e| panic!("{e}: {}", reply.body))
 }
@@ -80,16 +96,7 @@ fn observations_over_the_in_flight_limit_get_503_with_retry_after_until_released
     // Another request's observations still being scored or written out.
     let held = server.state().compute.admit(45).expect("room");
     let reply = post(&server, &batch(20));
-    assert_eq!(
-        reply.status,
-        503,
-        "{}",
-        &reply.body[..reply.body.len().min(300)]
-    );
-    assert_eq!(reply.header("retry-after"), Some("1"));
-    let problem = problem(&reply);
-    assert_eq!(problem["type"], json!("urn:ogive:problem:overloaded"));
-    assert_eq!(problem["limit"], json!(50));
+    assert_eq!(overloaded(&reply)["limit"], json!(50));
     // Within the room left, a request is answered.
     assert_eq!(post(&server, &batch(5)).status, 200);
     drop(held);
@@ -110,17 +117,7 @@ fn body_bytes_over_the_in_flight_limit_get_503_with_retry_after() {
         .expect("room");
     // About 10 KB of body: over the 4 KiB left.
     let reply = post(&server, &batch(100));
-    assert_eq!(
-        reply.status,
-        503,
-        "{}",
-        &reply.body[..reply.body.len().min(300)]
-    );
-    assert_eq!(reply.header("retry-after"), Some("1"));
-    assert_eq!(
-        problem(&reply)["type"],
-        json!("urn:ogive:problem:overloaded")
-    );
+    overloaded(&reply);
     drop(held);
     assert_eq!(post(&server, &batch(100)).status, 200);
     assert_eq!(server.state().compute.body_bytes_in_flight(), 0);

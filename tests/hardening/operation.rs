@@ -12,7 +12,7 @@ use serde_json::{json, Value as Json};
 
 use crate::support::http_models::{lease_file, lease_observation};
 use crate::support::server::{test_config, TestServer};
-use crate::{address, hardened_settings, parse_response, raw_request, Raw, DEADLINE};
+use crate::{address, hardened_settings, parse_response, raw_request, raw_score, Raw, DEADLINE};
 
 /// Send `request` (a whole HTTP/1.1 request) on `stream` and read one response to its end,
 /// by Content-Length, leaving the connection as the server left it.
@@ -96,14 +96,7 @@ fn answers_during_the_sigterm_drain_say_connection_close() {
     let closed = stream.read_to_end(&mut rest).map(|_| rest.is_empty());
     assert!(closed.unwrap_or(true), "the server closed the connection");
     // A new connection during the drain gets the same.
-    let body = json!({"observation": lease_observation()}).to_string();
-    let scored = raw_request(
-        addr,
-        "POST",
-        "/models/lease-test/probability",
-        "Content-Type: application/json\r\n",
-        body.as_bytes(),
-    );
+    let scored = raw_score(addr, &lease_observation());
     assert_eq!(scored.status, 200, "{}", scored.body);
     assert_eq!(scored.header("connection"), Some("close"));
 }
@@ -179,14 +172,7 @@ fn a_saturated_answer_notes_that_its_zero_width_interval_is_rounding() {
     let mut observation = lease_observation();
     // Far outside training: the index is large enough that p and both interval ends round to 1.
     observation["prior_arrears"] = json!(1e9);
-    let body = json!({"observation": observation}).to_string();
-    let reply = raw_request(
-        addr,
-        "POST",
-        "/models/lease-test/probability",
-        "Content-Type: application/json\r\n",
-        body.as_bytes(),
-    );
+    let reply = raw_score(addr, &observation);
     assert_eq!(reply.status, 200, "{}", reply.body);
     let answer: Json = serde_json::from_str(&reply.body).expect("JSON");
     let interval = &answer["interval"];
@@ -200,13 +186,6 @@ fn a_saturated_answer_notes_that_its_zero_width_interval_is_rounding() {
     assert!(codes.contains(&&json!("saturated_interval")), "{answer}");
 
     // An ordinary answer has no such note.
-    let body = json!({"observation": lease_observation()}).to_string();
-    let reply = raw_request(
-        addr,
-        "POST",
-        "/models/lease-test/probability",
-        "Content-Type: application/json\r\n",
-        body.as_bytes(),
-    );
+    let reply = raw_score(addr, &lease_observation());
     assert!(!reply.body.contains("saturated_interval"), "{}", reply.body);
 }

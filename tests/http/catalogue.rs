@@ -39,16 +39,7 @@ fn json_case(
     slug: &'static str,
     field: Field,
 ) -> Case {
-    Case {
-        what,
-        method: "POST",
-        path: PROBABILITY.into(),
-        headers: vec![("Content-Type", "application/json".into())],
-        body: Some(body.to_string().into_bytes()),
-        status,
-        slug,
-        field,
-    }
+    raw_case(what, body.to_string().as_bytes(), status, slug, field)
 }
 
 fn raw_case(
