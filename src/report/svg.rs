@@ -38,7 +38,7 @@ use std::path::{Path, PathBuf};
 use super::axis::{format_number, log_ticks, nice_range, nice_step, tick_label, ticks};
 use super::text::percent;
 use crate::engine::{effect_slots, Options, Scorer};
-use crate::model::{CovariateKind, Model, Value};
+use crate::model::{Covariate, CovariateKind, Model, Value};
 
 /// Significant digits of the numbers written in labels (tick labels follow the tick step).
 pub const LABEL_DIGITS: i32 = 3;
@@ -528,13 +528,41 @@ struct Quantity {
     band_colour: &'static str,
 }
 
-/// The SVG plot for one continuous covariate.
+/// A partner's name, one of its levels, and the curve with the partner held at that level.
+type PartnerCurve = (String, String, Vec<CurvePoint>);
+
+/// The curves of one plot: the covariate's own, one per level of each binary or categorical
+/// partner in a product term, and the partners (continuous ones) that are only named.
+struct Curves {
+    points: Vec<CurvePoint>,
+    partners: Vec<PartnerCurve>,
+    noted: Vec<String>,
+}
+
+/// The SVG plot for one continuous covariate: the curves, the two panels they set, the header,
+/// the probability panel, the marginal-effect panel, and the axis label and legend.
 pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<String, PlotError> {
+    let curves = curves(model, covariate, options)?;
+    let (probability_panel, effect_panel) = panels(model, covariate, &curves);
+    let level = percent(options.level());
+    let mut svg = String::with_capacity(64 * 1024);
+    header(&mut svg, model, covariate, &curves, &level);
+    probability_section(&mut svg, &probability_panel, model, covariate, &curves);
+    effect_section(
+        &mut svg,
+        [&probability_panel, &effect_panel],
+        model,
+        covariate,
+        &curves,
+    );
+    footer(&mut svg, model, covariate, &level);
+    Ok(svg)
+}
+
+/// The covariate's curve on the plot grid, and the partners' curves.
+fn curves(model: &Model, covariate: usize, options: &Options) -> Result<Curves, PlotError> {
     let points = curve(model, covariate, options, GRID_POINTS)?;
-    let c = &model.covariates[covariate];
-    let f = &model.file;
-    // Curves per level of each binary or categorical partner; other partners are named only.
-    let mut partner_curves: Vec<(String, String, Vec<CurvePoint>)> = Vec::new();
+    let mut partner_curves: Vec<PartnerCurve> = Vec::new();
     let mut noted_partners: Vec<String> = Vec::new();
     for partner in partners(model, covariate) {
         let name = model.covariates[partner].name.clone();
@@ -549,9 +577,18 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             None => noted_partners.push(name),
         }
     }
-    let (low, high) = plot_range(model, covariate);
-    let level = percent(options.level());
+    Ok(Curves {
+        points,
+        partners: partner_curves,
+        noted: noted_partners,
+    })
+}
 
+/// The probability panel (0 to a round top above every curve and band) and the marginal-effect
+/// panel (a round range around every curve and band, and 0), over the covariate's plot range.
+fn panels(model: &Model, covariate: usize, curves: &Curves) -> (Panel, Panel) {
+    let (points, partner_curves) = (&curves.points, &curves.partners);
+    let (low, high) = plot_range(model, covariate);
     let top_probability = points
         .iter()
         .map(|p| p.probability_interval.map_or(p.probability, |i| i.1))
@@ -592,8 +629,14 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         y: nice_range(effect_low, effect_high, 4),
         x_log: log_axis(model, covariate),
     };
+    (probability_panel, effect_panel)
+}
 
-    let mut svg = String::with_capacity(64 * 1024);
+/// The opening of the SVG, its title and description (with the mapping from data to pixels),
+/// the headings, and the note on interactions.
+fn header(svg: &mut String, model: &Model, covariate: usize, curves: &Curves, level: &str) {
+    let (c, f, points) = (&model.covariates[covariate], &model.file, &curves.points);
+    let (low, high) = plot_range(model, covariate);
     let title = format!("P({} = 1) against {}", f.outcome.name, c.name);
     let _ = writeln!(
         svg,
@@ -641,7 +684,7 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         escape(&f.outcome.meaning)
     );
 
-    let interaction = interaction_note(&partner_curves, &noted_partners);
+    let interaction = interaction_note(&curves.partners, &curves.noted);
     if !interaction.is_empty() {
         let _ = writeln!(
             svg,
@@ -651,22 +694,33 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             escape(&interaction)
         );
     }
+}
 
-    // The probability panel.
-    probability_panel.open(&mut svg, "probability-panel");
-    probability_panel.training_range(&mut svg, c.training_min, c.training_max, c.training_mean);
+/// The probability panel: the training range and its rug, the partners' curves, the curve with
+/// its band, the axes and the training range's label.
+fn probability_section(
+    svg: &mut String,
+    probability_panel: &Panel,
+    model: &Model,
+    covariate: usize,
+    curves: &Curves,
+) {
+    let (c, f, points) = (&model.covariates[covariate], &model.file, &curves.points);
+    let (low, high) = probability_panel.x;
+    probability_panel.open(svg, "probability-panel");
+    probability_panel.training_range(svg, c.training_min, c.training_max, c.training_mean);
     if let Some(histogram) = f
         .covariates
         .iter()
         .find(|spec| spec.name == c.name)
         .and_then(|spec| spec.training.histogram.as_ref())
     {
-        probability_panel.rug(&mut svg, &histogram.edges, &histogram.counts);
+        probability_panel.rug(svg, &histogram.edges, &histogram.counts);
     }
-    for (i, (partner, level, curve)) in partner_curves.iter().enumerate() {
+    for (i, (partner, level, curve)) in curves.partners.iter().enumerate() {
         let dash = PARTNER_DASHES[i % PARTNER_DASHES.len()];
         probability_panel.partner_curve(
-            &mut svg,
+            svg,
             curve,
             |p| p.probability,
             CURVE_COLOUR,
@@ -674,8 +728,8 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         );
     }
     probability_panel.curve_and_band(
-        &mut svg,
-        &points,
+        svg,
+        points,
         Quantity {
             name: "probability",
             value: |p| p.probability,
@@ -684,7 +738,7 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             band_colour: BAND_COLOUR,
         },
     );
-    probability_panel.axes(&mut svg, &format!("P({} = 1)", f.outcome.name), true);
+    probability_panel.axes(svg, &format!("P({} = 1)", f.outcome.name), true);
     let range_label = format!(
         "training range {} to {}, mean {}",
         label_number(c.training_min),
@@ -706,10 +760,21 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         escape(&range_label)
     );
     let _ = writeln!(svg, "</g>");
+}
 
-    // The marginal-effect panel.
-    effect_panel.open(&mut svg, "effect-panel");
-    effect_panel.training_range(&mut svg, c.training_min, c.training_max, c.training_mean);
+/// The marginal-effect panel: the training range, the zero line, the partners' curves, the
+/// curve with its band, the largest effect in the training range, and the axes.
+fn effect_section(
+    svg: &mut String,
+    panels: [&Panel; 2],
+    model: &Model,
+    covariate: usize,
+    curves: &Curves,
+) {
+    let (c, points) = (&model.covariates[covariate], &curves.points);
+    let effect_panel = panels[1];
+    effect_panel.open(svg, "effect-panel");
+    effect_panel.training_range(svg, c.training_min, c.training_max, c.training_mean);
     if effect_panel.y.0 < 0.0 && effect_panel.y.1 > 0.0 {
         let zero = effect_panel.py(0.0);
         let _ = writeln!(
@@ -719,10 +784,10 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             LEFT + PLOT_WIDTH
         );
     }
-    for (i, (partner, level, curve)) in partner_curves.iter().enumerate() {
+    for (i, (partner, level, curve)) in curves.partners.iter().enumerate() {
         let dash = PARTNER_DASHES[i % PARTNER_DASHES.len()];
         effect_panel.partner_curve(
-            &mut svg,
+            svg,
             curve,
             |p| p.effect,
             EFFECT_COLOUR,
@@ -730,8 +795,8 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         );
     }
     effect_panel.curve_and_band(
-        &mut svg,
-        &points,
+        svg,
+        points,
         Quantity {
             name: "effect",
             value: |p| p.effect,
@@ -740,7 +805,15 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             band_colour: EFFECT_BAND_COLOUR,
         },
     );
-    // The largest effect within the training range: beyond it the curve is extrapolation.
+    largest_effect(svg, panels, c, points);
+    effect_panel.axes(svg, &format!("dP/d({})", c.name), true);
+    let _ = writeln!(svg, "</g>");
+}
+
+/// The largest effect within the training range, marked in both panels and labelled: beyond
+/// the range the curve is extrapolation.
+fn largest_effect(svg: &mut String, panels: [&Panel; 2], c: &Covariate, points: &[CurvePoint]) {
+    let effect_panel = panels[1];
     let inside = |p: &&CurvePoint| p.x >= c.training_min && p.x <= c.training_max;
     if let Some(peak) = points
         .iter()
@@ -748,7 +821,7 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         .max_by(|a, b| a.effect.abs().total_cmp(&b.effect.abs()))
     {
         let (x, y) = (effect_panel.px(peak.x), effect_panel.py(peak.effect));
-        for panel in [&probability_panel, &effect_panel] {
+        for panel in panels {
             let _ = writeln!(
                 svg,
                 r#"<line class="largest-effect" x1="{x:.3}" y1="{:.3}" x2="{x:.3}" y2="{:.3}" stroke="{EFFECT_COLOUR}" stroke-dasharray="2 2"/>"#,
@@ -783,9 +856,11 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
             escape(&label)
         );
     }
-    effect_panel.axes(&mut svg, &format!("dP/d({})", c.name), true);
-    let _ = writeln!(svg, "</g>");
+}
 
+/// The covariate's axis label (with its unit), the legend, and the end of the SVG.
+fn footer(svg: &mut String, model: &Model, covariate: usize, level: &str) {
+    let c = &model.covariates[covariate];
     let x_label = match &c.unit {
         Some(unit) if *unit != c.name => format!("{} ({unit})", c.name),
         _ => c.name.clone(),
@@ -797,9 +872,8 @@ pub fn render(model: &Model, covariate: usize, options: &Options) -> Result<Stri
         EFFECT_TOP + EFFECT_HEIGHT + 40.0,
         escape(&x_label)
     );
-    legend(&mut svg, &level, model.covariance.is_some());
+    legend(svg, level, model.covariance.is_some());
     let _ = writeln!(svg, "</svg>");
-    Ok(svg)
 }
 
 /// The line under the legend that explains the partner curves, or names the partners that have

@@ -13,11 +13,11 @@ enum Align {
     Right,
 }
 
-/// A table of text cells, printed with each column as wide as its widest cell.
 /// The first five column words of the coefficient table, shared with `ogive fit`'s summary
 /// ([`crate::fit::FitReport`]), which also says `95% lower` and `95% upper`.
 pub const COEFFICIENT_COLUMNS: [&str; 5] = ["term", "coefficient", "std. error", "z", "p"];
 
+/// A table of text cells, printed with each column as wide as its widest cell.
 struct Table {
     header: Vec<String>,
     align: Vec<Align>,
@@ -141,18 +141,37 @@ pub fn percent(level: f64) -> String {
     format!("{}%", (level * 100.0 * 1e6).round() / 1e6)
 }
 
-/// The report as text.
+/// The width the report's prose is wrapped at.
+const WIDTH: usize = 96;
+
+/// The report as text: its title, then one section after another.
 pub fn render_text(report: &Report) -> String {
     let mut out = String::new();
+    let level_percent = percent(report.level);
+    title(&mut out, report);
+    provenance(&mut out, report);
+    coefficients(&mut out, report, &level_percent);
+    covariates(&mut out, report);
+    effects_at_means(&mut out, report, &level_percent);
+    over_data(&mut out, report, &level_percent);
+    plots_notes_and_cautions(&mut out, report);
+    out
+}
+
+/// The title, underlined, and the model's description.
+fn title(out: &mut String, report: &Report) {
     let m = &report.model;
     let title = format!("Model report: {} {}", m.name, m.version);
     let _ = writeln!(out, "{title}\n{}", "=".repeat(title.chars().count()));
     if !m.description.is_empty() {
-        wrap(&mut out, "", "", &m.description, 96);
+        wrap(out, "", "", &m.description, WIDTH);
     }
-    let level_percent = percent(report.level);
+}
 
-    heading(&mut out, "Identity and provenance");
+/// What the model estimates, how and from what it was fitted, and what its file holds.
+fn provenance(out: &mut String, report: &Report) {
+    let m = &report.model;
+    heading(out, "Identity and provenance");
     let mut facts = vec![
         (
             "estimates".to_string(),
@@ -199,16 +218,19 @@ pub fn render_text(report: &Report) -> String {
     }
     for (label, value) in facts {
         wrap(
-            &mut out,
+            out,
             &format!("  {label:<19}"),
             &" ".repeat(21),
             &value,
-            96,
+            WIDTH,
         );
     }
+}
 
+/// The coefficient table, with the column words of `ogive fit`'s summary.
+fn coefficients(out: &mut String, report: &Report, level_percent: &str) {
     heading(
-        &mut out,
+        out,
         &format!("Coefficients ({level_percent} intervals, two-sided normal p-values)"),
     );
     // The column words of `ogive fit`'s table, so the two reports read alike.
@@ -236,9 +258,12 @@ pub fn render_text(report: &Report) -> String {
             optional(c.upper),
         ]);
     }
-    table.render(&mut out);
+    table.render(out);
+}
 
-    heading(&mut out, "Covariates and training ranges");
+/// The covariates with their training ranges, the shares of each level, and their descriptions.
+fn covariates(out: &mut String, report: &Report) {
+    heading(out, "Covariates and training ranges");
     let mut table = Table::new(&[
         ("covariate", Align::Left),
         ("kind", Align::Left),
@@ -275,9 +300,9 @@ pub fn render_text(report: &Report) -> String {
             level_lines.push(format!("{}: {}", c.name, shares.join(", ")));
         }
     }
-    table.render(&mut out);
+    table.render(out);
     for line in level_lines {
-        wrap(&mut out, "  levels of ", "    ", &line, 96);
+        wrap(out, "  levels of ", "    ", &line, WIDTH);
     }
     let described: Vec<_> = report
         .covariates
@@ -287,12 +312,15 @@ pub fn render_text(report: &Report) -> String {
     if !described.is_empty() {
         let _ = writeln!(out);
         for (c, d) in described {
-            wrap(&mut out, &format!("  {}: ", c.name), "    ", d, 96);
+            wrap(out, &format!("  {}: ", c.name), "    ", d, WIDTH);
         }
     }
+}
 
+/// The probability and the marginal effects at the training means.
+fn effects_at_means(out: &mut String, report: &Report, level_percent: &str) {
     heading(
-        &mut out,
+        out,
         &format!("Effects at the training means ({level_percent} intervals)"),
     );
     let _ = writeln!(
@@ -301,76 +329,79 @@ pub fn render_text(report: &Report) -> String {
         probability_line(
             "probability at the means",
             &report.at_means.probability,
-            &level_percent
+            level_percent
         )
     );
-    effect_table(&report.at_means.effects).render(&mut out);
+    effect_table(&report.at_means.effects).render(out);
+}
 
-    if let Some(d) = &report.data {
-        heading(
-            &mut out,
-            &format!(
-                "Over {} ({} rows, {level_percent} intervals)",
-                d.source, d.rows
-            ),
-        );
-        let _ = writeln!(
-            out,
-            "  {}",
-            probability_line(
-                "average probability",
-                &d.average_probability,
-                &level_percent
-            )
-        );
-        let _ = writeln!(out, "  average marginal effects:");
-        effect_table(&d.average_effects).render(&mut out);
-        let w = &d.warnings;
-        let _ = writeln!(
-            out,
-            "\n  warnings: {} of {} rows lie outside the training data in some way",
-            w.rows_with_warnings, d.rows
-        );
-        if !w.out_of_range.is_empty() {
-            let mut table = Table::new(&[
-                ("out of range", Align::Left),
-                ("rows below", Align::Right),
-                ("rows above", Align::Right),
-                ("training range", Align::Left),
+/// Over the data given with `--data`, if any: the average probability and marginal effects,
+/// and how many rows lie outside the training data.
+fn over_data(out: &mut String, report: &Report, level_percent: &str) {
+    let Some(d) = &report.data else {
+        return;
+    };
+    heading(
+        out,
+        &format!(
+            "Over {} ({} rows, {level_percent} intervals)",
+            d.source, d.rows
+        ),
+    );
+    let _ = writeln!(
+        out,
+        "  {}",
+        probability_line("average probability", &d.average_probability, level_percent)
+    );
+    let _ = writeln!(out, "  average marginal effects:");
+    effect_table(&d.average_effects).render(out);
+    let w = &d.warnings;
+    let _ = writeln!(
+        out,
+        "\n  warnings: {} of {} rows lie outside the training data in some way",
+        w.rows_with_warnings, d.rows
+    );
+    if !w.out_of_range.is_empty() {
+        let mut table = Table::new(&[
+            ("out of range", Align::Left),
+            ("rows below", Align::Right),
+            ("rows above", Align::Right),
+            ("training range", Align::Left),
+        ]);
+        for o in &w.out_of_range {
+            table.push(vec![
+                o.covariate.clone(),
+                o.below.to_string(),
+                o.above.to_string(),
+                format!("[{}, {}]", format_number(o.min), format_number(o.max)),
             ]);
-            for o in &w.out_of_range {
-                table.push(vec![
-                    o.covariate.clone(),
-                    o.below.to_string(),
-                    o.above.to_string(),
-                    format!("[{}, {}]", format_number(o.min), format_number(o.max)),
-                ]);
-            }
-            table.render(&mut out);
         }
-        if w.unusual_combination > 0 {
-            let _ = writeln!(
-                out,
-                "  unusual combination (further from the training mean than any training row): {} rows",
-                w.unusual_combination
-            );
-        }
+        table.render(out);
     }
+    if w.unusual_combination > 0 {
+        let _ = writeln!(
+            out,
+            "  unusual combination (further from the training mean than any training row): {} rows",
+            w.unusual_combination
+        );
+    }
+}
 
+/// The plots written, the notes and the cautions.
+fn plots_notes_and_cautions(out: &mut String, report: &Report) {
     if !report.plots.is_empty() {
-        heading(&mut out, "Plots");
+        heading(out, "Plots");
         for p in &report.plots {
             let _ = writeln!(out, "  {p}");
         }
     }
 
-    heading(&mut out, "Notes");
+    heading(out, "Notes");
     for n in &report.notes {
-        wrap(&mut out, "  - ", "    ", n, 96);
+        wrap(out, "  - ", "    ", n, WIDTH);
     }
-    heading(&mut out, "Cautions");
+    heading(out, "Cautions");
     for c in &report.cautions {
-        wrap(&mut out, "  ! ", "    ", c, 96);
+        wrap(out, "  ! ", "    ", c, WIDTH);
     }
-    out
 }
