@@ -12,8 +12,8 @@
 #   3. send bounded traffic with curl (40 single requests, one batch of 60) and 50 outcomes
 #   4. compute the expected figures here, in Python, from what the server answered: the PSI of
 #      amount and of the predicted probabilities (floor 1e-4, as documented in
-#      src/metrics/drift.rs), the Brier score, log loss, calibration-in-the-large, the
-#      Mann–Whitney AUC and the AUC over 100 bins with ties counted half (src/metrics/
+#      src/monitoring/drift.rs), the Brier score, log loss, calibration-in-the-large, the
+#      Mann–Whitney AUC and the AUC over 100 bins with ties counted half (src/monitoring/
 #      calibration.rs)
 #   5. query Prometheus's HTTP API (/api/v1/query) until the scraped values match, then check
 #      every series once more and stop both processes

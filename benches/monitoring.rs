@@ -27,11 +27,11 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use ogive::engine::{Options, Scorer};
-use ogive::metrics::calibration::CalibrationMonitor;
-use ogive::metrics::drift::DriftMonitor;
-use ogive::metrics::monitor::{Monitor, MonitorSettings};
-use ogive::metrics::outcomes::{OutcomeBook, SeenReceipts};
 use ogive::model::{Model, Value};
+use ogive::monitoring::calibration::CalibrationMonitor;
+use ogive::monitoring::drift::DriftMonitor;
+use ogive::monitoring::monitor::{Monitor, MonitorSettings};
+use ogive::monitoring::outcomes::{OutcomeBook, SeenReceipts};
 use ogive::receipt::{now_ms, ReceiptKeys, DEFAULT_MAX_AGE};
 use prometheus::Registry;
 use serde_json::json;

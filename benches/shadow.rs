@@ -28,8 +28,8 @@ use std::time::{Duration, Instant};
 use models::{base, bytes_of, model_bytes, without_covariate};
 use ogive::engine::{Answer, Options, Scorer};
 use ogive::model::{Model, Value};
+use ogive::monitoring::shadow::{Shadowing, Share};
 use ogive::registry::Entry;
-use ogive::service::shadow::{Shadowing, Share};
 use serde_json::json;
 
 /// Observations per request.

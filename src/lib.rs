@@ -11,9 +11,9 @@
 //!           and the atomic snapshot
 //! batch     streaming CSV scoring for `ogive score`: columns, shards, error policy
 //! report    the reviewer's report and plots of `ogive describe`
-//! service   the public and admin HTTP listeners: routes, problem details, limits, shadow,
-//!           shutdown
-//! metrics   the Prometheus registry; request metrics, drift windows, outcomes, calibration
+//! service   the public and admin HTTP listeners: routes, problem details, limits, shutdown
+//! metrics   the Prometheus registry and the request and scoring series
+//! monitoring drift, outcomes by receipt, calibration and the shadow comparison, per version
 //! receipt   the sealed receipt on every answer: keys, sealing, opening
 //! cli       the subcommands of the binary, one file each
 //! ```
@@ -27,6 +27,7 @@ pub mod fit;
 pub mod link;
 pub mod metrics;
 pub mod model;
+pub mod monitoring;
 pub mod receipt;
 pub mod registry;
 pub mod report;

@@ -32,7 +32,7 @@
 //! [`ReceiptKeys`]'s `Debug` shows fingerprints.
 //!
 //! This module does not know HTTP, decide what an outcome does, or remember which receipts
-//! were reported ([`crate::metrics::outcomes`] does).
+//! were reported ([`crate::monitoring::outcomes`] does).
 
 use std::fmt;
 use std::path::{Path, PathBuf};

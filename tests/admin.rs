@@ -16,9 +16,9 @@ use std::sync::mpsc;
 use std::time::{Duration, Instant};
 
 use ogive::model::CovariateKind;
+use ogive::monitoring::shadow::{Share, DIFFERENCE_BUCKETS};
 use ogive::registry::gate::contract_changes;
 use ogive::registry::lifecycle;
-use ogive::service::shadow::{Share, DIFFERENCE_BUCKETS};
 use serde_json::{json, Value as Json};
 use support::contract::Contract;
 use support::models::{

@@ -550,13 +550,14 @@ fn prometheus_annotations_point_at_the_metrics_route() {
     }
 }
 
-/// Every `ogive_…` metric the alert rules use is one the metrics module registers. The rules
+/// Every `ogive_…` metric the alert rules use is one the metrics or monitoring modules register. The rules
 /// would otherwise evaluate to nothing and never fire, which no promtool test can notice.
 #[test]
 fn alert_rules_use_only_metrics_that_ogive_registers() {
     let rules = read_text(ALERT_RULES);
     let mut registered = String::new();
-    for file in source_files(&repo_path("src/metrics")) {
+    let sources = [repo_path("src/metrics"), repo_path("src/monitoring")];
+    for file in sources.iter().flat_map(|dir| source_files(dir)) {
         registered.push_str(&std::fs::read_to_string(file).expect("metrics source"));
     }
     let mut used = BTreeSet::new();
@@ -589,14 +590,14 @@ fn alert_rules_use_only_metrics_that_ogive_registers() {
             .unwrap_or(name);
         assert!(
             registered.contains(&format!("\"{family}\"")),
-            "the rules use {name}, but src/metrics registers no \"{family}\""
+            "the rules use {name}, but neither src/metrics nor src/monitoring registers \"{family}\""
         );
     }
 }
 
 fn source_files(dir: &Path) -> Vec<PathBuf> {
     let mut files = Vec::new();
-    for entry in std::fs::read_dir(dir).expect("src/metrics") {
+    for entry in std::fs::read_dir(dir).expect("a source folder") {
         let path = entry.expect("directory entry").path();
         if path.is_dir() {
             files.extend(source_files(&path));

@@ -230,7 +230,7 @@ fn a_file_that_is_not_an_evaluation_report_is_refused_before_anything_moves() {
 
 #[test]
 fn the_admin_promotion_takes_evidence_and_refuses_it_for_another_version() {
-    use ogive::service::shadow::Share;
+    use ogive::monitoring::shadow::Share;
     use support::server::TestServer;
 
     let dir = tempfile::tempdir().unwrap();

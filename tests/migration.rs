@@ -15,7 +15,7 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use ogive::model::CovariateKind;
-use ogive::service::shadow::Share;
+use ogive::monitoring::shadow::Share;
 use serde_json::{json, Value as Json};
 use support::models::{base, bytes_of, model_bytes, numeric, with_covariate};
 use support::server::{engine_probability, model_of, observations, seed, TestServer};

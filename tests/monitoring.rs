@@ -6,10 +6,10 @@
 use std::collections::BTreeMap;
 use std::sync::Arc;
 
-use ogive::metrics::calibration::{self, CalibrationMonitor, Figures};
-use ogive::metrics::drift::{DriftBand, DriftMonitor, SHARE_FLOOR};
-use ogive::metrics::outcomes::{OutcomeBook, OutcomeError, SeenReceipts};
 use ogive::model::{Model, Value};
+use ogive::monitoring::calibration::{self, CalibrationMonitor, Figures};
+use ogive::monitoring::drift::{DriftBand, DriftMonitor, SHARE_FLOOR};
+use ogive::monitoring::outcomes::{OutcomeBook, OutcomeError, SeenReceipts};
 use ogive::receipt::{ReceiptKeys, DEFAULT_MAX_AGE};
 use prometheus::{Encoder, Registry, TextEncoder};
 use serde_json::{json, Value as Json};
@@ -1079,7 +1079,7 @@ mod http {
     use std::sync::Arc;
     use std::time::Duration;
 
-    use ogive::metrics::monitor::MonitorSettings;
+    use ogive::monitoring::monitor::MonitorSettings;
     use ogive::receipt::ReceiptKeys;
     use ogive::service::{Config, Monitoring};
     use serde_json::{json, Value as Json};

@@ -25,8 +25,8 @@ use std::sync::Arc;
 use std::thread;
 use std::time::{Duration, Instant};
 
+use ogive::monitoring::shadow::Share;
 use ogive::registry::lifecycle;
-use ogive::service::shadow::Share;
 use serde_json::{json, Value as Json};
 use support::models::model_bytes;
 use support::server::{engine_probability, model_of, observations, seed, TestServer};

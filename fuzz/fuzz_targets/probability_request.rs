@@ -14,7 +14,7 @@ use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::OnceLock;
 
 use libfuzzer_sys::fuzz_target;
-use ogive::metrics::monitor::{Monitor, MonitorSettings};
+use ogive::monitoring::monitor::{Monitor, MonitorSettings};
 use ogive::metrics::Metrics;
 use ogive::service::body::parse_json;
 use ogive::service::dto::{parse_probability_request, Observations};

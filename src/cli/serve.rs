@@ -13,13 +13,13 @@ use std::process::ExitCode;
 use std::sync::Arc;
 use std::time::Duration;
 
-use crate::metrics::monitor::MonitorSettings;
+use crate::monitoring::monitor::MonitorSettings;
+use crate::monitoring::shadow::Share;
 use crate::receipt::{parse_max_age, ReceiptKeys};
 use crate::service::admin::auth::{DEFAULT_LABEL, TOKEN_ENV};
 use crate::service::admin::AdminToken;
 use crate::service::cors::{parse_origin, CorsOrigins};
 use crate::service::example::example_curl;
-use crate::service::shadow::Share;
 use crate::service::{AdminConfig, Application, Config, Limits, Monitoring, Settings};
 
 /// Arguments of `ogive serve`.

@@ -6,8 +6,9 @@
 //! nothing here blocks the request path. Label sets are bounded: routes are route templates,
 //! models and covariates come from loaded model files, never from what a client sends.
 //!
-//! This module does not know about HTTP or actix; the service calls it. Drift and calibration
-//! windows (later files of this folder) register their metrics in the same [`Registry`].
+//! This module does not know about HTTP or actix; the service calls it. Monitoring
+//! ([`crate::monitoring`]: drift, calibration, the shadow comparison) registers its series in
+//! the same [`Registry`].
 //!
 //! The exported names are a contract with alert rules and dashboards:
 //!
@@ -23,15 +24,10 @@
 //! ogive_ready                                         gauge, 1 when ready
 //! ```
 //!
-//! and, with monitoring on, the drift and calibration series of [`drift::DriftMonitor::new`]
-//! and [`calibration::CalibrationMonitor::new`], among them the fleet counters that add up
-//! across replicas exactly.
-
-pub mod calibration;
-pub mod drift;
-pub(crate) mod families;
-pub mod monitor;
-pub mod outcomes;
+//! and, with monitoring on, the drift and calibration series of
+//! [`crate::monitoring::drift::DriftMonitor::new`] and
+//! [`crate::monitoring::calibration::CalibrationMonitor::new`], among them the fleet counters
+//! that add up across replicas exactly.
 
 use prometheus::{
     Encoder, Histogram, HistogramOpts, HistogramVec, IntCounter, IntCounterVec, IntGauge,

@@ -18,12 +18,12 @@ use anyhow::Context;
 
 use super::admin::{self, AdminState, AdminToken};
 use super::follow::{FollowHandle, Follower};
-use super::shadow::{Shadowing, Share};
 use super::shutdown::{self, first_of};
 use super::state::Failures;
 use super::{public_server, AppState, Settings};
-use crate::metrics::monitor::{Monitor, MonitorSettings};
 use crate::metrics::Metrics;
+use crate::monitoring::monitor::{Monitor, MonitorSettings};
+use crate::monitoring::shadow::{Shadowing, Share};
 use crate::receipt::ReceiptKeys;
 use crate::registry::load::load_directory;
 use crate::registry::watch::DEFAULT_INTERVAL;

@@ -29,9 +29,9 @@ use std::sync::{Arc, Mutex, PoisonError};
 use std::thread::JoinHandle;
 use std::time::Duration;
 
-use super::shadow::Shadowing;
 use super::state::{AppState, Failures, Health};
 use crate::metrics::Metrics;
+use crate::monitoring::shadow::Shadowing;
 use crate::registry::announce::Announcements;
 use crate::registry::watch::{WatchEvent, Watcher, MAX_INTERVAL};
 use crate::registry::Registry;

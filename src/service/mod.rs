@@ -22,10 +22,9 @@
 //! request_id.rs   X-Request-Id validation and generation
 //! example.rs      an example observation and curl command for a model
 //! shutdown.rs     signals, draining, graceful stop
-//! shadow.rs       scoring a shadow candidate beside the live version, and its report
 //! stored.rs       stored versions that are not live, loaded on demand for scoring
 //! follow.rs       following the model directory: the watcher, readiness, its thread
-//! admin/          the admin listener: token, lifecycle and shadow routes, its document
+//! admin/          the admin listener: token, lifecycle, shadow and monitoring routes, its document
 //! ```
 //!
 //! The service contains no statistics: it parses, calls the engine, and writes what the engine
@@ -50,7 +49,6 @@ pub mod problem;
 pub(crate) mod request_id;
 pub(crate) mod routes;
 pub mod scoring;
-pub mod shadow;
 pub(crate) mod shutdown;
 pub(crate) mod state;
 pub(crate) mod stored;

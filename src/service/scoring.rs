@@ -14,7 +14,7 @@
 //!                   used by the live version: see [`ANNOUNCED_IGNORED`])
 //! ```
 //!
-//! Receipts are sealed by monitoring ([`crate::metrics::monitor::Monitor::record_scored`]) and
+//! Receipts are sealed by monitoring ([`crate::monitoring::monitor::Monitor::record_scored`]) and
 //! handed in with [`Scored::set_receipts`]; without monitoring an answer carries none.
 
 use serde::ser::{SerializeMap, SerializeSeq};

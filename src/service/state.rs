@@ -6,10 +6,10 @@ use std::sync::Arc;
 
 use super::compute::Compute;
 use super::config::Settings;
-use super::shadow::Shadowing;
 use super::stored::StoredVersions;
-use crate::metrics::monitor::Monitor;
 use crate::metrics::Metrics;
+use crate::monitoring::monitor::Monitor;
+use crate::monitoring::shadow::Shadowing;
 use crate::registry::Registry;
 
 /// Model directory entries that failed to load, each with what failed, in name order.

@@ -222,7 +222,7 @@ fn serving_a_stored_version() -> (TestServer, ogive::model::Model) {
     let keys = Arc::new(ogive::receipt::ReceiptKeys::ephemeral().expect("key"));
     let config = Config {
         monitoring: Some(Monitoring {
-            windows: ogive::metrics::monitor::MonitorSettings::default(),
+            windows: ogive::monitoring::monitor::MonitorSettings::default(),
             keys,
         }),
         ..test_config(dir.path(), test_settings())

@@ -12,9 +12,9 @@ use std::time::{Duration, Instant};
 
 use ogive::engine::{Options, Scorer};
 use ogive::model::Model;
+use ogive::monitoring::shadow::Share;
 use ogive::registry::lifecycle;
 use ogive::service::admin::AdminToken;
-use ogive::service::shadow::Share;
 use ogive::service::{AdminConfig, AppState, Application, Config, Settings, Shutdown};
 use serde_json::{json, Value as Json};
 

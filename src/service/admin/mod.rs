@@ -18,6 +18,7 @@
 //! with route labels prefixed `admin:` so that they never mix with the callers' traffic.
 
 pub(crate) mod auth;
+pub(crate) mod monitoring;
 pub(crate) mod refusals;
 pub(crate) mod routes;
 

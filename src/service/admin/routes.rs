@@ -11,9 +11,9 @@
 //! POST   /models/{name}/rollback             {"reason": "…"} or no body → 200, the same shape
 //! GET    /models/{name}/history              → 200 {name, live, rollback_to, records, warnings, serving}
 //! PUT    /models/{name}/shadow               {"version": "V", "reason": "…"} → 200 {model, live_version, shadow_version, replaced, share, changes, notes}
-//! GET    /models/{name}/shadow               → 200 the shadow report (see `service::shadow`)
+//! GET    /models/{name}/shadow               → 200 the shadow report (see `monitoring::shadow`)
 //! DELETE /models/{name}/shadow               → 200 {model, cleared, report}: this process's final report
-//! GET    /models/{name}/monitoring           → 200 drift and calibration (see `service::routes::monitoring`)
+//! GET    /models/{name}/monitoring           → 200 drift and calibration (see `service::admin::monitoring`)
 //! GET    /openapi.json                       the admin listener's OpenAPI 3.1 document
 //! ```
 //!
@@ -31,6 +31,7 @@ use serde_json::{json, Map, Value as Json};
 use super::refusals::{changes_json, lifecycle_problem};
 use super::AdminState;
 use crate::evaluate::evidence::Evidence;
+use crate::monitoring::shadow::Shadowing;
 use crate::registry::gate::{self, Novelty};
 use crate::registry::lifecycle::{self, LifecycleError, Moved};
 use crate::service::body::{read_json, read_json_document, read_optional_json};
@@ -39,7 +40,6 @@ use crate::service::middleware::Guarded;
 use crate::service::problem::{echo, Kind, Problem};
 use crate::service::routes::models::find;
 use crate::service::routes::{method_not_allowed, not_found};
-use crate::service::shadow::Shadowing;
 
 /// The hand-written admin document.
 pub const DOCUMENT: &str = include_str!("openapi.json");
@@ -71,7 +71,7 @@ pub fn configure(cfg: &mut web::ServiceConfig) {
         )
         .service(
             resource("/models/{name}/monitoring", "GET")
-                .route(web::get().to(Guarded(crate::service::routes::monitoring::report))),
+                .route(web::get().to(Guarded(super::monitoring::report))),
         );
 }
 
@@ -485,7 +485,7 @@ pub async fn set_shadow(
         "replaced": moved.from,
         "share": shadow.share().get(),
         "changes": changes_json(&changes),
-        "notes": crate::service::shadow::threshold_note(&moved.live_model, candidate).into_iter().collect::<Vec<_>>(),
+        "notes": crate::monitoring::shadow::threshold_note(&moved.live_model, candidate).into_iter().collect::<Vec<_>>(),
     })))
 }
 

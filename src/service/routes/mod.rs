@@ -5,7 +5,6 @@
 pub(crate) mod curve;
 pub(crate) mod health;
 pub(crate) mod models;
-pub(crate) mod monitoring;
 pub(crate) mod openapi;
 pub(crate) mod outcomes;
 pub(crate) mod probability;

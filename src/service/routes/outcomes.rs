@@ -17,15 +17,15 @@
 //! ```
 //!
 //! An outcome is 0 or 1 (`false` and `true` are taken too). The checking and the figures are
-//! [`crate::metrics::monitor`]'s; this file only parses and answers.
+//! [`crate::monitoring::monitor`]'s; this file only parses and answers.
 
 use actix_web::http::header;
 use actix_web::{web, HttpRequest, HttpResponse};
 use serde_json::{json, Map, Value as Json};
 
 use super::models::find;
-use crate::metrics::monitor::Monitor;
-use crate::metrics::outcomes::OutcomeError;
+use crate::monitoring::monitor::Monitor;
+use crate::monitoring::outcomes::OutcomeError;
 use crate::receipt::MAX_RECEIPT_CHARS;
 use crate::service::body::read_json;
 use crate::service::dto::json_kind;

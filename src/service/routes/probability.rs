@@ -1,5 +1,5 @@
 //! `POST /models/{name}/probability`: one observation or a batch, scored by the live version
-//! (and, once the answer is built, by the entry's shadow candidate, if any: `service::shadow`).
+//! (and, once the answer is built, by the entry's shadow candidate, if any: `monitoring::shadow`).
 //! `POST /models/{name}/versions/{version}/probability`: the same request scored by a stored
 //! version named by its label (`service::stored`), through the same code. When that version is
 //! not live, the answer carries a `not_live` note, its receipts name that version, and it
@@ -18,6 +18,7 @@ use actix_web::{web, HttpMessage, HttpRequest, HttpResponse};
 
 use super::models::find;
 use crate::model::{Model, Value};
+use crate::monitoring::shadow::reads_announced;
 use crate::registry::{gate, Entry};
 use crate::service::admin::refusals::gate_problem;
 use crate::service::body::{parse_json, read_json_bytes};
@@ -28,7 +29,6 @@ use crate::service::observations::{parse_all, parse_object};
 use crate::service::problem::{Kind, Problem};
 use crate::service::request_id::RequestId;
 use crate::service::scoring::{announced_message, score, ANNOUNCED_IGNORED};
-use crate::service::shadow::reads_announced;
 use crate::service::state::AppState;
 
 /// Which version answers a request: the live one, or a stored one asked for by its label.

@@ -48,7 +48,7 @@
 //! outcome is O(1).
 //!
 //! This module does not know where outcomes come from (the answer store in
-//! [`crate::metrics::outcomes`] matches them to answers) and knows nothing of HTTP.
+//! [`crate::monitoring::outcomes`] matches them to answers) and knows nothing of HTTP.
 
 use std::collections::HashMap;
 use std::sync::{Arc, Mutex, PoisonError};

@@ -14,7 +14,7 @@
 //! outcome once; the set only catches retries that land on the same replica.
 //!
 //! This module does not read HTTP or compute calibration figures
-//! ([`crate::metrics::calibration`] does).
+//! ([`crate::monitoring::calibration`] does).
 
 use std::collections::{HashSet, VecDeque};
 use std::sync::{Mutex, PoisonError};

@@ -4,7 +4,7 @@
 //! reported so far — plus this process's receipt bookkeeping (ids remembered, maximum age,
 //! whether the key is ephemeral).
 //!
-//! The report is built by [`crate::metrics::monitor::Monitor::report`]; this file only finds
+//! The report is built by [`crate::monitoring::monitor::Monitor::report`]; this file only finds
 //! the model and serializes. The figures are this process's own: replicas each keep their own
 //! windows, and Prometheus aggregates them. The same figures, without the bins, are on the
 //! public `/metrics`.
@@ -12,10 +12,10 @@
 use actix_web::http::header;
 use actix_web::{web, HttpResponse};
 
-use super::models::find;
-use super::outcomes::monitor_of;
 use crate::service::admin::AdminState;
 use crate::service::problem::Problem;
+use crate::service::routes::models::find;
+use crate::service::routes::outcomes::monitor_of;
 use crate::service::state::AppState;
 
 /// The monitoring report of model `name` served by `state`.
