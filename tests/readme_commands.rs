@@ -14,7 +14,8 @@
 //!   stand-in `cargo` that does nothing (the binary is already there) and refuses any other
 //!   cargo command;
 //! - the addresses 127.0.0.1:8080 and 127.0.0.1:8081 become two free loopback ports, in the
-//!   text and in `OGIVE_LISTEN` and `OGIVE_ADMIN_LISTEN`; the drain delay is short;
+//!   text and in `OGIVE_LISTEN` and `OGIVE_ADMIN_LISTEN`, and 127.0.0.1:8082 and 8083 (the
+//!   walk-through's other replicas) two more in the text; the drain delay is short;
 //! - the script runs with `set -euo pipefail`, and `curl` fails on an HTTP error status
 //!   (`--fail-with-body`) and gives up after 30 s, so a refused request fails the test;
 //! - the whole run is bounded in time, and its process group (the servers started in the
@@ -204,6 +205,7 @@ fn the_readme_commands_work_pasted_in_order_on_a_fresh_copy() {
     );
 
     let (public, admin) = (free_port(), free_port());
+    let (second, third) = (free_port(), free_port());
     let mut script = String::from(
         "set -euo pipefail\n\
          curl() {\n\
@@ -217,7 +219,9 @@ fn the_readme_commands_work_pasted_in_order_on_a_fresh_copy() {
         let text = block
             .text
             .replace("127.0.0.1:8080", &format!("127.0.0.1:{public}"))
-            .replace("127.0.0.1:8081", &format!("127.0.0.1:{admin}"));
+            .replace("127.0.0.1:8081", &format!("127.0.0.1:{admin}"))
+            .replace("127.0.0.1:8082", &format!("127.0.0.1:{second}"))
+            .replace("127.0.0.1:8083", &format!("127.0.0.1:{third}"));
         let _ = writeln!(script, "echo '### README.md line {}'", block.line);
         script.push_str(&text);
         script.push_str("echo\n");
