@@ -9,6 +9,11 @@
 //!   population, fitted with `--population-rate`, recovers the population intercept within the
 //!   project's 4 standard errors; the corrected intercept is the uncorrected one minus
 //!   ln[((1 − τ)/τ)·(ȳ/(1 − ȳ))] (King and Zeng 2001, closed form).
+//! - The information criteria with frequency weights take n = Σw (statsmodels `aic`, `bic`,
+//!   `wnobs`), a row of weight 0 counts for nothing (statsmodels, the same fixture: the fit
+//!   with a `some_zero` column), and under sampling weights no AIC or BIC is given.
+//! - Rank, separation and collinearity checks judge the rows that count: a row of weight 0
+//!   neither rescues a degenerate design nor spoils a good one.
 //! - Bad weights are refused naming the row and the column.
 
 mod support;
@@ -17,7 +22,7 @@ use std::fmt::Write;
 
 use ogive::engine::Options;
 use ogive::fit::{
-    CovarianceType, Fitted, PopulationMethod, PopulationRate, WeightColumn, WeightKind,
+    Counting, CovarianceType, Fitted, PopulationMethod, PopulationRate, WeightColumn, WeightKind,
 };
 use ogive::link::Link;
 use ogive::model::file::WeightingMethod;
@@ -104,12 +109,19 @@ fn compare(fitted: &Fitted, reference: &Json, terms: &[String], what: &str) {
     );
 }
 
-/// statsmodels GLM(freq_weights=copies), classical covariance (inverse observed information).
+/// statsmodels GLM(freq_weights=copies), classical covariance (inverse observed information);
+/// and GLM(freq_weights=some_zero), where every fifth row has weight 0 and counts for nothing,
+/// in the estimate, the covariance, the likelihoods and the information criteria.
 #[test]
 fn frequency_weights_match_statsmodels_freq_weights() {
     let fixture = weights_fixture();
     let terms = strings(&fixture["terms"]);
     for link in [Link::Logit, Link::Probit] {
+        let fitted = weighted_fit(link, "some_zero", WeightKind::Frequency);
+        let reference = &fixture[link.name()]["some_zero"];
+        let what = format!("{link}, weights with zeros vs statsmodels");
+        compare(&fitted, reference, &terms, &what);
+        assert_criteria(&fitted, reference, &what);
         let fitted = weighted_fit(link, "copies", WeightKind::Frequency);
         let what = format!("{link}, frequency weights vs statsmodels");
         compare(&fitted, &fixture[link.name()]["frequency"], &terms, &what);
@@ -381,4 +393,135 @@ fn bad_weights_are_refused_naming_the_row_and_the_column() {
     }
     let e = refusal(good, Some(("w", WeightKind::Frequency)), Some(0.1));
     assert!(e.contains("cannot be combined"), "{e}");
+}
+
+/// AIC and BIC against statsmodels' `aic` and `bic` (its `bic_llf`).
+fn assert_criteria(fitted: &Fitted, reference: &Json, what: &str) {
+    let report = &fitted.report;
+    for (ours, key) in [(report.aic(), "aic"), (report.bic(), "bic")] {
+        assert_relative(
+            ours.expect("a frequency-weighted fit has information criteria"),
+            reference[key].as_f64().expect(key),
+            LOG_LIKELIHOOD_VS_STATSMODELS,
+            format!("{what}: {key}"),
+        );
+    }
+}
+
+/// statsmodels GLM(freq_weights=copies): `aic`, `bic` (from ln Σw) and `wnobs`.
+#[test]
+fn frequency_weights_count_the_weight_sum_in_aic_and_bic() {
+    let fixture = weights_fixture();
+    for link in [Link::Logit, Link::Probit] {
+        let fitted = weighted_fit(link, "copies", WeightKind::Frequency);
+        let reference = &fixture[link.name()]["frequency"];
+        let what = format!("{link}, frequency weights vs statsmodels");
+        let report = &fitted.report;
+        assert_eq!(
+            report.observations,
+            reference["nobs"].as_u64().expect("nobs"),
+            "{what}: rows"
+        );
+        assert_eq!(
+            report.counting,
+            Counting::Frequency {
+                observations: reference["weighted_nobs"].as_f64().expect("wnobs")
+            },
+            "{what}: observations"
+        );
+        assert_criteria(&fitted, reference, &what);
+        let printed = report.to_string();
+        assert!(
+            printed.contains("1500 rows standing for 3755 observations (frequency weights)"),
+            "{printed}"
+        );
+        let notes = fitted.file.provenance.notes.as_deref().unwrap_or_default();
+        assert!(notes.contains("AIC") && notes.contains("BIC"), "{notes}");
+    }
+}
+
+/// Under sampling weights the weighted log-likelihood is a pseudo-likelihood: it is shown
+/// under that name and no AIC or BIC is given, in the summary or the model file's notes.
+#[test]
+fn sampling_weights_give_no_information_criteria() {
+    let fitted = weighted_fit(Link::Logit, "inverse_p", WeightKind::Sampling);
+    let report = &fitted.report;
+    assert_eq!(report.counting, Counting::Sampling);
+    assert_eq!((report.aic(), report.bic()), (None, None));
+    let printed = report.to_string();
+    assert!(printed.contains("pseudo-log-likelihood"), "{printed}");
+    assert!(!printed.contains("\nAIC"), "{printed}");
+    let notes = fitted.file.provenance.notes.as_deref().unwrap_or_default();
+    assert!(
+        !notes.contains(", AIC ") && notes.contains("no AIC or BIC"),
+        "{notes}"
+    );
+}
+
+/// A fit of `text` with frequency weights from column `w`.
+fn fit_weighted_text(text: &str, terms: &str) -> Result<Fitted, String> {
+    let csv = temp_csv(text);
+    let mut r = request(&csv.path, "y", terms);
+    r.weights = Some(WeightColumn {
+        column: "w".into(),
+        kind: WeightKind::Frequency,
+    });
+    fit_request(&r).map_err(|e| e.to_string())
+}
+
+fn weighted_refusal(text: &str, terms: &str) -> String {
+    match fit_weighted_text(text, terms) {
+        Ok(_) => panic!("accepted {text:?}"),
+        Err(e) => e,
+    }
+}
+
+/// The rows of positive weight have b = 2·a exactly; the one row breaking that has weight 0.
+#[test]
+fn a_zero_weight_row_does_not_rescue_a_rank_deficient_design() {
+    let mut text = String::from("y,a,b,w\n");
+    for (i, a) in [0.3, 1.1, 2.0, 2.7, 3.4, 4.2, 5.0, 5.9].iter().enumerate() {
+        writeln!(text, "{},{a},{},1", i % 2, 2.0 * a).unwrap();
+    }
+    text.push_str("1,1.0,7.5,0\n");
+    let e = weighted_refusal(&text, "a, b");
+    assert!(
+        e.contains("term 'b' is a linear combination of earlier terms: b = 2·a"),
+        "{e}"
+    );
+}
+
+/// Outcome 1 exactly where a > 2 among the rows that count; the row that would break the
+/// separation has weight 0. Given weight 1 instead, the same data fit.
+#[test]
+fn a_zero_weight_row_does_not_hide_a_separation() {
+    let mut rows = String::new();
+    for a in [0.2, 0.5, 0.9, 1.4, 1.8, 2.3, 2.6, 3.1, 3.3, 3.9] {
+        writeln!(rows, "{},{a}", u8::from(a > 2.0)).unwrap();
+    }
+    let with = |weight: u8| {
+        let mut text = String::from("y,a,w\n");
+        for line in rows.lines() {
+            writeln!(text, "{line},1").unwrap();
+        }
+        writeln!(text, "0,3.5,{weight}").unwrap();
+        writeln!(text, "1,0.7,{weight}").unwrap();
+        text
+    };
+    let e = weighted_refusal(&with(0), "a");
+    assert!(
+        e.contains("complete separation: term 'a' predicts the outcome"),
+        "{e}"
+    );
+    if let Err(e) = fit_weighted_text(&with(1), "a") {
+        panic!("refused the same data with both rows counted: {e}");
+    }
+}
+
+/// The outcome is constant among the rows that count: refused, though a zero-weight row has
+/// the other value.
+#[test]
+fn a_zero_weight_row_does_not_make_the_outcome_vary() {
+    let e = weighted_refusal("y,a,w\n0,1,1\n0,2,2\n0,3,1\n1,4,0\n", "a");
+    assert!(e.contains("outcome 'y' is 0 in all 3 observations"), "{e}");
 }

@@ -226,13 +226,18 @@ pub fn symmetrise(matrix: &mut [f64], k: usize) {
     }
 }
 
-/// `XᵀX`, the unweighted Gram matrix (for the rank check).
-pub fn gram(design: &Design) -> Vec<f64> {
+/// `XᵀWX`, the Gram matrix of the design with the rows weighted (`XᵀX` without weights), for
+/// the rank and collinearity checks: a row of weight 0 adds nothing, so a design is judged by
+/// the observations that count.
+pub fn gram(design: &Design, weights: Option<&[f64]>) -> Vec<f64> {
     let k = design.columns();
     let mut g = reduce_rows(
         design.rows(),
         || vec![0.0; k * k],
-        |acc, range| add_weighted_gram(acc, design.rows_of(range), None, k),
+        |acc, range| {
+            let block_weights = weights.map(|w| &w[range.clone()]);
+            add_weighted_gram(acc, design.rows_of(range), block_weights, k)
+        },
         |total, part| total.iter_mut().zip(part).for_each(|(t, p)| *t += p),
     );
     symmetrise(&mut g, k);

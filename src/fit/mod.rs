@@ -56,7 +56,7 @@ use crate::model::file::{
 use crate::model::{TermText, FORMAT_NAME, FORMAT_VERSION};
 
 pub use error::FitError;
-pub use report::FitReport;
+pub use report::{Counting, FitReport};
 pub use weighting::{PopulationMethod, PopulationRate, WeightColumn, WeightKind};
 pub use write::write_model_file;
 
@@ -464,15 +464,6 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
             String::new()
         }));
     }
-    let ones = table.outcome.iter().filter(|&&y| y > 0.5).count();
-    if ones == 0 || ones == n {
-        return Err(FitError::OutcomeConstant {
-            column: request.outcome.clone(),
-            value: u8::from(ones == n),
-            rows: n as u64,
-        });
-    }
-
     let weights: Option<Vec<f64>> = match &weighting_plan {
         weighting::Plan::PopulationWeights(rate) => {
             Some(weighting::population_weights(&table.outcome, *rate))
@@ -488,6 +479,19 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
         }
     }
     let weights = weights.as_deref();
+    // A row of weight 0 is no observation: it counts for neither outcome.
+    let counts = |i: usize| weights.is_none_or(|w| w[i] > 0.0);
+    let counted = (0..n).filter(|&i| counts(i)).count();
+    let ones = (0..n)
+        .filter(|&i| counts(i) && table.outcome[i] > 0.5)
+        .count();
+    if ones == 0 || ones == counted {
+        return Err(FitError::OutcomeConstant {
+            column: request.outcome.clone(),
+            value: u8::from(ones == counted),
+            rows: counted as u64,
+        });
+    }
 
     let shapes = shapes(request, &names, &table.columns)?;
     let design_terms = terms::expand(&parsed, &shapes, request.intercept)?;
@@ -495,11 +499,11 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
     let resolved: Vec<_> = design_terms.iter().map(|t| t.term.clone()).collect();
     let k = labels.len();
     let design = Design::build(&table.columns, n, &resolved);
-    let gram = design::gram(&design);
-    rank::check_rank(&gram, &labels, n)?;
+    let gram = design::gram(&design, weights);
+    rank::check_rank(&gram, &labels, counted)?;
     let collinearity = rank::collinearity_note(rank::condition_number(&gram, k));
     drop(gram);
-    separation::check_single_terms(&design, &table.outcome, &labels)?;
+    separation::check_single_terms(&design, &table.outcome, weights, &labels)?;
 
     progress.start_fitting();
     let share = weighting::sample_rate(&table.outcome, weights);
@@ -529,6 +533,7 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
         separation::diagnose(
             &design,
             &table.outcome,
+            weights,
             request.link,
             &stopped.coefficients,
             &labels,
@@ -640,6 +645,13 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
         link: request.link,
         covariance_type: covariance_type.name().to_string(),
         observations: n as u64,
+        counting: match &weighting_plan {
+            _ if weighting_plan.sampling() => report::Counting::Sampling,
+            weighting::Plan::Column(_) => report::Counting::Frequency {
+                observations: weights.map_or(n as f64, |w| w.iter().sum()),
+            },
+            _ => report::Counting::Rows,
+        },
         dropped: table.dropped,
         iterations: estimate.iterations,
         fisher_steps: estimate.fisher_steps,
@@ -661,16 +673,14 @@ fn fit_here(request: &FitRequest, progress: &dyn Progress) -> Result<Fitted, Fit
         Some(w) => format!("; {}", w.summary()),
     };
     let notes = format!(
-        "{} link; {} covariance ({}); McFadden pseudo-R² {:.6}, AIC {:.6}, BIC {:.6}; {} rows in the file, {} dropped for missing values{}{weighting_note}",
+        "{} link; {} covariance ({}); {}; {} rows in the file, {} dropped for missing values{}{weighting_note}",
         request.link,
         covariance_type.name(),
         match covariance_type {
             CovarianceType::Classical => "inverse of the observed information",
             CovarianceType::Robust => "HC0 sandwich",
         },
-        report.pseudo_r_squared(),
-        report.aic(),
-        report.bic(),
+        report.figures(),
         table.rows_in_file,
         table.dropped,
         if references.is_empty() {

@@ -150,7 +150,7 @@ mod tests {
             [1.0, 5.0, 11.0],
         ]);
         let labels = ["intercept".to_string(), "a".into(), "b".into()];
-        let e = check_rank(&gram(&d), &labels, 4).unwrap_err();
+        let e = check_rank(&gram(&d, None), &labels, 4).unwrap_err();
         assert_eq!(
             e.to_string(),
             "the design is rank-deficient: term 'b' is a linear combination of earlier terms: b = 1·intercept + 2·a"
@@ -166,6 +166,6 @@ mod tests {
             [1.0, 5.0, 1.0],
         ]);
         let labels = ["intercept".to_string(), "a".into(), "b".into()];
-        assert!(check_rank(&gram(&d), &labels, 4).is_ok());
+        assert!(check_rank(&gram(&d, None), &labels, 4).is_ok());
     }
 }

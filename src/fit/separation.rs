@@ -13,6 +13,9 @@
 //! - **After a failed fit, for combinations of terms.** If observations are fitted within
 //!   1e-10 of their outcome, the fit is reported as separated, naming the term with the
 //!   largest scaled coefficient |βⱼ|·sd(xⱼ) and its sign.
+//!
+//! With weights both checks look only at the rows that count: a row of weight 0 neither
+//! breaks a separation nor is counted as fitted, and sd(xⱼ) is the weighted one.
 
 use crate::link::Link;
 
@@ -113,6 +116,7 @@ fn describe(label: &str, e: &Extremes, intercept: bool) -> Option<(&'static str,
 pub fn check_single_terms(
     design: &Design,
     outcome: &[f64],
+    weights: Option<&[f64]>,
     labels: &[String],
 ) -> Result<(), FitError> {
     let k = design.columns();
@@ -122,6 +126,9 @@ pub fn check_single_terms(
         || vec![Extremes::new(); k],
         |acc, range| {
             for i in range {
+                if weights.is_some_and(|w| w[i] == 0.0) {
+                    continue;
+                }
                 let one = outcome[i] > 0.5;
                 for (e, &x) in acc.iter_mut().zip(design.row(i)) {
                     if one {
@@ -152,17 +159,23 @@ pub fn check_single_terms(
 pub fn diagnose(
     design: &Design,
     outcome: &[f64],
+    weights: Option<&[f64]>,
     link: Link,
     beta: &[f64],
     labels: &[String],
 ) -> Option<FitError> {
-    let n = design.rows();
     let k = design.columns();
-    let (perfect, sums, squares) = reduce_rows(
-        n,
-        || (0u64, vec![0.0; k], vec![0.0; k]),
+    let (perfect, counted, total_weight, sums, squares) = reduce_rows(
+        design.rows(),
+        || (0u64, 0u64, 0.0, vec![0.0; k], vec![0.0; k]),
         |acc, range| {
             for i in range {
+                let v = weights.map_or(1.0, |w| w[i]);
+                if v == 0.0 {
+                    continue;
+                }
+                acc.1 += 1;
+                acc.2 += v;
                 let x = design.row(i);
                 let z = index(x, beta);
                 let miss = if outcome[i] > 0.5 {
@@ -173,22 +186,25 @@ pub fn diagnose(
                 if miss < PERFECT_FIT {
                     acc.0 += 1;
                 }
-                for ((sum, square), &xj) in acc.1.iter_mut().zip(acc.2.iter_mut()).zip(x) {
-                    *sum += xj;
-                    *square += xj * xj;
+                for ((sum, square), &xj) in acc.3.iter_mut().zip(acc.4.iter_mut()).zip(x) {
+                    *sum += v * xj;
+                    *square += v * xj * xj;
                 }
             }
         },
         |total, part| {
             total.0 += part.0;
-            total.1.iter_mut().zip(part.1).for_each(|(t, p)| *t += p);
-            total.2.iter_mut().zip(part.2).for_each(|(t, p)| *t += p);
+            total.1 += part.1;
+            total.2 += part.2;
+            total.3.iter_mut().zip(part.3).for_each(|(t, p)| *t += p);
+            total.4.iter_mut().zip(part.4).for_each(|(t, p)| *t += p);
         },
     );
     if perfect == 0 {
         return None;
     }
-    let nf = n as f64;
+    let n = counted;
+    let nf = total_weight;
     let (term, scaled) = (0..k)
         .filter(|&j| labels[j] != "intercept")
         .map(|j| {
@@ -197,7 +213,7 @@ pub fn diagnose(
             (j, beta[j] * sd)
         })
         .max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))?;
-    let kind = if perfect as usize == n {
+    let kind = if perfect == n {
         "complete"
     } else {
         "quasi-complete"
