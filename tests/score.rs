@@ -1,5 +1,6 @@
 //! `ogive score`, run as a process on temporary CSV files: its output equals the engine's
-//! answers row for row, bad rows stop or are skipped as asked, shards partition the rows, and
+//! answers row for row, bad rows stop, are skipped or are kept with an error column as asked,
+//! decision and contribution columns follow their definitions, shards partition the rows, and
 //! standard input and output work; any number of threads writes the bytes of one.
 
 mod support;
@@ -8,7 +9,7 @@ use std::collections::HashMap;
 use std::path::Path;
 
 use ogive::batch::{
-    output_columns, output_header, score_csv, ErrorPolicy, RowStream, ScoreOptions, Shard,
+    output_columns, output_header, score_csv, BadRowPolicy, RowStream, ScoreOptions, Shard,
     SKIPPED_EXAMPLES,
 };
 use ogive::engine::{Options, Scorer, Warning};
@@ -16,7 +17,14 @@ use ogive::model::{Model, Value};
 use rand::{Rng, SeedableRng};
 use support::cli::{model_json, portfolio_json, run, write_model};
 use support::close::within;
-use support::tolerances::score::{CSV_ROUND_TRIP, STATSMODELS_PREDICT};
+use support::tolerances::score::{CONTRIBUTION_CLOSED_FORM, CSV_ROUND_TRIP, STATSMODELS_PREDICT};
+
+fn with_effects(effects: bool) -> ScoreOptions {
+    ScoreOptions {
+        effects,
+        ..ScoreOptions::default()
+    }
+}
 
 /// The columns of the generated input files, covariates and pass-through columns mixed.
 const INPUT_COLUMNS: [&str; 7] = [
@@ -155,7 +163,7 @@ fn output_equals_the_engine_row_for_row() {
     assert_eq!(result.code, 0, "{}", result.stderr);
     let (header, records) = read_csv(&std::fs::read_to_string(&out).unwrap());
     let mut expected_header: Vec<String> = INPUT_COLUMNS.iter().map(|s| s.to_string()).collect();
-    expected_header.extend(output_columns(&model, true));
+    expected_header.extend(output_columns(&model, &with_effects(true)).unwrap());
     assert_eq!(header, expected_header);
     assert_eq!(records.len(), generated.len());
 
@@ -223,7 +231,7 @@ fn output_equals_the_engine_row_for_row() {
 #[test]
 fn effect_columns_are_named_per_covariate_and_level() {
     let model = Model::from_json(&serde_json::to_vec(&portfolio_json(true)).unwrap()).unwrap();
-    let columns = output_columns(&model, true);
+    let columns = output_columns(&model, &with_effects(true)).unwrap();
     assert_eq!(
         columns,
         [
@@ -247,7 +255,7 @@ fn effect_columns_are_named_per_covariate_and_level() {
         ]
     );
     assert_eq!(
-        output_columns(&model, false),
+        output_columns(&model, &with_effects(false)).unwrap(),
         [
             "probability",
             "probability_lower",
@@ -367,6 +375,181 @@ fn skip_leaves_bad_rows_out_counts_them_and_names_each() {
         e.contains("(row shape): 1, arrears: 1, revenue: 2, sector: 1"),
         "{e}"
     );
+}
+
+/// Under `--on-error keep` every input row is written, in order; a bad row keeps its fields
+/// (a short one padded to the header), its added cells are empty, and the error column says
+/// what is wrong in the words `--on-error stop` would use.
+#[test]
+fn keep_writes_bad_rows_in_place_with_what_is_wrong() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let model = write_model(dir.path(), "m.json", &portfolio_json(true));
+    let mut args = score_args(model.to_str().unwrap(), "-", "-");
+    args.extend(["--on-error", "keep"]);
+    let result = run(&args, Some(BAD_ROWS.as_bytes()), &[]);
+    assert_eq!(result.code, 0, "{}", result.stderr);
+    let (header, records) = read_csv(&result.stdout);
+    assert_eq!(header.last().map(String::as_str), Some("error"));
+    assert_eq!(header[header.len() - 2], "warnings");
+    let ids: Vec<&str> = records.iter().map(|r| r[0].as_str()).collect();
+    assert_eq!(ids, ["a", "b", "c", "d", "e", "f", "g", "h"]);
+    let at = |name: &str| header.iter().position(|h| h == name).expect(name);
+    let errors = [
+        ("b", "covariate 'arrears' is a count"),
+        ("d", "covariate 'sector' has no level 'shipping'"),
+        ("e", "term 'log(revenue)' needs revenue > 0, got -4"),
+        ("f", "the row has 4 fields but the header has 6"),
+        ("g", "covariate 'revenue' is empty"),
+    ];
+    for record in &records {
+        assert_eq!(record.len(), header.len(), "row {}", record[0]);
+        let expected = errors.iter().find(|(id, _)| *id == record[0]);
+        match expected {
+            Some((_, message)) => {
+                assert!(
+                    record[at("error")].contains(message),
+                    "{}: {:?}",
+                    record[0],
+                    record[at("error")]
+                );
+                for cell in &record[at("probability")..at("error")] {
+                    assert_eq!(
+                        cell, "",
+                        "row {}: an unscored row has empty cells",
+                        record[0]
+                    );
+                }
+            }
+            None => {
+                assert_eq!(record[at("error")], "", "row {}", record[0]);
+                assert!(number(&record[at("probability")]) > 0.0);
+            }
+        }
+    }
+    // The short row keeps its four fields and is padded to six.
+    let short = records.iter().find(|r| r[0] == "f").expect("row f");
+    assert_eq!(&short[..6], ["f", "100", "3", "0", "", ""]);
+    let e = &result.stderr;
+    assert!(
+        e.contains("scored 3 of 8 rows; 5 kept unscored with an error"),
+        "{e}"
+    );
+    assert!(e.contains("unscored row 4 (line 5)"), "{e}");
+}
+
+/// The portfolio model with a threshold of 0.3 and bands low < 0.2 ≤ medium < 0.5 ≤ high.
+fn portfolio_with_decision() -> serde_json::Value {
+    let mut json = portfolio_json(true);
+    json["decision"] = serde_json::json!({
+        "threshold": 0.3,
+        "bands": [
+            {"name": "low", "below": 0.2},
+            {"name": "medium", "below": 0.5},
+            {"name": "high", "below": 1.0}
+        ]
+    });
+    json
+}
+
+/// `--decision` adds the band and above_threshold columns, each following its definition (the
+/// first band whose bound exceeds p; p ≥ threshold), and `--contributions` one column per
+/// covariate equal to the engine's contribution, which for a covariate entering only through
+/// a linear term is β·(x − x̄) (arrears: 0.42·(x − 0.7)) and for the categorical
+/// Σₗ βₗ·(1[level = l] − shareₗ) over its non-reference levels (training shares 0.3 and 0.2).
+#[test]
+fn decision_and_contribution_columns_follow_their_definitions() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let json = portfolio_with_decision();
+    let model_path = write_model(dir.path(), "portfolio.json", &json);
+    let model = Model::from_json(&serde_json::to_vec(&json).unwrap()).expect("valid model");
+    let generated = rows(300, 5);
+    let data = dir.path().join("in.csv");
+    write_rows(&data, &generated);
+    let mut args = score_args(model_path.to_str().unwrap(), data.to_str().unwrap(), "-");
+    args.extend(["--decision", "--contributions"]);
+    let result = run(&args, None, &[]);
+    assert_eq!(result.code, 0, "{}", result.stderr);
+    let (header, records) = read_csv(&result.stdout);
+    let added: Vec<&str> = header[INPUT_COLUMNS.len()..]
+        .iter()
+        .map(String::as_str)
+        .collect();
+    assert_eq!(
+        added,
+        [
+            "probability",
+            "probability_lower",
+            "probability_upper",
+            "linear_index",
+            "band",
+            "above_threshold",
+            "contribution_revenue",
+            "contribution_years",
+            "contribution_arrears",
+            "contribution_guarantor",
+            "contribution_sector",
+            "warnings",
+        ]
+    );
+    let at = |name: &str| header.iter().position(|h| h == name).expect(name);
+    let mut scorer = Scorer::new(&model);
+    let options = Options::new(0.95).unwrap();
+    let mut bands_seen = std::collections::BTreeSet::new();
+    for (row, record) in generated.iter().zip(&records) {
+        let p = number(&record[at("probability")]);
+        let band = match p {
+            p if p < 0.2 => "low",
+            p if p < 0.5 => "medium",
+            _ => "high",
+        };
+        assert_eq!(record[at("band")], band, "{}: p = {p}", row.id);
+        bands_seen.insert(band);
+        let above = if p >= 0.3 { "true" } else { "false" };
+        assert_eq!(record[at("above_threshold")], above, "{}: p = {p}", row.id);
+        let answer = scorer.score(&model, &values(row), &options);
+        for c in &answer.contributions {
+            let name = ogive::batch::contribution_column(&model, c.covariate);
+            assert!(
+                within(number(&record[at(&name)]), c.contribution, CSV_ROUND_TRIP),
+                "{name} in {}",
+                row.id
+            );
+        }
+        let arrears = 0.42 * (f64::from(row.arrears) - 0.7);
+        assert!(
+            (number(&record[at("contribution_arrears")]) - arrears).abs()
+                <= CONTRIBUTION_CLOSED_FORM,
+            "{}",
+            row.id
+        );
+        let level = |l: usize| f64::from(u8::from(row.sector == l));
+        let sector = 0.25 * (level(1) - 0.3) + 0.55 * (level(2) - 0.2);
+        assert!(
+            (number(&record[at("contribution_sector")]) - sector).abs() <= CONTRIBUTION_CLOSED_FORM,
+            "{}",
+            row.id
+        );
+    }
+    assert_eq!(bands_seen.len(), 3, "the rows should fall in every band");
+}
+
+/// `--decision` with a model that has no threshold and no bands is refused before any row.
+#[test]
+fn decision_columns_need_a_model_with_a_decision() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let model = write_model(dir.path(), "m.json", &portfolio_json(true));
+    let mut args = score_args(model.to_str().unwrap(), "-", "-");
+    args.push("--decision");
+    let result = run(&args, Some(BAD_ROWS.as_bytes()), &[]);
+    assert_ne!(result.code, 0);
+    assert!(
+        result
+            .stderr
+            .contains("model portfolio-test 3.1 has no decision threshold or bands"),
+        "{}",
+        result.stderr
+    );
+    assert!(result.stdout.is_empty(), "{}", result.stdout);
 }
 
 #[test]
@@ -522,7 +705,7 @@ fn one_stream_reference(
     let mut rows = RowStream::new(model, input).expect("header");
     let mut writer = csv::Writer::from_writer(Vec::new());
     writer
-        .write_byte_record(&output_header(model, rows.header(), options.effects).expect("header"))
+        .write_byte_record(&output_header(model, rows.header(), options).expect("header"))
         .expect("write");
     let mut scorer = Scorer::new(model);
     let mut engine = Options::new(options.level).unwrap();
@@ -620,7 +803,7 @@ fn any_thread_count_and_block_size_give_the_bytes_of_one_stream() {
         for shard in [Shard::ALL, Shard::new(1, 3).unwrap()] {
             let base = ScoreOptions {
                 effects: true,
-                on_error: ErrorPolicy::Skip,
+                on_error: BadRowPolicy::Skip,
                 shard,
                 block_rows: 25,
                 ..ScoreOptions::default()
@@ -689,7 +872,7 @@ fn a_stopping_row_is_numbered_in_the_file_whatever_the_blocks() {
         &model,
         &input,
         &ScoreOptions {
-            on_error: ErrorPolicy::Skip,
+            on_error: BadRowPolicy::Skip,
             ..base
         },
     );

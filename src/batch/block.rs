@@ -16,7 +16,7 @@ use csv::ByteRecord;
 
 use super::input::parse_record;
 use super::output::RowWriter;
-use super::{BatchError, ErrorPolicy, RowError, ScoreOptions, WarningTally, SKIPPED_EXAMPLES};
+use super::{BadRowPolicy, BatchError, RowError, ScoreOptions, WarningTally, SKIPPED_EXAMPLES};
 use crate::engine::{Options, Scorer};
 use crate::model::{Model, Value};
 
@@ -32,7 +32,7 @@ pub(super) struct BlockReport {
     pub rows_in_shard: u64,
     /// Rows scored and written to the block's output.
     pub rows_scored: u64,
-    /// Rows left out under [`ErrorPolicy::Skip`].
+    /// Rows not scored under [`BadRowPolicy::Skip`] or [`BadRowPolicy::Keep`].
     pub rows_skipped: u64,
     /// The block's first skipped rows, at most [`SKIPPED_EXAMPLES`].
     pub skipped_examples: Vec<RowError>,
@@ -40,7 +40,7 @@ pub(super) struct BlockReport {
     pub skipped_by_covariate: BTreeMap<String, u64>,
     /// Warnings over the block's scored rows.
     pub warnings: WarningTally,
-    /// The row that stopped the run under [`ErrorPolicy::Stop`]; the output holds the rows
+    /// The row that stopped the run under [`BadRowPolicy::Stop`]; the output holds the rows
     /// before it.
     pub stopped: Option<RowError>,
 }
@@ -107,7 +107,7 @@ impl<'m> BlockScorer<'m> {
             options,
             engine_options,
             scorer: Scorer::new(model),
-            writer: RowWriter::new(model, options.effects),
+            writer: RowWriter::new(model, options),
             record: ByteRecord::new(),
             values: Vec::with_capacity(model.covariates.len()),
         }
@@ -172,18 +172,29 @@ impl<'m> BlockScorer<'m> {
                 .record
                 .position()
                 .map_or((0, 0), |p| record_start(input, p));
+            let end = reader.position().byte() as usize;
             if let Err(problem) = parsed {
+                if options.on_error == BadRowPolicy::Keep {
+                    let text = record_text(input, start, end);
+                    self.writer.write_error(
+                        output,
+                        &self.record,
+                        Some(text),
+                        self.header_len,
+                        &problem,
+                    );
+                }
                 let error = RowError {
                     row: report.records,
                     line,
                     problem,
                 };
                 match options.on_error {
-                    ErrorPolicy::Stop => {
+                    BadRowPolicy::Stop => {
                         report.stopped = Some(error);
                         break;
                     }
-                    ErrorPolicy::Skip => {
+                    BadRowPolicy::Skip | BadRowPolicy::Keep => {
                         report.rows_skipped += 1;
                         let key = error.problem.covariate().unwrap_or("(row shape)");
                         *report
@@ -199,7 +210,7 @@ impl<'m> BlockScorer<'m> {
             }
             let answer = self.scorer.score(model, &self.values, &self.engine_options);
             report.warnings.add(&answer.warnings);
-            let text = record_text(input, start, reader.position().byte() as usize);
+            let text = record_text(input, start, end);
             self.writer.write(output, &self.record, Some(text), answer);
             report.rows_scored += 1;
         }

@@ -25,8 +25,10 @@
 //!
 //! A bad row (a cell that does not parse, an unseen level, a log of a non-positive number, the
 //! wrong number of fields) either stops the run with its 1-based data row number and the
-//! covariate at fault, or, under [`ErrorPolicy::Skip`], is left out of the output, counted and
-//! described in the [`Summary`]. Rows outside the shard are neither parsed nor checked.
+//! covariate at fault, or, under [`BadRowPolicy::Skip`], is left out of the output, counted and
+//! described in the [`Summary`], or, under [`BadRowPolicy::Keep`], is written in its place with
+//! empty added cells and what is wrong in an `error` column, and counted the same way. Rows
+//! outside the shard are neither parsed nor checked.
 //!
 //! This module does not parse flags, draw progress bars or print: the command does.
 
@@ -48,7 +50,7 @@ use csv::ByteRecord;
 
 use block::{BlockReport, BlockScorer, RowOffsets};
 pub use input::{CovariateColumns, RowStream};
-pub use output::{effect_column, output_columns, output_header, RowWriter};
+pub use output::{contribution_column, effect_column, output_columns, output_header, RowWriter};
 pub use pending::PendingFile;
 pub use shard::{BadShard, Shard};
 pub use tally::{RangeCounts, WarningTally};
@@ -80,15 +82,33 @@ pub enum ErrorPolicy {
     Skip,
 }
 
+/// What `ogive score` does with a row that cannot be scored.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum BadRowPolicy {
+    /// Stop the run, naming the row and the covariate.
+    #[default]
+    Stop,
+    /// Leave the row out of the output, count it and go on.
+    Skip,
+    /// Write the row in its place with empty added cells and what is wrong in an `error`
+    /// column, count it and go on.
+    Keep,
+}
+
 /// What a batch run computes and which rows it takes.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct ScoreOptions {
     /// Add marginal-effect and standard-error columns.
     pub effects: bool,
+    /// Add a contribution column per covariate.
+    pub contributions: bool,
+    /// Add the model's decision columns (band, above_threshold); the model must have a
+    /// threshold or bands.
+    pub decision: bool,
     /// The interval level, strictly between 0 and 1.
     pub level: f64,
     /// What to do with a bad row.
-    pub on_error: ErrorPolicy,
+    pub on_error: BadRowPolicy,
     /// Which row blocks to score.
     pub shard: Shard,
     /// Rows per shard block (at least 1).
@@ -104,8 +124,10 @@ impl Default for ScoreOptions {
     fn default() -> Self {
         ScoreOptions {
             effects: false,
+            contributions: false,
+            decision: false,
             level: 0.95,
-            on_error: ErrorPolicy::Stop,
+            on_error: BadRowPolicy::Stop,
             shard: Shard::ALL,
             block_rows: DEFAULT_BLOCK_ROWS,
             threads: default_threads(),
@@ -151,10 +173,18 @@ pub enum BatchError {
         "the input already has a column named '{0}', which the output adds; rename or drop it"
     )]
     OutputColumnTaken(String),
+    /// Decision columns were asked of a model that has no threshold and no bands.
+    #[error("model {model} {version} has no decision threshold or bands, so there are no decision columns to add; drop --decision or score with a model that has a decision")]
+    NoDecision {
+        /// The model's name.
+        model: String,
+        /// Its version.
+        version: String,
+    },
     /// The interval level is out of range.
     #[error(transparent)]
     Level(#[from] BadLevel),
-    /// A row that cannot be scored, under [`ErrorPolicy::Stop`].
+    /// A row that cannot be scored, under [`BadRowPolicy::Stop`].
     #[error(transparent)]
     Row(#[from] RowError),
     /// The output could not be written.
@@ -225,11 +255,12 @@ pub struct Summary {
     pub rows_in_shard: u64,
     /// Rows scored and written.
     pub rows_scored: u64,
-    /// Rows left out under [`ErrorPolicy::Skip`].
+    /// Rows not scored: left out under [`BadRowPolicy::Skip`], written with an error under
+    /// [`BadRowPolicy::Keep`].
     pub rows_skipped: u64,
-    /// The first [`SKIPPED_EXAMPLES`] skipped rows and why.
+    /// The first [`SKIPPED_EXAMPLES`] rows not scored and why.
     pub skipped_examples: Vec<RowError>,
-    /// Skipped rows per covariate at fault (`(row shape)` for a wrong field count).
+    /// Rows not scored per covariate at fault (`(row shape)` for a wrong field count).
     pub skipped_by_covariate: BTreeMap<String, u64>,
     /// Warnings over the scored rows.
     pub warnings: WarningTally,
@@ -435,7 +466,7 @@ pub fn score_csv<R: Read, W: Write>(
 ) -> Result<Summary, BatchError> {
     let mut engine_options = Options::new(options.level)?;
     engine_options.effects = options.effects;
-    engine_options.contributions = false;
+    engine_options.contributions = options.contributions;
     engine_options.elasticities = false;
     engine_options.intervals = true;
 
@@ -449,10 +480,8 @@ pub fn score_csv<R: Read, W: Write>(
     let (header, header_bytes) = source.header()?;
     let columns = input::covariate_columns(model, &header)?;
     let mut header_text = Vec::new();
-    RowWriter::new(model, options.effects).write_header(
-        &mut header_text,
-        &output_header(model, &header, options.effects)?,
-    );
+    RowWriter::new(model, options)
+        .write_header(&mut header_text, &output_header(model, &header, options)?);
     output
         .write_all(&header_text)
         .map_err(|e| BatchError::Write(e.into()))?;

@@ -8,26 +8,35 @@
 //! probability_lower        lower end of the interval for p (built on the index scale)
 //! probability_upper        upper end
 //! linear_index             z = βᵀt
+//! band                     with --decision, when the model names bands: the band p falls in
+//! above_threshold          with --decision, when the model has a threshold: true or false
 //! effect_NAME              with --effects, for each numeric or binary covariate NAME:
 //! effect_NAME_se             its marginal effect and delta-method standard error
-//! effect_NAME.LEVEL        for each non-reference LEVEL of a categorical covariate NAME:
-//! effect_NAME.LEVEL_se       P(LEVEL) − P(reference) and its standard error
+//! effect_NAME=LEVEL        for each non-reference LEVEL of a categorical covariate NAME:
+//! effect_NAME=LEVEL_se       P(LEVEL) − P(reference) and its standard error
+//! contribution_NAME        with --contributions, for each covariate NAME: how far it moves
+//!                            the index from the training-mean profile (z minus z with NAME
+//!                            alone at its training mean, or its training shares)
 //! warnings                 semicolon-separated codes, empty when none:
 //!                            out_of_range:NAME        NAME lies outside its training range
 //!                            unusual_combination      the continuous covariates together lie
 //!                                                     further from the training mean than
 //!                                                     any training observation
+//! error                    with --on-error keep: empty for a scored row; for a row that
+//!                            cannot be scored, what is wrong with it (every other added
+//!                            cell of that row is then empty)
 //! ```
 //!
 //! A level's column carries the term notation (`effect_sector=retail`); covariate names cannot
-//! contain `=`, so the split is unambiguous and the name needs no quoting in CSV. Numbers are written in the shortest form that reads back to the same `f64`.
-//! A model without a covariance leaves the interval and `_se` cells empty.
+//! contain `=`, so the split is unambiguous and the name needs no quoting in CSV. Numbers are
+//! written in the shortest form that reads back to the same `f64`. A model without a
+//! covariance leaves the interval and `_se` cells empty.
 //!
 //! This module formats; it does not compute anything.
 
 use csv::ByteRecord;
 
-use super::BatchError;
+use super::{BadRowPolicy, BatchError, RowProblem, ScoreOptions};
 use crate::engine::{effect_slots, Answer, EffectSlot, Warning};
 use crate::model::Model;
 
@@ -39,8 +48,29 @@ pub const PROBABILITY_COLUMNS: [&str; 4] = [
     "linear_index",
 ];
 
-/// The last column: extrapolation warning codes.
+/// Extrapolation warning codes.
 pub const WARNINGS_COLUMN: &str = "warnings";
+
+/// The decision band's name (with `--decision`, when the model names bands).
+pub const BAND_COLUMN: &str = "band";
+
+/// Whether p is at or above the decision threshold (with `--decision`, when the model has one).
+pub const THRESHOLD_COLUMN: &str = "above_threshold";
+
+/// The last column under [`BadRowPolicy::Keep`]: what is wrong with a row not scored.
+pub const ERROR_COLUMN: &str = "error";
+
+/// The name of a covariate's contribution column.
+pub fn contribution_column(model: &Model, covariate: usize) -> String {
+    format!("contribution_{}", model.covariates[covariate].name)
+}
+
+/// Which decision columns a model gives: `(band, above_threshold)`.
+fn decision_columns(model: &Model) -> (bool, bool) {
+    model.file.decision.as_ref().map_or((false, false), |d| {
+        (!d.bands.is_empty(), d.threshold.is_some())
+    })
+}
 
 /// The name of the effect column for one slot (the standard error column adds `_se`).
 pub fn effect_column(model: &Model, slot: &EffectSlot) -> String {
@@ -51,10 +81,26 @@ pub fn effect_column(model: &Model, slot: &EffectSlot) -> String {
     }
 }
 
-/// Every column `ogive score` appends, in order.
-pub fn output_columns(model: &Model, effects: bool) -> Vec<String> {
+/// Every column `ogive score` appends with these options, in order. Refuses `--decision` for
+/// a model with neither a threshold nor bands.
+pub fn output_columns(model: &Model, options: &ScoreOptions) -> Result<Vec<String>, BatchError> {
     let mut columns: Vec<String> = PROBABILITY_COLUMNS.iter().map(|c| c.to_string()).collect();
-    if effects {
+    if options.decision {
+        let (band, threshold) = decision_columns(model);
+        if !band && !threshold {
+            return Err(BatchError::NoDecision {
+                model: model.name().to_string(),
+                version: model.version().to_string(),
+            });
+        }
+        if band {
+            columns.push(BAND_COLUMN.to_string());
+        }
+        if threshold {
+            columns.push(THRESHOLD_COLUMN.to_string());
+        }
+    }
+    if options.effects {
         for slot in effect_slots(model) {
             let name = effect_column(model, &slot);
             let std_error = format!("{name}_se");
@@ -62,8 +108,14 @@ pub fn output_columns(model: &Model, effects: bool) -> Vec<String> {
             columns.push(std_error);
         }
     }
+    if options.contributions {
+        columns.extend((0..model.covariates.len()).map(|j| contribution_column(model, j)));
+    }
     columns.push(WARNINGS_COLUMN.to_string());
-    columns
+    if options.on_error == BadRowPolicy::Keep {
+        columns.push(ERROR_COLUMN.to_string());
+    }
+    Ok(columns)
 }
 
 /// The warning code of one warning, as written in the `warnings` column.
@@ -81,9 +133,9 @@ pub fn warning_code(model: &Model, warning: &Warning) -> String {
 pub fn output_header(
     model: &Model,
     input_header: &ByteRecord,
-    effects: bool,
+    options: &ScoreOptions,
 ) -> Result<ByteRecord, BatchError> {
-    let added = output_columns(model, effects);
+    let added = output_columns(model, options)?;
     for field in input_header {
         let name = String::from_utf8_lossy(field);
         if let Some(taken) = added.iter().find(|a| a.as_str() == name.trim()) {
@@ -132,6 +184,22 @@ fn push_fields(out: &mut Vec<u8>, record: &ByteRecord) {
     }
 }
 
+/// Append an input record: its text as read when that is exactly its fields joined by commas
+/// (no quote anywhere; the length check rules out a terminator or stray bytes), else field by
+/// field.
+#[inline]
+fn push_input(out: &mut Vec<u8>, input: &ByteRecord, text: Option<&[u8]>) {
+    match text {
+        Some(text)
+            if text.len() + 1 == input.as_slice().len() + input.len()
+                && memchr::memchr(b'"', text).is_none() =>
+        {
+            out.extend_from_slice(text)
+        }
+        _ => push_fields(out, input),
+    }
+}
+
 /// Formats scored rows as CSV lines (`\n`-terminated, fields quoted only where they must be):
 /// the input fields, then the added columns.
 ///
@@ -143,11 +211,39 @@ pub struct RowWriter {
     warnings: Vec<u8>,
     out_of_range_codes: Vec<Vec<u8>>,
     effects: bool,
+    /// Band names, when the band column is written.
+    bands: Option<Vec<Vec<u8>>>,
+    threshold: bool,
+    /// One contribution per covariate, in covariate order, when those columns are written.
+    contributions: Option<Vec<f64>>,
+    error: bool,
+    /// The number of added cells before the error column, left empty for a row in error.
+    added_before_error: usize,
+    /// A row-in-error's message.
+    message: String,
 }
 
 impl RowWriter {
-    /// A writer of rows scored by `model` (with effect columns if `effects`).
-    pub fn new(model: &Model, effects: bool) -> RowWriter {
+    /// A writer of rows scored by `model`, with the columns `options` ask for (see
+    /// [`output_columns`], which checks them first).
+    pub fn new(model: &Model, options: &ScoreOptions) -> RowWriter {
+        let (band, threshold) = if options.decision {
+            decision_columns(model)
+        } else {
+            (false, false)
+        };
+        let bands = band.then(|| {
+            model
+                .file
+                .decision
+                .iter()
+                .flat_map(|d| &d.bands)
+                .map(|b| b.name.clone().into_bytes())
+                .collect()
+        });
+        let error = options.on_error == BadRowPolicy::Keep;
+        let added_before_error =
+            output_columns(model, options).map_or(0, |c| c.len() - usize::from(error));
         let out_of_range_codes = (0..model.covariates.len())
             .map(|j| {
                 warning_code(
@@ -166,7 +262,15 @@ impl RowWriter {
             number: ryu::Buffer::new(),
             warnings: Vec::with_capacity(256),
             out_of_range_codes,
-            effects,
+            effects: options.effects,
+            bands,
+            threshold,
+            contributions: options
+                .contributions
+                .then(|| vec![0.0; model.covariates.len()]),
+            error,
+            added_before_error,
+            message: String::new(),
         }
     }
 
@@ -186,25 +290,36 @@ impl RowWriter {
         text: Option<&[u8]>,
         answer: &Answer,
     ) {
-        match text {
-            // The length check confirms that the text holds exactly the fields and the commas
-            // between them (no terminator, no stray bytes).
-            Some(text)
-                if text.len() + 1 == input.as_slice().len() + input.len()
-                    && memchr::memchr(b'"', text).is_none() =>
-            {
-                out.extend_from_slice(text)
+        push_input(out, input, text);
+        push_number(&mut self.number, out, Some(answer.probability));
+        push_number(&mut self.number, out, answer.interval.map(|i| i.lower));
+        push_number(&mut self.number, out, answer.interval.map(|i| i.upper));
+        push_number(&mut self.number, out, Some(answer.linear_index));
+        if let Some(bands) = &self.bands {
+            out.push(b',');
+            if let Some(band) = answer.band.and_then(|b| bands.get(b)) {
+                push_field(out, band);
             }
-            _ => push_fields(out, input),
         }
-        self.push_number(out, Some(answer.probability));
-        self.push_number(out, answer.interval.map(|i| i.lower));
-        self.push_number(out, answer.interval.map(|i| i.upper));
-        self.push_number(out, Some(answer.linear_index));
+        if self.threshold {
+            out.extend_from_slice(match answer.above_threshold {
+                Some(true) => b",true",
+                Some(false) => b",false",
+                None => b",",
+            });
+        }
         if self.effects {
             for effect in &answer.effects {
-                self.push_number(out, Some(effect.effect));
-                self.push_number(out, effect.std_error);
+                push_number(&mut self.number, out, Some(effect.effect));
+                push_number(&mut self.number, out, effect.std_error);
+            }
+        }
+        if let Some(by_covariate) = &mut self.contributions {
+            for c in &answer.contributions {
+                by_covariate[c.covariate] = c.contribution;
+            }
+            for &x in by_covariate.iter() {
+                push_number(&mut self.number, out, Some(x));
             }
         }
         self.warnings.clear();
@@ -223,15 +338,56 @@ impl RowWriter {
         }
         out.push(b',');
         push_field(out, &self.warnings);
+        if self.error {
+            out.push(b',');
+        }
         out.push(b'\n');
     }
 
-    /// Append `,x` (or `,` alone for no value); a number never needs quotes.
-    #[inline]
-    fn push_number(&mut self, out: &mut Vec<u8>, x: Option<f64>) {
-        out.push(b',');
-        if let Some(x) = x {
-            out.extend_from_slice(self.number.format(x).as_bytes());
+    /// Append a row that could not be scored, under [`BadRowPolicy::Keep`]: its fields (padded
+    /// with empty ones, or cut, to the header's `header_len`, as the problem then says), empty
+    /// added cells, and the problem in the error column.
+    pub fn write_error(
+        &mut self,
+        out: &mut Vec<u8>,
+        input: &ByteRecord,
+        text: Option<&[u8]>,
+        header_len: usize,
+        problem: &RowProblem,
+    ) {
+        use std::fmt::Write as _;
+        if input.len() == header_len {
+            push_input(out, input, text);
+        } else {
+            for i in 0..header_len {
+                if i > 0 {
+                    out.push(b',');
+                }
+                push_field(out, input.get(i).unwrap_or_default());
+            }
         }
+        for _ in 0..self.added_before_error {
+            out.push(b',');
+        }
+        self.message.clear();
+        let _ = write!(self.message, "{problem}");
+        if input.len() > header_len {
+            let _ = write!(
+                self.message,
+                "; the fields after the {header_len}th are not written"
+            );
+        }
+        out.push(b',');
+        push_field(out, self.message.as_bytes());
+        out.push(b'\n');
+    }
+}
+
+/// Append `,x` (or `,` alone for no value); a number never needs quotes.
+#[inline]
+fn push_number(number: &mut ryu::Buffer, out: &mut Vec<u8>, x: Option<f64>) {
+    out.push(b',');
+    if let Some(x) = x {
+        out.extend_from_slice(number.format(x).as_bytes());
     }
 }

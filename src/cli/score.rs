@@ -1,5 +1,5 @@
 //! `ogive score`: stream a CSV file through a model and write it back with probabilities,
-//! intervals, (optionally) effects and warnings added. The work is [`crate::batch::score_csv`];
+//! intervals, warnings and (optionally) decision bands, effects and contributions added. The work is [`crate::batch::score_csv`];
 //! this file opens the files, draws the progress bar and prints the end-of-run summary.
 
 use std::fs::File;
@@ -9,7 +9,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 
-use crate::batch::{self, ErrorPolicy, PendingFile, ScoreOptions, Shard, Summary};
+use crate::batch::{self, BadRowPolicy, PendingFile, ScoreOptions, Shard, Summary};
 use crate::model::Model;
 
 /// Arguments of `ogive score`.
@@ -29,13 +29,22 @@ pub struct ScoreArgs {
     /// Add each covariate's marginal effect and its standard error as columns.
     #[arg(long, env = "OGIVE_EFFECTS")]
     pub effects: bool,
+    /// Add each covariate's contribution to the index (how far it moves the index from the
+    /// training-mean profile) as a column contribution_NAME.
+    #[arg(long, env = "OGIVE_CONTRIBUTIONS")]
+    pub contributions: bool,
+    /// Add the model's decision columns: band (the band the probability falls in) when the
+    /// model names bands, above_threshold (true or false) when it has a threshold.
+    #[arg(long, env = "OGIVE_DECISION")]
+    pub decision: bool,
     /// The level of the probability interval.
     #[arg(long, env = "OGIVE_LEVEL", value_name = "L", default_value_t = 0.95)]
     pub level: f64,
-    /// What to do with a row that cannot be scored: stop with its row number, or skip it and
-    /// report the skipped rows at the end.
-    #[arg(long, env = "OGIVE_ON_ERROR", value_enum, default_value_t = OnError::Stop)]
-    pub on_error: OnError,
+    /// What to do with a row that cannot be scored: stop with its row number; skip it and
+    /// report the skipped rows at the end; or keep it in the output with empty added cells
+    /// and what is wrong in an added error column.
+    #[arg(long, env = "OGIVE_ON_ERROR", value_enum, default_value_t = ScoreOnError::Stop)]
+    pub on_error: ScoreOnError,
     /// Score only shard I of N: the rows in blocks I, I+N, I+2N, … (blocks of --block-rows
     /// rows, counted from 0), so that N machines can split one file. Every shard's output has
     /// the header.
@@ -52,13 +61,25 @@ pub struct ScoreArgs {
     pub threads: Option<u64>,
 }
 
-/// The `--on-error` choices.
+/// The `--on-error` choices of `ogive evaluate`, which reads labelled rows and cannot keep a
+/// row it cannot score.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
 pub enum OnError {
     /// Stop at the first bad row.
     Stop,
     /// Skip bad rows, count them and go on.
     Skip,
+}
+
+/// The `--on-error` choices of `ogive score`, which can also keep a bad row in place.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum ScoreOnError {
+    /// Stop at the first bad row.
+    Stop,
+    /// Skip bad rows, count them and go on.
+    Skip,
+    /// Keep bad rows, unscored, with what is wrong in an error column.
+    Keep,
 }
 
 fn is_dash(path: &Path) -> bool {
@@ -82,10 +103,13 @@ pub fn run(args: ScoreArgs) -> anyhow::Result<ExitCode> {
         .with_context(|| format!("model file {} is not valid", args.model.display()))?;
     let options = ScoreOptions {
         effects: args.effects,
+        contributions: args.contributions,
+        decision: args.decision,
         level: args.level,
         on_error: match args.on_error {
-            OnError::Stop => ErrorPolicy::Stop,
-            OnError::Skip => ErrorPolicy::Skip,
+            ScoreOnError::Stop => BadRowPolicy::Stop,
+            ScoreOnError::Skip => BadRowPolicy::Skip,
+            ScoreOnError::Keep => BadRowPolicy::Keep,
         },
         shard: args.shard,
         block_rows: args.block_rows,
@@ -186,9 +210,14 @@ fn summary_text(model: &Model, options: &ScoreOptions, summary: &Summary) -> Str
             summary.rows_in_shard, options.shard, options.block_rows
         )
     };
+    let (skipped, rows_word) = if options.on_error == BadRowPolicy::Keep {
+        ("kept unscored with an error", "unscored rows")
+    } else {
+        ("skipped", "skipped rows")
+    };
     let _ = writeln!(
         s,
-        "scored {} of {} rows{shard}; {} skipped",
+        "scored {} of {} rows{shard}; {} {skipped}",
         summary.rows_scored, summary.rows_read, summary.rows_skipped
     );
     if summary.rows_skipped > 0 {
@@ -197,9 +226,14 @@ fn summary_text(model: &Model, options: &ScoreOptions, summary: &Summary) -> Str
             .iter()
             .map(|(c, n)| format!("{c}: {n}"))
             .collect();
-        let _ = writeln!(s, "skipped rows by covariate at fault: {}", by.join(", "));
+        let _ = writeln!(s, "{rows_word} by covariate at fault: {}", by.join(", "));
+        let example = if options.on_error == BadRowPolicy::Keep {
+            "unscored"
+        } else {
+            "skipped"
+        };
         for e in &summary.skipped_examples {
-            let _ = writeln!(s, "  skipped {e}");
+            let _ = writeln!(s, "  {example} {e}");
         }
         if summary.rows_skipped > summary.skipped_examples.len() as u64 {
             let _ = writeln!(

@@ -96,6 +96,10 @@ pub mod fit {
     /// The corrected intercept against the closed form applied to the uncorrected fit: one
     /// subtraction (relative).
     pub const CLOSED_FORM_SHIFT: f64 = 1e-12;
+
+    /// A refitted demo model against the committed one (relative): the same fit on the same
+    /// data differs, at most, in the rounding of a reordered sum.
+    pub const REFIT_RELATIVE: f64 = 1e-9;
 }
 
 /// `ogive describe` against statsmodels and the plots it draws.
@@ -125,6 +129,10 @@ pub mod score {
     /// on the Spector data, fixture written by tests/reference/describe/make_spector_fixtures.py):
     /// both evaluate F(xᵀβ) at the same β, so only rounding separates them.
     pub const STATSMODELS_PREDICT: f64 = 1e-12;
+
+    /// A contribution column against its closed form β·(x − x̄) (or the level shares' sum):
+    /// the engine's z difference and the closed form differ in rounding only (absolute).
+    pub const CONTRIBUTION_CLOSED_FORM: f64 = 1e-12;
 }
 
 /// The figures of `ogive evaluate` against scikit-learn, statsmodels, scipy and numpy.
