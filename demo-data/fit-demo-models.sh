@@ -8,6 +8,9 @@
 #
 # Usage (from anywhere):  bash demo-data/fit-demo-models.sh
 # Uses $OGIVE if set, otherwise builds the release binary (under $CARGO_TARGET_DIR when set).
+# MODEL_FILES=DIR writes the model directory there instead of model-files/, and
+# SKIP_GENERATE=1 fits the committed CSVs without running the generator (tests/fit_demo.rs
+# does both, to refit the demo models and compare them with the committed ones).
 # The fit time recorded in the files is fixed (SOURCE_DATE_EPOCH), so a rerun reproduces the
 # committed files byte for byte. Both models are fitted and checked in a scratch directory
 # first: if anything fails, model-files/ is left exactly as it was.
@@ -16,7 +19,10 @@ set -euo pipefail
 root="$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)"
 cd "$root"
 
-python3 demo-data/generate.py
+if [[ -z "${SKIP_GENERATE:-}" ]]; then
+    python3 demo-data/generate.py
+fi
+models="${MODEL_FILES:-model-files}"
 
 if [[ -z "${OGIVE:-}" ]]; then
     cargo build --release --quiet --bin ogive
@@ -63,16 +69,16 @@ WHO=script:fit-demo-models
 install_model() {
     local name="$1" digest
     digest="$(sha256sum "$scratch/$name.json" | cut -d' ' -f1)"
-    mkdir -p "model-files/$name/versions"
-    mv "$scratch/$name.json" "model-files/$name/versions/$VERSION.json"
-    printf '%s\n' "$VERSION" >"model-files/$name/live"
+    mkdir -p "$models/$name/versions"
+    mv "$scratch/$name.json" "$models/$name/versions/$VERSION.json"
+    printf '%s\n' "$VERSION" >"$models/$name/live"
     {
         printf '{"when":"%s","action":"upload","from":null,"to":"%s","who":"%s","reason":"the demo model","sha256":"%s"}\n' \
             "$WHEN" "$VERSION" "$WHO" "$digest"
         printf '{"when":"%s","action":"promote","from":null,"to":"%s","who":"%s","reason":"the demo model"}\n' \
             "$WHEN" "$VERSION" "$WHO"
-    } >"model-files/$name/history.jsonl"
+    } >"$models/$name/history.jsonl"
 }
 install_model lease-arrears
 install_model rebate-uptake
-echo "demo models written and checked"
+echo "demo models written to $models and checked"

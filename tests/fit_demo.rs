@@ -6,6 +6,14 @@
 //! coefficient must lie within its Bonferroni-adjusted 95% interval (level 1 − 0.05/k per
 //! coefficient, so that the family of k intervals holds jointly at 95%: common practice), and
 //! the Wald statistic (β̂ − β)ᵀ V⁻¹ (β̂ − β) must stay below the 99% point of χ²ₖ.
+//!
+//! And the committed models are what fitting gives today: the committed fit script
+//! (`demo-data/fit-demo-models.sh`, with the binary under test, on the committed CSVs, into a
+//! temporary model directory) must write the committed files again, every string and count
+//! exactly and every number to `REFIT_RELATIVE` (tests/support/tolerances.rs), so that a change to fitting that moves an
+//! estimate fails here until the demo models are refitted and committed with it.
+
+mod support;
 
 use std::path::PathBuf;
 
@@ -13,6 +21,7 @@ use nalgebra::{DMatrix, DVector};
 use ogive::link::normal_quantile;
 use ogive::model::Model;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
+use support::tolerances::fit::REFIT_RELATIVE;
 
 fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
@@ -96,5 +105,80 @@ fn the_demo_history_accounts_for_the_live_version_without_warnings() {
         // The upload's digest is the file's: the loader checks it.
         ogive::registry::load::load_live(&models.join(name), name)
             .unwrap_or_else(|e| panic!("{name}: {e}"));
+    }
+}
+
+/// Every value of `ours` equals the one at the same place in `committed`: numbers to
+/// `REFIT_RELATIVE`, everything else exactly. `at` is the JSON Pointer of the value.
+fn assert_same_json(ours: &serde_json::Value, committed: &serde_json::Value, at: &str) {
+    use serde_json::Value;
+    match (ours, committed) {
+        (Value::Number(a), Value::Number(b)) => {
+            let (a, b) = (a.as_f64().expect("f64"), b.as_f64().expect("f64"));
+            let scale = a.abs().max(b.abs()).max(f64::MIN_POSITIVE);
+            assert!(
+                (a - b).abs() <= REFIT_RELATIVE * scale,
+                "{at}: refitted {a:e}, committed {b:e}"
+            );
+        }
+        (Value::Array(a), Value::Array(b)) => {
+            assert_eq!(a.len(), b.len(), "{at}: length");
+            for (i, (x, y)) in a.iter().zip(b).enumerate() {
+                assert_same_json(x, y, &format!("{at}/{i}"));
+            }
+        }
+        (Value::Object(a), Value::Object(b)) => {
+            let keys = |o: &serde_json::Map<String, Value>| o.keys().cloned().collect::<Vec<_>>();
+            assert_eq!(keys(a), keys(b), "{at}: members");
+            for (key, x) in a {
+                assert_same_json(x, &b[key], &format!("{at}/{key}"));
+            }
+        }
+        _ => assert_eq!(ours, committed, "{at}"),
+    }
+}
+
+#[test]
+fn refitting_the_demo_data_gives_the_committed_models() {
+    let scratch = tempfile::tempdir().expect("tempdir");
+    let run = std::process::Command::new("bash")
+        .arg(root().join("demo-data/fit-demo-models.sh"))
+        .env("OGIVE", env!("CARGO_BIN_EXE_ogive"))
+        .env("MODEL_FILES", scratch.path())
+        .env("SKIP_GENERATE", "1")
+        .output()
+        .expect("run the demo fit script");
+    assert!(
+        run.status.success(),
+        "the demo fit script failed:\n{}\n{}",
+        String::from_utf8_lossy(&run.stdout),
+        String::from_utf8_lossy(&run.stderr)
+    );
+    for name in ["lease-arrears", "rebate-uptake"] {
+        let committed = root().join("model-files").join(name);
+        let refitted = scratch.path().join(name);
+        assert_eq!(
+            read(refitted.join("live")),
+            read(committed.join("live")),
+            "{name}: live"
+        );
+        let version = read(committed.join("live")).trim().to_string();
+        let file = |folder: &PathBuf| -> serde_json::Value {
+            let path = folder.join("versions").join(format!("{version}.json"));
+            serde_json::from_str(&read(path)).expect("JSON")
+        };
+        assert_same_json(&file(&refitted), &file(&committed), name);
+        // The history records, but for the digest of bytes that may differ in rounding.
+        let history = |folder: &PathBuf| -> Vec<serde_json::Value> {
+            read(folder.join("history.jsonl"))
+                .lines()
+                .map(|line| {
+                    let mut record: serde_json::Value = serde_json::from_str(line).expect("JSON");
+                    record.as_object_mut().expect("record").remove("sha256");
+                    record
+                })
+                .collect()
+        };
+        assert_eq!(history(&refitted), history(&committed), "{name}: history");
     }
 }
