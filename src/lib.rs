@@ -16,6 +16,7 @@
 //! monitoring drift, outcomes by receipt, calibration and the shadow comparison, per version
 //! receipt   the sealed receipt on every answer: keys, sealing, opening
 //! cli       the subcommands of the binary, one file each
+//! json_text JSON text written by hand for the hot paths: escaped strings, shortest doubles
 //! ```
 #![warn(missing_docs)]
 
@@ -24,6 +25,7 @@ pub mod cli;
 pub mod engine;
 pub mod evaluate;
 pub mod fit;
+pub(crate) mod json_text;
 pub mod link;
 pub mod metrics;
 pub mod model;

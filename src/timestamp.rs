@@ -1,7 +1,8 @@
 //! RFC 3339 timestamps in UTC, the one formatter of the project: to the second
-//! (`2026-03-01T09:30:00Z`, model files and receipts) and to the millisecond
-//! (`2026-03-01T09:30:00.125Z`, history records, shadow reports, evaluation reports), without a
-//! date-time dependency since these two forms are all it writes.
+//! (`2026-03-01T09:30:00Z`, model files and receipts), to the millisecond
+//! (`2026-03-01T09:30:00.125Z`, history records, shadow reports, evaluation reports) and to the
+//! microsecond (`2026-03-01T09:30:00.125250Z`, log lines), without a date-time dependency since
+//! these three forms are all it writes.
 //!
 //! The civil date comes from the day count by the proleptic Gregorian rules (400-year eras of
 //! 146,097 days, March-based years so that the leap day falls at the end of a year).
@@ -39,6 +40,23 @@ pub fn rfc3339_millis(time: SystemTime) -> String {
         "{}.{:03}Z",
         seconds.trim_end_matches('Z'),
         since_epoch.subsec_millis()
+    )
+}
+
+/// Write `time` to the microsecond into `out` (log lines: written for every request, so into the
+/// line being built rather than a new string). Times before 1970 are written as the epoch.
+pub fn write_rfc3339_micros(out: &mut impl std::fmt::Write, time: SystemTime) -> std::fmt::Result {
+    let since_epoch = time.duration_since(UNIX_EPOCH).unwrap_or_default();
+    let seconds = since_epoch.as_secs();
+    let of_day = seconds % 86_400;
+    let (year, month, day) = civil_from_days((seconds / 86_400) as i64);
+    write!(
+        out,
+        "{year:04}-{month:02}-{day:02}T{:02}:{:02}:{:02}.{:06}Z",
+        of_day / 3600,
+        of_day % 3600 / 60,
+        of_day % 60,
+        since_epoch.subsec_micros()
     )
 }
 
@@ -90,5 +108,21 @@ mod tests {
         assert_eq!(at(1_709_251_199, 5), "2024-02-29T23:59:59.005Z");
         assert_eq!(at(4_107_542_400, 0), "2100-03-01T00:00:00.000Z");
         assert_eq!(at(1_735_689_599, 0), "2024-12-31T23:59:59.000Z");
+    }
+
+    /// Reference: Python 3 `datetime.fromtimestamp(s, timezone.utc)
+    /// .isoformat(timespec='microseconds')`, exact.
+    #[test]
+    fn known_instants_to_the_microsecond() {
+        use std::time::Duration;
+        let at = |seconds: u64, micros: u64| {
+            let mut out = String::new();
+            let time = UNIX_EPOCH + Duration::from_secs(seconds) + Duration::from_micros(micros);
+            write_rfc3339_micros(&mut out, time).expect("a String takes any text");
+            out
+        };
+        assert_eq!(at(0, 0), "1970-01-01T00:00:00.000000Z");
+        assert_eq!(at(951_868_799, 999_001), "2000-02-29T23:59:59.999001Z");
+        assert_eq!(at(1_709_251_199, 5), "2024-02-29T23:59:59.000005Z");
     }
 }

@@ -15,7 +15,9 @@
 # requests answered: what an operator pays for, and free of the load generator's share of the
 # cores) and their ratio, then throughput, p50 and p99 latency and their ratios; at the end each
 # server's peak resident memory (VmHWM). Needs wrk (Debian: apt-get install -y wrk) and curl.
-# Extra `ogive serve` flags can be given in OGIVE_FLAGS (say, "--monitoring off").
+# Extra `ogive serve` flags can be given in OGIVE_FLAGS (say, "--monitoring off"). BEFORE=PATH
+# names a second ogive binary (an earlier build, say) that is measured in the same rounds
+# against the same floor, so that a change's before and after ratios come from one run.
 set -euo pipefail
 cd "$(dirname "$0")/../.."
 
@@ -52,6 +54,15 @@ wait_for_line() { # file pattern
 ogive_pid=$!; pids+=("$ogive_pid")
 wait_for_line "$work/ogive.out" "^ogive serving on"
 ogive_url="$(sed -n 's/^ogive serving on //p' "$work/ogive.out" | head -n 1)"
+servers=(ogive)
+if [ -n "${BEFORE:-}" ]; then
+  "$BEFORE" serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
+    --workers "$workers" --drain-delay-ms 0 ${OGIVE_FLAGS:-} >"$work/before.out" 2>"$work/before.err" &
+  before_pid=$!; pids+=("$before_pid")
+  wait_for_line "$work/before.out" "^ogive serving on"
+  before_url="$(sed -n 's/^ogive serving on //p' "$work/before.out" | head -n 1)"
+  servers+=(before)
+fi
 
 model="$(curl -fsS "$ogive_url/models" | python3 -c 'import json,sys; print(json.load(sys.stdin)["models"][0]["name"])')"
 curl -fsS "$ogive_url/models/$model" | python3 -c '
@@ -104,9 +115,10 @@ measure() { # url load connections seconds pid -> RESULT line with the server's 
 bytes() { wc -c <"$work/answer-$1/body" | tr -d ' '; }
 echo "model $model from $models; $workers workers per server; wrk $threads thread(s); $duration per run; $rounds rounds, medians"
 echo "answer sizes: full $(bytes full) B, lean $(bytes lean) B, batch $(bytes batch) B"
-for load in "${loads[@]}"; do # warm both
+for load in "${loads[@]}"; do # warm each server
   measure "$bare_url/$load" "$load" 16 1s "$bare_pid" >/dev/null
   measure "$ogive_url$path" "$load" 16 1s "$ogive_pid" >/dev/null
+  if [ -n "${BEFORE:-}" ]; then measure "$before_url$path" "$load" 16 1s "$before_pid" >/dev/null; fi
 done
 results="$work/results"
 for round in $(seq 1 "$rounds"); do
@@ -114,13 +126,16 @@ for round in $(seq 1 "$rounds"); do
     for connections in 16 64; do
       echo "$load $connections bare $(measure "$bare_url/$load" "$load" "$connections" "$duration" "$bare_pid")" >>"$results"
       echo "$load $connections ogive $(measure "$ogive_url$path" "$load" "$connections" "$duration" "$ogive_pid")" >>"$results"
+      if [ -n "${BEFORE:-}" ]; then
+        echo "$load $connections before $(measure "$before_url$path" "$load" "$connections" "$duration" "$before_pid")" >>"$results"
+      fi
     done
   done
 done
-python3 - "$results" "$(getconf CLK_TCK)" <<'PY'
+python3 - "$results" "$(getconf CLK_TCK)" "${servers[@]}" <<'PY'
 import re, statistics, sys
 from collections import defaultdict
-path, tick = sys.argv[1], int(sys.argv[2])
+path, tick, servers = sys.argv[1], int(sys.argv[2]), sys.argv[3:]
 runs = defaultdict(list)
 for line in open(path):
     load, conns, server = line.split()[:3]
@@ -128,19 +143,21 @@ for line in open(path):
     f["cpu_us"] = f["ticks"] / tick * 1e6 / max(1.0, f["rps"] * f["seconds"])
     runs[(load, int(conns), server)].append(f)
 med = lambda key, name: statistics.median(r[name] for r in runs[key])
-print()
-print(f"{'load':<6} {'conns':>5} | {'CPU µs/req floor':>16} {'ogive':>7} {'ratio':>6} | "
-      f"{'rps floor':>9} {'ogive':>8} {'ratio':>6} | {'p50 floor':>9} {'ogive':>7} | "
-      f"{'p99 floor':>9} {'ogive':>7} {'ratio':>6} | errors")
-for load in ("full", "lean", "batch"):
-    for conns in (16, 64):
-        b, o = (load, conns, "bare"), (load, conns, "ogive")
-        errors = sum(r["non2xx"] + r["socket_errors"] for r in runs[b] + runs[o])
-        print(f"{load:<6} {conns:>5} | {med(b,'cpu_us'):>16.1f} {med(o,'cpu_us'):>7.1f} "
-              f"{med(o,'cpu_us')/med(b,'cpu_us'):>6.2f} | {med(b,'rps'):>9.0f} {med(o,'rps'):>8.0f} "
-              f"{med(o,'rps')/med(b,'rps'):>6.2f} | {med(b,'p50_us'):>7.0f}us {med(o,'p50_us'):>5.0f}us | "
-              f"{med(b,'p99_us'):>7.0f}us {med(o,'p99_us'):>5.0f}us "
-              f"{med(o,'p99_us')/max(1.0, med(b,'p99_us')):>6.2f} | {errors:.0f}")
+for server in servers:
+    print()
+    print(f"{server}: {'load':<6} {'conns':>5} | {'CPU µs/req floor':>16} {server:>7} {'ratio':>6} | "
+          f"{'rps floor':>9} {server:>8} {'ratio':>6} | {'p50 floor':>9} {server:>7} | "
+          f"{'p99 floor':>9} {server:>7} {'ratio':>6} | errors")
+    for load in ("full", "lean", "batch"):
+        for conns in (16, 64):
+            b, o = (load, conns, "bare"), (load, conns, server)
+            errors = sum(r["non2xx"] + r["socket_errors"] for r in runs[b] + runs[o])
+            print(f"{server}: {load:<6} {conns:>5} | {med(b,'cpu_us'):>16.1f} {med(o,'cpu_us'):>7.1f} "
+                  f"{med(o,'cpu_us')/med(b,'cpu_us'):>6.2f} | {med(b,'rps'):>9.0f} {med(o,'rps'):>8.0f} "
+                  f"{med(o,'rps')/med(b,'rps'):>6.2f} | {med(b,'p50_us'):>7.0f}us {med(o,'p50_us'):>5.0f}us | "
+                  f"{med(b,'p99_us'):>7.0f}us {med(o,'p99_us'):>5.0f}us "
+                  f"{med(o,'p99_us')/max(1.0, med(b,'p99_us')):>6.2f} | {errors:.0f}")
 PY
 echo
 echo "peak RSS (VmHWM): ogive $(awk '/VmHWM/ {print $2, $3}' "/proc/$ogive_pid/status"), floor $(awk '/VmHWM/ {print $2, $3}' "/proc/$bare_pid/status")"
+if [ -n "${BEFORE:-}" ]; then echo "peak RSS (VmHWM): before $(awk '/VmHWM/ {print $2, $3}' "/proc/$before_pid/status")"; fi

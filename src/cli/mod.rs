@@ -12,6 +12,7 @@ pub(crate) mod evaluate;
 pub(crate) mod fit;
 pub(crate) mod lifecycle;
 pub(crate) mod like;
+pub(crate) mod log_line;
 pub(crate) mod score;
 pub(crate) mod serve;
 pub(crate) mod shadow;
@@ -52,7 +53,7 @@ pub enum Command {
     Shadow(shadow::ShadowArgs),
 }
 
-/// Set up `tracing`: JSON lines for `serve`, compact text on stderr otherwise; level from
+/// Set up `tracing`: JSON lines for `serve` ([`log_line`]), compact text on stderr otherwise; level from
 /// `RUST_LOG` (default `info` for `serve`, `warn` for the other commands).
 ///
 /// `serve` writes its lines from a background thread through a buffer that is flushed whenever
@@ -73,9 +74,7 @@ pub fn init_logging(cli: &Cli) -> Option<tracing_appender::non_blocking::WorkerG
             .finish(std::io::BufWriter::new(std::io::stderr()));
         let _ = builder
             .with_writer(writer)
-            .json()
-            .flatten_event(true)
-            .with_current_span(false)
+            .event_format(log_line::JsonLines)
             .try_init();
         Some(guard)
     } else {

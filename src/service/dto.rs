@@ -56,11 +56,15 @@ impl Observations<'_> {
     }
 }
 
-/// A parsed probability request (observations not yet checked against a model).
-#[derive(Debug, Clone)]
-pub struct ProbabilityRequest<'a> {
-    /// The observations.
-    pub observations: Observations<'a>,
+/// A probability request's shape and options (its observations are read separately: as JSON
+/// by [`parse_probability_request`], or straight into values by `service::direct`).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ProbabilityRequest {
+    /// Whether the observations came as a batch (`observations`) rather than one
+    /// (`observation`).
+    pub batch: bool,
+    /// How many observations.
+    pub count: usize,
     /// What to compute per observation.
     pub options: Options,
     /// Average effects over the observations.
@@ -94,11 +98,12 @@ fn boolean(body: &Map<String, Json>, name: &str, default: bool) -> Result<bool, 
     }
 }
 
-/// Read a probability request from a parsed body.
+/// Read a probability request from a parsed body: its shape and options, and its observations
+/// as sent (not yet checked against a model).
 pub fn parse_probability_request(
     body: &Json,
     max_batch: usize,
-) -> Result<ProbabilityRequest<'_>, Problem> {
+) -> Result<(ProbabilityRequest, Observations<'_>), Problem> {
     let Json::Object(body) = body else {
         return Err(Problem::new(
             Kind::InvalidBody,
@@ -190,12 +195,14 @@ pub fn parse_probability_request(
     options.intervals = boolean(body, "intervals", true)?;
     options.elasticities = boolean(body, "elasticities", false)?;
     options.contributions = boolean(body, "contributions", true)?;
-    Ok(ProbabilityRequest {
-        observations,
+    let request = ProbabilityRequest {
+        batch: matches!(observations, Observations::Many(_)),
+        count: observations.len(),
         options,
         average_effects: boolean(body, "average_effects", false)?,
         at_means: boolean(body, "at_means", false)?,
-    })
+    };
+    Ok((request, observations))
 }
 
 /// Engine options for an interval level, refused outside `(0, MAX_LEVEL]`.

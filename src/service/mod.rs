@@ -13,6 +13,7 @@
 //! compute.rs      the scoring pool, the work budget, the in-flight caps
 //! connection.rs   the connection cap and the stalled-write timeout
 //! dto.rs          request parsing and response views
+//! direct.rs       a well-formed probability request read straight into values
 //! observations.rs observations → engine values, service bounds
 //! scoring.rs      driving the engine for a probability request
 //! curve.rs        the curve of one covariate, its ETag
@@ -38,6 +39,7 @@ pub(crate) mod config;
 pub(crate) mod connection;
 pub(crate) mod cors;
 pub(crate) mod curve;
+pub(crate) mod direct;
 pub mod dto;
 pub(crate) mod etag;
 pub(crate) mod example;

@@ -21,8 +21,8 @@ use serde::ser::{SerializeMap, SerializeSeq};
 use serde::{Serialize, Serializer};
 
 use super::dto::{
-    put_answer, AnswerView, AverageView, ListView, Note, Observations, ProbabilityRequest, Shown,
-    AT_MEANS, NO_COVARIANCE, SATURATED,
+    put_answer, AnswerView, AverageView, ListView, Note, ProbabilityRequest, Shown, AT_MEANS,
+    NO_COVARIANCE, SATURATED,
 };
 use super::problem::{Kind, Problem};
 use crate::engine::{effect_slots, Answer, Average, Averager, Scorer, Warning};
@@ -70,7 +70,7 @@ fn average_is_finite(a: &Average) -> bool {
 /// Everything computed for one request, ready to serialize.
 pub struct Scored<'a> {
     model: &'a Model,
-    request: &'a ProbabilityRequest<'a>,
+    request: &'a ProbabilityRequest,
     request_id: &'a str,
     answers: Vec<Answer>,
     averages: Option<(Average, Vec<Average>)>,
@@ -115,7 +115,7 @@ pub fn not_live_message(model: &Model, live_version: &str) -> String {
 /// Score every observation (`values` is `n × covariates`, already checked).
 pub fn score<'a>(
     model: &'a Model,
-    request: &'a ProbabilityRequest<'a>,
+    request: &'a ProbabilityRequest,
     values: &[Value],
     request_id: &'a str,
     metrics: &ScoringMetrics,
@@ -137,18 +137,20 @@ pub fn score<'a>(
         let mut answer = answer.clone();
         drop_undefined_elasticities(&mut answer);
         if !is_finite(&answer) {
-            let base = match request.observations {
-                Observations::One(_) => "/observation".to_string(),
-                Observations::Many(_) => format!("/observations/{i}"),
+            let base = if request.batch {
+                format!("/observations/{i}")
+            } else {
+                "/observation".to_string()
             };
             let problem = Problem::new(
                 Kind::NotComputable,
                 "at these covariate values the answer overflows to a non-finite number",
             )
             .at(base);
-            return Err(match request.observations {
-                Observations::One(_) => problem,
-                Observations::Many(_) => problem.index(i),
+            return Err(if request.batch {
+                problem.index(i)
+            } else {
+                problem
             });
         }
         metrics.probability.observe(answer.probability);
@@ -308,27 +310,24 @@ impl Serialize for Scored<'_> {
         map.serialize_entry("version", model.version())?;
         map.serialize_entry("link", model.link.name())?;
         map.serialize_entry("level", &level)?;
-        match self.request.observations {
-            Observations::One(_) => {
-                if let Some(answer) = self.answers.first() {
-                    put_answer(&mut map, model, answer, level, shown)?;
-                }
-                if let Some(receipt) = self.receipts.first() {
-                    map.serialize_entry("receipt", receipt)?;
-                }
+        if self.request.batch {
+            map.serialize_entry("count", &self.answers.len())?;
+            map.serialize_entry(
+                "results",
+                &Results {
+                    model,
+                    answers: &self.answers,
+                    receipts: &self.receipts,
+                    level,
+                    shown,
+                },
+            )?;
+        } else {
+            if let Some(answer) = self.answers.first() {
+                put_answer(&mut map, model, answer, level, shown)?;
             }
-            Observations::Many(_) => {
-                map.serialize_entry("count", &self.answers.len())?;
-                map.serialize_entry(
-                    "results",
-                    &Results {
-                        model,
-                        answers: &self.answers,
-                        receipts: &self.receipts,
-                        level,
-                        shown,
-                    },
-                )?;
+            if let Some(receipt) = self.receipts.first() {
+                map.serialize_entry("receipt", receipt)?;
             }
         }
         let mut notes: Vec<Note> = Vec::new();

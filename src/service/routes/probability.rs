@@ -15,6 +15,7 @@ use std::sync::Arc;
 use actix_web::http::header;
 use actix_web::web::Bytes;
 use actix_web::{web, HttpMessage, HttpRequest, HttpResponse};
+use serde_json::Value as Json;
 
 use super::models::find;
 use crate::model::{Model, Value};
@@ -23,6 +24,7 @@ use crate::registry::{gate, Entry};
 use crate::service::admin::refusals::gate_problem;
 use crate::service::body::{parse_json, read_json_bytes};
 use crate::service::compute::{Admitted, INLINE_BODY_BYTES};
+use crate::service::direct;
 use crate::service::dto::{parse_probability_request, Observations};
 use crate::service::middleware::Scored;
 use crate::service::observations::{parse_all, parse_object};
@@ -146,26 +148,19 @@ struct Answered {
     logged: Option<String>,
 }
 
+/// How a request's observations were read: straight into values (`service::direct`), or as
+/// JSON to be checked against the model once the request is admitted.
+enum Read<'a> {
+    Values(Vec<Value>),
+    Sent(Observations<'a>),
+}
+
 /// Parse, check, admit, score and serialize: everything after the body has arrived.
 fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) -> Answered {
     let mut logged = None;
     let result = (|| {
         let limits = &state.settings.limits;
         let model = &target.model;
-        let body = parse_json(bytes)?;
-        let request = parse_probability_request(&body, limits.max_batch)?;
-        logged = state
-            .settings
-            .log_observations
-            .then(|| match request.observations {
-                Observations::One(o) => serde_json::to_string(o).unwrap_or_default(),
-                Observations::Many(list) => serde_json::to_string(list).unwrap_or_default(),
-            });
-        let count = request.observations.len();
-        state
-            .compute
-            .check_budget(count, model.coefficients.len())?;
-        let admission = state.compute.admit(count)?;
         // Fields that stored versions announce: the live version accepts and ignores them.
         let accepted: Vec<&str> = if target.live {
             target
@@ -178,7 +173,44 @@ fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) ->
         } else {
             Vec::new()
         };
-        let values = parse_all(model, request.observations, &accepted)?;
+        let shadow_reads_objects = state.shadow.is_some()
+            && target.live
+            && (target.entry.shadow.as_ref()).is_some_and(|c| reads_announced(model, c));
+        // The observations as sent are needed only to log them, to see announced fields or
+        // for a shadow that reads fields the live version does not; otherwise a well-formed
+        // request is read straight into values, and anything else the general way below.
+        let needs_objects =
+            state.settings.log_observations || !accepted.is_empty() || shadow_reads_objects;
+        let direct = (!needs_objects)
+            .then(|| direct::read(model, bytes, limits.max_batch))
+            .flatten();
+        let body: Json;
+        let (request, read) = match direct {
+            Some(direct) => (direct.request, Read::Values(direct.values)),
+            None => {
+                body = parse_json(bytes)?;
+                let (request, observations) = parse_probability_request(&body, limits.max_batch)?;
+                (request, Read::Sent(observations))
+            }
+        };
+        let sent = match read {
+            Read::Sent(observations) => Some(observations),
+            Read::Values(_) => None,
+        };
+        logged = sent
+            .filter(|_| state.settings.log_observations)
+            .map(|observations| match observations {
+                Observations::One(o) => serde_json::to_string(o).unwrap_or_default(),
+                Observations::Many(list) => serde_json::to_string(list).unwrap_or_default(),
+            });
+        state
+            .compute
+            .check_budget(request.count, model.coefficients.len())?;
+        let admission = state.compute.admit(request.count)?;
+        let values = match read {
+            Read::Values(values) => values,
+            Read::Sent(observations) => parse_all(model, observations, &accepted)?,
+        };
         let metrics = if target.live {
             state.metrics.scoring(model)
         } else {
@@ -200,19 +232,20 @@ fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) ->
         if !target.live {
             scored.set_not_live(target.entry.live.version());
         }
-        let sent = announced_sent(&target.entry, &accepted, request.observations);
-        if !sent.is_empty() {
-            scored.add_note(ANNOUNCED_IGNORED, announced_message(model, &sent));
+        if let Some(observations) = sent {
+            let announced = announced_sent(&target.entry, &accepted, observations);
+            if !announced.is_empty() {
+                scored.add_note(ANNOUNCED_IGNORED, announced_message(model, &announced));
+            }
         }
         let json = scored.to_json()?;
-        match (&state.shadow, &target.entry.shadow) {
-            (Some(shadow), Some(candidate)) if target.live => {
-                if reads_announced(model, candidate) {
-                    let rows = parsed_by(candidate, request.observations);
-                    shadow.compare_parsed(&target.entry, &rows, scored.answers());
-                } else {
-                    shadow.compare(&target.entry, &values, scored.answers());
-                }
+        match (&state.shadow, &target.entry.shadow, sent) {
+            (Some(shadow), Some(candidate), Some(observations)) if shadow_reads_objects => {
+                let rows = parsed_by(candidate, observations);
+                shadow.compare_parsed(&target.entry, &rows, scored.answers());
+            }
+            (Some(shadow), Some(_), _) if target.live => {
+                shadow.compare(&target.entry, &values, scored.answers());
             }
             _ => {}
         }
