@@ -29,6 +29,8 @@
 //! [`crate::monitoring::calibration::CalibrationMonitor::new`], among them the fleet counters
 //! that add up across replicas exactly.
 
+use std::sync::{Arc, RwLock, Weak};
+
 use prometheus::{
     Encoder, Histogram, HistogramOpts, HistogramVec, IntCounter, IntCounterVec, IntGauge,
     IntGaugeVec, Opts, Registry, TextEncoder,
@@ -75,6 +77,9 @@ pub struct Metrics {
     pub model_load_errors: IntCounterVec,
     /// 1 while the service is ready, 0 otherwise.
     pub ready: IntGauge,
+    /// The scoring handles of each model version scored so far, resolved once (see
+    /// [`Metrics::scoring`]).
+    scoring_handles: Arc<RwLock<Vec<VersionHandles>>>,
 }
 
 fn predicted_probability_buckets() -> Vec<f64> {
@@ -167,6 +172,7 @@ impl Metrics {
             live_version_info,
             model_load_errors,
             ready,
+            scoring_handles: Arc::default(),
         })
     }
 
@@ -195,9 +201,34 @@ impl Metrics {
         }
     }
 
-    /// The handles a request needs to record scoring for one model version, looked up once per
-    /// request so that a batch pays the label lookup once.
-    pub fn scoring(&self, model: &Model) -> ScoringMetrics {
+    /// The handles a request needs to record scoring for one model version: resolved from the
+    /// label sets the first time the version is scored, then found by the version's identity
+    /// (the loaded model, not its labels), so a request hashes no label.
+    pub fn scoring(&self, model: &Arc<Model>) -> Arc<ScoringMetrics> {
+        let same = |(kept, _): &&VersionHandles| std::ptr::eq(kept.as_ptr(), Arc::as_ptr(model));
+        let handles = self
+            .scoring_handles
+            .read()
+            .unwrap_or_else(|e| e.into_inner());
+        if let Some((_, found)) = handles.iter().find(same) {
+            return Arc::clone(found);
+        }
+        drop(handles);
+        let resolved = Arc::new(self.resolve_scoring(model));
+        let mut handles = self
+            .scoring_handles
+            .write()
+            .unwrap_or_else(|e| e.into_inner());
+        // A version no longer loaded gives up its place (its series stay in the registry).
+        handles.retain(|(kept, _)| kept.strong_count() > 0);
+        if let Some((_, found)) = handles.iter().find(same) {
+            return Arc::clone(found);
+        }
+        handles.push((Arc::downgrade(model), Arc::clone(&resolved)));
+        resolved
+    }
+
+    fn resolve_scoring(&self, model: &Model) -> ScoringMetrics {
         let name = model.name();
         ScoringMetrics {
             scored: self
@@ -240,9 +271,9 @@ impl Metrics {
 
     /// Record one answered request.
     pub fn record_request(&self, route: &str, method: &str, status: u16, seconds: f64) {
-        let code = status.to_string();
+        let mut code = itoa::Buffer::new();
         self.http_requests
-            .with_label_values(&[route, method, code.as_str()])
+            .with_label_values(&[route, method, code.format(status)])
             .inc();
         self.http_duration
             .with_label_values(&[route])
@@ -257,7 +288,11 @@ impl Metrics {
     }
 }
 
-/// Counters and histograms for one model version, resolved once per request.
+/// A loaded model version (held weakly, so that its address is not reused while it is kept
+/// here) and its scoring handles.
+type VersionHandles = (Weak<Model>, Arc<ScoringMetrics>);
+
+/// Counters and histograms for one model version, resolved once per version.
 #[derive(Debug, Clone)]
 pub struct ScoringMetrics {
     /// Observations scored.

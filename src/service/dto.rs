@@ -1,9 +1,8 @@
 //! Request and response types of the public routes.
 //!
 //! Requests are read from a parsed JSON value by hand rather than derived, so that every
-//! mistake names its JSON Pointer (`/observations/3/sector`, `/level`). Responses are views
-//! that borrow the model and the engine's answer and serialize straight to bytes: covariate and
-//! level names are written from the model, never copied per answer.
+//! mistake names its JSON Pointer (`/observations/3/sector`, `/level`). Answers are written by
+//! `service::answer`; this file holds the notes they carry.
 //!
 //! The probability request body:
 //!
@@ -18,15 +17,11 @@
 //! at_means        bool   false   effects at the training means
 //! ```
 
-use serde::ser::{SerializeMap, SerializeSeq};
-use serde::{Serialize, Serializer};
+use serde::Serialize;
 use serde_json::{Map, Value as Json};
 
 use super::problem::{echo, echo_json, echo_number, Kind, Problem};
-use crate::engine::{
-    Answer, Average, Contribution, Effect, EffectSlot, Interval, Options, Warning,
-};
-use crate::model::Model;
+use crate::engine::{Interval, Options, Warning};
 
 /// The largest interval level accepted: beyond it the normal quantile is no longer a useful
 /// finite number.
@@ -239,7 +234,7 @@ pub fn json_kind(value: &Json) -> &'static str {
     }
 }
 
-/// An interval with its level, as answered.
+/// An interval with its level, as a curve answers it.
 #[derive(Debug, Clone, Copy, Serialize)]
 pub struct IntervalView {
     /// Lower bound.
@@ -261,92 +256,6 @@ impl IntervalView {
     }
 }
 
-fn put_slot<M: SerializeMap>(
-    map: &mut M,
-    model: &Model,
-    slot: &EffectSlot,
-) -> Result<(), M::Error> {
-    let covariate = &model.covariates[slot.covariate];
-    map.serialize_entry("covariate", &covariate.name)?;
-    if let Some(level) = slot.level {
-        map.serialize_entry("level", &covariate.levels[level])?;
-        map.serialize_entry("reference", &covariate.levels[covariate.reference])?;
-    }
-    map.serialize_entry("kind", slot.kind.name())
-}
-
-fn put_error<M: SerializeMap>(
-    map: &mut M,
-    std_error: Option<f64>,
-    interval: Option<Interval>,
-    level: f64,
-) -> Result<(), M::Error> {
-    if let Some(se) = std_error {
-        map.serialize_entry("std_error", &se)?;
-    }
-    if let Some(interval) = interval {
-        map.serialize_entry("interval", &IntervalView::new(interval, level))?;
-    }
-    Ok(())
-}
-
-/// One marginal effect.
-pub struct EffectView<'a> {
-    /// The model.
-    pub model: &'a Model,
-    /// The effect.
-    pub effect: &'a Effect,
-    /// The interval level.
-    pub level: f64,
-}
-
-impl Serialize for EffectView<'_> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let mut map = serializer.serialize_map(None)?;
-        put_slot(&mut map, self.model, &self.effect.slot)?;
-        map.serialize_entry("effect", &self.effect.effect)?;
-        put_error(
-            &mut map,
-            self.effect.std_error,
-            self.effect.interval,
-            self.level,
-        )?;
-        if let Some(e) = self.effect.elasticity {
-            map.serialize_entry("elasticity", &e)?;
-        }
-        map.end()
-    }
-}
-
-/// One averaged effect.
-pub struct AverageView<'a> {
-    /// The model.
-    pub model: &'a Model,
-    /// The average.
-    pub average: &'a Average,
-    /// The interval level.
-    pub level: f64,
-}
-
-impl Serialize for AverageView<'_> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let mut map = serializer.serialize_map(None)?;
-        if let Some(slot) = &self.average.slot {
-            put_slot(&mut map, self.model, slot)?;
-            map.serialize_entry("effect", &self.average.value)?;
-        } else {
-            map.serialize_entry("probability", &self.average.value)?;
-        }
-        put_error(
-            &mut map,
-            self.average.std_error,
-            self.average.interval,
-            self.level,
-        )?;
-        map.end()
-    }
-}
-
 /// The stable code of a warning.
 pub fn warning_code(warning: &Warning) -> &'static str {
     match warning {
@@ -355,209 +264,8 @@ pub fn warning_code(warning: &Warning) -> &'static str {
     }
 }
 
-/// One extrapolation warning.
-pub struct WarningView<'a> {
-    /// The model.
-    pub model: &'a Model,
-    /// The warning.
-    pub warning: &'a Warning,
-}
-
-#[derive(Serialize)]
-struct Range {
-    min: f64,
-    max: f64,
-}
-
-impl Serialize for WarningView<'_> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let mut map = serializer.serialize_map(None)?;
-        map.serialize_entry("code", warning_code(self.warning))?;
-        match *self.warning {
-            Warning::OutOfRange {
-                covariate,
-                value,
-                min,
-                max,
-            } => {
-                let name = &self.model.covariates[covariate].name;
-                map.serialize_entry("covariate", name)?;
-                map.serialize_entry("value", &value)?;
-                map.serialize_entry("training_range", &Range { min, max })?;
-                map.serialize_entry(
-                    "message",
-                    &format!(
-                        "{name} = {} lies outside the training range [{}, {}]: the model is extrapolating",
-                        echo_number(value),
-                        echo_number(min),
-                        echo_number(max)
-                    ),
-                )?;
-            }
-            Warning::UnusualCombination {
-                distance,
-                max_distance,
-            } => {
-                let names: Vec<&str> = self
-                    .model
-                    .joint
-                    .iter()
-                    .flat_map(|j| j.covariates.iter())
-                    .map(|&c| self.model.covariates[c].name.as_str())
-                    .collect();
-                map.serialize_entry("covariates", &names)?;
-                map.serialize_entry("distance", &distance)?;
-                map.serialize_entry("max_distance", &max_distance)?;
-                map.serialize_entry(
-                    "message",
-                    &format!(
-                        "the combination of {} is unlike the training data (Mahalanobis distance {distance:.3}, largest in training {max_distance:.3}): the model is extrapolating",
-                        names.join(", ")
-                    ),
-                )?;
-            }
-        }
-        map.end()
-    }
-}
-
-/// One covariate's contribution to the linear index.
-pub struct ContributionView<'a> {
-    /// The model.
-    pub model: &'a Model,
-    /// The contribution.
-    pub contribution: &'a Contribution,
-}
-
-impl Serialize for ContributionView<'_> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let mut map = serializer.serialize_map(Some(2))?;
-        map.serialize_entry(
-            "covariate",
-            &self.model.covariates[self.contribution.covariate].name,
-        )?;
-        map.serialize_entry("contribution", &self.contribution.contribution)?;
-        map.end()
-    }
-}
-
-/// A list of views built on the fly from a slice.
-pub struct ListView<'a, T, F> {
-    /// The items.
-    pub items: &'a [T],
-    /// How to view each.
-    pub view: F,
-}
-
-impl<'a, T, V: Serialize, F: Fn(&'a T) -> V> Serialize for ListView<'a, T, F> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let mut seq = serializer.serialize_seq(Some(self.items.len()))?;
-        for item in self.items {
-            seq.serialize_element(&(self.view)(item))?;
-        }
-        seq.end()
-    }
-}
-
-/// What a per-observation answer shows.
-#[derive(Debug, Clone, Copy)]
-pub struct Shown {
-    /// Show the effects list.
-    pub effects: bool,
-    /// Show the contributions list.
-    pub contributions: bool,
-    /// Show warnings, band and threshold (not for the at-means profile).
-    pub observation: bool,
-}
-
-/// Write the fields of one answer into an open map.
-pub fn put_answer<M: SerializeMap>(
-    map: &mut M,
-    model: &Model,
-    answer: &Answer,
-    level: f64,
-    shown: Shown,
-) -> Result<(), M::Error> {
-    map.serialize_entry("probability", &answer.probability)?;
-    put_error(map, answer.std_error, answer.interval, level)?;
-    map.serialize_entry("linear_index", &answer.linear_index)?;
-    if shown.effects {
-        map.serialize_entry(
-            "effects",
-            &ListView {
-                items: &answer.effects,
-                view: |effect| EffectView {
-                    model,
-                    effect,
-                    level,
-                },
-            },
-        )?;
-    }
-    if shown.observation {
-        map.serialize_entry(
-            "warnings",
-            &ListView {
-                items: &answer.warnings,
-                view: |warning| WarningView { model, warning },
-            },
-        )?;
-    }
-    if shown.contributions {
-        map.serialize_entry(
-            "contributions",
-            &ListView {
-                items: &answer.contributions,
-                view: |contribution| ContributionView {
-                    model,
-                    contribution,
-                },
-            },
-        )?;
-    }
-    if shown.observation {
-        if let (Some(band), Some(decision)) = (answer.band, &model.file.decision) {
-            map.serialize_entry("band", &decision.bands[band].name)?;
-        }
-        if let Some(above) = answer.above_threshold {
-            map.serialize_entry("above_threshold", &above)?;
-        }
-    }
-    Ok(())
-}
-
-/// One answer as its own object (an element of a batch's `results`).
-pub struct AnswerView<'a> {
-    /// The model.
-    pub model: &'a Model,
-    /// The answer.
-    pub answer: &'a Answer,
-    /// The interval level.
-    pub level: f64,
-    /// What to show.
-    pub shown: Shown,
-    /// The observation's index in the batch.
-    pub index: Option<usize>,
-    /// The answer's receipt, when monitoring sealed one.
-    pub receipt: Option<&'a str>,
-}
-
-impl Serialize for AnswerView<'_> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let mut map = serializer.serialize_map(None)?;
-        if let Some(i) = self.index {
-            map.serialize_entry("index", &i)?;
-        }
-        put_answer(&mut map, self.model, self.answer, self.level, self.shown)?;
-        if let Some(receipt) = self.receipt {
-            map.serialize_entry("receipt", receipt)?;
-        }
-        map.end()
-    }
-}
-
 /// A note on the whole answer (for example: no covariance, so no intervals).
-#[derive(Debug, Clone, Copy, Serialize)]
+#[derive(Debug, Clone, Copy)]
 pub struct Note {
     /// A stable code.
     pub code: &'static str,

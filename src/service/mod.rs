@@ -12,7 +12,8 @@
 //! body.rs         JSON bodies: the one reader, strict parsing, size and time limits
 //! compute.rs      the scoring pool, the work budget, the in-flight caps
 //! connection.rs   the connection cap and the stalled-write timeout
-//! dto.rs          request parsing and response views
+//! dto.rs          request parsing, answer notes
+//! answer.rs       the answer's JSON, written by hand into one buffer
 //! direct.rs       a well-formed probability request read straight into values
 //! observations.rs observations → engine values, service bounds
 //! scoring.rs      driving the engine for a probability request
@@ -32,6 +33,7 @@
 //! computed.
 
 pub mod admin;
+pub(crate) mod answer;
 pub(crate) mod app;
 pub mod body;
 pub mod compute;

@@ -2,7 +2,8 @@
 //!
 //! The statistics are the engine's; this module only drives a [`Scorer`] over the
 //! observations, records the scoring metrics once per request, refuses an answer that is not
-//! finite (422 `not-computable`, never a `null` where a number is promised), and serializes.
+//! finite (422 `not-computable`, never a `null` where a number is promised), and writes the
+//! answer ([`super::answer`]).
 //!
 //! ```text
 //! one observation:  {request_id, model, version, link, level, <answer fields>, [receipt], notes, [average_effects], [at_means]}
@@ -17,13 +18,8 @@
 //! Receipts are sealed by monitoring ([`crate::monitoring::monitor::Monitor::record_scored`]) and
 //! handed in with [`Scored::set_receipts`]; without monitoring an answer carries none.
 
-use serde::ser::{SerializeMap, SerializeSeq};
-use serde::{Serialize, Serializer};
-
-use super::dto::{
-    put_answer, AnswerView, AverageView, ListView, Note, ProbabilityRequest, Shown, AT_MEANS,
-    NO_COVARIANCE, SATURATED,
-};
+use super::answer::{Shown, Writer};
+use super::dto::{ProbabilityRequest, AT_MEANS, NO_COVARIANCE, SATURATED};
 use super::problem::{Kind, Problem};
 use crate::engine::{effect_slots, Answer, Average, Averager, Scorer, Warning};
 use crate::metrics::ScoringMetrics;
@@ -209,175 +205,6 @@ pub fn score<'a>(
     })
 }
 
-struct Averages<'a> {
-    model: &'a Model,
-    count: usize,
-    probability: &'a Average,
-    effects: &'a [Average],
-    level: f64,
-}
-
-impl Serialize for Averages<'_> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let mut map = serializer.serialize_map(None)?;
-        map.serialize_entry("count", &self.count)?;
-        map.serialize_entry(
-            "probability",
-            &AverageView {
-                model: self.model,
-                average: self.probability,
-                level: self.level,
-            },
-        )?;
-        map.serialize_entry(
-            "effects",
-            &ListView {
-                items: self.effects,
-                view: |average| AverageView {
-                    model: self.model,
-                    average,
-                    level: self.level,
-                },
-            },
-        )?;
-        map.end()
-    }
-}
-
-struct Results<'a> {
-    model: &'a Model,
-    answers: &'a [Answer],
-    receipts: &'a [String],
-    level: f64,
-    shown: Shown,
-}
-
-impl Serialize for Results<'_> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let mut seq = serializer.serialize_seq(Some(self.answers.len()))?;
-        for (i, answer) in self.answers.iter().enumerate() {
-            seq.serialize_element(&AnswerView {
-                model: self.model,
-                answer,
-                level: self.level,
-                shown: self.shown,
-                index: Some(i),
-                receipt: self.receipts.get(i).map(String::as_str),
-            })?;
-        }
-        seq.end()
-    }
-}
-
-struct AtMeans<'a> {
-    model: &'a Model,
-    answer: &'a Answer,
-    level: f64,
-}
-
-impl Serialize for AtMeans<'_> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let mut map = serializer.serialize_map(None)?;
-        put_answer(
-            &mut map,
-            self.model,
-            self.answer,
-            self.level,
-            Shown {
-                effects: true,
-                contributions: false,
-                observation: false,
-            },
-        )?;
-        map.serialize_entry("note", AT_MEANS.message)?;
-        map.end()
-    }
-}
-
-impl Serialize for Scored<'_> {
-    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
-        let model = self.model;
-        let options = &self.request.options;
-        let level = options.level();
-        let shown = Shown {
-            effects: options.effects,
-            contributions: options.contributions,
-            observation: true,
-        };
-        let mut map = serializer.serialize_map(None)?;
-        map.serialize_entry("request_id", self.request_id)?;
-        map.serialize_entry("model", model.name())?;
-        map.serialize_entry("version", model.version())?;
-        map.serialize_entry("link", model.link.name())?;
-        map.serialize_entry("level", &level)?;
-        if self.request.batch {
-            map.serialize_entry("count", &self.answers.len())?;
-            map.serialize_entry(
-                "results",
-                &Results {
-                    model,
-                    answers: &self.answers,
-                    receipts: &self.receipts,
-                    level,
-                    shown,
-                },
-            )?;
-        } else {
-            if let Some(answer) = self.answers.first() {
-                put_answer(&mut map, model, answer, level, shown)?;
-            }
-            if let Some(receipt) = self.receipts.first() {
-                map.serialize_entry("receipt", receipt)?;
-            }
-        }
-        let mut notes: Vec<Note> = Vec::new();
-        if model.covariance.is_none() && options.intervals {
-            notes.push(NO_COVARIANCE);
-        }
-        let zero_width = |a: &Answer| a.interval.is_some_and(|i| i.lower == i.upper);
-        if self.answers.iter().any(zero_width) {
-            notes.push(SATURATED);
-        }
-        if self.request_notes.is_empty() {
-            map.serialize_entry("notes", &notes)?;
-        } else {
-            let mut all: Vec<serde_json::Value> = notes
-                .iter()
-                .map(|n| serde_json::json!({"code": n.code, "message": n.message}))
-                .collect();
-            all.extend(
-                self.request_notes
-                    .iter()
-                    .map(|(code, message)| serde_json::json!({"code": code, "message": message})),
-            );
-            map.serialize_entry("notes", &all)?;
-        }
-        if let Some((probability, effects)) = &self.averages {
-            map.serialize_entry(
-                "average_effects",
-                &Averages {
-                    model,
-                    count: self.answers.len(),
-                    probability,
-                    effects,
-                    level,
-                },
-            )?;
-        }
-        if let Some(answer) = &self.at_means {
-            map.serialize_entry(
-                "at_means",
-                &AtMeans {
-                    model,
-                    answer,
-                    level,
-                },
-            )?;
-        }
-        map.end()
-    }
-}
-
 impl Scored<'_> {
     /// The answers, in observation order.
     pub fn answers(&self) -> &[Answer] {
@@ -401,15 +228,92 @@ impl Scored<'_> {
         self.request_notes.push((code, message));
     }
 
-    /// The answer's JSON bytes.
-    pub fn to_json(&self) -> Result<Vec<u8>, Problem> {
+    /// The answer's JSON bytes (the layout of the module comment, written by
+    /// [`super::answer::Writer`]).
+    pub fn to_json(&self) -> Vec<u8> {
         // Sized from the answer's shape (about 220 bytes per effect, 64 per contribution and
         // 160 per warning), so that a large batch is written without regrowing the buffer.
         let per_answer = self.answers.first().map_or(512, |a| {
             440 + 220 * a.effects.len() + 64 * a.contributions.len() + 160 * a.warnings.len()
         });
-        let mut out = Vec::with_capacity(1024 + per_answer * self.answers.len());
-        serde_json::to_writer(&mut out, self).map_err(|e| Problem::internal(&e))?;
-        Ok(out)
+        let model = self.model;
+        let options = &self.request.options;
+        let level = options.level();
+        let shown = Shown {
+            effects: options.effects,
+            contributions: options.contributions,
+            observation: true,
+        };
+        let mut w = Writer::new(model, level, 1024 + per_answer * self.answers.len());
+        w.raw("{");
+        w.text_member("request_id", self.request_id);
+        w.text_member("model", model.name());
+        w.text_member("version", model.version());
+        w.text_member("link", model.link.name());
+        w.number_member("level", level);
+        if self.request.batch {
+            w.count_member("count", self.answers.len());
+            w.member("results");
+            w.raw("[");
+            for (i, answer) in self.answers.iter().enumerate() {
+                w.raw(if i == 0 { "{" } else { ",{" });
+                w.count_member("index", i);
+                w.answer_fields(answer, shown);
+                if let Some(receipt) = self.receipts.get(i) {
+                    w.text_member("receipt", receipt);
+                }
+                w.raw("}");
+            }
+            w.raw("]");
+        } else {
+            if let Some(answer) = self.answers.first() {
+                w.answer_fields(answer, shown);
+            }
+            if let Some(receipt) = self.receipts.first() {
+                w.text_member("receipt", receipt);
+            }
+        }
+        let mut notes: Vec<(&str, &str)> = Vec::new();
+        if model.covariance.is_none() && options.intervals {
+            notes.push((NO_COVARIANCE.code, NO_COVARIANCE.message));
+        }
+        let zero_width = |a: &Answer| a.interval.is_some_and(|i| i.lower == i.upper);
+        if self.answers.iter().any(zero_width) {
+            notes.push((SATURATED.code, SATURATED.message));
+        }
+        notes.extend(
+            self.request_notes
+                .iter()
+                .map(|(code, message)| (*code, message.as_str())),
+        );
+        w.list("notes", &notes, |w, (code, message)| {
+            w.raw("{");
+            w.text_member("code", code);
+            w.text_member("message", message);
+            w.raw("}");
+        });
+        if let Some((probability, effects)) = &self.averages {
+            w.member("average_effects");
+            w.raw("{");
+            w.count_member("count", self.answers.len());
+            w.member("probability");
+            w.average(probability);
+            w.list("effects", effects, Writer::average);
+            w.raw("}");
+        }
+        if let Some(answer) = &self.at_means {
+            w.member("at_means");
+            w.raw("{");
+            let profile = Shown {
+                effects: true,
+                contributions: false,
+                observation: false,
+            };
+            w.answer_fields(answer, profile);
+            w.text_member("note", AT_MEANS.message);
+            w.raw("}");
+        }
+        w.raw("}");
+        w.finish()
     }
 }

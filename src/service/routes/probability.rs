@@ -214,10 +214,8 @@ fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) ->
         let metrics = if target.live {
             state.metrics.scoring(model)
         } else {
-            state
-                .metrics
-                .scoring_not_live(model)
-                .map_err(|e| Problem::internal(&e))?
+            let detached = state.metrics.scoring_not_live(model);
+            Arc::new(detached.map_err(|e| Problem::internal(&e))?)
         };
         let mut scored = score(model, &request, &values, request_id, &metrics)?;
         if let Some(monitor) = &state.monitor {
@@ -238,7 +236,7 @@ fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) ->
                 scored.add_note(ANNOUNCED_IGNORED, announced_message(model, &announced));
             }
         }
-        let json = scored.to_json()?;
+        let json = scored.to_json();
         match (&state.shadow, &target.entry.shadow, sent) {
             (Some(shadow), Some(candidate), Some(observations)) if shadow_reads_objects => {
                 let rows = parsed_by(candidate, observations);
