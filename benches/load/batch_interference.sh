@@ -5,6 +5,7 @@
 #
 #   bash benches/load/batch_interference.sh
 #   DURATION=5s WORKERS=2 BATCH_CONNECTIONS=2 bash benches/load/batch_interference.sh
+#   OGIVE=/path/to/an/earlier/ogive bash benches/load/batch_interference.sh   # another build
 #
 # Prints each run's p50 and p99 (medians of RUNS repetitions) and the ratio of the p99 beside
 # batches to the p99 alone. A ratio near 1 means the batches ran off the I/O workers; before the
@@ -21,7 +22,11 @@ single_connections="${SINGLE_CONNECTIONS:-8}"
 batch_connections="${BATCH_CONNECTIONS:-2}"
 command -v wrk >/dev/null || { echo "wrk is needed: apt-get install -y wrk"; exit 1; }
 
-cargo build -q --release --bin ogive 2>/dev/null || cargo build --release --bin ogive
+ogive="${OGIVE:-}"
+if [ -z "$ogive" ]; then
+  cargo build -q --release --bin ogive 2>/dev/null || cargo build --release --bin ogive
+  ogive="${CARGO_TARGET_DIR:-target}/release/ogive"
+fi
 models=tests/http/models
 if compgen -G "model-files/*/live" >/dev/null; then models=model-files; fi
 
@@ -34,7 +39,7 @@ cleanup() {
 }
 trap cleanup EXIT
 
-target/release/ogive serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
+"$ogive" serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
   --workers "$workers" --drain-delay-ms 0 --max-batch 10000 ${OGIVE_FLAGS:-} \
   >"$work/ogive.out" 2>/dev/null &
 pids+=("$!")
