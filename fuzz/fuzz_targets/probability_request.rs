@@ -1,6 +1,6 @@
 //! Fuzz target: the body of `POST /models/{name}/probability`, taken through the same library
-//! calls as the route (JSON parse → request fields → observations → scoring → drift window and
-//! answer store → answer JSON), never panics, and ends either in an answer whose probabilities
+//! calls as the route's general reader (JSON parse → request fields → observations → scoring →
+//! drift window and receipts → answer JSON), never panics, and ends either in an answer whose probabilities
 //! lie in [0, 1] or in a problem with a 4xx status whose body is well-formed JSON.
 //!
 //! What this does not cover: the HTTP layer itself (headers, content type, the size limit),
@@ -11,13 +11,14 @@
 mod support;
 
 use std::sync::atomic::{AtomicU64, Ordering};
-use std::sync::OnceLock;
+use std::sync::{Arc, OnceLock};
 
 use libfuzzer_sys::fuzz_target;
-use ogive::monitoring::monitor::{Monitor, MonitorSettings};
 use ogive::metrics::Metrics;
+use ogive::monitoring::monitor::{Monitor, MonitorSettings};
+use ogive::receipt::ReceiptKeys;
 use ogive::service::body::parse_json;
-use ogive::service::dto::{parse_probability_request, Observations};
+use ogive::service::dto::parse_probability_request;
 use ogive::service::observations::parse_all;
 use ogive::service::problem::Problem;
 use ogive::service::scoring::score;
@@ -36,8 +37,9 @@ static REQUESTS: AtomicU64 = AtomicU64::new(0);
 fn service() -> &'static Service {
     SERVICE.get_or_init(|| {
         let metrics = Metrics::new().expect("metrics register");
-        let monitor =
-            Monitor::new(MonitorSettings::default(), &metrics.registry).expect("monitor registers");
+        let keys = Arc::new(ReceiptKeys::ephemeral().expect("an ephemeral receipt key"));
+        let monitor = Monitor::new(MonitorSettings::default(), keys, &metrics.registry)
+            .expect("monitor registers");
         Service {
             metrics,
             monitor,
@@ -51,25 +53,23 @@ fn answer(body: &[u8]) -> Result<Vec<u8>, Problem> {
     let service = service();
     let model = support::fuzz_model();
     let body = parse_json(body)?;
-    let request = parse_probability_request(&body, service.max_batch)?;
-    let values = parse_all(model, request.observations, &[])?;
+    let (request, observations) = parse_probability_request(&body, service.max_batch)?;
+    let values = parse_all(model, observations, &[])?;
     let request_id = format!("fuzz-{}", REQUESTS.fetch_add(1, Ordering::Relaxed));
-    let scored = score(
+    let mut scored = score(
         model,
         &request,
         &values,
         &request_id,
         &service.metrics.scoring(model),
     )?;
-    let single = matches!(request.observations, Observations::One(_));
-    let answers = scored
-        .answers()
-        .iter()
-        .map(|a| (a.probability, a.linear_index));
-    service
+    let probabilities = scored.answers().iter().map(|a| a.probability);
+    let receipts = service
         .monitor
-        .record_scored(model, &request_id, single, &values, answers);
-    scored.to_json()
+        .record_scored(model, &values, probabilities)
+        .expect("receipts are sealed");
+    scored.set_receipts(receipts);
+    Ok(scored.to_json())
 }
 
 fn probabilities(answer: &Json) -> Vec<f64> {
