@@ -340,7 +340,7 @@ fn a_fit_without_an_outcome_meaning_says_only_what_is_known() {
 }
 
 #[test]
-fn a_near_collinear_design_fits_with_a_note_giving_its_condition_number() {
+fn a_near_collinear_design_fits_with_a_note_naming_its_terms_and_condition_number() {
     let reference = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/reference/fit");
     let fixture: serde_json::Value = serde_json::from_slice(
         &std::fs::read(reference.join("near_collinear.json")).expect("read the fixture"),
@@ -383,6 +383,27 @@ fn a_near_collinear_design_fits_with_a_note_giving_its_condition_number() {
         "{printed} vs numpy {expected}"
     );
     assert!(note.contains("above 30"), "{note}");
+    // Reference: numpy.linalg.svd of the same scaled design gives each term's share of its
+    // coefficient's variance on the dimension of the largest condition index; x and z carry
+    // nearly all of theirs there, the intercept and w almost none. Printed to two decimals.
+    let terms = ["intercept", "x", "z", "w"];
+    let proportions = fixture["proportions_with_z"].as_array().expect("array");
+    let involved: Vec<&str> = fixture["involved_with_z"]
+        .as_array()
+        .expect("array")
+        .iter()
+        .filter_map(|t| t.as_str())
+        .collect();
+    assert_eq!(involved, ["x", "z"], "the fixture's dependency");
+    for (term, proportion) in terms.iter().zip(proportions) {
+        let proportion = proportion.as_f64().expect("number");
+        let named = format!("'{term}' ({proportion:.2})");
+        assert_eq!(
+            note.contains(&named),
+            involved.contains(term),
+            "{term}: numpy's proportion {proportion} in {note}"
+        );
+    }
     // Without z the design is well conditioned (numpy: about 11) and nothing is said.
     assert!(fixture["condition_without_z"].as_f64().expect("number") < 30.0);
     let run = fit("x, w", "without-z.json");

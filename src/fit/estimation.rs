@@ -46,7 +46,7 @@ pub(crate) fn prepare(
     let design = Design::build(&sample.table.columns, sample.rows(), &resolved);
     let gram = design::gram(&design, sample.weights());
     rank::check_rank(&gram, &labels, sample.counted)?;
-    let collinearity = rank::collinearity_note(rank::condition_number(&gram, labels.len()));
+    let collinearity = rank::collinearity_note(&rank::collinearity(&gram, labels.len()), &labels);
     drop(gram);
     separation::check_single_terms(&design, sample.outcome(), sample.weights(), &labels)?;
     Ok(Prepared {

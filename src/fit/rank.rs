@@ -13,12 +13,13 @@
 //! original units, `xⱼ ≈ Σ bₗ·√(Gⱼⱼ/Gₗₗ)·xₗ`. Later terms are named, earlier ones kept, so the
 //! message reads in the order the user wrote the terms.
 //!
-//! A design of full rank may still be nearly collinear. [`condition_number`] is the condition
+//! A design of full rank may still be nearly collinear. [`collinearity`] gives the condition
 //! number of the design with each column scaled to unit length, κ = √(λmax/λmin) of C (the
 //! scaled condition number of Belsley, Kuh and Welsch, *Regression Diagnostics*, 1980, who read
 //! condition indexes above 30 as moderate to strong dependencies); a fit whose κ exceeds
-//! [`CONDITION_WARNING`] goes ahead with a note that the standard errors of the terms involved
-//! are inflated.
+//! [`CONDITION_WARNING`] goes ahead with a note naming the terms involved (those whose
+//! variance-decomposition proportion on a dimension of such an index exceeds one half) and that
+//! their standard errors are inflated.
 
 use super::error::FitError;
 
@@ -28,32 +29,95 @@ pub const COLLINEAR_TOLERANCE: f64 = 1e-10;
 /// A design whose unit-scaled condition number exceeds this is reported as nearly collinear.
 pub const CONDITION_WARNING: f64 = 30.0;
 
-/// The condition number of the design with unit-length columns, from `gram` = `XᵀX` (row-major
-/// `k × k`, every diagonal entry positive: the rank check has passed). Infinite when the
-/// scaled Gram matrix has an eigenvalue at or below zero.
-pub fn condition_number(gram: &[f64], k: usize) -> f64 {
+/// A term whose variance-decomposition proportion on a dimension of high condition index
+/// exceeds this is named as involved in that dependency (Belsley, Kuh and Welsch's reading).
+pub const INVOLVED_PROPORTION: f64 = 0.5;
+
+/// How nearly collinear a design of full rank is: Belsley, Kuh and Welsch's diagnostics of the
+/// design with unit-length columns, from the eigen decomposition C = V Λ Vᵀ of its scaled
+/// Gram matrix.
+///
+/// ```text
+/// condition index of dimension j     ηⱼ = √(λmax / λⱼ)
+/// condition number                   κ = maxⱼ ηⱼ
+/// variance proportion of term k      πₖⱼ = (vₖⱼ² / λⱼ) / Σᵢ (vₖᵢ² / λᵢ)
+/// ```
+///
+/// πₖⱼ is the share of the variance of term k's coefficient that dimension j carries; a
+/// dimension with ηⱼ above [`CONDITION_WARNING`] on which two or more terms have πₖⱼ above
+/// [`INVOLVED_PROPORTION`] is a dependency among those terms.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Collinearity {
+    /// κ, infinite when the scaled Gram matrix has an eigenvalue at or below zero.
+    pub condition: f64,
+    /// The terms (by index) involved in a dependency of index above [`CONDITION_WARNING`],
+    /// each with its largest variance proportion on such a dimension; in term order.
+    pub involved: Vec<(usize, f64)>,
+}
+
+/// The collinearity diagnostics of the design, from `gram` = `XᵀX` (row-major `k × k`, every
+/// diagonal entry positive: the rank check has passed).
+pub fn collinearity(gram: &[f64], k: usize) -> Collinearity {
     let diagonal: Vec<f64> = (0..k).map(|j| gram[j * k + j]).collect();
     let scaled = nalgebra::DMatrix::from_fn(k, k, |a, b| {
         gram[a * k + b] / (diagonal[a] * diagonal[b]).sqrt()
     });
-    let eigen = nalgebra::SymmetricEigen::new(scaled).eigenvalues;
-    let largest = eigen.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let smallest = eigen.iter().copied().fold(f64::INFINITY, f64::min);
-    if smallest > 0.0 {
-        (largest / smallest).sqrt()
-    } else {
-        f64::INFINITY
+    let eigen = nalgebra::SymmetricEigen::new(scaled);
+    let values = &eigen.eigenvalues;
+    let largest = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let smallest = values.iter().copied().fold(f64::INFINITY, f64::min);
+    if smallest <= 0.0 {
+        return Collinearity {
+            condition: f64::INFINITY,
+            involved: Vec::new(),
+        };
+    }
+    let dependencies: Vec<usize> = (0..k)
+        .filter(|&j| (largest / values[j]).sqrt() > CONDITION_WARNING)
+        .collect();
+    let mut involved = Vec::new();
+    for term in 0..k {
+        let share = |j: usize| eigen.eigenvectors[(term, j)].powi(2) / values[j];
+        let total: f64 = (0..k).map(share).sum();
+        let proportion = dependencies
+            .iter()
+            .map(|&j| share(j) / total)
+            .fold(0.0, f64::max);
+        if proportion > INVOLVED_PROPORTION {
+            involved.push((term, proportion));
+        }
+    }
+    Collinearity {
+        condition: (largest / smallest).sqrt(),
+        involved,
     }
 }
 
-/// The note of a nearly collinear design, or `None` when κ is at most [`CONDITION_WARNING`].
-pub fn collinearity_note(condition: f64) -> Option<String> {
+/// The note of a nearly collinear design naming the terms involved (`labels` in term order),
+/// or `None` when κ is at most [`CONDITION_WARNING`].
+pub fn collinearity_note(diagnostics: &Collinearity, labels: &[String]) -> Option<String> {
+    let condition = diagnostics.condition;
     (condition > CONDITION_WARNING).then(|| {
+        let terms = if diagnostics.involved.is_empty() {
+            "the standard errors of the terms involved are inflated".to_string()
+        } else {
+            let named: Vec<String> = diagnostics
+                .involved
+                .iter()
+                .map(|&(term, proportion)| format!("'{}' ({proportion:.2})", labels[term]))
+                .collect();
+            format!(
+                "the terms involved, with the share of their coefficient's variance the \
+                 dependency carries (Belsley-Kuh-Welsch variance proportions above \
+                 {INVOLVED_PROPORTION}), are {}; their standard errors are inflated",
+                named.join(", ")
+            )
+        };
         format!(
             "the design is nearly collinear: its condition number (columns scaled to unit \
-             length) is {condition:.1}, above {CONDITION_WARNING}; the standard errors of the \
-             terms involved are inflated and their coefficients unstable; consider dropping or \
-             combining terms that carry the same information"
+             length) is {condition:.1}, above {CONDITION_WARNING}; {terms} and their \
+             coefficients unstable; consider dropping or combining terms that carry the same \
+             information"
         )
     })
 }

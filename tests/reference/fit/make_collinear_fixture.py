@@ -8,7 +8,10 @@ Writes, next to this script:
                        independent, y a logit draw on x and w
   near_collinear.json  numpy.linalg.cond of the design [1, x, z, w] with each column scaled to
                        unit length (the scaling of Belsley, Kuh and Welsch's condition number),
-                       and of the design [1, x, w] without z
+                       and of the design [1, x, w] without z; with z, the variance-
+                       decomposition proportions of each term on the dimension of the largest
+                       condition index (from numpy.linalg.svd of the same scaled design), and
+                       the terms whose proportion there exceeds 0.5
 
 Simulated data are input only: the check values are numpy's.
 
@@ -30,6 +33,15 @@ def scaled_condition(columns):
     return float(np.linalg.cond(design))
 
 
+def variance_proportions(columns):
+    design = np.column_stack(columns)
+    design = design / np.linalg.norm(design, axis=0)
+    _, singular, vt = np.linalg.svd(design, full_matrices=False)
+    phi = vt.T**2 / singular**2
+    proportions = phi / phi.sum(axis=1, keepdims=True)
+    return proportions[:, int(np.argmin(singular))]
+
+
 def main():
     rng = np.random.default_rng(20260501)
     n = 400
@@ -48,6 +60,14 @@ def main():
         + np.__version__,
         "terms_with_z": ["intercept", "x", "z", "w"],
         "condition_with_z": scaled_condition([ones, x, z, w]),
+        "proportions_with_z": [float(p) for p in variance_proportions([ones, x, z, w])],
+        "involved_with_z": [
+            term
+            for term, p in zip(
+                ["intercept", "x", "z", "w"], variance_proportions([ones, x, z, w])
+            )
+            if p > 0.5
+        ],
         "terms_without_z": ["intercept", "x", "w"],
         "condition_without_z": scaled_condition([ones, x, w]),
     }
