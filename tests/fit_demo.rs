@@ -21,6 +21,7 @@ use nalgebra::{DMatrix, DVector};
 use ogive::link::normal_quantile;
 use ogive::model::Model;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
+use support::process::{copy_tree, write_executable};
 use support::tolerances::fit::REFIT_RELATIVE;
 
 fn root() -> PathBuf {
@@ -181,4 +182,86 @@ fn refitting_the_demo_data_gives_the_committed_models() {
         };
         assert_eq!(history(&refitted), history(&committed), "{name}: history");
     }
+}
+
+/// Every file under `folder`, by path relative to it, with its bytes.
+fn files_of(folder: &std::path::Path) -> std::collections::BTreeMap<PathBuf, Vec<u8>> {
+    let mut files = std::collections::BTreeMap::new();
+    let mut stack = vec![folder.to_path_buf()];
+    while let Some(dir) = stack.pop() {
+        for entry in std::fs::read_dir(&dir).expect("list") {
+            let path = entry.expect("entry").path();
+            if path.is_dir() {
+                stack.push(path);
+            } else {
+                let bytes = std::fs::read(&path).expect("read");
+                files.insert(path.strip_prefix(folder).expect("inside").to_path_buf(), bytes);
+            }
+        }
+    }
+    files
+}
+
+#[test]
+fn the_demo_script_without_ogive_builds_under_cargo_target_dir() {
+    let work = tempfile::tempdir().expect("temporary folder");
+    // A stand-in cargo: the build it is asked for "produces" the binary under test where a
+    // build under CARGO_TARGET_DIR would put it, and nowhere else.
+    let tools = work.path().join("tools");
+    let target = work.path().join("elsewhere");
+    let models = work.path().join("models");
+    std::fs::create_dir_all(&tools).expect("mkdir");
+    write_executable(
+        &tools.join("cargo"),
+        &format!(
+            "#!/bin/sh\n\
+             [ \"$*\" = 'build --release --quiet --bin ogive' ] || {{ echo \"unexpected: cargo $*\" >&2; exit 1; }}\n\
+             mkdir -p \"$CARGO_TARGET_DIR/release\" && ln -sf '{}' \"$CARGO_TARGET_DIR/release/ogive\"\n",
+            env!("CARGO_BIN_EXE_ogive")
+        ),
+    );
+    let path = std::env::var_os("PATH").unwrap_or_default();
+    let mut search = vec![tools];
+    search.extend(std::env::split_paths(&path));
+    let run = std::process::Command::new("bash")
+        .arg(root().join("demo-data/fit-demo-models.sh"))
+        .env_remove("OGIVE")
+        .env("CARGO_TARGET_DIR", &target)
+        .env("MODEL_FILES", &models)
+        .env("SKIP_GENERATE", "1")
+        .env("PATH", std::env::join_paths(search).expect("PATH"))
+        .output()
+        .expect("run the demo script");
+    assert!(
+        run.status.success(),
+        "{}{}",
+        String::from_utf8_lossy(&run.stdout),
+        String::from_utf8_lossy(&run.stderr)
+    );
+    for name in ["lease-arrears", "rebate-uptake"] {
+        assert!(models.join(name).join("live").is_file(), "{name}: live");
+    }
+}
+
+#[test]
+fn a_failing_demo_fit_leaves_model_files_and_their_histories_as_they_were() {
+    let work = tempfile::tempdir().expect("temporary folder");
+    let models = work.path().join("models");
+    copy_tree(&root().join("model-files"), &models);
+    let before = files_of(&models);
+    // An ogive whose fit fails, as one given bad data or flags would.
+    let failing = work.path().join("failing-ogive");
+    write_executable(
+        &failing,
+        "#!/bin/sh\necho 'error: the fit failed' >&2\nexit 1\n",
+    );
+    let run = std::process::Command::new("bash")
+        .arg(root().join("demo-data/fit-demo-models.sh"))
+        .env("OGIVE", &failing)
+        .env("MODEL_FILES", &models)
+        .env("SKIP_GENERATE", "1")
+        .output()
+        .expect("run the demo script");
+    assert!(!run.status.success(), "the script reports the failure");
+    assert_eq!(files_of(&models), before, "a failed run changed the model files");
 }

@@ -27,10 +27,10 @@
 mod support;
 
 use std::fmt::Write as _;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
-use support::process::{copy_tree, free_port};
+use support::process::{copy_tree, free_port, write_executable};
 
 /// The marker of a block that is not run.
 const SKIP: &str = "<!-- readme-commands: skip";
@@ -98,12 +98,6 @@ fn shell_blocks(markdown: &str) -> Vec<Block> {
         });
     }
     blocks
-}
-
-fn write_executable(path: &Path, text: &str) {
-    use std::os::unix::fs::PermissionsExt;
-    std::fs::write(path, text).expect("write a tool");
-    std::fs::set_permissions(path, std::fs::Permissions::from_mode(0o755)).expect("chmod");
 }
 
 /// The README's example request body (the first `-d '…'` of a probability request).

@@ -78,13 +78,17 @@ pub fn example_curl(model: &Model, base_url: &str) -> String {
 mod tests {
     use super::*;
 
-    #[test]
-    fn the_example_applicant_is_away_from_every_training_mean() {
+    fn demo_model() -> Model {
         let path = concat!(
             env!("CARGO_MANIFEST_DIR"),
             "/model-files/lease-arrears/versions/1.0.0.json"
         );
-        let model = Model::from_json(&std::fs::read(path).expect("read")).expect("valid");
+        Model::from_json(&std::fs::read(path).expect("read")).expect("valid")
+    }
+
+    #[test]
+    fn the_example_applicant_is_away_from_every_training_mean() {
+        let model = demo_model();
         let example = example_observation(&model);
         // The demo's training summaries: revenue mean 620.3, sd 583.8; years 9.252, sd 8.862;
         // prior arrears mean 0.61, sd 0.78; guarantor mean 0.35; retail the most frequent
@@ -94,5 +98,27 @@ mod tests {
             json!({"annual_revenue": 1200.0, "years_trading": 18.1, "prior_arrears": 1,
                    "guarantor": 1, "sector": "retail"})
         );
+    }
+
+    #[test]
+    fn the_example_applicant_has_a_reason_code_from_every_covariate() {
+        // At the training-mean profile every contribution is zero by construction, so an
+        // example there would demonstrate no reason codes; this one moves each covariate.
+        let model = demo_model();
+        let mut values = Vec::new();
+        model
+            .parse_observation(&example_observation(&model), &mut values)
+            .expect("the example is a valid observation");
+        let mut scorer = crate::engine::Scorer::new(&model);
+        let answer = scorer.score(&model, &values, &crate::engine::Options::default());
+        assert_eq!(answer.contributions.len(), model.covariates.len());
+        for contribution in &answer.contributions {
+            let name = &model.covariates[contribution.covariate].name;
+            assert!(
+                contribution.contribution.abs() > 0.01,
+                "{name} contributes {} to the index: nothing to show as a reason",
+                contribution.contribution
+            );
+        }
     }
 }

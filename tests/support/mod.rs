@@ -13,7 +13,7 @@
 //!   [`http_models`]: the committed HTTP test models it serves.
 //! - [`contract`]: the one OpenAPI contract checker.
 //! - [`process`]: `ogive serve` as a real process: free ports, a child killed when dropped,
-//!   plain GETs, copying a folder.
+//!   plain GETs, copying a folder, stand-in tools for the scripts tests run.
 #![allow(dead_code)]
 
 pub mod cli;

@@ -66,3 +66,10 @@ pub fn copy_tree(from: &Path, to: &Path) {
         }
     }
 }
+
+/// Write `text` to `path` as an executable script (a stand-in tool).
+pub fn write_executable(path: &Path, text: &str) {
+    use std::os::unix::fs::PermissionsExt;
+    std::fs::write(path, text).expect("write a tool");
+    std::fs::set_permissions(path, std::fs::Permissions::from_mode(0o755)).expect("chmod");
+}
