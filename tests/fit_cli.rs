@@ -410,3 +410,63 @@ fn a_near_collinear_design_fits_with_a_note_naming_its_terms_and_condition_numbe
     assert!(run.status.success());
     assert!(!String::from_utf8_lossy(&run.stdout).contains("collinear"));
 }
+
+#[test]
+fn fit_and_describe_head_their_coefficient_tables_with_the_same_words() {
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let out = dir.path().join("refit.json");
+    let fit = ogive()
+        .args(["fit", "--version", "1.0.1"])
+        .arg("--like")
+        .arg(demo("model-files/lease-arrears/versions/1.0.0.json"))
+        .arg("--data")
+        .arg(demo("demo-data/lease-arrears.csv"))
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .expect("run ogive fit");
+    assert!(
+        fit.status.success(),
+        "{}",
+        String::from_utf8_lossy(&fit.stderr)
+    );
+    let describe = ogive()
+        .arg("describe")
+        .arg(&out)
+        .output()
+        .expect("run ogive describe");
+    assert!(
+        describe.status.success(),
+        "{}",
+        String::from_utf8_lossy(&describe.stderr)
+    );
+    // The header is the line that starts with "term"; its columns are set apart by two or
+    // more spaces.
+    let header = |output: &[u8]| -> Vec<String> {
+        let text = String::from_utf8_lossy(output).to_string();
+        let line = text
+            .lines()
+            .find(|l| l.trim_start().starts_with("term "))
+            .unwrap_or_else(|| panic!("no coefficient table in:\n{text}"))
+            .to_string();
+        line.split("  ")
+            .map(str::trim)
+            .filter(|c| !c.is_empty())
+            .map(str::to_string)
+            .collect()
+    };
+    let fitted = header(&fit.stdout);
+    assert_eq!(fitted, header(&describe.stdout));
+    assert_eq!(
+        fitted,
+        [
+            "term",
+            "coefficient",
+            "std. error",
+            "z",
+            "p",
+            "95% lower",
+            "95% upper"
+        ]
+    );
+}

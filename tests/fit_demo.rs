@@ -195,7 +195,10 @@ fn files_of(folder: &std::path::Path) -> std::collections::BTreeMap<PathBuf, Vec
                 stack.push(path);
             } else {
                 let bytes = std::fs::read(&path).expect("read");
-                files.insert(path.strip_prefix(folder).expect("inside").to_path_buf(), bytes);
+                files.insert(
+                    path.strip_prefix(folder).expect("inside").to_path_buf(),
+                    bytes,
+                );
             }
         }
     }
@@ -263,5 +266,9 @@ fn a_failing_demo_fit_leaves_model_files_and_their_histories_as_they_were() {
         .output()
         .expect("run the demo script");
     assert!(!run.status.success(), "the script reports the failure");
-    assert_eq!(files_of(&models), before, "a failed run changed the model files");
+    assert_eq!(
+        files_of(&models),
+        before,
+        "a failed run changed the model files"
+    );
 }

@@ -213,3 +213,26 @@ fn the_document_rejects_what_the_service_rejects() {
         assert_eq!(reply.status, 422, "the service accepts {body}");
     }
 }
+
+#[test]
+fn every_route_that_reads_a_body_documents_its_408_answer() {
+    // A body that stops arriving is answered 408 (tests/hardening.rs); each public operation
+    // that takes one says so.
+    for (name, text) in [("public", include_str!("../../src/service/openapi.json"))] {
+        let document: Json = serde_json::from_str(text).expect("the document");
+        let mut with_body = 0;
+        for (path, item) in document["paths"].as_object().expect("paths") {
+            for (method, operation) in item.as_object().expect("a path item") {
+                if operation.get("requestBody").is_none() {
+                    continue;
+                }
+                with_body += 1;
+                assert!(
+                    operation["responses"].get("408").is_some(),
+                    "{name} document: {method} {path} takes a body but documents no 408"
+                );
+            }
+        }
+        assert!(with_body > 0, "{name} document: no operation takes a body");
+    }
+}
