@@ -347,14 +347,10 @@ fn a_bad_outcome_or_covariate_cell_stops_the_run_naming_row_line_and_column() {
     );
 }
 
-#[test]
-fn skipped_rows_are_left_out_for_both_models_and_counted_by_reason() {
-    let s = setup();
-    let data = damaged(
-        s.dir.path(),
-        &[(2, 3, "yes"), (7, 3, ""), (9, 0, "NaN"), (11, 2, "2")],
-    );
-    let report = evaluate_json(&[
+/// The JSON report of the logit fixture against the probit on `data`, skipping bad rows, with
+/// `more` arguments.
+fn logit_against_probit_skipping(s: &Setup, data: &std::path::Path, more: &[&str]) -> Json {
+    let mut args = vec![
         "--data",
         data.to_str().unwrap(),
         "--outcome",
@@ -365,7 +361,19 @@ fn skipped_rows_are_left_out_for_both_models_and_counted_by_reason() {
         s.logit.to_str().unwrap(),
         "--against",
         s.probit.to_str().unwrap(),
-    ]);
+    ];
+    args.extend_from_slice(more);
+    evaluate_json(&args)
+}
+
+#[test]
+fn skipped_rows_are_left_out_for_both_models_and_counted_by_reason() {
+    let s = setup();
+    let data = damaged(
+        s.dir.path(),
+        &[(2, 3, "yes"), (7, 3, ""), (9, 0, "NaN"), (11, 2, "2")],
+    );
+    let report = logit_against_probit_skipping(&s, &data, &[]);
     let d = &report["data"];
     assert_eq!(d["rows_read"], 32);
     assert_eq!(d["rows_evaluated"], 28);
@@ -789,4 +797,76 @@ fn describe_with_labelled_data_adds_the_same_figures_as_evaluate() {
     assert_eq!(result.code, 0, "{}", result.stderr);
     let described: Json = serde_json::from_str(&result.stdout).expect("JSON");
     assert!(described.get("evaluation").is_none());
+}
+
+/// The Spector rows `copies` times under one header, with `extra` lines inserted after the
+/// copy numbered by each (1-based): a file of many read blocks whose good rows are the Spector
+/// rows repeated.
+fn repeated(dir: &std::path::Path, copies: usize, extra: &[(usize, &str)]) -> std::path::PathBuf {
+    let text = std::fs::read_to_string(data_path()).expect("spector.csv");
+    let (header, rows) = text.split_once('\n').expect("a header line");
+    let mut body = format!("{header}\n");
+    for copy in 1..=copies {
+        body.push_str(rows);
+        for (_, line) in extra.iter().filter(|(after, _)| *after == copy) {
+            body.push_str(line);
+            body.push('\n');
+        }
+    }
+    let path = dir.join("repeated.csv");
+    std::fs::write(&path, body).expect("write");
+    path
+}
+
+#[test]
+fn a_file_of_many_blocks_gives_the_same_report_on_one_thread_or_three() {
+    let s = setup();
+    // 3,000 copies of 32 rows: about 1.4 MB, read in blocks of 128 KiB.
+    let data = repeated(
+        s.dir.path(),
+        3_000,
+        &[(1_000, "2.5,20,1,2"), (2_999, "2.5,many,1,0")],
+    );
+    let report = |threads: &str| {
+        let mut report = logit_against_probit_skipping(&s, &data, &["--threads", threads]);
+        report.as_object_mut().unwrap().remove("created");
+        report
+    };
+    let (one, three) = (report("1"), report("3"));
+    assert_eq!(one, three, "the figures depend on the number of threads");
+
+    let d = &one["data"];
+    assert_eq!(d["rows_read"], 96_002);
+    assert_eq!(d["rows_evaluated"], 96_000);
+    // The bad rows are numbered in the whole file: row 32,001 follows the 1,000th copy.
+    let examples = d["skipped_examples"].as_array().unwrap();
+    assert_eq!(examples.len(), 2, "{d}");
+    assert!(
+        examples[0]
+            .as_str()
+            .unwrap()
+            .starts_with("row 32001 (line 32002): outcome 'grade'"),
+        "{d}"
+    );
+    assert!(
+        examples[1]
+            .as_str()
+            .unwrap()
+            .starts_with("row 95970 (line 95971): "),
+        "{d}"
+    );
+    // The good rows are the Spector rows repeated, so the AUC, Brier score and log loss are
+    // those of the rows once (scikit-learn).
+    let want = &reference()["spector"];
+    for (model, key) in one["models"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .zip(["first", "second"])
+    {
+        let (got, want) = (&model["figures"], &want[key]["figures"]);
+        close(&got["auc"]["estimate"], &want["auc"], "AUC (sklearn)");
+        close(&got["brier"], &want["brier"], "Brier (sklearn)");
+        close(&got["log_loss"], &want["log_loss"], "log loss (sklearn)");
+    }
 }

@@ -58,7 +58,7 @@ pub(super) struct BlockScorer<'m> {
     values: Vec<Value>,
 }
 
-fn block_reader(input: &[u8]) -> csv::Reader<&[u8]> {
+pub(crate) fn block_reader(input: &[u8]) -> csv::Reader<&[u8]> {
     csv::ReaderBuilder::new()
         .has_headers(false)
         // Rows of the wrong length are reported per row (and can be skipped), not as a read
@@ -71,7 +71,7 @@ fn block_reader(input: &[u8]) -> csv::Reader<&[u8]> {
 /// at the end of the one before, which may be followed by the `\n` of a `\r\n` or by empty
 /// lines. Returns the byte index and the line (1-based) of the record's first byte, so that
 /// neither depends on where blocks begin.
-fn record_start(input: &[u8], position: &csv::Position) -> (usize, u64) {
+pub(crate) fn record_start(input: &[u8], position: &csv::Position) -> (usize, u64) {
     let from = (position.byte() as usize).min(input.len());
     let terminators = input[from..]
         .iter()

@@ -48,6 +48,7 @@ use std::time::Duration;
 
 use csv::ByteRecord;
 
+pub(crate) use block::{block_reader, record_start};
 use block::{BlockReport, BlockScorer, RowOffsets};
 pub use input::{CovariateColumns, RowStream};
 pub use output::{contribution_column, effect_column, output_columns, output_header, RowWriter};
@@ -336,8 +337,9 @@ fn read_more<R: Read>(
     }
 }
 
-/// The input, read in blocks of whole records.
-struct BlockSource<R: Read> {
+/// The input, read in blocks of whole records (also the block reader of
+/// [`crate::evaluate::read_labelled`]).
+pub(crate) struct BlockSource<R: Read> {
     input: R,
     /// Bytes read past the last cut: the start of the next block.
     carry: Vec<u8>,
@@ -346,9 +348,20 @@ struct BlockSource<R: Read> {
 }
 
 impl<R: Read> BlockSource<R> {
+    /// A source that reads `input` in blocks of about `block_bytes` (at least 1).
+    pub(crate) fn new(input: R, block_bytes: usize) -> BlockSource<R> {
+        let block_bytes = block_bytes.max(1);
+        BlockSource {
+            input,
+            carry: Vec::with_capacity(block_bytes),
+            at_end: false,
+            block_bytes,
+        }
+    }
+
     /// Read the header record, returning it and the bytes it took (with the empty lines
     /// before it).
-    fn header(&mut self) -> Result<(ByteRecord, Vec<u8>), BatchError> {
+    pub(crate) fn header(&mut self) -> Result<(ByteRecord, Vec<u8>), BatchError> {
         let end = loop {
             if let Some(end) = cut::first_record_end(&self.carry) {
                 break end;
@@ -371,7 +384,7 @@ impl<R: Read> BlockSource<R> {
     }
 
     /// Fill `block` with the next whole records; `false` when the input is exhausted.
-    fn next_block(&mut self, block: &mut Vec<u8>) -> Result<bool, BatchError> {
+    pub(crate) fn next_block(&mut self, block: &mut Vec<u8>) -> Result<bool, BatchError> {
         block.clear();
         block.append(&mut self.carry);
         let mut target = self.block_bytes;

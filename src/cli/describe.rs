@@ -12,10 +12,10 @@ use std::process::ExitCode;
 use anyhow::Context;
 
 use super::evaluate;
-use crate::batch::ErrorPolicy;
+use crate::batch::{self, ErrorPolicy};
 use crate::engine::Options;
 use crate::evaluate::report::{self as evaluation_report, EvaluationReport};
-use crate::evaluate::{labelled, plots, ModelRows};
+use crate::evaluate::{labelled, plots, ModelRows, ReadOptions};
 use crate::model::Model;
 use crate::report;
 
@@ -129,7 +129,11 @@ fn outcome_evaluation(
         return Ok(None);
     }
     let loaded = evaluate::loaded_from(file)?;
-    let evaluated = evaluate::evaluate_data(&[loaded], data, outcome, ErrorPolicy::Stop, level)
+    let reading = ReadOptions {
+        on_error: ErrorPolicy::Stop,
+        threads: batch::default_threads(),
+    };
+    let evaluated = evaluate::evaluate_data(&[loaded], data, outcome, reading, level)
         .with_context(|| format!("{} carries the outcome column '{outcome}'", data.display()))?;
     Ok(Some(evaluated))
 }

@@ -11,9 +11,9 @@ use std::process::ExitCode;
 use anyhow::{bail, Context};
 use sha2::{Digest, Sha256};
 
-use crate::batch::ErrorPolicy;
+use crate::batch::{self, ErrorPolicy};
 use crate::evaluate::report::{self, DataSection, EvaluationReport, ModelSection, WarningShares};
-use crate::evaluate::{self as figures, plots, read_labelled, ModelRows, Names};
+use crate::evaluate::{self as figures, plots, read_labelled, ModelRows, Names, ReadOptions};
 use crate::model::Model;
 use crate::registry::store::ModelDir;
 use crate::timestamp::rfc3339_millis;
@@ -74,6 +74,11 @@ pub struct EvaluateArgs {
     /// The level of every interval in the report.
     #[arg(long, env = "OGIVE_LEVEL", value_name = "L", default_value_t = 0.95)]
     pub level: f64,
+    /// Worker threads that parse and score rows (default: one per core). The figures are the
+    /// same, bit for bit, whatever the number.
+    #[arg(long, env = "OGIVE_THREADS", value_name = "N",
+          value_parser = clap::value_parser!(u64).range(1..))]
+    pub threads: Option<u64>,
 }
 
 /// A model and the file it came from.
@@ -182,13 +187,17 @@ impl<R: Read> Read for Hashing<R> {
 pub fn run(args: EvaluateArgs) -> anyhow::Result<ExitCode> {
     figures::quantile_for(args.level)?;
     let (first, second) = load_models(&args)?;
-    let on_error = match args.on_error {
-        OnError::Stop => ErrorPolicy::Stop,
-        OnError::Skip => ErrorPolicy::Skip,
+    let reading = ReadOptions {
+        on_error: match args.on_error {
+            OnError::Stop => ErrorPolicy::Stop,
+            OnError::Skip => ErrorPolicy::Skip,
+        },
+        threads: args
+            .threads
+            .map_or_else(batch::default_threads, |n| n as usize),
     };
     let models: Vec<Loaded> = std::iter::once(first).chain(second).collect();
-    let (mut built, rows) =
-        evaluate_data(&models, &args.data, &args.outcome, on_error, args.level)?;
+    let (mut built, rows) = evaluate_data(&models, &args.data, &args.outcome, reading, args.level)?;
     if let Some(folder) = &args.plots {
         let written = plots::write_plots(folder, &built, &rows)?;
         built.plots = written.iter().map(|p| p.display().to_string()).collect();
@@ -214,7 +223,7 @@ pub(crate) fn evaluate_data(
     models: &[Loaded],
     data: &Path,
     outcome: &str,
-    on_error: ErrorPolicy,
+    reading: ReadOptions,
     level: f64,
 ) -> anyhow::Result<(EvaluationReport, Vec<ModelRows>)> {
     let file = File::open(data).with_context(|| format!("cannot open {}", data.display()))?;
@@ -231,7 +240,7 @@ pub(crate) fn evaluate_data(
         }
     };
     let scored: Vec<&Model> = models.iter().map(|m| &m.model).collect();
-    let labelled = read_labelled(&scored, &mut input, outcome, on_error, 0, &mut on_progress)
+    let labelled = read_labelled(&scored, &mut input, outcome, reading, &mut on_progress)
         .with_context(|| format!("evaluating on {} stopped", data.display()))?;
     // The CSV reader stops at the last record; hash whatever it left unread.
     io::copy(&mut input, &mut io::sink())
@@ -242,8 +251,9 @@ pub(crate) fn evaluate_data(
 
     let summary = &labelled.summary;
     let mut sections = Vec::new();
-    for (index, (loaded, rows)) in models.iter().zip(&labelled.rows).enumerate() {
-        let evaluation = figures::evaluate(rows, level).with_context(|| {
+    let evaluations = figures::evaluate_each(&labelled.rows, level, reading.threads);
+    for (index, (loaded, evaluation)) in models.iter().zip(evaluations).enumerate() {
+        let evaluation = evaluation.with_context(|| {
             format!(
                 "cannot evaluate {} {} on {}",
                 loaded.model.name(),

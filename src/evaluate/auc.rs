@@ -11,13 +11,15 @@
 //! ```
 //!
 //! Sun and Xu obtain V₁₀ from midranks (the midrank of xᵢ among all rows less its midrank among
-//! the events); the counts above are the same numbers, found here by binary search in a sorted
-//! copy of the other class, so the work is O(N log N) and the only extra memory is that copy.
+//! the events); the counts above are the same numbers, found here in one walk over both classes
+//! sorted ([`super::rank`]), so the work is O(N log N), done once per model for the AUC, the
+//! paired test and the deciles of risk.
 //! Scores are logits of the probabilities: the logit is strictly increasing, so the AUC and
 //! every placement are those of the probabilities.
 
 use serde::Serialize;
 
+use super::rank::Ranking;
 use super::rows::ModelRows;
 use super::{two_sided_p, Bounds};
 
@@ -50,78 +52,61 @@ pub struct AucDifference {
     pub p_value: f64,
 }
 
-/// The placement values of one model: V₁₀ for the events, V₀₁ for the non-events, each in
-/// row order.
-struct Placements {
-    events: Vec<f64>,
-    non_events: Vec<f64>,
+/// The placement values of one model, V₁₀ for the events and V₀₁ for the non-events, each in
+/// row order: the counts of its [`Ranking`] over twice the size of the other class.
+struct Placements<'r> {
+    events: &'r [u32],
+    event_scale: f64,
+    non_events: &'r [u32],
+    non_event_scale: f64,
 }
 
-fn sorted(values: &[f64]) -> Vec<f64> {
-    let mut copy = values.to_vec();
-    copy.sort_unstable_by(f64::total_cmp);
-    copy
-}
-
-/// (#{sorted < x}, #{sorted = x}).
-fn below_and_equal(sorted: &[f64], x: f64) -> (usize, usize) {
-    let below = sorted.partition_point(|&v| v < x);
-    let not_above = sorted.partition_point(|&v| v <= x);
-    (below, not_above - below)
-}
-
-fn placements(rows: &ModelRows) -> Placements {
-    let (events, non_events) = (rows.event_logits(), rows.non_event_logits());
-    let (m, n) = (events.len() as f64, non_events.len() as f64);
-    let other = sorted(non_events);
-    let event_placements = events
-        .iter()
-        .map(|&x| {
-            let (below, equal) = below_and_equal(&other, x);
-            (below as f64 + 0.5 * equal as f64) / n
-        })
-        .collect();
-    drop(other);
-    let other = sorted(events);
-    let non_event_placements = non_events
-        .iter()
-        .map(|&y| {
-            let (below, equal) = below_and_equal(&other, y);
-            let above = other.len() - below - equal;
-            (above as f64 + 0.5 * equal as f64) / m
-        })
-        .collect();
-    Placements {
-        events: event_placements,
-        non_events: non_event_placements,
+impl Placements<'_> {
+    fn of(ranking: &Ranking) -> Placements<'_> {
+        let (m, n) = (
+            ranking.event_counts.len() as f64,
+            ranking.non_event_counts.len() as f64,
+        );
+        Placements {
+            events: &ranking.event_counts,
+            event_scale: 2.0 * n,
+            non_events: &ranking.non_event_counts,
+            non_event_scale: 2.0 * m,
+        }
     }
 }
 
-fn mean(values: &[f64]) -> f64 {
-    values.iter().sum::<f64>() / values.len() as f64
+fn mean(counts: &[u32], scale: f64) -> f64 {
+    counts.iter().map(|&c| c as f64 / scale).sum::<f64>() / counts.len() as f64
 }
 
-/// The sample covariance (divisor len − 1; 0 for fewer than two values).
-fn covariance(a: &[f64], b: &[f64]) -> f64 {
+/// The sample covariance of two placement vectors of one class (divisor len − 1; 0 for fewer
+/// than two values).
+fn covariance(a: &[u32], a_scale: f64, b: &[u32], b_scale: f64) -> f64 {
     if a.len() < 2 {
         return 0.0;
     }
-    let (mean_a, mean_b) = (mean(a), mean(b));
+    let (mean_a, mean_b) = (mean(a, a_scale), mean(b, b_scale));
     let sum: f64 = a
         .iter()
         .zip(b)
-        .map(|(x, y)| (x - mean_a) * (y - mean_b))
+        .map(|(&x, &y)| (x as f64 / a_scale - mean_a) * (y as f64 / b_scale - mean_b))
         .sum();
     sum / (a.len() - 1) as f64
 }
 
 fn variance_terms(a: &Placements, b: &Placements) -> f64 {
-    covariance(&a.events, &b.events) / a.events.len() as f64
-        + covariance(&a.non_events, &b.non_events) / a.non_events.len() as f64
+    covariance(a.events, a.event_scale, b.events, b.event_scale) / a.events.len() as f64
+        + covariance(
+            a.non_events,
+            a.non_event_scale,
+            b.non_events,
+            b.non_event_scale,
+        ) / a.non_events.len() as f64
 }
 
 fn auc_of(placements: &Placements, quantile: f64) -> Auc {
-    let estimate = mean(&placements.events);
+    let estimate = mean(placements.events, placements.event_scale);
     let std_error = variance_terms(placements, placements).max(0.0).sqrt();
     let interval = Bounds::normal(estimate, std_error, quantile);
     Auc {
@@ -135,18 +120,21 @@ fn auc_of(placements: &Placements, quantile: f64) -> Auc {
 }
 
 pub(super) fn auc(rows: &ModelRows, quantile: f64) -> Auc {
-    auc_of(&placements(rows), quantile)
+    auc_of(&Placements::of(rows.ranking()), quantile)
 }
 
 /// DeLong's paired test of two models on the same rows (the caller checks the rows agree).
 pub(super) fn paired(first: &ModelRows, second: &ModelRows, quantile: f64) -> AucDifference {
-    let (a, b) = (placements(first), placements(second));
+    let (a, b) = (
+        Placements::of(first.ranking()),
+        Placements::of(second.ranking()),
+    );
     let (var_a, var_b, cov) = (
         variance_terms(&a, &a),
         variance_terms(&b, &b),
         variance_terms(&a, &b),
     );
-    let difference = mean(&a.events) - mean(&b.events);
+    let difference = mean(a.events, a.event_scale) - mean(b.events, b.event_scale);
     let std_error = (var_a + var_b - 2.0 * cov).max(0.0).sqrt();
     let z = if std_error > 0.0 {
         difference / std_error

@@ -22,7 +22,7 @@
 use serde::Serialize;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 
-use super::rows::{logistic, ModelRows};
+use super::rows::logistic;
 
 /// Groups of the statistic (deciles of risk).
 pub const RISK_GROUPS: usize = 10;
@@ -68,65 +68,64 @@ impl RiskGroup {
     }
 }
 
-/// The rows sorted by risk: (p, 1 − p, outcome).
-fn by_risk(rows: &ModelRows) -> impl Iterator<Item = (f64, f64, bool)> {
-    let mut events = rows.event_logits().to_vec();
-    let mut non_events = rows.non_event_logits().to_vec();
-    events.sort_unstable_by(f64::total_cmp);
-    non_events.sort_unstable_by(f64::total_cmp);
-    let (mut i, mut j) = (0, 0);
-    std::iter::from_fn(move || {
-        let take_event = match (events.get(i), non_events.get(j)) {
-            (Some(&e), Some(&n)) => e < n,
-            (Some(_), None) => true,
-            (None, Some(_)) => false,
-            (None, None) => return None,
-        };
-        if take_event {
-            i += 1;
-            let x = events[i - 1];
-            Some((logistic(x), logistic(-x), true))
-        } else {
-            j += 1;
-            let x = non_events[j - 1];
-            Some((logistic(x), logistic(-x), false))
-        }
-    })
+/// The groups filled one row at a time, in order of risk (a non-event before an event at
+/// equal p), as [`super::rank`] walks the rows.
+pub(super) struct RiskDeciles {
+    total: u64,
+    seen: u64,
+    group: usize,
+    groups: Vec<RiskGroup>,
 }
 
-pub(super) fn hosmer_lemeshow(rows: &ModelRows) -> HosmerLemeshow {
-    let total = rows.rows() as usize;
-    let mut groups = vec![
-        RiskGroup {
-            rows: 0,
-            observed: 0,
-            expected: 0.0,
-            expected_non_events: 0.0,
-        };
-        RISK_GROUPS
-    ];
-    let mut group = 0;
-    for (index, (p, complement, event)) in by_risk(rows).enumerate() {
-        while index >= (group + 1) * total / RISK_GROUPS {
-            group += 1;
+impl RiskDeciles {
+    /// Groups for `total` rows.
+    pub(super) fn new(total: u64) -> RiskDeciles {
+        RiskDeciles {
+            total,
+            seen: 0,
+            group: 0,
+            groups: vec![
+                RiskGroup {
+                    rows: 0,
+                    observed: 0,
+                    expected: 0.0,
+                    expected_non_events: 0.0,
+                };
+                RISK_GROUPS
+            ],
         }
-        let g = &mut groups[group];
+    }
+
+    /// The next row in order of risk: its logit and outcome.
+    #[inline]
+    pub(super) fn add(&mut self, logit: f64, event: bool) {
+        let groups = RISK_GROUPS as u64;
+        while self.seen >= (self.group as u64 + 1) * self.total / groups {
+            self.group += 1;
+        }
+        self.seen += 1;
+        let g = &mut self.groups[self.group];
         g.rows += 1;
         g.observed += u64::from(event);
-        g.expected += p;
-        g.expected_non_events += complement;
+        g.expected += logistic(logit);
+        g.expected_non_events += logistic(-logit);
     }
-    groups.retain(|g| g.rows > 0);
-    let statistic = groups.iter().map(RiskGroup::term).sum();
-    let degrees_of_freedom = groups.len().saturating_sub(2);
-    let p_value = ChiSquared::new(degrees_of_freedom as f64)
-        .map(|d| d.sf(statistic))
-        .unwrap_or(f64::NAN);
-    HosmerLemeshow {
-        statistic,
-        degrees_of_freedom,
-        p_value,
-        groups,
+
+    /// The statistic over the groups filled.
+    pub(super) fn finish(self) -> HosmerLemeshow {
+        let mut groups = self.groups;
+        groups.retain(|g| g.rows > 0);
+        let statistic = groups.iter().map(RiskGroup::term).sum();
+        let degrees_of_freedom = groups.len().saturating_sub(2);
+        let p_value = ChiSquared::new(degrees_of_freedom as f64)
+            .map(|d| d.sf(statistic))
+            .unwrap_or(f64::NAN);
+        HosmerLemeshow {
+            statistic,
+            degrees_of_freedom,
+            p_value,
+            groups,
+        }
     }
 }
 

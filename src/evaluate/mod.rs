@@ -8,6 +8,7 @@
 //! calibration.rs  calibration intercept (logit(p) as offset) and slope, by Newton's method
 //! bins.rs         the reliability table (Wilson intervals) and Murphy's Brier decomposition
 //! hosmer.rs       the Hosmer–Lemeshow statistic over deciles of risk
+//! rank.rs         one sort of each class: the placements and the deciles of risk
 //! paired.rs       per-row Brier and log-loss differences, the paired AUC test, the verdict
 //! plots.rs        the reliability diagram and the ROC curve, as SVG
 //! report.rs       the report value, its text rendering and its JSON (the evidence)
@@ -17,9 +18,12 @@
 //! ```
 //!
 //! Memory: each model keeps one `f64` a row (the logit of its probability, in two vectors by
-//! outcome, in row order), so two models keep 16 bytes a row; at the end, ranking and the
-//! deciles of risk take one transient sorted copy of one model's scores at a time (8 bytes a
-//! row). Everything else is a fixed set of sums.
+//! outcome, in row order), so two models keep 16 bytes a row. Ranking a model ([`rank`]) holds
+//! its rows as (score, row) pairs, 16 bytes a row, while it sorts and walks them, and leaves
+//! its placements, 4 bytes a row. Two models evaluated on two threads ([`evaluate_each`]) rank
+//! at the same time, so the peak is 16 + 2 × (16 + 4) = 56 bytes a row (40 on one thread);
+//! everything else is a fixed set of sums and the blocks in flight while reading
+//! ([`read_labelled`]).
 //!
 //! The statistics files compute; they read nothing and print nothing, and are fed each row's
 //! probability, its complement and the outcome. `labelled.rs` is the one reader, over any
@@ -33,6 +37,7 @@ mod hosmer;
 pub(crate) mod labelled;
 mod paired;
 pub(crate) mod plots;
+mod rank;
 pub(crate) mod report;
 mod rows;
 
@@ -40,7 +45,9 @@ pub use auc::{Auc, AucDifference};
 pub use bins::{wilson, BrierDecomposition, ReliabilityBin, RELIABILITY_BINS};
 pub use calibration::CalibrationFit;
 pub use hosmer::{HosmerLemeshow, RiskGroup, RISK_GROUPS};
-pub use labelled::{read_labelled, Labelled, LabelledError, LabelledRowError, LabelledSummary};
+pub use labelled::{
+    read_labelled, Labelled, LabelledError, LabelledRowError, LabelledSummary, ReadOptions,
+};
 pub use paired::{compare, Comparison, Favours, MeanDifference, Names, PairedRows, Verdict};
 pub use rows::{Forecast, ModelRows, PROBABILITY_EDGE};
 
@@ -61,6 +68,14 @@ pub enum EvaluateError {
     /// The interval level is not strictly between 0 and 1.
     #[error("the interval level must lie strictly between 0 and 1, got {0}")]
     Level(f64),
+    /// More rows than a ranking counts.
+    #[error("{rows} rows are more than the {limit} an evaluation ranks; evaluate a sample or split the file")]
+    TooManyRows {
+        /// Rows given.
+        rows: u64,
+        /// The most an evaluation takes.
+        limit: u64,
+    },
     /// Two models were compared on different rows.
     #[error("the two models were given different rows ({first} and {second})")]
     DifferentRows {
@@ -181,7 +196,33 @@ pub fn evaluate(rows: &ModelRows, level: f64) -> Result<ModelEvaluation, Evaluat
         auc: auc::auc(rows, quantile),
         calibration_intercept: calibration::intercept(rows, quantile),
         calibration_slope: calibration::slope(rows, quantile),
-        hosmer_lemeshow: hosmer::hosmer_lemeshow(rows),
+        hosmer_lemeshow: rows.ranking().hosmer_lemeshow.clone(),
         reliability: bins::reliability(rows, quantile),
+    })
+}
+
+/// [`evaluate`] each model's rows, on a thread each when `threads` allows (the figures are
+/// the same either way), in the order given.
+pub fn evaluate_each(
+    models: &[ModelRows],
+    level: f64,
+    threads: usize,
+) -> Vec<Result<ModelEvaluation, EvaluateError>> {
+    if threads < 2 || models.len() < 2 {
+        return models.iter().map(|rows| evaluate(rows, level)).collect();
+    }
+    std::thread::scope(|scope| {
+        let running: Vec<_> = models
+            .iter()
+            .map(|rows| scope.spawn(move || evaluate(rows, level)))
+            .collect();
+        running
+            .into_iter()
+            .map(|thread| {
+                thread
+                    .join()
+                    .unwrap_or_else(|panic| std::panic::resume_unwind(panic))
+            })
+            .collect()
     })
 }

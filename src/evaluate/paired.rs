@@ -11,7 +11,7 @@
 use serde::Serialize;
 
 use super::auc::{self, AucDifference};
-use super::rows::{Forecast, ModelRows, Running};
+use super::rows::{Forecast, ModelRows, Running, Scored};
 use super::{quantile_for, two_sided_p, Bounds, EvaluateError};
 
 /// The mean of per-row differences with its standard error.
@@ -53,10 +53,14 @@ impl PairedRows {
     /// Add one row's two forecasts.
     #[inline]
     pub fn push(&mut self, first: Forecast, second: Forecast, event: bool) {
-        self.brier
-            .add(first.squared_error(event) - second.squared_error(event));
-        self.log_loss
-            .add(first.log_loss(event) - second.log_loss(event));
+        self.push_scored(&Scored::of(first, event), &Scored::of(second, event));
+    }
+
+    /// Add one row's two forecasts, worked out already.
+    #[inline]
+    pub(super) fn push_scored(&mut self, first: &Scored, second: &Scored) {
+        self.brier.add(first.squared_error - second.squared_error);
+        self.log_loss.add(first.log_loss - second.log_loss);
     }
 }
 

@@ -6,7 +6,10 @@
 //! model fed the same rows has its vectors aligned with the first's, which the paired AUC test
 //! needs. This module does not compute any figure beyond the sums.
 
+use std::sync::OnceLock;
+
 use super::bins::BinSums;
+use super::rank::{self, Ranking};
 use super::EvaluateError;
 
 /// How far from 0 and 1 a probability is held for the log loss and the logit, so that a row
@@ -76,6 +79,8 @@ pub struct ModelRows {
     squared_error: Running,
     log_loss: Running,
     bins: BinSums,
+    /// The rows ranked, made on first use by the figures and dropped by the next push.
+    ranking: OnceLock<Ranking>,
 }
 
 impl ModelRows {
@@ -96,16 +101,22 @@ impl ModelRows {
     /// Add one row.
     #[inline]
     pub fn push(&mut self, forecast: Forecast, event: bool) {
-        let logit = forecast.logit();
-        if event {
-            self.event_logits.push(logit);
+        self.push_scored(&Scored::of(forecast, event));
+    }
+
+    /// Add one row whose figures were worked out already (on another thread).
+    #[inline]
+    pub(super) fn push_scored(&mut self, row: &Scored) {
+        if row.event {
+            self.event_logits.push(row.logit);
         } else {
-            self.non_event_logits.push(logit);
+            self.non_event_logits.push(row.logit);
         }
-        self.sum_probability += forecast.probability;
-        self.squared_error.add(forecast.squared_error(event));
-        self.log_loss.add(forecast.log_loss(event));
-        self.bins.add(forecast.probability, event);
+        self.sum_probability += row.probability;
+        self.squared_error.add(row.squared_error);
+        self.log_loss.add(row.log_loss);
+        self.bins.add(row.probability, row.event);
+        self.ranking.take();
     }
 
     /// Rows added.
@@ -119,6 +130,7 @@ impl ModelRows {
     }
 
     pub(super) fn check_both_classes(&self) -> Result<(), EvaluateError> {
+        rank::check_size(self.rows())?;
         if self.event_logits.is_empty() || self.non_event_logits.is_empty() {
             return Err(EvaluateError::OneClass {
                 rows: self.rows(),
@@ -138,6 +150,11 @@ impl ModelRows {
         &self.non_event_logits
     }
 
+    /// The rows ranked ([`super::rank`]), made once however many figures ask.
+    pub(super) fn ranking(&self) -> &Ranking {
+        self.ranking.get_or_init(|| rank::rank(self))
+    }
+
     pub(super) fn sum_probability(&self) -> f64 {
         self.sum_probability
     }
@@ -155,9 +172,29 @@ impl ModelRows {
     pub(super) fn bins(&self) -> &BinSums {
         &self.bins
     }
+}
 
-    /// Bytes held per row (the stored logit).
-    pub const BYTES_PER_ROW: usize = std::mem::size_of::<f64>();
+/// What one row adds to a model's accumulator, worked out from its forecast and outcome.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(super) struct Scored {
+    pub(super) probability: f64,
+    pub(super) logit: f64,
+    pub(super) squared_error: f64,
+    pub(super) log_loss: f64,
+    pub(super) event: bool,
+}
+
+impl Scored {
+    #[inline]
+    pub(super) fn of(forecast: Forecast, event: bool) -> Scored {
+        Scored {
+            probability: forecast.probability,
+            logit: forecast.logit(),
+            squared_error: forecast.squared_error(event),
+            log_loss: forecast.log_loss(event),
+            event,
+        }
+    }
 }
 
 /// Running mean and sum of squared deviations (Welford), so a million near-equal terms keep
