@@ -870,3 +870,48 @@ fn a_file_of_many_blocks_gives_the_same_report_on_one_thread_or_three() {
         close(&got["log_loss"], &want["log_loss"], "log loss (sklearn)");
     }
 }
+
+#[test]
+fn data_dash_reads_standard_input_and_records_what_it_read() {
+    let s = setup();
+    let file = data_path();
+    let (logit, probit) = (s.logit.to_str().unwrap(), s.probit.to_str().unwrap());
+    let models = ["--outcome", "grade", "--model", logit, "--against", probit];
+    let from_stdin = [
+        &["evaluate", "--format", "json", "--data", "-"][..],
+        &models,
+    ]
+    .concat();
+    let bytes = std::fs::read(&file).expect("spector.csv");
+    let piped = run(&from_stdin, Some(&bytes), &[]);
+    assert_eq!(piped.code, 0, "{}", piped.stderr);
+    let mut piped: Json = serde_json::from_str(&piped.stdout).expect("JSON");
+    let mut named = evaluate_json(&[&["--data", file.to_str().unwrap()][..], &models].concat());
+    assert_eq!(piped["data"]["path"], "-");
+    assert_eq!(piped["data"]["sha256"], sha256_of(&file));
+    assert_eq!(piped["data"]["bytes"], bytes.len());
+    for report in [&mut piped, &mut named] {
+        let report = report.as_object_mut().unwrap();
+        report.remove("created");
+        report["data"].as_object_mut().unwrap().remove("path");
+    }
+    assert_eq!(
+        piped, named,
+        "standard input and the file give other reports"
+    );
+
+    // A bad row on standard input is named as in a file.
+    let bad = String::from_utf8(bytes)
+        .unwrap()
+        .replacen("2.66,20.0,0,0", "2.66,20.0,0,2", 1);
+    let refused = run(&from_stdin, Some(bad.as_bytes()), &[]);
+    assert_ne!(refused.code, 0);
+    assert!(
+        refused
+            .stderr
+            .contains("evaluating on standard input stopped")
+            && refused.stderr.contains("row 1 (line 2): outcome 'grade'"),
+        "{}",
+        refused.stderr
+    );
+}

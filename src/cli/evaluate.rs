@@ -24,7 +24,8 @@ use super::score::{progress_bar, OnError};
 /// Arguments of `ogive evaluate`.
 #[derive(Debug, clap::Args)]
 pub struct EvaluateArgs {
-    /// The labelled CSV file: a header row naming the covariates and the outcome column.
+    /// The labelled CSV file: a header row naming the covariates and the outcome column; `-`
+    /// reads standard input (the report then names the data `-`, with its SHA-256 as read).
     #[arg(long, env = "OGIVE_DATA", value_name = "CSV")]
     pub data: PathBuf,
     /// The outcome column (0 or 1, also false/true).
@@ -226,10 +227,21 @@ pub(crate) fn evaluate_data(
     reading: ReadOptions,
     level: f64,
 ) -> anyhow::Result<(EvaluationReport, Vec<ModelRows>)> {
-    let file = File::open(data).with_context(|| format!("cannot open {}", data.display()))?;
-    let length = file.metadata().ok().map(|m| m.len());
+    let from_stdin = data.as_os_str() == "-";
+    let shown = if from_stdin {
+        "standard input".to_string()
+    } else {
+        data.display().to_string()
+    };
+    let (source, length): (Box<dyn Read>, Option<u64>) = if from_stdin {
+        (Box::new(io::stdin().lock()), None)
+    } else {
+        let file = File::open(data).with_context(|| format!("cannot open {shown}"))?;
+        let length = file.metadata().ok().map(|m| m.len());
+        (Box::new(file), length)
+    };
     let mut input = Hashing {
-        inner: file,
+        inner: source,
         hasher: Sha256::new(),
         bytes: 0,
     };
@@ -241,10 +253,9 @@ pub(crate) fn evaluate_data(
     };
     let scored: Vec<&Model> = models.iter().map(|m| &m.model).collect();
     let labelled = read_labelled(&scored, &mut input, outcome, reading, &mut on_progress)
-        .with_context(|| format!("evaluating on {} stopped", data.display()))?;
-    // The CSV reader stops at the last record; hash whatever it left unread.
-    io::copy(&mut input, &mut io::sink())
-        .with_context(|| format!("cannot read {}", data.display()))?;
+        .with_context(|| format!("evaluating on {shown} stopped"))?;
+    // Hash whatever the reader left unread (nothing, when it read to the end).
+    io::copy(&mut input, &mut io::sink()).with_context(|| format!("cannot read {shown}"))?;
     if let Some(bar) = bar {
         bar.finish_and_clear();
     }
@@ -258,7 +269,7 @@ pub(crate) fn evaluate_data(
                 "cannot evaluate {} {} on {}",
                 loaded.model.name(),
                 loaded.model.version(),
-                data.display()
+                shown
             )
         })?;
         sections.push(ModelSection {
