@@ -466,54 +466,34 @@ fn a_stored_version_is_evaluated_against_the_live_one() {
     );
 
     // Without --version, --name means the live version; it cannot be compared with itself.
-    let result = run(
-        &[
-            "evaluate",
-            "--data",
-            data_path().to_str().unwrap(),
-            "--outcome",
-            "grade",
-            "--models",
-            models.to_str().unwrap(),
-            "--name",
-            "spector-logit",
-            "--against-live",
-        ],
-        None,
-        &[],
-    );
-    assert_ne!(result.code, 0);
+    let stderr = refused_from_directory(&models, &["--against-live"]);
     assert!(
-        result
-            .stderr
-            .contains("spector-logit 1 is itself the live version"),
-        "{}",
-        result.stderr
+        stderr.contains("spector-logit 1 is itself the live version"),
+        "{stderr}"
     );
+    let stderr = refused_from_directory(&models, &["--version", "7"]);
+    assert!(stderr.contains("has no stored version '7'"), "{stderr}");
+}
 
-    let result = run(
-        &[
-            "evaluate",
-            "--data",
-            data_path().to_str().unwrap(),
-            "--outcome",
-            "grade",
-            "--models",
-            models.to_str().unwrap(),
-            "--name",
-            "spector-logit",
-            "--version",
-            "7",
-        ],
-        None,
-        &[],
-    );
-    assert_ne!(result.code, 0);
-    assert!(
-        result.stderr.contains("has no stored version '7'"),
-        "{}",
-        result.stderr
-    );
+/// Run `evaluate` of `spector-logit` from the model directory `models` on the Spector rows
+/// with `more` arguments, assert that it failed, and return its standard error.
+fn refused_from_directory(models: &std::path::Path, more: &[&str]) -> String {
+    let (data, models) = (data_path(), models.to_str().unwrap().to_string());
+    let mut args = vec![
+        "evaluate",
+        "--data",
+        data.to_str().unwrap(),
+        "--outcome",
+        "grade",
+        "--models",
+        &models,
+        "--name",
+        "spector-logit",
+    ];
+    args.extend_from_slice(more);
+    let result = run(&args, None, &[]);
+    assert_ne!(result.code, 0, "the run should have failed");
+    result.stderr
 }
 
 #[test]
@@ -619,15 +599,23 @@ fn plots_of_logit_against_probit() -> (tempfile::TempDir, String, String) {
     (s.dir, reliability, roc)
 }
 
+/// The panel `id` of a plot and its data-to-pixel mapping.
+fn panel_of<'a, 'input>(
+    document: &'a roxmltree::Document<'input>,
+    id: &str,
+) -> (roxmltree::Node<'a, 'input>, Panel) {
+    let node = document
+        .descendants()
+        .find(|n| n.attribute("id") == Some(id))
+        .unwrap_or_else(|| panic!("no element with id {id}"));
+    (node, Panel::read(node))
+}
+
 #[test]
 fn the_roc_plot_draws_every_point_of_sklearns_roc_curve_for_both_models() {
     let (_dir, _, roc) = plots_of_logit_against_probit();
     let document = roxmltree::Document::parse(&roc).expect("well-formed SVG");
-    let panel_node = document
-        .descendants()
-        .find(|n| n.attribute("id") == Some("roc-panel"))
-        .expect("roc panel");
-    let panel = Panel::read(panel_node);
+    let (panel_node, panel) = panel_of(&document, "roc-panel");
     let curves: Vec<_> = panel_node
         .descendants()
         .filter(|n| n.has_tag_name("path") && n.attribute("class") == Some("curve"))
@@ -674,11 +662,7 @@ fn the_roc_plot_draws_every_point_of_sklearns_roc_curve_for_both_models() {
 fn the_reliability_plot_places_each_bin_at_its_mean_and_observed_share_sized_by_rows() {
     let (_dir, reliability, _) = plots_of_logit_against_probit();
     let document = roxmltree::Document::parse(&reliability).expect("well-formed SVG");
-    let panel_node = document
-        .descendants()
-        .find(|n| n.attribute("id") == Some("reliability-panel"))
-        .expect("reliability panel");
-    let panel = Panel::read(panel_node);
+    let (panel_node, panel) = panel_of(&document, "reliability-panel");
     let diagonal = panel_node
         .descendants()
         .find(|n| n.attribute("class") == Some("diagonal"))
