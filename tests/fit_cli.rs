@@ -13,7 +13,7 @@ fn ogive() -> Command {
 /// what it printed.
 #[track_caller]
 fn succeeded(command: &mut Command) -> std::process::Output {
-    let run = command.output().expect("run ogive fit");
+    let run = command.output().expect("run ogive");
     assert!(
         run.status.success(),
         "{}",
@@ -415,31 +415,17 @@ fn a_near_collinear_design_fits_with_a_note_naming_its_terms_and_condition_numbe
 fn fit_and_describe_head_their_coefficient_tables_with_the_same_words() {
     let dir = tempfile::tempdir().expect("temporary folder");
     let out = dir.path().join("refit.json");
-    let fit = ogive()
-        .args(["fit", "--version", "1.0.1"])
-        .arg("--like")
-        .arg(demo("model-files/lease-arrears/versions/1.0.0.json"))
-        .arg("--data")
-        .arg(demo("demo-data/lease-arrears.csv"))
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .expect("run ogive fit");
-    assert!(
-        fit.status.success(),
-        "{}",
-        String::from_utf8_lossy(&fit.stderr)
+    let fit = succeeded(
+        ogive()
+            .args(["fit", "--version", "1.0.1"])
+            .arg("--like")
+            .arg(demo("model-files/lease-arrears/versions/1.0.0.json"))
+            .arg("--data")
+            .arg(demo("demo-data/lease-arrears.csv"))
+            .arg("--out")
+            .arg(&out),
     );
-    let describe = ogive()
-        .arg("describe")
-        .arg(&out)
-        .output()
-        .expect("run ogive describe");
-    assert!(
-        describe.status.success(),
-        "{}",
-        String::from_utf8_lossy(&describe.stderr)
-    );
+    let describe = succeeded(ogive().arg("describe").arg(&out));
     // The header is the line that starts with "term"; its columns are set apart by two or
     // more spaces.
     let header = |output: &[u8]| -> Vec<String> {
