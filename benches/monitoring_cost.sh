@@ -46,62 +46,26 @@ duration="${DURATION:-10s}"
 rounds="${ROUNDS:-3}"
 workers="${WORKERS:-2}"
 threads="${WRK_THREADS:-2}"
-for tool in wrk curl python3; do
-  command -v "$tool" >/dev/null || { echo "monitoring_cost: $tool is needed" >&2; exit 1; }
-done
+source benches/load/common.sh
+need wrk curl python3
 if [ -n "${OGIVE_BIN:-}" ]; then
   ogive=$OGIVE_BIN
 else
   cargo build -q --release --bin ogive
-  ogive=target/release/ogive
+  ogive="${CARGO_TARGET_DIR:-target}/release/ogive"
 fi
-models=tests/http/models
-if compgen -G "model-files/*/live" >/dev/null; then models=model-files; fi
-
-work="$(mktemp -d)"
-pids=()
-cleanup() {
-  for pid in "${pids[@]}"; do kill "$pid" 2>/dev/null || true; done
-  wait 2>/dev/null || true
-  rm -rf "$work"
-}
-trap cleanup EXIT
-
-start() { # on|off name → sets url and pid
-  "$ogive" serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
-    --workers "$workers" --drain-delay-ms 0 --monitoring "$1" >"$work/$2.out" 2>/dev/null &
-  pid=$!
-  pids+=("$pid")
-  for _ in $(seq 1 100); do
-    url="$(sed -n 's/^ogive serving on //p' "$work/$2.out" | head -n 1)"
-    [ -n "$url" ] && return
-    sleep 0.1
-  done
-  echo "monitoring_cost: ogive --monitoring $1 did not start" >&2
-  exit 1
-}
-start on on
+start_ogive "$ogive" on --workers "$workers" --monitoring on
 url_on=$url pid_on=$pid
-start off off
+start_ogive "$ogive" off --workers "$workers" --monitoring off
 url_off=$url pid_off=$pid
-start on control
+start_ogive "$ogive" control --workers "$workers" --monitoring on
 url_control=$url pid_control=$pid
 
 # The load benchmark's bodies: the model's example observation, and 100 variations of it.
-model="$(curl -fsS "$url_on/models" | python3 -c 'import json, sys; print(json.load(sys.stdin)["models"][0]["name"])')"
-curl -fsS "$url_on/models/$model" | python3 -c '
-import json, sys
-detail = json.load(sys.stdin)
-example = detail["example"]
-continuous = [c["name"] for c in detail["covariates"] if c["kind"] == "continuous"]
-batch = [{**example, **{name: example[name] * (0.8 + 0.004 * i) for name in continuous}}
-         for i in range(100)]
-json.dump({"observation": example}, open(sys.argv[1], "w"))
-json.dump({"observations": batch}, open(sys.argv[2], "w"))
-' "$work/single.json" "$work/batch.json"
+write_bodies "$url_on" 100
 path="/models/$model/probability"
 for base in "$url_on" "$url_off" "$url_control"; do
-  for body in single batch; do
+  for body in full batch; do
     status="$(curl -s -o /dev/null -w '%{http_code}' -H 'Content-Type: application/json' \
       --data-binary "@$work/$body.json" "$base$path")"
     [ "$status" = 200 ] || { echo "monitoring_cost: $base answered $status to the $body body" >&2; exit 1; }
@@ -109,7 +73,6 @@ for base in "$url_on" "$url_off" "$url_control"; do
 done
 
 ticks_per_second=$(getconf CLK_TCK)
-cpu_ticks() { awk '{ print $14 + $15 }' "/proc/$1/stat"; }
 run() { # url pid body connections duration → "rps p99_us cpu_us_per_request"
   local before after result requests
   before=$(cpu_ticks "$2")
@@ -146,7 +109,7 @@ paired() { # url-a pid-a url-b pid-b body connections duration → "a/b-throughp
 change() { python3 -c "import sys; print('%+.1f%%' % ((float(sys.argv[1]) / float(sys.argv[2]) - 1) * 100))" "$1" "$2"; }
 
 echo "model $model from $models; $workers workers per server; wrk $threads threads; $rounds rounds of $duration per side"
-for body in single batch; do # warm both up
+for body in full batch; do # warm both up
   run "$url_on" "$pid_on" "$body" 16 2s >/dev/null
   run "$url_off" "$pid_off" "$body" 16 2s >/dev/null
 done
@@ -154,7 +117,7 @@ printf '\n%-7s %5s | %9s %9s %7s | %8s %8s | %9s %9s %7s\n' \
   load conns "on rps" "off rps" change "on p99" "off p99" "on CPU" "off CPU" change
 worst_rate=0
 worst_cpu=0
-for body in single batch; do
+for body in full batch; do
   for connections in 16 64; do
     on=() off=()
     for round in $(seq "$rounds"); do
@@ -178,7 +141,7 @@ done
 noise=0
 printf '\n%-7s %5s | %-22s %7s | %9s %9s %7s | %-22s %7s\n' load conns "paired on/off ratios" median \
   "on CPU" "off CPU" change "control: on/on ratios" median
-for body in single batch; do
+for body in full batch; do
   for connections in 16 64; do
     pairs=() controls=()
     for _ in $(seq "$rounds"); do
@@ -209,7 +172,7 @@ for line in sys.stdin:
         scored += float(line.rsplit(" ", 1)[1])
 print("drift samples dropped by a busy window: %.0f of %.0f observations (%.3f%%)"
       % (dropped, scored, 100 * dropped / scored if scored else 0))'
-echo "peak RSS (VmHWM): monitoring on $(awk '/VmHWM/ {print $2, $3}' "/proc/$pid_on/status"), off $(awk '/VmHWM/ {print $2, $3}' "/proc/$pid_off/status")"
+echo "peak RSS (VmHWM): monitoring on $(peak_rss "$pid_on"), off $(peak_rss "$pid_off")"
 python3 -c "
 rate, cpu, noise = $worst_rate, $worst_cpu, $noise
 print('largest cost of monitoring (paired): %.1f%% fewer requests per second; %.1f%% more server CPU per request'

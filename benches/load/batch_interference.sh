@@ -20,56 +20,25 @@ workers="${WORKERS:-2}"
 runs="${RUNS:-3}"
 single_connections="${SINGLE_CONNECTIONS:-8}"
 batch_connections="${BATCH_CONNECTIONS:-2}"
-command -v wrk >/dev/null || { echo "wrk is needed: apt-get install -y wrk"; exit 1; }
+source benches/load/common.sh
+need wrk curl
 
 ogive="${OGIVE:-}"
 if [ -z "$ogive" ]; then
   cargo build -q --release --bin ogive 2>/dev/null || cargo build --release --bin ogive
   ogive="${CARGO_TARGET_DIR:-target}/release/ogive"
 fi
-models=tests/http/models
-if compgen -G "model-files/*/live" >/dev/null; then models=model-files; fi
-
-work="$(mktemp -d)"
-pids=()
-cleanup() {
-  for pid in "${pids[@]}"; do kill "$pid" 2>/dev/null || true; done
-  wait 2>/dev/null || true
-  rm -rf "$work"
-}
-trap cleanup EXIT
-
-"$ogive" serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
-  --workers "$workers" --drain-delay-ms 0 --max-batch 10000 ${OGIVE_FLAGS:-} \
-  >"$work/ogive.out" 2>/dev/null &
-pids+=("$!")
-for _ in $(seq 1 100); do grep -q "^ogive serving on" "$work/ogive.out" 2>/dev/null && break; sleep 0.1; done
-url="$(sed -n 's/^ogive serving on //p' "$work/ogive.out" | head -n 1)"
-[ -n "$url" ] || { echo "ogive serve did not start"; cat "$work/ogive.out"; exit 1; }
-
-model="$(curl -fsS "$url/models" | python3 -c 'import json,sys; print(json.load(sys.stdin)["models"][0]["name"])')"
-curl -fsS "$url/models/$model" | python3 -c '
-import json, sys
-detail = json.load(sys.stdin)
-example = detail["example"]
-numeric = [c["name"] for c in detail["covariates"] if c["kind"] == "continuous"]
-def varied(i):
-    o = dict(example)
-    for name in numeric:
-        o[name] = example[name] * (0.8 + 0.00004 * i)
-    return o
-json.dump({"observation": example}, open(sys.argv[1], "w"))
-json.dump({"observations": [varied(i) for i in range(10000)]}, open(sys.argv[2], "w"))
-' "$work/single.json" "$work/batch.json"
+start_ogive "$ogive" ogive --workers "$workers" --max-batch 10000 ${OGIVE_FLAGS:-}
+write_bodies "$url" 10000
 path="/models/$model/probability"
-for body in single batch; do
+for body in full batch; do
   status="$(curl -s -o /dev/null -w '%{http_code}' -H 'Content-Type: application/json' \
     --data-binary "@$work/$body.json" "$url$path")"
   [ "$status" = 200 ] || { echo "ogive answered $status to the $body body"; exit 1; }
 done
 
 single() { # -> RESULT line of the single-observation load
-  OGIVE_BODY="$work/single.json" wrk -t1 -c"$single_connections" -d"$duration" \
+  OGIVE_BODY="$work/full.json" wrk -t1 -c"$single_connections" -d"$duration" \
     -s benches/load/post.lua "$url$path" | grep '^RESULT'
 }
 field() { sed -n "s/.*$2=\([0-9.]*\).*/\1/p" <<<"$1"; }
@@ -98,4 +67,4 @@ printf '%-16s %10.0f %10.0f\n' "alone" "$a50" "$a99"
 printf '%-16s %10.0f %10.0f\n' "beside batches" "$b50" "$b99"
 printf 'p99 ratio (beside / alone): %.2f; batches answered per second meanwhile: %s\n' \
   "$(python3 -c "print($b99 / max(1.0, $a99))")" "$(median "${batches[@]}")"
-echo "peak RSS (VmHWM): $(awk '/VmHWM/ {print $2, $3}' "/proc/${pids[0]}/status")"
+echo "peak RSS (VmHWM): $(peak_rss "$pid")"

@@ -25,61 +25,22 @@ duration="${DURATION:-5s}"
 rounds="${ROUNDS:-3}"
 workers="${WORKERS:-2}"
 threads="${WRK_THREADS:-1}"
-command -v wrk >/dev/null || { echo "wrk is needed: apt-get install -y wrk"; exit 1; }
+source benches/load/common.sh
+need wrk curl
 
 cargo build -q --release --bin ogive --example bare_actix 2>/dev/null || cargo build --release --bin ogive --example bare_actix
 target="${CARGO_TARGET_DIR:-target}"
-models=tests/http/models
-if compgen -G "model-files/*/live" >/dev/null; then models=model-files; fi
 
-work="$(mktemp -d)"
-pids=()
-cleanup() {
-  for pid in "${pids[@]}"; do kill "$pid" 2>/dev/null || true; done
-  wait 2>/dev/null || true
-  rm -rf "$work"
-}
-trap cleanup EXIT
-
-wait_for_line() { # file pattern
-  for _ in $(seq 1 100); do
-    if grep -q "$2" "$1" 2>/dev/null; then return 0; fi
-    sleep 0.1
-  done
-  echo "no '$2' in $1"; cat "$1"; exit 1
-}
-
-"$target/release/ogive" serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
-  --workers "$workers" --drain-delay-ms 0 ${OGIVE_FLAGS:-} >"$work/ogive.out" 2>"$work/ogive.err" &
-ogive_pid=$!; pids+=("$ogive_pid")
-wait_for_line "$work/ogive.out" "^ogive serving on"
-ogive_url="$(sed -n 's/^ogive serving on //p' "$work/ogive.out" | head -n 1)"
+start_ogive "$target/release/ogive" ogive --workers "$workers" ${OGIVE_FLAGS:-}
+ogive_pid=$pid ogive_url=$url
 servers=(ogive)
 if [ -n "${BEFORE:-}" ]; then
-  "$BEFORE" serve --models "$models" --listen 127.0.0.1:0 --admin-listen 127.0.0.1:0 \
-    --workers "$workers" --drain-delay-ms 0 ${OGIVE_FLAGS:-} >"$work/before.out" 2>"$work/before.err" &
-  before_pid=$!; pids+=("$before_pid")
-  wait_for_line "$work/before.out" "^ogive serving on"
-  before_url="$(sed -n 's/^ogive serving on //p' "$work/before.out" | head -n 1)"
+  start_ogive "$BEFORE" before --workers "$workers" ${OGIVE_FLAGS:-}
+  before_pid=$pid before_url=$url
   servers+=(before)
 fi
 
-model="$(curl -fsS "$ogive_url/models" | python3 -c 'import json,sys; print(json.load(sys.stdin)["models"][0]["name"])')"
-curl -fsS "$ogive_url/models/$model" | python3 -c '
-import json, sys
-detail = json.load(sys.stdin)
-example = detail["example"]
-numeric = [c["name"] for c in detail["covariates"] if c["kind"] == "continuous"]
-def varied(i):
-    o = dict(example)
-    for name in numeric:
-        o[name] = example[name] * (0.8 + 0.004 * i)
-    return o
-out = sys.argv[1]
-json.dump({"observation": example}, open(f"{out}/full.json", "w"))
-json.dump({"observation": example, "effects": False, "intervals": False}, open(f"{out}/lean.json", "w"))
-json.dump({"observations": [varied(i) for i in range(100)]}, open(f"{out}/batch.json", "w"))
-' "$work"
+write_bodies "$ogive_url" 100
 path="/models/$model/probability"
 loads=(full lean batch)
 floor_args=()
@@ -100,9 +61,6 @@ for load in "${loads[@]}"; do
     | cmp -s - "$work/answer-$load/body" || { echo "the floor does not answer ogive's bytes for $load"; exit 1; }
 done
 
-cpu_ticks() { # pid -> utime + stime, in clock ticks
-  awk '{print $14 + $15}' "/proc/$1/stat"
-}
 measure() { # url load connections seconds pid -> RESULT line with the server's CPU µs per request
   local before after line
   before="$(cpu_ticks "$5")"
@@ -159,5 +117,5 @@ for server in servers:
                   f"{med(o,'p99_us')/max(1.0, med(b,'p99_us')):>6.2f} | {errors:.0f}")
 PY
 echo
-echo "peak RSS (VmHWM): ogive $(awk '/VmHWM/ {print $2, $3}' "/proc/$ogive_pid/status"), floor $(awk '/VmHWM/ {print $2, $3}' "/proc/$bare_pid/status")"
-if [ -n "${BEFORE:-}" ]; then echo "peak RSS (VmHWM): before $(awk '/VmHWM/ {print $2, $3}' "/proc/$before_pid/status")"; fi
+echo "peak RSS (VmHWM): ogive $(peak_rss "$ogive_pid"), floor $(peak_rss "$bare_pid")"
+if [ -n "${BEFORE:-}" ]; then echo "peak RSS (VmHWM): before $(peak_rss "$before_pid")"; fi
