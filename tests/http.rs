@@ -6,6 +6,7 @@
 //! routes.rs       every route and every option, answers compared with the engine
 //! catalogue.rs    the catalogue of malformed requests: status, problem type, field
 //! malformed.rs    the catalogue sent through the client, and related refusals
+//! faulty.rs       batches sent with "on_error": "keep": faults answered in their places
 //! concurrency.rs  many concurrent clients get exactly the engine's answers
 //! contract.rs     live answers validated against the served OpenAPI document; metric names
 //! dashboards.rs   CORS for listed origins, ETags on the model listings, stored versions
@@ -21,6 +22,8 @@ mod concurrency;
 mod contract;
 #[path = "http/dashboards.rs"]
 mod dashboards;
+#[path = "http/faulty.rs"]
+mod faulty;
 #[path = "http/malformed.rs"]
 mod malformed;
 #[path = "http/operation.rs"]

@@ -19,7 +19,7 @@ use ogive::monitoring::monitor::{Monitor, MonitorSettings};
 use ogive::receipt::ReceiptKeys;
 use ogive::service::body::parse_json;
 use ogive::service::dto::parse_probability_request;
-use ogive::service::observations::parse_all;
+use ogive::service::observations::parse;
 use ogive::service::problem::Problem;
 use ogive::service::scoring::score;
 use ogive::service::Limits;
@@ -54,15 +54,18 @@ fn answer(body: &[u8]) -> Result<Vec<u8>, Problem> {
     let model = support::fuzz_model();
     let body = parse_json(body)?;
     let (request, observations) = parse_probability_request(&body, service.max_batch)?;
-    let values = parse_all(model, observations, &[])?;
+    let parsed = parse(model, observations, &[], request.keep_faulty)?;
+    let mut values = parsed.values;
     let request_id = format!("fuzz-{}", REQUESTS.fetch_add(1, Ordering::Relaxed));
     let mut scored = score(
         model,
         &request,
         &values,
+        parsed.faults,
         &request_id,
         &service.metrics.scoring(model),
     )?;
+    scored.align_values(&mut values);
     let probabilities = scored.answers().iter().map(|a| a.probability);
     let receipts = service
         .monitor
@@ -76,10 +79,11 @@ fn probabilities(answer: &Json) -> Vec<f64> {
     match answer.get("results").and_then(Json::as_array) {
         Some(results) => results
             .iter()
+            .filter(|r| r.get("error").is_none())
             .map(|r| {
                 r["probability"]
                     .as_f64()
-                    .expect("a result has a probability")
+                    .expect("a result that is not a fault has a probability")
             })
             .collect(),
         None => vec![answer["probability"]

@@ -13,13 +13,14 @@
 //!                 | code, covariates, distance, max_distance, message
 //! contribution    covariate, contribution
 //! note            code, message
+//! fault           index, error {type, detail, pointer}
 //! ```
 //!
 //! Why by hand: in the load benchmark, serializing a batch's answers through serde_json (a
 //! map per object, every key and name escaped byte by byte) took half of the server's CPU.
 
 use super::dto::warning_code;
-use super::problem::echo_number;
+use super::problem::{echo_number, FieldError};
 use crate::engine::{Answer, Average, Effect, EffectSlot, Interval, Warning};
 use crate::json_text::{push_f64, push_str, push_u64};
 use crate::model::Model;
@@ -259,6 +260,19 @@ impl<'a> Writer<'a> {
                 self.boolean(above);
             }
         }
+    }
+
+    /// A faulty observation of a batch answered by its fault, in its place in `results`
+    /// (`first`: it opens the list, so no comma before it).
+    pub fn fault(&mut self, fault: &FieldError, first: bool) {
+        self.raw(if first { "{" } else { ",{" });
+        self.count_member("index", fault.index);
+        self.key("error");
+        self.raw("{");
+        self.text_member("type", &fault.type_uri);
+        self.text_member("detail", &fault.detail);
+        self.text_member("pointer", &fault.pointer);
+        self.raw("}}");
     }
 
     /// `"key":` for a member whose value the caller writes.

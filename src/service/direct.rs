@@ -74,6 +74,7 @@ pub fn read(model: &Model, bytes: &[u8], max_batch: usize) -> Option<DirectReque
             options,
             average_effects: shape.average_effects.unwrap_or(false),
             at_means: shape.at_means.unwrap_or(false),
+            keep_faulty: shape.keep_faulty.unwrap_or(false),
         },
         values,
     })
@@ -112,6 +113,7 @@ struct Shape {
     contributions: Option<bool>,
     average_effects: Option<bool>,
     at_means: Option<bool>,
+    keep_faulty: Option<bool>,
 }
 
 struct Top<'a> {
@@ -149,6 +151,7 @@ impl<'de> Visitor<'de> for Top<'_> {
             contributions: None,
             average_effects: None,
             at_means: None,
+            keep_faulty: None,
         };
         let mut observations_seen = false;
         let mut level_seen = false;
@@ -185,6 +188,8 @@ impl<'de> Visitor<'de> for Top<'_> {
                 Field::Contributions => set_bool(&mut map, &mut shape.contributions)?,
                 Field::AverageEffects => set_bool(&mut map, &mut shape.average_effects)?,
                 Field::AtMeans => set_bool(&mut map, &mut shape.at_means)?,
+                Field::OnError if shape.keep_faulty.is_some() => return Err(decline()),
+                Field::OnError => shape.keep_faulty = Some(map.next_value_seed(OnError)?),
             }
         }
         if !observations_seen {
@@ -208,6 +213,7 @@ enum Field {
     Contributions,
     AverageEffects,
     AtMeans,
+    OnError,
 }
 
 impl<'de> de::Deserialize<'de> for Field {
@@ -221,7 +227,7 @@ impl<'de> de::Deserialize<'de> for Field {
             }
 
             fn visit_str<E: de::Error>(self, name: &str) -> Result<Field, E> {
-                debug_assert_eq!(REQUEST_FIELDS.len(), 9);
+                debug_assert_eq!(REQUEST_FIELDS.len(), 10);
                 Ok(match name {
                     "observation" => Field::Observation,
                     "observations" => Field::Observations,
@@ -232,11 +238,35 @@ impl<'de> de::Deserialize<'de> for Field {
                     "contributions" => Field::Contributions,
                     "average_effects" => Field::AverageEffects,
                     "at_means" => Field::AtMeans,
+                    "on_error" => Field::OnError,
                     _ => return Err(decline()),
                 })
             }
         }
         deserializer.deserialize_str(Name)
+    }
+}
+
+/// `on_error`: whether faulty observations are kept (`"keep"`) or refuse the batch
+/// (`"stop"`); anything else declines. Only a request without faults is read here, so
+/// `"keep"` changes nothing the reader does.
+struct OnError;
+
+seed!(OnError, bool, deserialize_str);
+
+impl Visitor<'_> for OnError {
+    type Value = bool;
+
+    fn expecting(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str("\"stop\" or \"keep\"")
+    }
+
+    fn visit_str<E: de::Error>(self, v: &str) -> Result<bool, E> {
+        match v {
+            "stop" => Ok(false),
+            "keep" => Ok(true),
+            _ => Err(decline()),
+        }
     }
 }
 
@@ -431,7 +461,7 @@ mod tests {
     use crate::model::ModelFile;
     use crate::service::body::parse_json;
     use crate::service::dto::parse_probability_request;
-    use crate::service::observations::parse_all;
+    use crate::service::observations::parse;
 
     fn lease_model() -> Model {
         let text = include_str!("../../tests/http/models/lease-test/versions/2026-01.json");
@@ -439,12 +469,15 @@ mod tests {
         Model::from_file(file).expect("the test model is valid")
     }
 
-    /// The general reader's outcome: the request and its values, or a refusal.
-    fn general(model: &Model, bytes: &[u8], max_batch: usize) -> Option<DirectRequest> {
+    /// The general reader's outcome: the request, its values and how many observations it set
+    /// aside as faulty (`"on_error": "keep"`), or a refusal.
+    fn general(model: &Model, bytes: &[u8], max_batch: usize) -> Option<(DirectRequest, usize)> {
         let body = parse_json(bytes).ok()?;
         let (request, observations) = parse_probability_request(&body, max_batch).ok()?;
-        let values = parse_all(model, observations, &[]).ok()?;
-        Some(DirectRequest { request, values })
+        let parsed = parse(model, observations, &[], request.keep_faulty).ok()?;
+        let faulty = parsed.faults.len();
+        let values = parsed.values;
+        Some((DirectRequest { request, values }, faulty))
     }
 
     /// Candidate values per covariate of the lease model, good and bad; the first of each is
@@ -478,7 +511,7 @@ mod tests {
         ),
     ];
 
-    const OPTIONS: [(&str, &[&str]); 7] = [
+    const OPTIONS: [(&str, &[&str]); 8] = [
         ("effects", &["true", "false", "1", "null"]),
         ("intervals", &["false", "true", "\"no\""]),
         (
@@ -489,6 +522,17 @@ mod tests {
         ("contributions", &["false", "true"]),
         ("average_effects", &["true", "false"]),
         ("at_means", &["true", "false", "[]"]),
+        (
+            "on_error",
+            &[
+                "\"keep\"",
+                "\"stop\"",
+                "\"ke\\u0065p\"",
+                "\"Keep\"",
+                "true",
+                "null",
+            ],
+        ),
     ];
 
     /// How an observation is built: a (candidate, how it is sent) pick per covariate, and
@@ -562,13 +606,73 @@ mod tests {
         fn what_the_direct_reader_accepts_the_general_reader_reads_the_same(
             batch in prop::option::of(prop::collection::vec(one_observation(), 0..4)),
             one in one_observation(),
-            options in prop::collection::vec((0usize..8, 0u8..12), 7..=7),
+            options in prop::collection::vec((0usize..8, 0u8..12), 8..=8),
             tail in 0u8..40,
         ) {
             let model = lease_model();
             let text = body(batch, one, &options, tail);
             if let Some(direct) = read(&model, text.as_bytes(), 2) {
-                prop_assert_eq!(Some(direct), general(&model, text.as_bytes(), 2), "{}", text);
+                prop_assert_eq!(Some((direct, 0)), general(&model, text.as_bytes(), 2), "{}", text);
+            }
+        }
+
+        /// With `"on_error": "keep"`, the general reader reads each observation of a batch as
+        /// it reads that observation alone: the good ones to the same values, in order, and each
+        /// faulty one to the fault its refusal names (type and detail, the pointer under the
+        /// observation's place in the batch), set aside at its index.
+        #[test]
+        fn kept_faults_are_the_refusals_of_each_observation_alone(
+            batch in prop::collection::vec(one_observation(), 1..6),
+        ) {
+            let model = lease_model();
+            // No key sent twice and no number beyond a double: either refuses the whole body
+            // before any observation is read.
+            let once = |picks: &[(usize, u8)]| -> Vec<(usize, u8)> {
+                picks
+                    .iter()
+                    .zip(CANDIDATES)
+                    .map(|(&(pick, how), (_, candidates))| {
+                        let finite = candidates[pick % candidates.len()] != "1e400";
+                        (if finite { pick } else { 0 }, if how % 8 == 1 { 2 } else { how })
+                    })
+                    .collect()
+            };
+            let items: Vec<String> =
+                batch.iter().map(|(p, u)| observation(&once(p), *u)).collect();
+            let text = format!(r#"{{"observations": [{}], "on_error": "keep"}}"#, items.join(","));
+            let body = parse_json(text.as_bytes()).expect("well-formed JSON");
+            let (request, observations) =
+                parse_probability_request(&body, 10).expect("a well-formed request");
+            prop_assert!(request.keep_faulty);
+            let kept = parse(&model, observations, &[], true);
+            let mut values = Vec::new();
+            let mut faults = Vec::new();
+            for (i, item) in items.iter().enumerate() {
+                let alone = parse_json(format!(r#"{{"observation": {item}}}"#).as_bytes())
+                    .expect("well-formed JSON");
+                let (_, one) = parse_probability_request(&alone, 10).expect("a request");
+                match parse(&model, one, &[], false) {
+                    Ok(parsed) => values.extend(parsed.values),
+                    Err(problem) => {
+                        let pointer = problem.pointer.clone().unwrap_or_default();
+                        let under = pointer.strip_prefix("/observation").expect("under it");
+                        faults.push((i, problem.kind.type_uri(), problem.detail.clone(), format!("/observations/{i}{under}")));
+                    }
+                }
+            }
+            if faults.len() == items.len() {
+                let refused = kept.expect_err("a batch of faults alone is refused");
+                prop_assert_eq!(refused.index, Some(0));
+                prop_assert_eq!(refused.errors.len(), items.len());
+            } else {
+                let kept = kept.expect("kept");
+                prop_assert_eq!(kept.values, values);
+                let got: Vec<_> = kept
+                    .faults
+                    .into_iter()
+                    .map(|f| (f.index, f.type_uri, f.detail, f.pointer))
+                    .collect();
+                prop_assert_eq!(got, faults);
             }
         }
     }
@@ -585,9 +689,15 @@ mod tests {
             format!(
                 r#"{{"level": 0.9, "observations": [{good}, {good}], "average_effects": true}}"#
             ),
+            format!(r#"{{"observations": [{good}], "on_error": "keep"}}"#),
+            format!(r#"{{"on_error": "stop", "observation": {good}}}"#),
         ] {
             let direct = read(&model, text.as_bytes(), 2).expect("read directly");
-            assert_eq!(Some(direct), general(&model, text.as_bytes(), 2), "{text}");
+            assert_eq!(
+                Some((direct, 0)),
+                general(&model, text.as_bytes(), 2),
+                "{text}"
+            );
         }
         let three = format!(r#"{{"observations": [{good}, {good}, {good}]}}"#);
         assert_eq!(

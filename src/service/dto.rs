@@ -15,6 +15,8 @@
 //! contributions   bool   true    each covariate's contribution to the index, ranked
 //! average_effects bool   false   average marginal effects over the observations
 //! at_means        bool   false   effects at the training means
+//! on_error        text   "stop"  in a batch: "stop" refuses it when any observation is faulty;
+//!                                "keep" answers each faulty one by its error, in its place
 //! ```
 
 use serde::Serialize;
@@ -66,10 +68,13 @@ pub struct ProbabilityRequest {
     pub average_effects: bool,
     /// Effects at the training means.
     pub at_means: bool,
+    /// In a batch, answer each faulty observation by its error in its place rather than
+    /// refuse the batch (`"on_error": "keep"`).
+    pub keep_faulty: bool,
 }
 
 /// The fields a probability request may carry.
-pub const REQUEST_FIELDS: [&str; 9] = [
+pub const REQUEST_FIELDS: [&str; 10] = [
     "observation",
     "observations",
     "effects",
@@ -79,6 +84,7 @@ pub const REQUEST_FIELDS: [&str; 9] = [
     "contributions",
     "average_effects",
     "at_means",
+    "on_error",
 ];
 
 fn boolean(body: &Map<String, Json>, name: &str, default: bool) -> Result<bool, Problem> {
@@ -196,8 +202,27 @@ pub fn parse_probability_request(
         options,
         average_effects: boolean(body, "average_effects", false)?,
         at_means: boolean(body, "at_means", false)?,
+        keep_faulty: on_error(body)?,
     };
     Ok((request, observations))
+}
+
+/// `on_error`: whether a faulty observation of a batch is answered by its error (`"keep"`)
+/// rather than refusing the batch (`"stop"`, the default).
+fn on_error(body: &Map<String, Json>) -> Result<bool, Problem> {
+    match body.get("on_error") {
+        None => Ok(false),
+        Some(Json::String(s)) if s == "stop" => Ok(false),
+        Some(Json::String(s)) if s == "keep" => Ok(true),
+        Some(other) => Err(Problem::new(
+            Kind::InvalidOption,
+            format!(
+                "'on_error' must be \"stop\" (refuse a batch that has a faulty observation) or \"keep\" (answer each faulty observation by its error, in its place), got {}",
+                echo_json(other)
+            ),
+        )
+        .at("/on_error")),
+    }
 }
 
 /// Engine options for an interval level, refused outside `(0, MAX_LEVEL]`.

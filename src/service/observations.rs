@@ -9,7 +9,9 @@
 //! ```
 //!
 //! A batch is checked in full before anything is scored: the first fault is the problem's
-//! pointer, and up to [`MAX_LISTED_ERRORS`] faults are listed in its `errors` member.
+//! pointer, and up to [`MAX_LISTED_ERRORS`] faults are listed in its `errors` member. Asked to
+//! keep faulty observations (`"on_error": "keep"`), [`parse`] instead sets each faulty
+//! observation aside with that same fault and reads the others.
 
 use serde_json::{Map, Value as Json};
 
@@ -140,6 +142,16 @@ pub fn check_bounds(model: &Model, values: &[Value]) -> Result<(), (usize, Probl
     }
 }
 
+/// A request's observations read against a model.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Parsed {
+    /// The observations to score, one flat vector (`scored × covariates`), in request order.
+    pub values: Vec<Value>,
+    /// Each faulty observation set aside with its fault, in index order (only when faulty
+    /// observations are kept; otherwise a fault refuses the request and this is empty).
+    pub faults: Vec<FieldError>,
+}
+
 /// Parse every observation of a request into one flat vector (`n × covariates`), accepting
 /// and ignoring the fields named in `accepted` (announced covariates).
 pub fn parse_all(
@@ -147,9 +159,24 @@ pub fn parse_all(
     observations: Observations<'_>,
     accepted: &[&str],
 ) -> Result<Vec<Value>, Problem> {
+    parse(model, observations, accepted, false).map(|parsed| parsed.values)
+}
+
+/// Parse every observation of a request; with `keep` (`"on_error": "keep"`), each faulty
+/// observation of a batch is set aside with the fault the refusal would have listed for it, and
+/// the others are read as alone. A single observation that is faulty, or a batch of which every
+/// observation is, is refused either way, with the refusal `keep` = false gives: there is
+/// nothing to answer.
+pub fn parse(
+    model: &Model,
+    observations: Observations<'_>,
+    accepted: &[&str],
+    keep: bool,
+) -> Result<Parsed, Problem> {
     let width = model.covariates.len();
     let mut values = Vec::with_capacity(width * observations.len());
     let mut one = Vec::with_capacity(width);
+    let mut faults = Vec::new();
     match observations {
         Observations::One(object) => {
             parse_object(model, object, "/observation", &mut one, accepted)?;
@@ -157,20 +184,14 @@ pub fn parse_all(
         }
         Observations::Many(list) => {
             let mut first: Option<Problem> = None;
-            let mut errors = Vec::new();
             for (i, observation) in list.iter().enumerate() {
                 let base = format!("/observations/{i}");
                 match parse_one(model, observation, &base, &mut one, accepted) {
-                    Ok(()) if first.is_none() => values.extend_from_slice(&one),
+                    Ok(()) if keep || first.is_none() => values.extend_from_slice(&one),
                     Ok(()) => {}
                     Err(problem) => {
-                        if errors.len() < MAX_LISTED_ERRORS {
-                            errors.push(FieldError {
-                                type_uri: problem.kind.type_uri(),
-                                detail: problem.detail.clone(),
-                                pointer: problem.pointer.clone().unwrap_or_default(),
-                                index: i,
-                            });
+                        if keep || faults.len() < MAX_LISTED_ERRORS {
+                            faults.push(field_error(&problem, i));
                         }
                         if first.is_none() {
                             first = Some(problem.index(i));
@@ -178,19 +199,37 @@ pub fn parse_all(
                     }
                 }
             }
-            if let Some(mut problem) = first {
-                if errors.len() > 1 {
-                    problem.detail = format!(
-                        "{} (and {} more faulty observation{}; see 'errors')",
-                        problem.detail,
-                        errors.len() - 1,
-                        if errors.len() == 2 { "" } else { "s" }
-                    );
-                }
-                problem.errors = errors;
-                return Err(problem);
+            if let Some(problem) = first.filter(|_| !keep || faults.len() == list.len()) {
+                return Err(refusal(problem, faults));
             }
         }
     }
-    Ok(values)
+    Ok(Parsed { values, faults })
+}
+
+/// The fault of observation `index` of a batch, as a refusal lists it and as an answer kept
+/// with `"on_error": "keep"` gives it in its place.
+pub fn field_error(problem: &Problem, index: usize) -> FieldError {
+    FieldError {
+        type_uri: problem.kind.type_uri(),
+        detail: problem.detail.clone(),
+        pointer: problem.pointer.clone().unwrap_or_default(),
+        index,
+    }
+}
+
+/// The refusal of a batch: its first fault, naming how many more there are and listing up to
+/// [`MAX_LISTED_ERRORS`] of them.
+fn refusal(mut problem: Problem, mut errors: Vec<FieldError>) -> Problem {
+    errors.truncate(MAX_LISTED_ERRORS);
+    if errors.len() > 1 {
+        problem.detail = format!(
+            "{} (and {} more faulty observation{}; see 'errors')",
+            problem.detail,
+            errors.len() - 1,
+            if errors.len() == 2 { "" } else { "s" }
+        );
+    }
+    problem.errors = errors;
+    problem
 }

@@ -107,7 +107,20 @@ pub fn document(snapshot: &Snapshot, limits: &Limits) -> Json {
         let mut request = request_template.clone();
         // The reference replaces the generic observation's; the property keeps its description.
         request["properties"]["observation"]["$ref"] = observation_ref.clone();
-        request["properties"]["observations"]["items"] = json!({"$ref": observation_ref});
+        // A batch sent with "on_error": "keep" answers a faulty observation (of any JSON type)
+        // by its error, so only without it must every observation of a batch be one this
+        // model takes.
+        request["properties"]["observations"]["items"] = json!({
+            "description": "an observation of this model; with on_error keep, any value, a faulty one being answered by its error"
+        });
+        request["if"] = json!({
+            "properties": {"on_error": {"const": "keep", "description": "faulty observations kept"}},
+            "required": ["on_error"]
+        });
+        request["else"] = json!({"properties": {"observations": {
+            "items": {"$ref": observation_ref},
+            "description": "without on_error keep, each observation is one this model takes"
+        }}});
         let request_name = format!("ProbabilityRequest.{}", model.name());
         doc["components"]["schemas"][&request_name] = request;
 

@@ -6,10 +6,10 @@ use std::sync::Arc;
 
 use serde_json::json;
 
-use ogive::service::{Config, CorsOrigins, Monitoring};
+use ogive::service::CorsOrigins;
 
-use crate::support::http_models::{lease_file, model};
-use crate::support::server::{copy_models, http_models, test_config, test_settings, TestServer};
+use crate::support::http_models::{lease_file, model, serving_a_stored_version};
+use crate::support::server::{test_settings, TestServer};
 
 const DASHBOARD: &str = "https://dashboard.example.org";
 
@@ -206,28 +206,6 @@ fn a_hot_swap_changes_the_model_etags() {
         None,
     );
     assert_eq!(untouched.status, 304, "another model's tag stays");
-}
-
-/// A copy of the committed test directory with a second stored version of lease-test,
-/// 2026-02, that is not live (its intercept moved by +0.4, so its answers differ), served from
-/// that directory with monitoring on.
-fn serving_a_stored_version() -> (TestServer, ogive::model::Model) {
-    let dir = copy_models(&http_models());
-    let mut stored = lease_file();
-    stored["version"] = json!("2026-02");
-    stored["terms"][0]["coefficient"] = json!(-0.8);
-    let bytes = serde_json::to_vec_pretty(&stored).expect("json");
-    std::fs::write(dir.path().join("lease-test/versions/2026-02.json"), &bytes).expect("write");
-    let stored = model(&stored);
-    let keys = Arc::new(ogive::receipt::ReceiptKeys::ephemeral().expect("key"));
-    let config = Config {
-        monitoring: Some(Monitoring {
-            windows: ogive::monitoring::monitor::MonitorSettings::default(),
-            keys,
-        }),
-        ..test_config(dir.path(), test_settings())
-    };
-    (TestServer::launch(dir, config), stored)
 }
 
 fn metric(text: &str, prefix: &str) -> Option<f64> {

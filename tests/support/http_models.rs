@@ -4,10 +4,13 @@
 //! The models are invented inputs for identity tests (the service must return exactly what the
 //! engine computes); no value here is a reference value.
 
+use std::sync::Arc;
+
 use ogive::model::Model;
+use ogive::service::{Config, Monitoring};
 use serde_json::{json, Value as Json};
 
-use super::server::http_models;
+use super::server::{copy_models, http_models, test_config, test_settings, TestServer};
 
 fn read_model_file(name: &str, version: &str) -> Json {
     let path = http_models()
@@ -39,4 +42,26 @@ pub fn model(file: &Json) -> Model {
 pub fn lease_observation() -> Json {
     json!({"annual_revenue": 450.0, "years_trading": 6.5, "prior_arrears": 1,
            "guarantor": 1, "sector": "construction"})
+}
+
+/// A copy of the committed test directory with a second stored version of lease-test,
+/// 2026-02, that is not live (its intercept moved by +0.4, so its answers differ), served from
+/// that directory with monitoring on; the stored version's model.
+pub fn serving_a_stored_version() -> (TestServer, Model) {
+    let dir = copy_models(&http_models());
+    let mut stored = lease_file();
+    stored["version"] = json!("2026-02");
+    stored["terms"][0]["coefficient"] = json!(-0.8);
+    let bytes = serde_json::to_vec_pretty(&stored).expect("json");
+    std::fs::write(dir.path().join("lease-test/versions/2026-02.json"), &bytes).expect("write");
+    let stored = model(&stored);
+    let keys = Arc::new(ogive::receipt::ReceiptKeys::ephemeral().expect("key"));
+    let config = Config {
+        monitoring: Some(Monitoring {
+            windows: ogive::monitoring::monitor::MonitorSettings::default(),
+            keys,
+        }),
+        ..test_config(dir.path(), test_settings())
+    };
+    (TestServer::launch(dir, config), stored)
 }

@@ -27,7 +27,7 @@ use crate::service::compute::{Admitted, INLINE_BODY_BYTES};
 use crate::service::direct;
 use crate::service::dto::{parse_probability_request, Observations};
 use crate::service::middleware::Scored;
-use crate::service::observations::{parse_all, parse_object};
+use crate::service::observations::{parse, parse_object};
 use crate::service::problem::{Kind, Problem};
 use crate::service::request_id::RequestId;
 use crate::service::scoring::{announced_message, score, ANNOUNCED_IGNORED};
@@ -207,9 +207,12 @@ fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) ->
             .compute
             .check_budget(request.count, model.coefficients.len())?;
         let admission = state.compute.admit(request.count)?;
-        let values = match read {
-            Read::Values(values) => values,
-            Read::Sent(observations) => parse_all(model, observations, &accepted)?,
+        let (mut values, faults) = match read {
+            Read::Values(values) => (values, Vec::new()),
+            Read::Sent(observations) => {
+                let parsed = parse(model, observations, &accepted, request.keep_faulty)?;
+                (parsed.values, parsed.faults)
+            }
         };
         let metrics = if target.live {
             state.metrics.scoring(model)
@@ -217,7 +220,10 @@ fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) ->
             let detached = state.metrics.scoring_not_live(model);
             Arc::new(detached.map_err(|e| Problem::internal(&e))?)
         };
-        let mut scored = score(model, &request, &values, request_id, &metrics)?;
+        let mut scored = score(model, &request, &values, faults, request_id, &metrics)?;
+        // Monitoring sees the scored observations only: no receipt, drift count or shadow
+        // comparison for one answered by its fault.
+        scored.align_values(&mut values);
         if let Some(monitor) = &state.monitor {
             let probabilities = scored.answers().iter().map(|a| a.probability);
             let receipts = if target.live {
@@ -239,7 +245,14 @@ fn answer(state: &AppState, target: &Target, bytes: &Bytes, request_id: &str) ->
         let json = scored.to_json();
         match (&state.shadow, &target.entry.shadow, sent) {
             (Some(shadow), Some(candidate), Some(observations)) if shadow_reads_objects => {
-                let rows = parsed_by(candidate, observations);
+                let mut rows = parsed_by(candidate, observations);
+                let mut faulty = scored.faulty_indices().peekable();
+                let mut index = 0;
+                rows.retain(|_| {
+                    let scored = faulty.next_if_eq(&index).is_none();
+                    index += 1;
+                    scored
+                });
                 shadow.compare_parsed(&target.entry, &rows, scored.answers());
             }
             (Some(shadow), Some(_), _) if target.live => {
