@@ -236,3 +236,128 @@ fn every_route_that_reads_a_body_documents_its_408_answer() {
         assert!(with_body > 0, "{name} document: no operation takes a body");
     }
 }
+
+/// Send `head` then `sent` to the admin listener of `server` and read until it closes (or 10 s).
+fn admin_raw(server: &TestServer, head: &str, sent: &[u8]) -> String {
+    use std::io::{Read, Write};
+    let addr = server.admin_addr.expect("an admin listener");
+    let mut stream = std::net::TcpStream::connect(addr).expect("connect");
+    stream
+        .set_read_timeout(Some(std::time::Duration::from_secs(10)))
+        .expect("timeout");
+    stream.write_all(head.as_bytes()).expect("head");
+    stream.write_all(sent).expect("body");
+    let mut answer = Vec::new();
+    let _ = stream.read_to_end(&mut answer);
+    String::from_utf8_lossy(&answer).into_owned()
+}
+
+#[test]
+fn every_admin_operation_documents_the_body_refusals_it_gives() {
+    let mut settings = crate::support::server::test_settings();
+    settings.limits.body_timeout_ms = 300;
+    let server = TestServer::start_with(settings);
+    let contract = Contract::admin(&server);
+    let bearer = format!("Bearer {}", crate::support::server::TOKEN);
+    let operations = [
+        (
+            "PUT",
+            "/models/{name}/versions/{version}",
+            "/models/lease-test/versions/2026-09",
+        ),
+        ("POST", "/models/{name}/live", "/models/lease-test/live"),
+        (
+            "POST",
+            "/models/{name}/rollback",
+            "/models/lease-test/rollback",
+        ),
+        ("PUT", "/models/{name}/shadow", "/models/lease-test/shadow"),
+    ];
+    let large = vec![b' '; 600 * 1024];
+    for (method, template, path) in operations {
+        let url = format!("{}{path}", server.admin);
+        let json = [
+            ("Authorization", bearer.as_str()),
+            ("Content-Type", "application/json"),
+        ];
+        let text = [
+            ("Authorization", bearer.as_str()),
+            ("Content-Type", "text/plain"),
+        ];
+        let mut cases: Vec<(&str, u16, crate::support::server::Reply)> = vec![
+            (
+                "a body of another type",
+                415,
+                server.send_to(&url, method, &text, Some(b"{}")),
+            ),
+            (
+                "a body over the limit",
+                413,
+                server.send_to(&url, method, &json, Some(&large)),
+            ),
+        ];
+        if template != "/models/{name}/versions/{version}" {
+            // A model file's syntax errors are its validator's (422 invalid-model-file).
+            let malformed = server.send_to(&url, method, &json, Some(b"{\"version\": }"));
+            cases.push(("malformed JSON", 400, malformed));
+        } else {
+            let query = format!("{url}?colour=red");
+            let reply = server.send_to(&query, method, &json, Some(b"{}"));
+            cases.push(("an unknown query parameter", 400, reply));
+        }
+        if template != "/models/{name}/rollback" {
+            cases.push((
+                "an empty body",
+                400,
+                server.send_to(&url, method, &json, Some(b"")),
+            ));
+        }
+        for (what, status, reply) in &cases {
+            assert_eq!(
+                reply.status, *status,
+                "{method} {path}, {what}: {}",
+                reply.text
+            );
+            let operation = &contract.document()["paths"][template][method.to_lowercase()];
+            assert!(
+                operation["responses"][status.to_string()].is_object(),
+                "{method} {template} answers {what} {status}, left under default"
+            );
+            contract.check_reply(template, &method.to_lowercase(), reply, what);
+        }
+        // A body that stops arriving.
+        let head = format!(
+            "{method} {path} HTTP/1.1\r\nHost: x\r\nAuthorization: {bearer}\r\nContent-Type: application/json\r\nContent-Length: 100\r\n\r\n"
+        );
+        let answer = admin_raw(&server, &head, b"{\"version\"");
+        assert!(
+            answer.starts_with("HTTP/1.1 408"),
+            "{method} {path}: {answer}"
+        );
+        let operation = &contract.document()["paths"][template][method.to_lowercase()];
+        assert!(
+            operation["responses"]["408"].is_object(),
+            "{method} {template}: no 408"
+        );
+    }
+    // No operation leaves these under default, nor says it gives them when it does not.
+    for (path, item) in contract.document()["paths"].as_object().expect("paths") {
+        for (method, operation) in item.as_object().expect("a path item") {
+            let responses = &operation["responses"];
+            let default = responses["default"]["description"].as_str().unwrap_or("");
+            for status in ["400", "408", "413", "415"] {
+                assert!(
+                    !default.contains(status),
+                    "{method} {path}: {status} under default"
+                );
+                let takes_body = operation.get("requestBody").is_some();
+                assert_eq!(
+                    responses.get(status).is_some(),
+                    takes_body,
+                    "{method} {path}: {status} documented {} a body",
+                    if takes_body { "without" } else { "with no" }
+                );
+            }
+        }
+    }
+}
