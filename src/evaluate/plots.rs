@@ -23,6 +23,7 @@
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
+use crate::report::frame::{self, Frame, HEIGHT, LEFT, TOP};
 use crate::report::svg::{escape, PlotError};
 
 use super::report::EvaluationReport;
@@ -31,10 +32,7 @@ use super::ModelRows;
 /// At most about this many vertices of a ROC curve are drawn.
 pub const ROC_VERTICES: usize = 1000;
 
-const WIDTH: f64 = 640.0;
-const HEIGHT: f64 = 660.0;
-const LEFT: f64 = 90.0;
-const TOP: f64 = 80.0;
+const FRAME: Frame = Frame { width: 640.0 };
 const SIDE: f64 = 480.0;
 /// The radius of the marker of the fullest bin; the others scale by √(count / fullest).
 const LARGEST_MARKER: f64 = 11.0;
@@ -119,17 +117,7 @@ impl Panel {
     }
 
     fn path(points: impl Iterator<Item = (f64, f64)>) -> String {
-        let mut d = String::new();
-        for (i, (x, y)) in points.enumerate() {
-            let _ = write!(
-                d,
-                "{}{:.3},{:.3}",
-                if i == 0 { "M" } else { " L" },
-                Panel::px(x),
-                Panel::py(y)
-            );
-        }
-        d
+        frame::path_data(points.map(|(x, y)| (Panel::px(x), Panel::py(y))))
     }
 
     fn close(svg: &mut String, x_label: &str, y_label: &str) {
@@ -174,47 +162,30 @@ impl Panel {
 }
 
 fn head(svg: &mut String, title: &str, description: &str, subtitle: &str) {
-    let _ = writeln!(
-        svg,
-        r##"<svg xmlns="http://www.w3.org/2000/svg" width="{WIDTH}" height="{HEIGHT}" viewBox="0 0 {WIDTH} {HEIGHT}" font-family="Helvetica, Arial, sans-serif" font-size="12" fill="#222">"##
-    );
-    let _ = writeln!(svg, "<title>{}</title>", escape(title));
-    let _ = writeln!(svg, "<desc>{}</desc>", escape(description));
-    let _ = writeln!(
-        svg,
-        r#"<rect width="{WIDTH}" height="{HEIGHT}" fill="white"/>"#
-    );
-    let _ = writeln!(
-        svg,
-        r#"<text x="{}" y="30" text-anchor="middle" font-size="17" font-weight="bold">{}</text>"#,
-        WIDTH / 2.0,
-        escape(title)
-    );
-    let _ = writeln!(
-        svg,
-        r##"<text x="{}" y="52" text-anchor="middle" fill="#555">{}</text>"##,
-        WIDTH / 2.0,
-        escape(subtitle)
-    );
+    FRAME.open(svg, title, &escape(description));
+    FRAME.heading(svg, 30.0, title);
+    FRAME.subheading(svg, 52.0, None, &escape(subtitle));
 }
 
 fn legend(svg: &mut String, labels: &[String]) {
     let mut x = LEFT;
     let y = HEIGHT - 34.0;
-    for (k, label) in labels.iter().enumerate() {
-        let _ = writeln!(
-            svg,
-            r#"<g class="legend" transform="translate({x} {y})"><line x1="0" y1="0" x2="18" y2="0" stroke="{}" stroke-width="2.2"/><circle cx="9" cy="0" r="4" fill="{}"/><text x="24" y="4">{}</text></g>"#,
-            COLOURS[k],
-            COLOURS[k],
-            escape(label)
+    for (colour, label) in COLOURS.iter().zip(labels) {
+        let swatch = format!(
+            r#"<line x1="0" y1="0" x2="18" y2="0" stroke="{colour}" stroke-width="2.2"/><circle cx="9" cy="0" r="4" fill="{colour}"/>"#
         );
+        frame::legend_entry(svg, x, y, &swatch, label);
         // Helvetica at 12 px averages about 6.5 px a character.
         x += 44.0 + 6.5 * label.chars().count() as f64;
     }
-    let _ = writeln!(
+    frame::legend_entry(
         svg,
-        r##"<g class="legend" transform="translate({x} {y})"><line x1="0" y1="0" x2="18" y2="0" stroke="{DIAGONAL}" stroke-dasharray="5 3"/><text x="24" y="4">diagonal</text></g>"##
+        x,
+        y,
+        &format!(
+            r#"<line x1="0" y1="0" x2="18" y2="0" stroke="{DIAGONAL}" stroke-dasharray="5 3"/>"#
+        ),
+        "diagonal",
     );
 }
 
@@ -286,7 +257,7 @@ pub fn reliability_svg(report: &EvaluationReport) -> String {
         "observed share of events",
     );
     legend(&mut svg, &labels(report));
-    let _ = writeln!(svg, "</svg>");
+    frame::close(&mut svg);
     svg
 }
 
@@ -330,7 +301,7 @@ pub fn roc_svg(report: &EvaluationReport, rows: &[ModelRows]) -> String {
         "true-positive rate (sensitivity)",
     );
     legend(&mut svg, &labels(report));
-    let _ = writeln!(svg, "</svg>");
+    frame::close(&mut svg);
     svg
 }
 
@@ -340,23 +311,13 @@ pub fn write_plots(
     report: &EvaluationReport,
     rows: &[ModelRows],
 ) -> Result<Vec<PathBuf>, PlotError> {
-    std::fs::create_dir_all(folder).map_err(|source| PlotError::Write {
-        path: folder.to_path_buf(),
-        source,
-    })?;
-    let mut written = Vec::new();
-    for (name, svg) in [
-        ("reliability.svg", reliability_svg(report)),
-        ("roc.svg", roc_svg(report, rows)),
-    ] {
-        let path = folder.join(name);
-        std::fs::write(&path, svg).map_err(|source| PlotError::Write {
-            path: path.clone(),
-            source,
-        })?;
-        written.push(path);
-    }
-    Ok(written)
+    frame::write_all(
+        folder,
+        [
+            Ok(("reliability.svg".to_string(), reliability_svg(report))),
+            Ok(("roc.svg".to_string(), roc_svg(report, rows))),
+        ],
+    )
 }
 
 #[cfg(test)]

@@ -9,6 +9,8 @@
 //! data.rs          one streaming pass over a CSV: averages and warning counts
 //! text.rs          the plain-text rendering
 //! svg.rs           one SVG plot per continuous covariate: probability and effect curves
+//! frame.rs         what every SVG picture shares (describe's and evaluate's): the document's
+//!                  opening, headings, legend entries, writing a folder of pictures
 //! axis.rs          axis ranges, tick positions and number formatting for the plots and tables
 //! cautions.rs      the cautions, worded once
 //! ```
@@ -21,6 +23,7 @@ pub(crate) mod axis;
 pub(crate) mod cautions;
 pub(crate) mod coefficients;
 pub(crate) mod data;
+pub(crate) mod frame;
 pub mod svg;
 pub mod text;
 

@@ -36,6 +36,7 @@ use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 use super::axis::{format_number, log_ticks, nice_range, nice_step, tick_label, ticks};
+use super::frame::{self, Frame, HEIGHT, LEFT, TOP};
 use super::text::percent;
 use crate::engine::{effect_slots, Options, Scorer};
 use crate::model::{Covariate, CovariateKind, Model, Value};
@@ -108,11 +109,9 @@ pub const EXTENSION: f64 = 0.1;
 /// logarithmic x axis.
 pub const LOG_AXIS_RATIO: f64 = 10.0;
 
-const WIDTH: f64 = 760.0;
-const HEIGHT: f64 = 660.0;
-const LEFT: f64 = 90.0;
+const FRAME: Frame = Frame { width: 760.0 };
 const PLOT_WIDTH: f64 = 620.0;
-const PROBABILITY_TOP: f64 = 80.0;
+const PROBABILITY_TOP: f64 = TOP;
 const PROBABILITY_HEIGHT: f64 = 240.0;
 const EFFECT_TOP: f64 = 380.0;
 const EFFECT_HEIGHT: f64 = 180.0;
@@ -308,16 +307,7 @@ impl Panel {
     }
 
     fn path(&self, points: impl Iterator<Item = (f64, f64)>, close: bool) -> String {
-        let mut d = String::new();
-        for (i, (x, y)) in points.enumerate() {
-            let _ = write!(
-                d,
-                "{}{:.3},{:.3}",
-                if i == 0 { "M" } else { " L" },
-                self.px(x),
-                self.py(y)
-            );
-        }
+        let mut d = frame::path_data(points.map(|(x, y)| (self.px(x), self.py(y))));
         if close {
             d.push_str(" Z");
         }
@@ -351,22 +341,21 @@ impl Panel {
         );
     }
 
-    /// One more curve, dashed, for one level of an interacting partner.
-    fn partner_curve(
-        &self,
-        svg: &mut String,
-        points: &[CurvePoint],
-        value: fn(&CurvePoint) -> f64,
-        colour: &str,
-        (partner, level, dash): (&str, &str, &str),
-    ) {
-        let d = self.path(points.iter().map(|p| (p.x, value(p))), false);
-        let _ = writeln!(
-            svg,
-            r#"<path class="partner-curve" data-partner="{}" data-level="{}" d="{d}" fill="none" stroke="{colour}" stroke-width="1.3" stroke-dasharray="{dash}"/>"#,
-            escape(partner),
-            escape(level)
-        );
+    /// The partners' curves, thin and dashed, one per level of an interacting partner, then
+    /// the covariate's own curve and its band over them.
+    fn all_curves(&self, svg: &mut String, curves: &Curves, quantity: Quantity) {
+        for (i, (partner, level, points)) in curves.partners.iter().enumerate() {
+            let dash = PARTNER_DASHES[i % PARTNER_DASHES.len()];
+            let d = self.path(points.iter().map(|p| (p.x, (quantity.value)(p))), false);
+            let _ = writeln!(
+                svg,
+                r#"<path class="partner-curve" data-partner="{}" data-level="{}" d="{d}" fill="none" stroke="{}" stroke-width="1.3" stroke-dasharray="{dash}"/>"#,
+                escape(partner),
+                escape(level),
+                quantity.colour
+            );
+        }
+        self.curve_and_band(svg, &curves.points, quantity);
     }
 
     /// The training data's density along the bottom edge: one bar per histogram bin, its
@@ -638,18 +627,12 @@ fn header(svg: &mut String, model: &Model, covariate: usize, curves: &Curves, le
     let (c, f, points) = (&model.covariates[covariate], &model.file, &curves.points);
     let (low, high) = plot_range(model, covariate);
     let title = format!("P({} = 1) against {}", f.outcome.name, c.name);
-    let _ = writeln!(
-        svg,
-        r##"<svg xmlns="http://www.w3.org/2000/svg" width="{WIDTH}" height="{HEIGHT}" viewBox="0 0 {WIDTH} {HEIGHT}" font-family="Helvetica, Arial, sans-serif" font-size="12" fill="#222">"##
-    );
-    let _ = writeln!(svg, "<title>{}</title>", escape(&title));
-    let _ = writeln!(
-        svg,
-        "<desc>{} {} ({} link): the probability and the marginal effect of {} computed by ogive \
+    let description = format!(
+        "{} {} ({} link): the probability and the marginal effect of {} computed by ogive \
          on {} points from {} to {}, the other covariates at their training means. Each panel \
          maps data to pixels by px = data-left + (x - data-x-min) / (data-x-max - data-x-min) * \
          data-width and py = data-top + (data-y-max - y) / (data-y-max - data-y-min) * \
-         data-height.</desc>",
+         data-height.",
         escape(&f.name),
         escape(&f.version),
         f.link,
@@ -658,40 +641,37 @@ fn header(svg: &mut String, model: &Model, covariate: usize, curves: &Curves, le
         low,
         high
     );
-    let _ = writeln!(
+    FRAME.open(svg, &title, &description);
+    FRAME.heading(svg, 28.0, &title);
+    FRAME.subheading(
         svg,
-        r#"<rect width="{WIDTH}" height="{HEIGHT}" fill="white"/>"#
+        48.0,
+        None,
+        &format!(
+            "{} {}, {} link; other covariates at their training means; bands: {level} intervals",
+            escape(&f.name),
+            escape(&f.version),
+            f.link
+        ),
     );
-    let _ = writeln!(
+    FRAME.subheading(
         svg,
-        r#"<text x="{}" y="28" text-anchor="middle" font-size="17" font-weight="bold">{}</text>"#,
-        WIDTH / 2.0,
-        escape(&title)
-    );
-    let _ = writeln!(
-        svg,
-        r##"<text x="{}" y="48" text-anchor="middle" fill="#555">{} {}, {} link; other covariates at their training means; bands: {level} intervals</text>"##,
-        WIDTH / 2.0,
-        escape(&f.name),
-        escape(&f.version),
-        f.link
-    );
-    let _ = writeln!(
-        svg,
-        r##"<text x="{}" y="66" text-anchor="middle" fill="#555">{} = 1 means: {}</text>"##,
-        WIDTH / 2.0,
-        escape(&f.outcome.name),
-        escape(&f.outcome.meaning)
+        66.0,
+        None,
+        &format!(
+            "{} = 1 means: {}",
+            escape(&f.outcome.name),
+            escape(&f.outcome.meaning)
+        ),
     );
 
     let interaction = interaction_note(&curves.partners, &curves.noted);
     if !interaction.is_empty() {
-        let _ = writeln!(
+        FRAME.subheading(
             svg,
-            r##"<text class="interaction" x="{}" y="{}" text-anchor="middle" fill="#555">{}</text>"##,
-            WIDTH / 2.0,
             HEIGHT - 8.0,
-            escape(&interaction)
+            Some("interaction"),
+            &escape(&interaction),
         );
     }
 }
@@ -705,7 +685,7 @@ fn probability_section(
     covariate: usize,
     curves: &Curves,
 ) {
-    let (c, f, points) = (&model.covariates[covariate], &model.file, &curves.points);
+    let (c, f) = (&model.covariates[covariate], &model.file);
     let (low, high) = probability_panel.x;
     probability_panel.open(svg, "probability-panel");
     probability_panel.training_range(svg, c.training_min, c.training_max, c.training_mean);
@@ -717,19 +697,9 @@ fn probability_section(
     {
         probability_panel.rug(svg, &histogram.edges, &histogram.counts);
     }
-    for (i, (partner, level, curve)) in curves.partners.iter().enumerate() {
-        let dash = PARTNER_DASHES[i % PARTNER_DASHES.len()];
-        probability_panel.partner_curve(
-            svg,
-            curve,
-            |p| p.probability,
-            CURVE_COLOUR,
-            (partner, level, dash),
-        );
-    }
-    probability_panel.curve_and_band(
+    probability_panel.all_curves(
         svg,
-        points,
+        curves,
         Quantity {
             name: "probability",
             value: |p| p.probability,
@@ -784,19 +754,9 @@ fn effect_section(
             LEFT + PLOT_WIDTH
         );
     }
-    for (i, (partner, level, curve)) in curves.partners.iter().enumerate() {
-        let dash = PARTNER_DASHES[i % PARTNER_DASHES.len()];
-        effect_panel.partner_curve(
-            svg,
-            curve,
-            |p| p.effect,
-            EFFECT_COLOUR,
-            (partner, level, dash),
-        );
-    }
-    effect_panel.curve_and_band(
+    effect_panel.all_curves(
         svg,
-        points,
+        curves,
         Quantity {
             name: "effect",
             value: |p| p.effect,
@@ -873,7 +833,7 @@ fn footer(svg: &mut String, model: &Model, covariate: usize, level: &str) {
         escape(&x_label)
     );
     legend(svg, level, model.covariance.is_some());
-    let _ = writeln!(svg, "</svg>");
+    frame::close(svg);
 }
 
 /// The line under the legend that explains the partner curves, or names the partners that have
@@ -934,11 +894,7 @@ fn legend(svg: &mut String, level: &str, intervals: bool) {
     ];
     let mut x = LEFT;
     for (swatch, label) in items {
-        let _ = writeln!(
-            svg,
-            r#"<g class="legend" transform="translate({x} {y})">{swatch}<text x="24" y="4">{}</text></g>"#,
-            escape(&label)
-        );
+        frame::legend_entry(svg, x, y, &swatch, &label);
         // Helvetica at 12 px averages about 6.5 px a character.
         x += 40.0 + 6.5 * label.chars().count() as f64;
     }
@@ -951,19 +907,10 @@ pub fn write_plots(
     folder: &Path,
     options: &Options,
 ) -> Result<Vec<PathBuf>, PlotError> {
-    std::fs::create_dir_all(folder).map_err(|source| PlotError::Write {
-        path: folder.to_path_buf(),
-        source,
-    })?;
-    let mut written = Vec::new();
-    for j in plotted_covariates(model) {
-        let svg = render(model, j, options)?;
-        let path = folder.join(format!("{}.svg", model.covariates[j].name));
-        std::fs::write(&path, svg).map_err(|source| PlotError::Write {
-            path: path.clone(),
-            source,
-        })?;
-        written.push(path);
-    }
-    Ok(written)
+    frame::write_all(
+        folder,
+        plotted_covariates(model).into_iter().map(|j| {
+            render(model, j, options).map(|svg| (format!("{}.svg", model.covariates[j].name), svg))
+        }),
+    )
 }
