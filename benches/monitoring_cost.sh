@@ -24,6 +24,11 @@
 # and says so when that ratio is no further from 1 than the control's (the difference is then
 # this run's noise, not monitoring). On a quiet machine the alternating figures agree with it.
 #
+# Then, for the single-observation load, the server CPU per request with monitoring on over
+# off (on includes drift and sealing, so it bounds sealing from above), and the engine
+# benchmark's time to seal one receipt (cargo bench --bench monitoring, run in the same script;
+# SEAL_BENCH=0 skips it) as a share of off's CPU per request. Goal: sealing at most 5%.
+#
 # Also prints the share of drift samples the "on" server dropped (its window was busy) and
 # both servers' peak RSS.
 #
@@ -38,7 +43,7 @@
 #
 # Settings (environment): DURATION (per run, in seconds with an s, default 10s), ROUNDS (default 3), WORKERS (server
 # workers, default 2), WRK_THREADS (default 2), OGIVE_BIN (a binary to use instead of building
-# target/release/ogive). Needs wrk (Debian: apt-get install -y wrk), curl and python3.
+# target/release/ogive), SEAL_BENCH (0 skips the seal benchmark). Needs wrk (Debian: apt-get install -y wrk), curl and python3.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
@@ -117,6 +122,7 @@ printf '\n%-7s %5s | %9s %9s %7s | %8s %8s | %9s %9s %7s\n' \
   load conns "on rps" "off rps" change "on p99" "off p99" "on CPU" "off CPU" change
 worst_rate=0
 worst_cpu=0
+declare -A cpu_alternating cpu_paired # "load connections" → "on-CPU off-CPU" (µs per request)
 for body in full batch; do
   for connections in 16 64; do
     on=() off=()
@@ -132,6 +138,7 @@ for body in full batch; do
     rate_on=$(median 1 "${on[@]}") rate_off=$(median 1 "${off[@]}")
     p99_on=$(median 2 "${on[@]}") p99_off=$(median 2 "${off[@]}")
     cpu_on=$(median 3 "${on[@]}") cpu_off=$(median 3 "${off[@]}")
+    cpu_alternating["$body $connections"]="$cpu_on $cpu_off"
     printf '%-7s %5s | %9.0f %9.0f %7s | %6dus %6dus | %7.1fus %7.1fus %7s\n' "$body" "$connections" \
       "$rate_on" "$rate_off" "$(change "$rate_on" "$rate_off")" "$p99_on" "$p99_off" \
       "$cpu_on" "$cpu_off" "$(change "$cpu_on" "$cpu_off")"
@@ -150,6 +157,7 @@ for body in full batch; do
     done
     ratio=$(median 1 "${pairs[@]}")
     cpu_on=$(median 2 "${pairs[@]}") cpu_off=$(median 3 "${pairs[@]}")
+    cpu_paired["$body $connections"]="$cpu_on $cpu_off"
     control=$(median 1 "${controls[@]}")
     printf '%-7s %5s | %-22s %7s | %7.1fus %7.1fus %7s | %-22s %7s\n' "$body" "$connections" \
       "$(printf '%s\n' "${pairs[@]}" | awk '{ printf "%s ", $1 }')" "$ratio" \
@@ -180,3 +188,34 @@ print('largest cost of monitoring (paired): %.1f%% fewer requests per second; %.
 print('noise of this run (two identical servers, paired): up to %.1f%% apart' % noise)
 verdict = 'met' if rate <= 5 else ('not shown: the difference is within this run\'s noise' if rate <= noise else 'NOT met')
 print('goal, at most 5%% fewer requests per second: %s' % verdict)"
+
+# Sealing's share of a single-observation answer's server CPU. Monitoring on includes drift
+# and sealing, so its CPU per request over off's bounds sealing's from above; and the engine
+# benchmark's seal time (benches/monitoring.rs, run now, on this machine) over off's CPU per
+# request is sealing's own share.
+echo
+echo "single observation, server CPU per request (medians of $rounds rounds; on includes drift and sealing):"
+for connections in 16 64; do
+  for kind in alternating paired; do
+    if [ "$kind" = alternating ]; then
+      read -r cpu_on cpu_off <<<"${cpu_alternating["full $connections"]}"
+    else
+      read -r cpu_on cpu_off <<<"${cpu_paired["full $connections"]}"
+    fi
+    python3 -c "print('  %2d connections, %-11s on %6.1f us, off %6.1f us: on/off %.3f (%+.1f%%)'
+      % ($connections, '$kind', $cpu_on, $cpu_off, $cpu_on / $cpu_off, ($cpu_on / $cpu_off - 1) * 100))"
+  done
+done
+if [ "${SEAL_BENCH:-1}" = 1 ]; then
+  seal_ns="$(cargo bench -q --bench monitoring 2>/dev/null | awk '$1 == "seal" { print $2 }')"
+  if [ -n "$seal_ns" ]; then
+    for connections in 16 64; do
+      read -r _ cpu_off <<<"${cpu_paired["full $connections"]}"
+      python3 -c "print('sealing one receipt: %.0f ns (cargo bench --bench monitoring), %.2f%% of the server CPU of a single-observation answer with monitoring off (%.1f us, paired, %d connections); goal at most 5%%: %s'
+        % ($seal_ns, $seal_ns / 10 / $cpu_off, $cpu_off, $connections, 'met' if $seal_ns / 10 / $cpu_off <= 5 else 'NOT met'))"
+    done
+  else
+    echo "sealing: the monitoring benchmark printed no seal figure" >&2
+  fi
+fi
+echo "load average: $(cut -d ' ' -f 1-3 /proc/loadavg)"

@@ -46,6 +46,31 @@ struct Setup {
     probit: std::path::PathBuf,
 }
 
+impl Setup {
+    /// `--data` (the Spector rows) `--outcome grade --model` (the logit fixture) `--against`
+    /// (the probit one): the comparison most tests run.
+    fn logit_against_probit(&self) -> Vec<String> {
+        let path = |p: &std::path::Path| p.to_str().expect("a UTF-8 path").to_string();
+        [
+            "--data",
+            &path(&data_path()),
+            "--outcome",
+            "grade",
+            "--model",
+            &path(&self.logit),
+            "--against",
+            &path(&self.probit),
+        ]
+        .map(str::to_string)
+        .to_vec()
+    }
+}
+
+/// `texts` as the `&str`s the runners take.
+fn strs(texts: &[String]) -> Vec<&str> {
+    texts.iter().map(String::as_str).collect()
+}
+
 fn setup() -> Setup {
     let dir = tempfile::tempdir().expect("tempdir");
     let logit = write_model(dir.path(), "logit.json", &model_json("logit"));
@@ -160,16 +185,7 @@ fn check_figures(got: &Json, want: &Json, who: &str) {
 fn logit_against_probit_on_the_spector_rows_matches_the_reference_libraries() {
     let s = setup();
     let data = data_path();
-    let report = evaluate_json(&[
-        "--data",
-        data.to_str().unwrap(),
-        "--outcome",
-        "grade",
-        "--model",
-        s.logit.to_str().unwrap(),
-        "--against",
-        s.probit.to_str().unwrap(),
-    ]);
+    let report = evaluate_json(&strs(&s.logit_against_probit()));
     let want = &reference()["spector"];
 
     assert_eq!(report["report"], "ogive-evaluation");
@@ -259,21 +275,8 @@ fn a_logit_on_its_own_training_rows_has_intercept_zero_and_slope_one() {
 #[test]
 fn text_report_gives_each_figure_with_its_interval_the_verdict_and_the_cautions() {
     let s = setup();
-    let result = run(
-        &[
-            "evaluate",
-            "--data",
-            data_path().to_str().unwrap(),
-            "--outcome",
-            "grade",
-            "--model",
-            s.logit.to_str().unwrap(),
-            "--against",
-            s.probit.to_str().unwrap(),
-        ],
-        None,
-        &[],
-    );
+    let args = s.logit_against_probit();
+    let result = run(&[&["evaluate"][..], &strs(&args)].concat(), None, &[]);
     assert_eq!(result.code, 0, "{}", result.stderr);
     let text = &result.stdout;
     let auc = f(&reference()["spector"]["first"]["figures"]["auc"]);
@@ -575,18 +578,9 @@ fn vertices(d: &str) -> Vec<(f64, f64)> {
 fn plots_of_logit_against_probit() -> (tempfile::TempDir, String, String) {
     let s = setup();
     let folder = s.dir.path().join("plots");
-    let report = evaluate_json(&[
-        "--data",
-        data_path().to_str().unwrap(),
-        "--outcome",
-        "grade",
-        "--model",
-        s.logit.to_str().unwrap(),
-        "--against",
-        s.probit.to_str().unwrap(),
-        "--plots",
-        folder.to_str().unwrap(),
-    ]);
+    let args = s.logit_against_probit();
+    let report =
+        evaluate_json(&[&strs(&args)[..], &["--plots", folder.to_str().unwrap()]].concat());
     let listed: Vec<&str> = report["plots"]
         .as_array()
         .unwrap()

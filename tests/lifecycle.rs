@@ -1202,8 +1202,9 @@ fn a_promotion_by_the_cli_reaches_a_watching_registry() {
     let models = root.path().to_str().expect("utf-8 path");
     let out = ogive(&["promote", "--models", models, NAME, "v2"]);
     assert!(out.status.success());
-    // The brief asks for 2 s; the deadline here is generous so that a slow machine does not
-    // fail the test, which checks that the swap happens, not how fast.
+    // deploy/RUNNING-AT-SCALE.md (How a promotion propagates) says replicas swap within 2 s;
+    // the wait here is longer so that a slow machine does not fail the test, which checks that
+    // the swap happens, not how fast.
     assert!(
         eventually(Duration::from_secs(10), || served_version(&registry, NAME)
             .as_deref()

@@ -16,13 +16,18 @@
 //!
 //! Per-version state: each part keeps its state by model name and version label, created the
 //! first time a version is seen (drift and calibration in atomically swapped maps, read on
-//! the request path without a lock; the shadow comparison in label children looked up once per
-//! request), so a promotion never mixes two versions' figures. Exporting: a figure that a ratio
-//! is taken of is read under its state's lock at scrape time and written as families
-//! ([`families`]), so one scrape never mixes two moments; counts that are only ever summed are
-//! registered counters. Every series carries `model` and `version` (the shadow's, the
-//! candidate's), and the fleet's figures are sums of these over replicas (the recording rules
-//! in `deploy/prometheus/ogive-rules.yml`).
+//! the request path without a lock; the shadow comparison in a map under one lock, taken once
+//! per request of a shadowed model), so a promotion never mixes two versions' figures.
+//! Exporting: a figure that a ratio is taken of is read under its state's lock at scrape time
+//! and written as families ([`families`]), so one scrape never mixes two moments: drift's bin
+//! counters and training shares, calibration's outcome counters, and all four shadow series
+//! (mean |Δp| is their sum over their count, the disagreement rate disagreements over scored).
+//! The per-pod window figures (PSI, Brier, AUC, ...) and drift's dropped samples are kept in
+//! prometheus gauges and counters that each part's collector refreshes and writes in the same
+//! scrape, under the same lock; no part's series are registered on their own.
+//! Every series carries `model` and `version` (the shadow's, the candidate's), and the fleet's
+//! figures are sums of these over replicas (the recording rules in
+//! `deploy/prometheus/ogive-rules.yml`).
 //!
 //! Which version shadows, and what may, is the model directory's ([`crate::registry::shadow`]);
 //! the Prometheus registry and the request series are [`crate::metrics`]'s; the admin route

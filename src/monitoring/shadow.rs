@@ -29,8 +29,8 @@
 //! [`crate::registry::shadow`]'s; the shadow itself is held in the model directory, so every
 //! replica scores it.
 //!
-//! The exported series, lock-free to record (the label children are looked up once per
-//! request):
+//! The exported series, written at scrape time from this process's counts, which a request
+//! adds to under one lock, once per request (only a shadowed model's requests take it):
 //!
 //! ```text
 //! ogive_shadow_scored_total{model,version}          counter   version = the candidate's
@@ -38,6 +38,11 @@
 //! ogive_shadow_abs_difference{model,version}        histogram, 0.001 … 1
 //! ogive_shadow_disagreements_total{model,version}   counter
 //! ```
+//!
+//! The mean |Δp| and the disagreement rate are ratios of these (sum over count, disagreements
+//! over scored), so all four of one version are read together under that lock, as drift's and
+//! calibration's are ([`super::families`]): a scrape never pairs one request's disagreements
+//! with another moment's count.
 //!
 //! The admin report ([`Shadowing::report`]) reads the same series, minus their values when this
 //! process's directory follower began following the shadow ([`Shadowing::begin`]), so it covers
@@ -48,12 +53,15 @@
 use std::collections::HashMap;
 use std::str::FromStr;
 use std::sync::atomic::{AtomicU64, Ordering};
-use std::sync::{Mutex, PoisonError};
+use std::sync::{Arc, Mutex, PoisonError};
 use std::time::SystemTime;
 
-use prometheus::core::Metric as _;
-use prometheus::{HistogramOpts, HistogramVec, IntCounterVec, Opts, Registry};
+use prometheus::core::{Collector, Desc};
+use prometheus::proto::{MetricFamily, MetricType};
+use prometheus::Registry;
 use serde::Serialize;
+
+use super::families::{self, Family};
 
 use crate::engine::{Answer, Scorer};
 use crate::metrics::MetricsError;
@@ -132,7 +140,70 @@ struct Figures {
     disagreements: u64,
     difference_sum: f64,
     /// Cumulative counts at each of [`DIFFERENCE_BUCKETS`].
-    cumulative: Vec<u64>,
+    cumulative: [u64; DIFFERENCE_BUCKETS.len()],
+}
+
+/// The figures of every version that has shadowed, by model and then candidate version.
+type Counts = HashMap<String, HashMap<String, Figures>>;
+
+/// The series' names and help texts, in the order [`ShadowCollector`] writes them.
+const SERIES: [(&str, &str); 4] = [
+    (
+        "ogive_shadow_scored_total",
+        "Observations also scored by a shadow candidate, by model and candidate version.",
+    ),
+    (
+        "ogive_shadow_unscored_total",
+        "Sampled observations a shadow candidate could not score (a level or value it does not take), by model and candidate version.",
+    ),
+    (
+        "ogive_shadow_abs_difference",
+        "Absolute difference between a shadow candidate's probability and the live version's, by model and candidate version.",
+    ),
+    (
+        "ogive_shadow_disagreements_total",
+        "Observations on which a shadow candidate and the live version fall on different sides of their decision thresholds, by model and candidate version.",
+    ),
+];
+
+/// Writes the shadow series from the counts at each scrape, all of one reading.
+struct ShadowCollector {
+    counts: Arc<Mutex<Counts>>,
+    descs: Vec<Desc>,
+}
+
+impl Collector for ShadowCollector {
+    fn desc(&self) -> Vec<&Desc> {
+        self.descs.iter().collect()
+    }
+
+    fn collect(&self) -> Vec<MetricFamily> {
+        let [scored, unscored, difference, disagreements] = SERIES;
+        let mut scored = Family::new(scored.0, scored.1, MetricType::COUNTER);
+        let mut unscored = Family::new(unscored.0, unscored.1, MetricType::COUNTER);
+        let mut difference = Family::new(difference.0, difference.1, MetricType::HISTOGRAM);
+        let mut disagreements = Family::new(disagreements.0, disagreements.1, MetricType::COUNTER);
+        let counts = self.counts.lock().unwrap_or_else(PoisonError::into_inner);
+        for (model, versions) in counts.iter() {
+            for (version, f) in versions {
+                let labels = [("model", model.as_str()), ("version", version.as_str())];
+                scored.counter(&labels, f.scored as f64);
+                unscored.counter(&labels, f.unscored as f64);
+                difference.histogram(
+                    &labels,
+                    &DIFFERENCE_BUCKETS,
+                    &f.cumulative,
+                    f.scored,
+                    f.difference_sum,
+                );
+                disagreements.counter(&labels, f.disagreements as f64);
+            }
+        }
+        [scored, unscored, difference, disagreements]
+            .into_iter()
+            .map(Family::finish)
+            .collect()
+    }
 }
 
 /// A shadowing begun through the admin listener.
@@ -149,10 +220,7 @@ struct Run {
 pub struct Shadowing {
     share: Share,
     seen: AtomicU64,
-    scored: IntCounterVec,
-    unscored: IntCounterVec,
-    abs_difference: HistogramVec,
-    disagreements: IntCounterVec,
+    counts: Arc<Mutex<Counts>>,
     runs: Mutex<HashMap<String, Run>>,
 }
 
@@ -215,47 +283,19 @@ pub struct ShadowReport {
 impl Shadowing {
     /// Shadow scoring of `share` of the observations, its series registered in `registry`.
     pub fn new(share: Share, registry: &Registry) -> Result<Shadowing, MetricsError> {
-        let labels = &["model", "version"];
-        let scored = IntCounterVec::new(
-            Opts::new(
-                "ogive_shadow_scored_total",
-                "Observations also scored by a shadow candidate, by model and candidate version.",
-            ),
-            labels,
-        )?;
-        let unscored = IntCounterVec::new(
-            Opts::new(
-                "ogive_shadow_unscored_total",
-                "Sampled observations a shadow candidate could not score (a level or value it does not take), by model and candidate version.",
-            ),
-            labels,
-        )?;
-        let abs_difference = HistogramVec::new(
-            HistogramOpts::new(
-                "ogive_shadow_abs_difference",
-                "Absolute difference between a shadow candidate's probability and the live version's, by model and candidate version.",
-            )
-            .buckets(DIFFERENCE_BUCKETS.to_vec()),
-            labels,
-        )?;
-        let disagreements = IntCounterVec::new(
-            Opts::new(
-                "ogive_shadow_disagreements_total",
-                "Observations on which a shadow candidate and the live version fall on different sides of their decision thresholds, by model and candidate version.",
-            ),
-            labels,
-        )?;
-        registry.register(Box::new(scored.clone()))?;
-        registry.register(Box::new(unscored.clone()))?;
-        registry.register(Box::new(abs_difference.clone()))?;
-        registry.register(Box::new(disagreements.clone()))?;
+        let counts = Arc::new(Mutex::new(Counts::new()));
+        let descs = SERIES
+            .iter()
+            .map(|(name, help)| families::desc(name, help, &["model", "version"]))
+            .collect::<Result<_, _>>()?;
+        registry.register(Box::new(ShadowCollector {
+            counts: Arc::clone(&counts),
+            descs,
+        }))?;
         Ok(Shadowing {
             share,
             seen: AtomicU64::new(0),
-            scored,
-            unscored,
-            abs_difference,
-            disagreements,
+            counts,
             runs: Mutex::new(HashMap::new()),
         })
     }
@@ -321,55 +361,58 @@ impl Shadowing {
             return;
         }
         let first = self.seen.fetch_add(answers.len() as u64, Ordering::Relaxed);
-        let histogram = self
-            .abs_difference
-            .with_label_values(&[live.name(), candidate.version()]);
         let (live_threshold, candidate_threshold) = (threshold(live), threshold(candidate));
-        let (mut scored, mut unscored, mut disagreements) = (0u64, 0u64, 0u64);
+        let mut added = Figures::default();
+        // Observations per bucket (not yet cumulative): the first bound at or above |q − p|.
+        let mut per_bucket = [0u64; DIFFERENCE_BUCKETS.len()];
         for (i, answer) in answers.iter().enumerate() {
             if !self.share.samples(first + i as u64) {
                 continue;
             }
             let Some(q) = candidate_probability(i) else {
-                unscored += 1;
+                added.unscored += 1;
                 continue;
             };
             let p = answer.probability;
-            histogram.observe((q - p).abs());
-            scored += 1;
+            let difference = (q - p).abs();
+            added.difference_sum += difference;
+            if let Some(bucket) =
+                per_bucket.get_mut(DIFFERENCE_BUCKETS.partition_point(|&b| b < difference))
+            {
+                *bucket += 1;
+            }
+            added.scored += 1;
             if (p >= live_threshold) != (q >= candidate_threshold) {
-                disagreements += 1;
+                added.disagreements += 1;
             }
         }
-        let labels = [live.name(), candidate.version()];
-        if scored > 0 {
-            self.scored.with_label_values(&labels).inc_by(scored);
-        }
-        if unscored > 0 {
-            self.unscored.with_label_values(&labels).inc_by(unscored);
-        }
-        if disagreements > 0 {
-            self.disagreements
-                .with_label_values(&labels)
-                .inc_by(disagreements);
+        let mut counts = self.counts.lock().unwrap_or_else(PoisonError::into_inner);
+        let versions = match counts.get_mut(live.name()) {
+            Some(versions) => versions,
+            None => counts.entry(live.name().to_string()).or_default(),
+        };
+        let figures = match versions.get_mut(candidate.version()) {
+            Some(figures) => figures,
+            None => versions.entry(candidate.version().to_string()).or_default(),
+        };
+        figures.scored += added.scored;
+        figures.unscored += added.unscored;
+        figures.disagreements += added.disagreements;
+        figures.difference_sum += added.difference_sum;
+        let mut running = 0;
+        for (cumulative, in_bucket) in figures.cumulative.iter_mut().zip(per_bucket) {
+            running += in_bucket;
+            *cumulative += running;
         }
     }
 
     fn figures(&self, model: &str, candidate: &str) -> Figures {
-        let labels = [model, candidate];
-        let histogram = self.abs_difference.with_label_values(&labels).metric();
-        let histogram = histogram.get_histogram();
-        Figures {
-            scored: self.scored.with_label_values(&labels).get(),
-            unscored: self.unscored.with_label_values(&labels).get(),
-            disagreements: self.disagreements.with_label_values(&labels).get(),
-            difference_sum: histogram.get_sample_sum(),
-            cumulative: histogram
-                .get_bucket()
-                .iter()
-                .map(|b| b.cumulative_count())
-                .collect(),
-        }
+        let counts = self.counts.lock().unwrap_or_else(PoisonError::into_inner);
+        counts
+            .get(model)
+            .and_then(|versions| versions.get(candidate))
+            .cloned()
+            .unwrap_or_default()
     }
 
     /// Note that `candidate` now shadows version `live` of `model` (the directory follower
