@@ -156,7 +156,7 @@ pub enum KeyFileError {
     /// The file could not be read.
     #[error("reading the receipt key file {path}: {source}")]
     Read {
-        /// The file.
+        /// The file's path, as given on the command line or in its environment variable.
         path: PathBuf,
         /// The cause.
         source: std::io::Error,
@@ -165,7 +165,7 @@ pub enum KeyFileError {
     /// file root does not own.
     #[error("the receipt key file {path} has mode {mode:03o} and owner uid {owner}, so {who} may {what} it; allow only its owner (chmod 600), or, for a root-owned file, its group to read (chmod 440)")]
     Exposed {
-        /// The file.
+        /// The file's path, as given on the command line or in its environment variable.
         path: PathBuf,
         /// Its permission bits.
         mode: u32,
@@ -179,7 +179,7 @@ pub enum KeyFileError {
     /// A key is shorter than [`MIN_KEY_BYTES`].
     #[error("line {line} of the receipt key file {path} holds a {bytes}-byte key; a key has at least {MIN_KEY_BYTES} bytes (for example `head -c 32 /dev/urandom | base64`)")]
     ShortKey {
-        /// The file.
+        /// The file's path, as given on the command line or in its environment variable.
         path: PathBuf,
         /// The line, from 1.
         line: usize,
@@ -189,7 +189,7 @@ pub enum KeyFileError {
     /// No key in the file.
     #[error("the receipt key file {path} holds no key; put one key a line, the signing key first")]
     Empty {
-        /// The file.
+        /// The file's path, as given on the command line or in its environment variable.
         path: PathBuf,
     },
     /// The operating system's random source failed.

@@ -8,39 +8,31 @@ use std::process::Command;
 use ogive::model::{Model, ModelError};
 use serde_json::{json, Value};
 
-/// A small valid model: a continuous covariate with a log and a square term, a binary one and
-/// a categorical one, with a covariance and one check case computed below.
+/// A small valid model: the validation rules' own fixture (`src/model/validate/fixture.json`:
+/// a continuous covariate with a log and a square term, a binary one and a categorical one)
+/// with a second continuous covariate, `age`, in linear, square and product terms, and a
+/// covariance; a check case is computed below.
 fn base() -> Value {
-    json!({
-        "format": "ogive-model",
-        "format_version": 1,
-        "name": "validation-base",
-        "version": "1",
-        "description": "validator input",
-        "outcome": {"name": "y", "meaning": "the event happened"},
-        "link": "logit",
-        "covariates": [
-            {"name": "income", "kind": "continuous", "unit": "thousand EUR",
-             "training": {"min": 5.0, "max": 500.0, "mean": 60.0, "std_dev": 30.0,
-                          "histogram": {"edges": [5.0, 50.0, 500.0], "counts": [10, 20]}}},
-            {"name": "age", "kind": "continuous",
-             "training": {"min": 18.0, "max": 90.0, "mean": 45.0, "std_dev": 12.0}},
-            {"name": "guarantor", "kind": "binary", "training": {"min": 0.0, "max": 1.0, "mean": 0.3}},
-            {"name": "region", "kind": "categorical", "levels": ["north", "south", "east"],
-             "reference": "north", "training": {"level_counts": {"north": 5, "south": 3, "east": 2}}}
-        ],
-        "terms": [
-            {"term": "intercept", "coefficient": -1.0},
-            {"term": "log(income)", "coefficient": -0.3},
-            {"term": "age", "coefficient": 0.02},
-            {"term": "age^2", "coefficient": -0.0001},
-            {"term": "guarantor", "coefficient": -0.5},
-            {"term": "region=south", "coefficient": 0.2},
-            {"term": "age*guarantor", "coefficient": 0.004}
-        ],
-        "covariance": diagonal(7, 0.01),
-        "provenance": {"fitted_by": "hand", "fitted_at": "2026-12-01T00:00:00Z", "observations": 10}
-    })
+    let mut v: Value = serde_json::from_str(include_str!("../src/model/validate/fixture.json"))
+        .expect("fixture.json is JSON");
+    v["name"] = json!("validation-base");
+    let age = json!({"name": "age", "kind": "continuous",
+        "training": {"min": 18.0, "max": 90.0, "mean": 45.0, "std_dev": 12.0}});
+    v["covariates"]
+        .as_array_mut()
+        .expect("covariates")
+        .insert(1, age);
+    v["terms"] = json!([
+        {"term": "intercept", "coefficient": -1.0},
+        {"term": "log(income)", "coefficient": -0.3},
+        {"term": "age", "coefficient": 0.02},
+        {"term": "age^2", "coefficient": -0.0001},
+        {"term": "guarantor", "coefficient": -0.5},
+        {"term": "region=south", "coefficient": 0.2},
+        {"term": "age*guarantor", "coefficient": 0.004}
+    ]);
+    v["covariance"] = diagonal(7, 0.01);
+    v
 }
 
 fn diagonal(k: usize, d: f64) -> Value {

@@ -154,7 +154,7 @@ pub enum BatchError {
         "the CSV header has no column '{covariate}', which the model needs (columns: {columns})"
     )]
     MissingColumn {
-        /// The covariate.
+        /// The covariate's name: the CSV column the model reads it from.
         covariate: String,
         /// The header's columns, comma-separated.
         columns: String,
@@ -162,7 +162,7 @@ pub enum BatchError {
     /// Two columns carry the same covariate's name.
     #[error("the CSV header names covariate '{covariate}' twice (columns {first} and {second})")]
     DuplicateColumn {
-        /// The covariate.
+        /// The covariate's name: the CSV column the model reads it from.
         covariate: String,
         /// The first column, 1-based.
         first: usize,
@@ -177,9 +177,9 @@ pub enum BatchError {
     /// Decision columns were asked of a model that has no threshold and no bands.
     #[error("model {model} {version} has no decision threshold or bands, so there are no decision columns to add; drop --decision or score with a model that has a decision")]
     NoDecision {
-        /// The model's name.
+        /// The name of the model the file was scored with.
         model: String,
-        /// Its version.
+        /// The version label of the model the file was scored with.
         version: String,
     },
     /// The interval level is out of range.
@@ -217,13 +217,13 @@ pub enum RowProblem {
     /// A covariate's cell is empty.
     #[error("covariate '{covariate}' is empty")]
     Empty {
-        /// The covariate.
+        /// The covariate's name: the CSV column the model reads it from.
         covariate: String,
     },
     /// A covariate's cell is not UTF-8 text.
     #[error("covariate '{covariate}' is not valid UTF-8 text")]
     NotUtf8 {
-        /// The covariate.
+        /// The covariate's name: the CSV column the model reads it from.
         covariate: String,
     },
     /// The row has a different number of fields than the header.

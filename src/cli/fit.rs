@@ -106,7 +106,8 @@ pub struct FitArgs {
     /// The model's name (lower-case letters, digits and '-'). Required unless --like gives it.
     #[arg(long, env = "OGIVE_NAME")]
     pub name: Option<String>,
-    /// The version label.
+    /// The version label to write into the model file (letters, digits, '.', '_' and '-',
+    /// starting with a letter or digit, at most 64).
     #[arg(long, env = "OGIVE_VERSION")]
     pub version: String,
     /// What the model is for, in a sentence or two.

@@ -16,7 +16,7 @@ use crate::registry::store::{Action, HistoryRecord};
 /// Where the model directory is: shared by the lifecycle commands.
 #[derive(Debug, clap::Args)]
 pub struct Directory {
-    /// The model directory.
+    /// The model directory: one folder per model, as `ogive serve --models` reads it.
     #[arg(
         long,
         env = "OGIVE_MODELS",
@@ -87,7 +87,7 @@ fn account_of(passwd: &str, uid: u32) -> Option<String> {
 pub struct PromoteArgs {
     #[command(flatten)]
     pub(crate) directory: Directory,
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
     /// The stored version to make live.
     pub version: String,
@@ -110,7 +110,7 @@ pub struct PromoteArgs {
 pub struct RollbackArgs {
     #[command(flatten)]
     pub(crate) directory: Directory,
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
     #[command(flatten)]
     pub(crate) actor: Actor,
@@ -133,7 +133,7 @@ const REPAIR_LOCK_WAIT: std::time::Duration = std::time::Duration::from_secs(5);
 pub struct HistoryArgs {
     #[command(flatten)]
     pub(crate) directory: Directory,
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
     /// Output format.
     #[arg(long, env = "OGIVE_FORMAT", value_enum, default_value_t = HistoryFormat::Text)]

@@ -21,12 +21,12 @@ pub(crate) mod shadow;
 #[derive(Debug, Parser)]
 #[command(name = "ogive", version, about, long_about = None)]
 pub struct Cli {
-    /// The subcommand.
+    /// What to do: the first word after `ogive`, with its own flags.
     #[command(subcommand)]
     pub command: Command,
 }
 
-/// The subcommands.
+/// Every subcommand of `ogive`, one file of `src/cli/` each.
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Serve the models in a model directory over HTTP.

@@ -24,7 +24,7 @@ use crate::registry::shadow::threshold;
 pub struct ShadowArgs {
     #[command(flatten)]
     directory: Directory,
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
     /// Score this stored version beside the live one (replacing any other shadow).
     #[arg(long, value_name = "VERSION")]

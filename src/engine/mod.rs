@@ -27,12 +27,13 @@ pub use average::{Average, Averager};
 use crate::link::{normal_quantile, LinkValues};
 use crate::model::{CovariateKind, Factor, Model, Term, Value};
 
-/// A two-sided interval.
+/// A two-sided interval at [`Options::level`], built on the index scale and mapped through
+/// the link (for a probability) or from the delta-method standard error (for an effect).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Interval {
-    /// The lower bound.
+    /// The lower end: never above `upper`, and for a probability never below 0.
     pub lower: f64,
-    /// The upper bound.
+    /// The upper end: for a probability never above 1.
     pub upper: f64,
 }
 
@@ -61,7 +62,7 @@ impl EffectKind {
 /// Which effect a slot holds: a covariate, and for a categorical one a non-reference level.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct EffectSlot {
-    /// The covariate's index.
+    /// The covariate's position in [`Model::covariates`], in the model file's order.
     pub covariate: usize,
     /// The level compared with the reference, for a categorical covariate.
     pub level: Option<usize>,
@@ -119,9 +120,9 @@ pub struct Effect {
 pub enum Warning {
     /// A covariate's value lies outside its training range.
     OutOfRange {
-        /// The covariate's index.
+        /// The covariate's position in [`Model::covariates`], in the model file's order.
         covariate: usize,
-        /// The value.
+        /// The value the observation gave, outside [min, max].
         value: f64,
         /// Training minimum.
         min: f64,
@@ -141,7 +142,7 @@ pub enum Warning {
 /// How far one covariate moves the linear index from the training-mean profile.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Contribution {
-    /// The covariate's index.
+    /// The covariate's position in [`Model::covariates`], in the model file's order.
     pub covariate: usize,
     /// z(x) − z(x with this covariate alone at the training-mean profile: its training mean,
     /// or for a categorical covariate its training shares).
@@ -151,7 +152,7 @@ pub struct Contribution {
 /// What to compute. Build with [`Options::new`], which checks the level once.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Options {
-    /// Compute marginal effects.
+    /// Compute a marginal effect per covariate (and per level), in [`effect_slots`] order.
     pub effects: bool,
     /// Compute elasticities of continuous covariates (needs `effects`).
     pub elasticities: bool,
@@ -194,7 +195,7 @@ impl Options {
         }
     }
 
-    /// The interval level.
+    /// The confidence level of every interval, strictly between 0 and 1 (0.95 by default).
     pub fn level(&self) -> f64 {
         self.level
     }
@@ -234,7 +235,8 @@ pub struct Answer {
     pub interval: Option<Interval>,
     /// Effects, in [`effect_slots`] order (empty unless asked for).
     pub effects: Vec<Effect>,
-    /// Extrapolation warnings.
+    /// Why the answer extrapolates: each covariate outside its training range, and a
+    /// combination of values far from the training data; empty when it does not.
     pub warnings: Vec<Warning>,
     /// Contributions, largest magnitude first (empty unless asked for).
     pub contributions: Vec<Contribution>,

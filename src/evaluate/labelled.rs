@@ -49,7 +49,7 @@ pub enum LabelledError {
         "the CSV header names the outcome column '{column}' twice (columns {first} and {second})"
     )]
     DuplicateOutcome {
-        /// The column.
+        /// The column's name as the header row spells it.
         column: String,
         /// The first, 1-based.
         first: usize,
@@ -73,7 +73,7 @@ pub enum LabelledRowError {
         row: u64,
         /// The 1-based line (the header is line 1).
         line: u64,
-        /// The outcome column.
+        /// The outcome column's name as the header row spells it (its cells are 0/1 or false/true).
         column: String,
         /// The cell as read (cut to 40 characters).
         text: String,

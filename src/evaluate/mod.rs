@@ -89,9 +89,9 @@ pub enum EvaluateError {
 /// A two-sided interval.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Bounds {
-    /// Lower end.
+    /// The lower end, on the scale of the figure it bounds (not clipped to that figure's range).
     pub lower: f64,
-    /// Upper end.
+    /// The upper end, at least `lower`.
     pub upper: f64,
 }
 
@@ -145,13 +145,13 @@ pub fn two_sided_p(z: f64) -> f64 {
 /// Every figure for one model on the labelled rows.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ModelEvaluation {
-    /// Rows evaluated.
+    /// Labelled rows every figure is computed over (skipped rows are not among them).
     pub rows: u64,
     /// Rows with outcome 1.
     pub events: u64,
-    /// Mean predicted probability.
+    /// The mean of the model's predicted probabilities over those rows, Σp / N.
     pub mean_probability: f64,
-    /// Observed event rate.
+    /// The share of those rows whose outcome is 1, events / N.
     pub event_rate: f64,
     /// Mean of (p − y)².
     pub brier: f64,

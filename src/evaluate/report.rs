@@ -60,7 +60,7 @@ pub struct DataSection {
     pub sha256: String,
     /// The file's length in bytes.
     pub bytes: u64,
-    /// The outcome column.
+    /// The outcome column's name as the header row spells it (its cells are 0/1 or false/true).
     pub outcome: String,
     /// Data rows read.
     pub rows_read: u64,

@@ -15,7 +15,7 @@ pub enum FitError {
     /// The data file could not be opened or read.
     #[error("cannot read '{path}': {source}")]
     Read {
-        /// The file.
+        /// The file's path, as given on the command line or in its environment variable.
         path: PathBuf,
         /// The operating system's reason.
         source: std::io::Error,
@@ -23,7 +23,7 @@ pub enum FitError {
     /// The model file could not be written.
     #[error("cannot write '{path}': {source}")]
     Write {
-        /// The file.
+        /// The file's path, as given on the command line or in its environment variable.
         path: PathBuf,
         /// The operating system's reason.
         source: std::io::Error,
@@ -31,7 +31,7 @@ pub enum FitError {
     /// The CSV is malformed (the csv parser's own message, with the row).
     #[error("malformed CSV at row {row}: {message}")]
     Csv {
-        /// The data row.
+        /// The data row, counted from 1 below the header row.
         row: u64,
         /// What the parser said.
         message: String,
@@ -56,7 +56,7 @@ pub enum FitError {
     /// A row with fewer fields than the header.
     #[error("row {row} has {found} fields but the header has {expected}")]
     ShortRow {
-        /// The data row.
+        /// The data row, counted from 1 below the header row.
         row: u64,
         /// Fields found.
         found: usize,
@@ -69,17 +69,17 @@ pub enum FitError {
     /// An empty or `NA` cell, without `--drop-missing`.
     #[error("row {row}, column '{column}': missing value (use --drop-missing to drop such rows)")]
     Missing {
-        /// The data row.
+        /// The data row, counted from 1 below the header row.
         row: u64,
-        /// The column.
+        /// The column's name as the header row spells it.
         column: String,
     },
     /// A weight that is not a finite number ≥ 0.
     #[error("row {row}, column '{column}': the weight {text:?} {problem} (weights are finite numbers ≥ 0)")]
     BadWeight {
-        /// The data row.
+        /// The data row, counted from 1 below the header row.
         row: u64,
-        /// The weight column.
+        /// The weight column's name (`--weights` or `--sampling-weights`).
         column: String,
         /// The cell as written.
         text: String,
@@ -89,7 +89,7 @@ pub enum FitError {
     /// Every weight is zero, so no observation counts.
     #[error("every weight in column '{column}' is zero ({rows} rows): no observation counts")]
     WeightsAllZero {
-        /// The weight column.
+        /// The weight column's name (`--weights` or `--sampling-weights`).
         column: String,
         /// Rows read.
         rows: u64,
@@ -97,9 +97,9 @@ pub enum FitError {
     /// A numeric column with a cell that is not a number.
     #[error("row {row}, column '{column}': {text:?} is not a number (if the column holds levels, name it with --categorical {column})")]
     NotANumber {
-        /// The data row.
+        /// The data row, counted from 1 below the header row.
         row: u64,
-        /// The column.
+        /// The column's name as the header row spells it.
         column: String,
         /// The cell's text.
         text: String,
@@ -107,9 +107,9 @@ pub enum FitError {
     /// A number that is infinite.
     #[error("row {row}, column '{column}': {text:?} is not a finite number")]
     NotFinite {
-        /// The data row.
+        /// The data row, counted from 1 below the header row.
         row: u64,
-        /// The column.
+        /// The column's name as the header row spells it.
         column: String,
         /// The cell's text.
         text: String,
@@ -117,25 +117,25 @@ pub enum FitError {
     /// A cell of a categorical column that is not UTF-8 text.
     #[error("row {row}, column '{column}': the level is not UTF-8 text")]
     LevelNotText {
-        /// The data row.
+        /// The data row, counted from 1 below the header row.
         row: u64,
-        /// The column.
+        /// The column's name as the header row spells it.
         column: String,
     },
     /// A categorical level that cannot be written inside a term such as `sector=level`.
     #[error("column '{column}': level {level:?} cannot be named in a term (levels may not contain '*' or ',' or start or end with a space)")]
     LevelNotNameable {
-        /// The column.
+        /// The column's name as the header row spells it.
         column: String,
-        /// The level.
+        /// The level as the data spell it.
         level: String,
     },
     /// An outcome cell that is not 0/1 (or false/true).
     #[error("row {row}: outcome '{column}' must be 0 or 1 (or false/true), got {text:?}")]
     OutcomeNotBinary {
-        /// The data row.
+        /// The data row, counted from 1 below the header row.
         row: u64,
-        /// The outcome column.
+        /// The outcome column's name as the header row spells it (its cells are 0/1 or false/true).
         column: String,
         /// The cell's text.
         text: String,
@@ -143,7 +143,7 @@ pub enum FitError {
     /// Every observation has the same outcome.
     #[error("outcome '{column}' is {value} in all {rows} observations: a binary model needs both outcomes")]
     OutcomeConstant {
-        /// The outcome column.
+        /// The outcome column's name as the header row spells it (its cells are 0/1 or false/true).
         column: String,
         /// The only value seen.
         value: u8,
@@ -179,7 +179,7 @@ pub enum FitError {
         "covariate '{covariate}' has no observations at level '{level}' (levels seen: {levels})"
     )]
     LevelNotObserved {
-        /// The covariate.
+        /// The covariate's name: its column in the data.
         covariate: String,
         /// The level asked for.
         level: String,
@@ -189,7 +189,7 @@ pub enum FitError {
     /// A categorical covariate with a single level in the data.
     #[error("categorical covariate '{covariate}' takes the single level '{level}' in every observation: it cannot be estimated")]
     SingleLevel {
-        /// The covariate.
+        /// The covariate's name: its column in the data.
         covariate: String,
         /// Its only level.
         level: String,
@@ -197,13 +197,13 @@ pub enum FitError {
     /// A log term over a value that is zero or negative.
     #[error("row {row}: term '{term}' needs {column} > 0, got {value}")]
     LogOfNonPositive {
-        /// The data row.
+        /// The data row, counted from 1 below the header row.
         row: u64,
         /// The log term.
         term: String,
-        /// The covariate.
+        /// The covariate's name: its column in the data.
         column: String,
-        /// The value.
+        /// The value the data gave, as parsed.
         value: f64,
     },
     /// A term that is a linear combination of earlier terms.

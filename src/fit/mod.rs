@@ -82,7 +82,7 @@ pub trait Progress: Sync {
     fn iteration(&self, _iteration: u32, _log_likelihood: f64) {}
 }
 
-/// Reports nothing.
+/// A [`Progress`] that reports nothing: for a library caller that needs no progress lines.
 #[derive(Debug, Clone, Copy, Default)]
 pub struct Silent;
 
@@ -93,7 +93,8 @@ impl Progress for Silent {}
 pub struct Fitted {
     /// The model file, already validated by [`crate::model::Model::from_file`].
     pub file: ModelFile,
-    /// The summary.
+    /// What `ogive fit` prints after fitting: the coefficients and standard errors, the
+    /// likelihoods, the Newton iterations and the remarks.
     pub report: FitReport,
 }
 

@@ -38,7 +38,7 @@ impl CovarianceType {
 /// A categorical covariate named with `--categorical COL[=REF]`.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct CategoricalSpec {
-    /// The column.
+    /// The column's name as the header row spells it.
     pub column: String,
     /// The reference level; by default the first level in sorted (byte) order.
     pub reference: Option<String>,
@@ -66,7 +66,7 @@ impl std::str::FromStr for CategoricalSpec {
 pub struct FitRequest {
     /// The CSV file, with a header line.
     pub data: PathBuf,
-    /// The outcome column.
+    /// The outcome column's name as the header row spells it (its cells are 0/1 or false/true).
     pub outcome: String,
     /// What outcome = 1 means, for the model file.
     pub outcome_meaning: Option<String>,
@@ -80,7 +80,7 @@ pub struct FitRequest {
     pub continuous: Vec<String>,
     /// Units of covariates, `(column, unit)`.
     pub units: Vec<(String, String)>,
-    /// The link.
+    /// The link the model is fitted with (`--link`; by default logit, or the `--like` file's).
     pub link: Link,
     /// The covariance estimator.
     pub covariance: CovarianceType,

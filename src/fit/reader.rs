@@ -40,7 +40,7 @@ const BLOCK_BYTES: usize = 1 << 20;
 /// One column the fit needs.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ColumnRequest {
-    /// The header name.
+    /// The column's name as the CSV header row spells it.
     pub name: String,
     /// Named with `--categorical`: read as text levels whatever it looks like.
     pub categorical: bool,
@@ -53,7 +53,7 @@ pub struct ColumnRequest {
 pub struct ReadRequest {
     /// The CSV file.
     pub path: PathBuf,
-    /// The outcome column.
+    /// The name of the 0/1 outcome column in the header row.
     pub outcome: String,
     /// The covariate columns.
     pub columns: Vec<ColumnRequest>,

@@ -44,7 +44,7 @@ pub enum Counting {
 /// Everything the summary shows.
 #[derive(Debug, Clone, PartialEq)]
 pub struct FitReport {
-    /// The link.
+    /// The link the model is fitted with (`--link`; by default logit, or the `--like` file's).
     pub link: Link,
     /// `classical` or `robust`.
     pub covariance_type: String,

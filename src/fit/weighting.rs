@@ -35,7 +35,7 @@ pub enum WeightKind {
 /// A weight column and its kind.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct WeightColumn {
-    /// The column.
+    /// The column's name as the header row spells it.
     pub column: String,
     /// Frequency or sampling weights.
     pub kind: WeightKind,

@@ -295,11 +295,12 @@ type VersionHandles = (Weak<Model>, Arc<ScoringMetrics>);
 /// Counters and histograms for one model version, resolved once per version.
 #[derive(Debug, Clone)]
 pub struct ScoringMetrics {
-    /// Observations scored.
+    /// `ogive_observations_scored_total` of this version: one per observation answered.
     pub scored: IntCounter,
-    /// Predicted probabilities.
+    /// `ogive_predicted_probability` of this version: every probability answered.
     pub probability: Histogram,
-    /// Unusual-combination warnings.
+    /// `ogive_unusual_combination_total` of this version: observations whose continuous
+    /// covariates together lie beyond every training observation.
     pub unusual: IntCounter,
     /// Out-of-range warnings, by covariate index.
     pub out_of_range: Vec<IntCounter>,

@@ -47,7 +47,7 @@ pub enum ModelProblem {
     /// A term that names no covariate of the model.
     #[error("term '{term}' uses '{covariate}', which is not a covariate of this model")]
     UnknownCovariate {
-        /// The term.
+        /// The term's label as the model file writes it, such as `log(income)`.
         term: String,
         /// The unknown name.
         covariate: String,
@@ -55,7 +55,7 @@ pub enum ModelProblem {
     /// A categorical covariate used as a number, or a numeric one with a level.
     #[error("term '{term}': {problem}")]
     TermKind {
-        /// The term.
+        /// The term's label as the model file writes it, such as `log(income)`.
         term: String,
         /// What is wrong.
         problem: String,
@@ -63,9 +63,9 @@ pub enum ModelProblem {
     /// A level that is not among the covariate's levels.
     #[error("'{level}' is not a level of '{covariate}' (levels: {levels})")]
     UnknownLevel {
-        /// The covariate.
+        /// The covariate's name, as the model file gives it.
         covariate: String,
-        /// The level.
+        /// The level the term names, which the covariate does not have.
         level: String,
         /// Its levels.
         levels: String,
@@ -76,9 +76,9 @@ pub enum ModelProblem {
     /// A log term whose covariate's training range is not strictly positive.
     #[error("term '{term}' takes the log of '{covariate}', whose training minimum is {min} (must be > 0)")]
     LogDomain {
-        /// The term.
+        /// The term's label as the model file writes it, such as `log(income)`.
         term: String,
-        /// The covariate.
+        /// The covariate's name, as the model file gives it.
         covariate: String,
         /// Its training minimum.
         min: f64,

@@ -201,7 +201,8 @@ pub struct JointSpec {
 pub struct CheckCase {
     /// The covariate values, as a caller would send them.
     pub observation: serde_json::Map<String, serde_json::Value>,
-    /// The fitted probability.
+    /// The probability the fitting software computed for `observation`, which a load must
+    /// reproduce to relative 1e-9.
     pub probability: f64,
 }
 

@@ -157,7 +157,7 @@ impl Model {
         &self.file
     }
 
-    /// The link function.
+    /// The link F that maps the linear index to the probability, p = F(βᵀt).
     pub fn link(&self) -> Link {
         self.link
     }
@@ -299,7 +299,8 @@ impl Model {
         Ok(model)
     }
 
-    /// The model's name.
+    /// The model's name from its file: its folder in a model directory and the `NAME` of its
+    /// routes.
     pub fn name(&self) -> &str {
         &self.file.name
     }

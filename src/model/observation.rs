@@ -20,7 +20,7 @@ pub enum ObservationError {
     /// A numeric covariate given something other than a number.
     #[error("covariate '{covariate}' must be a number, got {found}")]
     NotANumber {
-        /// The covariate.
+        /// The covariate's name, as the observation gives it (a JSON key or a CSV column).
         covariate: String,
         /// A short description of what was sent.
         found: String,
@@ -28,7 +28,7 @@ pub enum ObservationError {
     /// A number that is NaN or infinite (possible from CSV input or overflowing literals).
     #[error("covariate '{covariate}' must be finite, got {value}")]
     NonFinite {
-        /// The covariate.
+        /// The covariate's name, as the observation gives it (a JSON key or a CSV column).
         covariate: String,
         /// The value sent.
         value: f64,
@@ -36,7 +36,7 @@ pub enum ObservationError {
     /// A binary covariate given something other than 0, 1, true or false.
     #[error("covariate '{covariate}' is binary: send 0 or 1 (or false/true), got {found}")]
     NotBinary {
-        /// The covariate.
+        /// The covariate's name, as the observation gives it (a JSON key or a CSV column).
         covariate: String,
         /// What was sent.
         found: String,
@@ -44,7 +44,7 @@ pub enum ObservationError {
     /// A count covariate given a negative or fractional number.
     #[error("covariate '{covariate}' is a count: send a whole number ≥ 0, got {value}")]
     NotCount {
-        /// The covariate.
+        /// The covariate's name, as the observation gives it (a JSON key or a CSV column).
         covariate: String,
         /// The value sent.
         value: f64,
@@ -52,7 +52,7 @@ pub enum ObservationError {
     /// A categorical covariate given something other than a text level.
     #[error("covariate '{covariate}' is categorical: send one of its levels as text, got {found}")]
     NotALevel {
-        /// The covariate.
+        /// The covariate's name, as the observation gives it (a JSON key or a CSV column).
         covariate: String,
         /// What was sent.
         found: String,
@@ -60,7 +60,7 @@ pub enum ObservationError {
     /// A level the model never saw in training: it cannot be scored.
     #[error("covariate '{covariate}' has no level '{level}' (levels: {levels})")]
     UnknownLevel {
-        /// The covariate.
+        /// The covariate's name, as the observation gives it (a JSON key or a CSV column).
         covariate: String,
         /// The level sent.
         level: String,
@@ -72,7 +72,7 @@ pub enum ObservationError {
     LogOfNonPositive {
         /// The log term's label.
         term: String,
-        /// The covariate.
+        /// The covariate's name, as the observation gives it (a JSON key or a CSV column).
         covariate: String,
         /// The value sent.
         value: f64,

@@ -131,7 +131,7 @@ pub fn reliability_bin_label(j: usize) -> String {
 /// across processes exactly (see the module notes).
 #[derive(Debug, Clone, PartialEq)]
 pub struct OutcomeTotals {
-    /// Outcomes, n.
+    /// Outcomes received for the version, n: every term below sums over these.
     pub outcomes: u64,
     /// Outcomes that were 1, Σyᵢ.
     pub positives: u64,
@@ -165,7 +165,7 @@ impl Default for OutcomeTotals {
 }
 
 impl OutcomeTotals {
-    /// Add one outcome.
+    /// Add outcome `y` of an answer that predicted `p` to every total.
     pub fn add(&mut self, p: f64, y: bool) {
         let outcome = usize::from(y);
         let bin = outcome_bin(p);
@@ -342,9 +342,9 @@ pub struct Figures {
     pub count: usize,
     /// How many of them were 1.
     pub positives: usize,
-    /// Mean outcome.
+    /// The share of the window's outcomes that were 1, Σyᵢ / n.
     pub mean_observed: f64,
-    /// Mean prediction.
+    /// The mean of the predictions those outcomes answer, Σpᵢ / n.
     pub mean_predicted: f64,
     /// Mean observed minus mean predicted.
     pub calibration_in_the_large: f64,
@@ -446,11 +446,11 @@ struct VersionCalibration {
 /// Calibration of one model version, for the report.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct VersionCalibrationReport {
-    /// The version label.
+    /// The version's label, as the model directory stores it.
     pub version: String,
     /// Outcomes reported for this version since the process started.
     pub outcomes_total: u64,
-    /// The window's size.
+    /// The most outcomes the window holds (`--calibration-window`); older ones leave it.
     pub window_capacity: usize,
     /// The figures over the window (absent before the first outcome).
     pub figures: Option<Figures>,

@@ -199,7 +199,7 @@ pub enum BinRange {
     },
     /// A categorical level, or `0` / `1` of a binary covariate.
     Level {
-        /// The level.
+        /// The level's name (for a binary covariate `0` or `1`).
         level: String,
     },
 }
@@ -245,7 +245,8 @@ impl Channel {
 pub struct Untracked {
     /// The covariate, or `probability` for prediction drift.
     pub covariate: String,
-    /// Why.
+    /// Why its drift is not tracked, in a sentence (for one, no training histogram or level
+    /// counts in the model file).
     pub reason: String,
 }
 
@@ -518,11 +519,11 @@ pub struct BinShares {
 /// Drift of one model version: every tracked covariate and the predicted probability.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct VersionDriftReport {
-    /// The version label.
+    /// The version's label, as the model directory stores it.
     pub version: String,
     /// Observations in the window now.
     pub window_observations: usize,
-    /// The window's size.
+    /// The most observations the window holds (`--drift-window`); older ones leave it.
     pub window_capacity: usize,
     /// The fewest observations whose PSI is read against the bands
     /// ([`MIN_DRIFT_OBSERVATIONS`]); below it every band reads `insufficient`.

@@ -73,7 +73,8 @@ pub struct Monitor {
     pub keys: Arc<ReceiptKeys>,
     /// Receipts recently reported to this process.
     pub seen: Arc<SeenReceipts>,
-    /// Calibration windows.
+    /// Calibration per version: the window of recent outcomes and the additive totals that
+    /// outcome reports feed.
     pub calibration: Arc<CalibrationMonitor>,
     max_age: std::time::Duration,
 }
@@ -94,7 +95,7 @@ pub struct ReceiptSummary {
 /// One version's monitoring, as the report shows it.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct VersionReport {
-    /// The version label.
+    /// The version's label, as the model directory stores it.
     pub version: String,
     /// Whether this is the live version now.
     pub live: bool,
@@ -107,7 +108,7 @@ pub struct VersionReport {
 /// Everything monitoring knows about one model.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct MonitorReport {
-    /// The model.
+    /// The model's name, as its requests and the model directory give it.
     pub model: String,
     /// Its versions seen by monitoring (and the live one), in label order.
     pub versions: Vec<VersionReport>,

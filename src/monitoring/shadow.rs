@@ -239,20 +239,21 @@ pub struct Bin {
 /// The decision thresholds the disagreement rate is counted with.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Thresholds {
-    /// The live version's.
+    /// The live version's decision threshold: its file's, or [`DEFAULT_THRESHOLD`] when it
+    /// sets none.
     pub live: f64,
-    /// The candidate's.
+    /// The shadow version's decision threshold, chosen the same way.
     pub shadow: f64,
 }
 
 /// What shadow scoring has measured for one model's current shadow.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ShadowReport {
-    /// The model.
+    /// The model's name, as its requests and the model directory give it.
     pub model: String,
     /// The live version now.
     pub live_version: String,
-    /// The candidate.
+    /// The version `NAME/shadow` names: the candidate scored beside the live version.
     pub shadow_version: String,
     /// The share of observations sampled.
     pub share: f64,

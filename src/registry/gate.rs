@@ -89,7 +89,7 @@ pub enum GateError {
     /// A different file is already stored under this version label.
     #[error("version '{version}' of '{name}' is already stored with different content; versions are immutable, so upload this file under a new version label")]
     VersionExists {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The label.
         version: String,
@@ -97,7 +97,7 @@ pub enum GateError {
     /// The candidate's contract with callers differs from the live version's.
     #[error("version '{candidate}' of '{name}' changes the contract with callers of live version '{live}', so it is refused unless breaking changes are allowed; if it went live, callers would have to:{}\nto keep the contract instead, refit the candidate:{}\n{OVERRIDE}", bullet_list(.changes), keep_list(.changes))]
     Breaking {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The live version's label.
         live: String,
@@ -126,30 +126,30 @@ fn keep_list(changes: &[ContractChange]) -> String {
 pub enum ContractChange {
     /// The candidate has a covariate the live version lacks.
     Added {
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
-        /// Its kind.
+        /// Its kind in the candidate: continuous, count, binary or categorical.
         kind: CovariateKind,
     },
     /// The candidate has a covariate the live version lacks, and announces it (the model
     /// file's `announces`): the live version has accepted the field since the candidate was
     /// stored, so callers could send it before the promotion. Not a breaking change.
     Announced {
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
-        /// Its kind.
+        /// Its kind in the candidate: continuous, count, binary or categorical.
         kind: CovariateKind,
     },
     /// The live version has a covariate the candidate lacks.
     Removed {
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
         /// Its kind in the live version.
         kind: CovariateKind,
     },
     /// The covariate's kind differs.
     KindChanged {
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
         /// Its kind in the live version.
         from: CovariateKind,
@@ -158,21 +158,21 @@ pub enum ContractChange {
     },
     /// Levels of a categorical covariate that only the candidate has.
     LevelsAdded {
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
         /// The new levels.
         levels: Vec<String>,
     },
     /// Levels of a categorical covariate that the candidate no longer has.
     LevelsRemoved {
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
         /// The dropped levels.
         levels: Vec<String>,
     },
     /// The reference level of a categorical covariate differs.
     ReferenceChanged {
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
         /// The live version's reference level.
         from: String,
@@ -181,7 +181,7 @@ pub enum ContractChange {
     },
     /// The unit of a numeric covariate differs.
     UnitChanged {
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
         /// The live version's unit.
         from: Option<String>,

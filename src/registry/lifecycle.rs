@@ -87,7 +87,7 @@ pub enum LifecycleError {
     /// No directory for the model.
     #[error("there is no model '{name}' in {}", root.display())]
     UnknownModel {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The model directory searched.
         root: PathBuf,
@@ -95,7 +95,7 @@ pub enum LifecycleError {
     /// No file for the version.
     #[error("model '{name}' has no version '{version}' (stored: {})", listed(.stored))]
     UnknownVersion {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The missing version.
         version: String,
@@ -105,23 +105,23 @@ pub enum LifecycleError {
     /// A rollback of a model with no live version.
     #[error("model '{name}' has no live version, so there is nothing to roll back")]
     NoLiveVersion {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
     },
     /// A rollback with no earlier version in the history.
     #[error("model '{name}' has no earlier live version to roll back to ('{live}' is live and the history holds no promotion still in effect)")]
     NothingToRollBack {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
-        /// The live version.
+        /// The version `NAME/live` named at the time.
         live: String,
     },
     /// The live version could not be loaded, so the candidate cannot be compared with it.
     #[error("the live version '{live}' of '{name}' cannot be loaded to compare contracts ({problem}); allow breaking changes to promote without the comparison")]
     LiveUnreadable {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
-        /// The live version.
+        /// The version `NAME/live` named at the time.
         live: String,
         /// Why it could not be loaded.
         problem: String,
@@ -131,7 +131,7 @@ pub enum LifecycleError {
         "model '{name}' has no live version, so nothing can shadow it; promote a version first"
     )]
     NothingToShadow {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
     },
     /// The candidate cannot shadow the live version.
@@ -140,13 +140,13 @@ pub enum LifecycleError {
     /// A shadow ended for a model that has none.
     #[error("model '{name}' has no shadow in the model directory")]
     NoShadow {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
     },
     /// The version a rollback would return to does not pass the gate.
     #[error("cannot roll '{name}' back to '{target}', so '{live}' stays live: {problem}")]
     RollbackTargetInvalid {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The live version, which keeps serving.
         live: String,
@@ -168,9 +168,9 @@ fn listed(versions: &[String]) -> String {
 /// The result of [`upload`].
 #[derive(Debug, Clone, Serialize)]
 pub struct Uploaded {
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
-    /// The version stored.
+    /// The version label it is stored under, `NAME/versions/VERSION.json`.
     pub version: String,
     /// `new` if written now, `already_stored` if the identical bytes were there.
     pub novelty: Novelty,
@@ -183,7 +183,7 @@ pub struct Uploaded {
 /// The result of [`promote`] or [`rollback`].
 #[derive(Debug, Clone, Serialize)]
 pub struct Moved {
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
     /// `promote` or `rollback`.
     pub action: Action,
@@ -205,9 +205,9 @@ pub struct Moved {
 /// The result of [`set_shadow`] or [`end_shadow`].
 #[derive(Debug, Clone, Serialize)]
 pub struct ShadowMoved {
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
-    /// The live version.
+    /// The version `NAME/live` names: the one the shadow is compared with.
     pub live: String,
     /// The version that shadowed before, if any.
     pub from: Option<String>,
@@ -245,7 +245,7 @@ pub struct Promotion<'a> {
 /// The result of [`history`].
 #[derive(Debug, Clone, Serialize)]
 pub struct HistoryView {
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
     /// What the `live` file names now.
     pub live: Option<String>,
@@ -885,7 +885,7 @@ pub fn shadow_view(root: &Path, name: &str) -> Result<ShadowView, LifecycleError
 /// The result of [`shadow_view`].
 #[derive(Debug, Clone, Serialize)]
 pub struct ShadowView {
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
     /// What the `live` file names.
     pub live: Option<String>,

@@ -41,7 +41,7 @@ pub enum LoadError {
     /// The live pointer file is absent or unreadable.
     #[error("cannot read the live pointer {path}: {source}")]
     LivePointer {
-        /// The pointer file.
+        /// `NAME/live` in the model directory.
         path: PathBuf,
         /// The I/O error.
         source: std::io::Error,
@@ -49,7 +49,7 @@ pub enum LoadError {
     /// The live pointer does not hold a version label.
     #[error("the live pointer {path} holds {content:?}, which is not a version label")]
     BadLivePointer {
-        /// The pointer file.
+        /// `NAME/live` in the model directory.
         path: PathBuf,
         /// What it holds.
         content: String,
@@ -57,7 +57,7 @@ pub enum LoadError {
     /// The version file the pointer names is absent or unreadable.
     #[error("cannot read the live version file {path}: {source}")]
     VersionFile {
-        /// The version file.
+        /// `NAME/versions/VERSION.json` in the model directory.
         path: PathBuf,
         /// The I/O error.
         source: std::io::Error,
@@ -65,7 +65,7 @@ pub enum LoadError {
     /// The version file is not a valid model.
     #[error("{path} is not a valid model: {error}")]
     Invalid {
-        /// The version file.
+        /// `NAME/versions/VERSION.json` in the model directory.
         path: PathBuf,
         /// What is wrong inside it (boxed: it is large and rare).
         error: Box<ModelError>,
@@ -85,7 +85,7 @@ pub enum LoadError {
     /// The file's own name or version differs from where it is stored.
     #[error("{path} declares model '{found_name}' version '{found_version}', but its place in the directory says '{expected_name}' version '{expected_version}'")]
     Misplaced {
-        /// The version file.
+        /// `NAME/versions/VERSION.json` in the model directory.
         path: PathBuf,
         /// The directory's model name.
         expected_name: String,
@@ -102,7 +102,7 @@ pub enum LoadError {
 #[derive(Debug, thiserror::Error)]
 #[error("cannot read the model directory {path}: {source}")]
 pub struct DirectoryError {
-    /// The directory.
+    /// The model directory as given (`--models`), whose entries could not be listed.
     pub path: PathBuf,
     /// The I/O error.
     pub source: std::io::Error,
@@ -122,7 +122,7 @@ pub struct LoadReport {
 /// An interrupted move found at load: the pointer lagged the history's last record.
 #[derive(Debug)]
 pub struct Repair {
-    /// The model.
+    /// The model's name: its folder under the model directory.
     pub name: String,
     /// The record whose move was completed, or why it could not be (the pointer's version then
     /// loads as it is).

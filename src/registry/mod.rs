@@ -25,7 +25,7 @@ pub mod watch;
 /// candidates announce.
 #[derive(Debug, Clone)]
 pub struct Entry {
-    /// The live version.
+    /// The version `NAME/live` names, validated: the one every answer comes from.
     pub live: Arc<Model>,
     /// A candidate scored beside the live version, its answers only measured.
     pub shadow: Option<Arc<Model>>,
@@ -48,7 +48,7 @@ impl Entry {
 /// Every served model, by name, at one instant.
 #[derive(Debug, Clone, Default)]
 pub struct Snapshot {
-    /// Models by name.
+    /// Every model served, by its name (its folder under the model directory).
     pub models: BTreeMap<String, Arc<Entry>>,
 }
 

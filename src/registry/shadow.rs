@@ -35,29 +35,29 @@ pub enum CannotShadow {
     /// The candidate is the live version.
     #[error("version '{version}' is the live version of '{model}'; a shadow is another version scored beside it")]
     IsLive {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         model: String,
-        /// The version.
+        /// The version asked to shadow, which is live already.
         version: String,
     },
     /// The candidate needs a covariate that callers of the live version do not send.
     #[error("version '{candidate}' needs covariate '{covariate}', which callers of live version '{live}' do not send, so it cannot be scored on their requests; a version that announces it (ogive fit --announce {covariate}) is shadowed on the calls that send it")]
     Missing {
-        /// The candidate's version.
+        /// The version label of the candidate refused as a shadow.
         candidate: String,
-        /// The live version.
+        /// The version `NAME/live` named at the time.
         live: String,
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
     },
     /// A covariate is categorical in one version and numeric in the other.
     #[error("covariate '{covariate}' is {live_kind} in live version '{live}' but {candidate_kind} in version '{candidate}', so its values cannot be carried over")]
     KindMismatch {
-        /// The candidate's version.
+        /// The version label of the candidate refused as a shadow.
         candidate: String,
-        /// The live version.
+        /// The version `NAME/live` named at the time.
         live: String,
-        /// The covariate.
+        /// The covariate's name, as callers send it.
         covariate: String,
         /// Its kind in the live version.
         live_kind: &'static str,

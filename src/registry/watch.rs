@@ -59,7 +59,7 @@ pub const MAX_INTERVAL: Duration = Duration::from_secs(1);
 pub enum WatchEvent {
     /// A version began serving: a model seen for the first time, or a swap.
     Served {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The version now serving.
         version: String,
@@ -70,7 +70,7 @@ pub enum WatchEvent {
     /// naming a version that is not stored, a `live` file removed from a served model); `serving`,
     /// if any, keeps serving.
     Refused {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The version still serving.
         serving: Option<String>,
@@ -80,14 +80,14 @@ pub enum WatchEvent {
     /// A model directory that was watched disappeared; its version keeps serving (removing a
     /// model from service takes a restart, so a half-synced volume never drops one).
     Vanished {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The version still serving, if any.
         serving: Option<String>,
     },
     /// A shadow began to be followed: set, set again, or found at start.
     Shadowed {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The live version it shadows.
         live: String,
@@ -98,14 +98,14 @@ pub enum WatchEvent {
     },
     /// The shadow pointer was removed (or names the live version now): nothing shadows.
     ShadowEnded {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The version that shadowed.
         version: String,
     },
     /// The shadow pointer names a version that cannot be loaded; nothing shadows.
     ShadowRefused {
-        /// The model.
+        /// The model's name: its folder under the model directory.
         name: String,
         /// The version the pointer names.
         version: String,

@@ -65,23 +65,23 @@ pub struct Report {
 /// Who the model is and where it came from.
 #[derive(Debug, Clone, Serialize)]
 pub struct Identity {
-    /// The model's name.
+    /// The model's name, as its file gives it (`name`), the same in every version.
     pub name: String,
-    /// The version label.
+    /// The version label the file gives (`version`), as the model directory stores it.
     pub version: String,
     /// What the model is for.
     pub description: String,
-    /// The outcome column.
+    /// The name of the outcome: the 0/1 column the model was fitted on.
     pub outcome: String,
     /// What an outcome of 1 means.
     pub outcome_meaning: String,
-    /// The link.
+    /// The link function's name: `logit`, `probit`, `cloglog` or `cauchit`.
     pub link: String,
     /// The fitting software.
     pub fitted_by: String,
     /// When it was fitted.
     pub fitted_at: String,
-    /// Training observations.
+    /// How many observations the model was fitted on, as its provenance records it.
     pub observations: u64,
     /// The training data's name.
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -116,14 +116,14 @@ pub struct Identity {
 /// One covariate and its training summary.
 #[derive(Debug, Clone, Serialize)]
 pub struct CovariateRow {
-    /// The name.
+    /// The covariate's name: the column or JSON key an observation gives it by.
     pub name: String,
     /// continuous, count, binary or categorical.
     pub kind: String,
-    /// The unit.
+    /// The unit its values are in, as the model file states it; `None` when it states none.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub unit: Option<String>,
-    /// The description.
+    /// What the covariate measures, in the model file's words; `None` when it gives none.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub description: Option<String>,
     /// Training minimum (numeric kinds).
@@ -149,16 +149,16 @@ pub struct CovariateRow {
 /// One level of a categorical covariate and its share of the training data.
 #[derive(Debug, Clone, Serialize)]
 pub struct LevelShare {
-    /// The level.
+    /// The level's name, as an observation sends it.
     pub level: String,
-    /// Its training share.
+    /// The share of training observations at this level, from 0 to 1.
     pub share: f64,
 }
 
 /// A probability with its interval.
 #[derive(Debug, Clone, Copy, Serialize)]
 pub struct ProbabilityRow {
-    /// The probability.
+    /// The probability of the outcome, from 0 to 1.
     pub probability: f64,
     /// Its delta-method standard error.
     pub std_error: Option<f64>,
@@ -171,7 +171,7 @@ pub struct ProbabilityRow {
 /// One effect (at means, or averaged) with its uncertainty.
 #[derive(Debug, Clone, Serialize)]
 pub struct EffectRow {
-    /// The covariate.
+    /// The name of the covariate whose effect this is.
     pub covariate: String,
     /// The level compared with the reference, for a categorical covariate.
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -193,7 +193,7 @@ pub struct EffectRow {
 pub struct AtMeans {
     /// The probability at the mean observation.
     pub probability: ProbabilityRow,
-    /// The effects there.
+    /// Every covariate's effect on the probability at the mean observation.
     pub effects: Vec<EffectRow>,
 }
 
@@ -202,9 +202,10 @@ pub struct AtMeans {
 pub struct DataReport {
     /// Where the rows came from.
     pub source: String,
-    /// Rows scored.
+    /// Rows of the data file, every one scored (a row with a bad value stops the pass, naming
+    /// the row).
     pub rows: u64,
-    /// The average probability.
+    /// The mean of the rows' probabilities, with its delta-method interval.
     pub average_probability: ProbabilityRow,
     /// The average marginal effects.
     pub average_effects: Vec<EffectRow>,
@@ -226,7 +227,7 @@ pub struct WarningCounts {
 /// Rows outside one covariate's training range.
 #[derive(Debug, Clone, Serialize)]
 pub struct OutOfRangeCount {
-    /// The covariate.
+    /// The name of the covariate whose training range the rows left.
     pub covariate: String,
     /// Rows below the training minimum.
     pub below: u64,

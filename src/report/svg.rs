@@ -147,7 +147,7 @@ pub enum PlotError {
 pub struct CurvePoint {
     /// The covariate's value.
     pub x: f64,
-    /// The probability there.
+    /// The probability at `x`, the other covariates at their training means.
     pub probability: f64,
     /// The interval for the probability, when the model has a covariance.
     pub probability_interval: Option<(f64, f64)>,

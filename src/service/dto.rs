@@ -262,11 +262,12 @@ pub fn json_kind(value: &Json) -> &'static str {
 /// An interval with its level, as a curve answers it.
 #[derive(Debug, Clone, Copy, Serialize)]
 pub struct IntervalView {
-    /// Lower bound.
+    /// The lower end, a probability or an effect as the curve's quantity is.
     pub lower: f64,
-    /// Upper bound.
+    /// The upper end, at least `lower`.
     pub upper: f64,
-    /// Its level.
+    /// The confidence level the interval was built at, between 0 and 1 (the request's, 0.95
+    /// by default).
     pub level: f64,
 }
 
@@ -292,7 +293,7 @@ pub fn warning_code(warning: &Warning) -> &'static str {
 /// A note on the whole answer (for example: no covariance, so no intervals).
 #[derive(Debug, Clone, Copy)]
 pub struct Note {
-    /// A stable code.
+    /// A code that does not change between releases, for a client to match on (snake case).
     pub code: &'static str,
     /// A plain sentence.
     pub message: &'static str,

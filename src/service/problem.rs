@@ -68,7 +68,8 @@ macro_rules! kinds {
                 match self { $(Kind::$variant => $status,)* }
             }
 
-            /// The fixed title.
+            /// The problem's `title`: the same for every occurrence of this kind, whatever
+            /// the `detail` says (RFC 9457 §3.1.3).
             pub fn title(self) -> &'static str {
                 match self { $(Kind::$variant => $title,)* }
             }

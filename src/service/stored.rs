@@ -34,7 +34,7 @@ impl StoredVersions {
         }
     }
 
-    /// The model directory.
+    /// The model directory: one folder per model, as `ogive serve --models` reads it.
     pub fn root(&self) -> &Path {
         &self.root
     }

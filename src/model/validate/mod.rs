@@ -23,37 +23,13 @@ pub(super) mod fixture {
 
     use crate::model::{Model, ModelError};
 
+    /// The fixture (`fixture.json`, which the integration tests of validation extend) with
+    /// its 6 × 6 covariance.
     pub fn base() -> Value {
-        json!({
-            "format": "ogive-model",
-            "format_version": 1,
-            "name": "rule-fixture",
-            "version": "1",
-            "description": "validator input",
-            "outcome": {"name": "y", "meaning": "the event happened"},
-            "link": "logit",
-            "covariates": [
-                {"name": "income", "kind": "continuous", "unit": "thousand EUR",
-                 "training": {"min": 5.0, "max": 500.0, "mean": 60.0, "std_dev": 30.0,
-                              "histogram": {"edges": [5.0, 50.0, 500.0], "counts": [10, 20]}}},
-                {"name": "guarantor", "kind": "binary",
-                 "training": {"min": 0.0, "max": 1.0, "mean": 0.3}},
-                {"name": "region", "kind": "categorical", "levels": ["north", "south", "east"],
-                 "reference": "north",
-                 "training": {"level_counts": {"north": 5, "south": 3, "east": 2}}}
-            ],
-            "terms": [
-                {"term": "intercept", "coefficient": -1.0},
-                {"term": "log(income)", "coefficient": -0.3},
-                {"term": "income^2", "coefficient": 0.0001},
-                {"term": "guarantor", "coefficient": -0.5},
-                {"term": "region=south", "coefficient": 0.2},
-                {"term": "income*guarantor", "coefficient": 0.004}
-            ],
-            "covariance": diagonal(6, 0.01),
-            "provenance": {"fitted_by": "hand", "fitted_at": "2026-12-01T00:00:00Z",
-                           "observations": 10}
-        })
+        let mut file: Value =
+            serde_json::from_str(include_str!("fixture.json")).expect("fixture.json is JSON");
+        file["covariance"] = diagonal(6, 0.01);
+        file
     }
 
     /// A `k × k` diagonal matrix with `d` on the diagonal, as JSON rows.

@@ -105,9 +105,9 @@ impl StoreError {
 #[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
 #[error("{} no longer holds version '{version}' as it was stored: its SHA-256 was {recorded} and is {found} now; a stored version never changes, so put the stored file back, or store the new content under a new version label", path.display())]
 pub struct ContentChanged {
-    /// The version file.
+    /// `NAME/versions/VERSION.json` in the model directory.
     pub path: PathBuf,
-    /// The version label.
+    /// The label the version was stored under, the file's name without `.json`.
     pub version: String,
     /// The digest recorded when the version was stored (or first served).
     pub recorded: String,
@@ -130,7 +130,7 @@ pub fn sha256_hex(bytes: &[u8]) -> String {
 /// file under the same label was replaced (which it then refuses, see [`ContentChanged`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct FileStamp {
-    /// Length in bytes.
+    /// The file's length in bytes, from its metadata.
     pub length: u64,
     /// Last modification, where the file system records it.
     pub modified: Option<SystemTime>,
@@ -156,7 +156,7 @@ impl ModelDir {
         })
     }
 
-    /// The model's name.
+    /// The model's name: the last part of [`ModelDir::path`].
     pub fn name(&self) -> &str {
         &self.name
     }

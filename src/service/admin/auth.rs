@@ -59,7 +59,7 @@ pub enum TokenError {
     /// The token file could not be read.
     #[error("cannot read the admin token file {}: {cause}", path.display())]
     Unreadable {
-        /// The file.
+        /// The file's path, as given on the command line or in its environment variable.
         path: PathBuf,
         /// The operating system's error.
         cause: io::Error,
@@ -67,7 +67,7 @@ pub enum TokenError {
     /// Both a token file and the variable are set.
     #[error("both --admin-token-file ({}) and {TOKEN_ENV} are set; set one", path.display())]
     TwoSources {
-        /// The file.
+        /// The file's path, as given on the command line or in its environment variable.
         path: PathBuf,
     },
     /// The token is empty (after removing one trailing newline).

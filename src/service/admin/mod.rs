@@ -46,7 +46,8 @@ pub struct AdminState {
     pub app: AppState,
     /// The follower of the model directory, polled after each change.
     pub follower: Arc<Follower>,
-    /// The bearer token.
+    /// The token every admin request must present as `Authorization: Bearer`, compared in
+    /// constant time and never logged.
     pub token: Arc<AdminToken>,
 }
 
