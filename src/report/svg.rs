@@ -517,6 +517,24 @@ struct Quantity {
     band_colour: &'static str,
 }
 
+/// The probability panel's quantity.
+const PROBABILITY: Quantity = Quantity {
+    name: "probability",
+    value: |p| p.probability,
+    interval: |p| p.probability_interval,
+    colour: CURVE_COLOUR,
+    band_colour: BAND_COLOUR,
+};
+
+/// The marginal-effect panel's quantity.
+const EFFECT: Quantity = Quantity {
+    name: "effect",
+    value: |p| p.effect,
+    interval: |p| p.effect_interval,
+    colour: EFFECT_COLOUR,
+    band_colour: EFFECT_BAND_COLOUR,
+};
+
 /// A partner's name, one of its levels, and the curve with the partner held at that level.
 type PartnerCurve = (String, String, Vec<CurvePoint>);
 
@@ -697,17 +715,7 @@ fn probability_section(
     {
         probability_panel.rug(svg, &histogram.edges, &histogram.counts);
     }
-    probability_panel.all_curves(
-        svg,
-        curves,
-        Quantity {
-            name: "probability",
-            value: |p| p.probability,
-            interval: |p| p.probability_interval,
-            colour: CURVE_COLOUR,
-            band_colour: BAND_COLOUR,
-        },
-    );
+    probability_panel.all_curves(svg, curves, PROBABILITY);
     probability_panel.axes(svg, &format!("P({} = 1)", f.outcome.name), true);
     let range_label = format!(
         "training range {} to {}, mean {}",
@@ -754,17 +762,7 @@ fn effect_section(
             LEFT + PLOT_WIDTH
         );
     }
-    effect_panel.all_curves(
-        svg,
-        curves,
-        Quantity {
-            name: "effect",
-            value: |p| p.effect,
-            interval: |p| p.effect_interval,
-            colour: EFFECT_COLOUR,
-            band_colour: EFFECT_BAND_COLOUR,
-        },
-    );
+    effect_panel.all_curves(svg, curves, EFFECT);
     largest_effect(svg, panels, c, points);
     effect_panel.axes(svg, &format!("dP/d({})", c.name), true);
     let _ = writeln!(svg, "</g>");
