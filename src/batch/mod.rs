@@ -2,7 +2,7 @@
 //! intervals, effects and warnings added as columns.
 //!
 //! The calling thread reads the input in blocks of whole records (about
-//! [`DEFAULT_INPUT_BLOCK_BYTES`] each, cut where [`cut`] says a block parses on its own) and
+//! [`DEFAULT_INPUT_BLOCK_BYTES`] each, cut where `cut` says a block parses on its own) and
 //! hands them to `threads` workers, which parse, score and format their block's rows into the
 //! block's output bytes; the calling thread writes finished blocks in input order. The output is
 //! therefore the same, byte for byte, whatever the number of threads.

@@ -53,7 +53,7 @@ pub enum Command {
     Shadow(shadow::ShadowArgs),
 }
 
-/// Set up `tracing`: JSON lines for `serve` ([`log_line`]), compact text on stderr otherwise; level from
+/// Set up `tracing`: JSON lines for `serve` (`cli::log_line`), compact text on stderr otherwise; level from
 /// `RUST_LOG` (default `info` for `serve`, `warn` for the other commands).
 ///
 /// `serve` writes its lines from a background thread through a buffer that is flushed whenever

@@ -113,7 +113,7 @@ pub struct LabelledSummary {
     pub rows_skipped: u64,
     /// Skipped rows by [`LabelledRowError::reason`].
     pub skipped_by_reason: BTreeMap<String, u64>,
-    /// The first [`SKIPPED_EXAMPLES`] skipped rows and why.
+    /// The first 20 skipped rows (`SKIPPED_EXAMPLES`) and why.
     pub skipped_examples: Vec<LabelledRowError>,
     /// Extrapolation warnings over the evaluated rows, one tally per model in the order given.
     pub warnings: Vec<WarningTally>,
@@ -205,7 +205,7 @@ pub struct ReadOptions {
 /// the rows for [`super::evaluate`] and [`super::compare`]. `progress` is called now and then
 /// with the bytes read.
 ///
-/// The calling thread reads blocks of whole records ([`crate::batch::BlockSource`], the
+/// The calling thread reads blocks of whole records (`batch::BlockSource`, the
 /// reader of `ogive score`); `options.threads` workers parse, check and score each block's
 /// rows into their figures; the calling thread adds the blocks to the accumulators in file
 /// order. At most `2·threads + 2` blocks are in flight, each about

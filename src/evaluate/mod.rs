@@ -18,7 +18,7 @@
 //! ```
 //!
 //! Memory: each model keeps one `f64` a row (the logit of its probability, in two vectors by
-//! outcome, in row order), so two models keep 16 bytes a row. Ranking a model ([`rank`]) holds
+//! outcome, in row order), so two models keep 16 bytes a row. Ranking a model (`evaluate::rank`) holds
 //! its rows as (score, row) pairs, 16 bytes a row, while it sorts and walks them, and leaves
 //! its placements, 4 bytes a row. Two models evaluated on two threads ([`evaluate_each`]) rank
 //! at the same time, so the peak is 16 + 2 × (16 + 4) = 56 bytes a row (40 on one thread);

@@ -107,7 +107,7 @@ pub struct FitRequest {
     pub weights: Option<WeightColumn>,
     /// The outcome's share in the population, for a sample drawn by outcome.
     pub population: Option<PopulationRate>,
-    /// Covariates the model file announces (see [`ModelFile::announces`]).
+    /// Covariates the model file announces (see [`crate::model::ModelFile::announces`]).
     pub announces: Vec<String>,
 }
 

@@ -19,7 +19,7 @@
 //! the request path without a lock; the shadow comparison in a map under one lock, taken once
 //! per request of a shadowed model), so a promotion never mixes two versions' figures.
 //! Exporting: a figure that a ratio is taken of is read under its state's lock at scrape time
-//! and written as families ([`families`]), so one scrape never mixes two moments: drift's bin
+//! and written as families (`monitoring::families`), so one scrape never mixes two moments: drift's bin
 //! counters and training shares, calibration's outcome counters, and all four shadow series
 //! (mean |Δp| is their sum over their count, the disagreement rate disagreements over scored).
 //! The per-pod window figures (PSI, Brier, AUC, ...) and drift's dropped samples are kept in

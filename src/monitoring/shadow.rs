@@ -41,7 +41,7 @@
 //!
 //! The mean |Δp| and the disagreement rate are ratios of these (sum over count, disagreements
 //! over scored), so all four of one version are read together under that lock, as drift's and
-//! calibration's are ([`super::families`]): a scrape never pairs one request's disagreements
+//! calibration's are (`monitoring::families`): a scrape never pairs one request's disagreements
 //! with another moment's count.
 //!
 //! The admin report ([`Shadowing::report`]) reads the same series, minus their values when this

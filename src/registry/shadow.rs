@@ -151,7 +151,7 @@ pub fn check_shadowable(live: &Model, candidate: &Model) -> Result<(), CannotSha
 
 /// Whether `candidate` needs covariates that `live` lacks and announces every one of them
 /// (`registry::announce`): such a shadow parses each request itself and is scored on the
-/// observations that send them ([`Shadowing::compare_parsed`]).
+/// observations that send them ([`crate::monitoring::shadow::Shadowing::compare_parsed`]).
 pub fn reads_announced(live: &Model, candidate: &Model) -> bool {
     let mut new = candidate
         .covariates

@@ -9,7 +9,7 @@
 //! tiny `live` file and the size and time of the version it names costs a few system calls
 //! per model per poll and sees all of these.
 //!
-//! A model is loaded with the startup loader's [`load_live`], so a file is held to the same
+//! A model is loaded with the startup loader's `load_live`, so a file is held to the same
 //! rules at startup and on every swap: it validates, its check cases reproduce, and its name
 //! and version match its place. A file that fails never replaces what is serving; the previous
 //! version keeps serving and the failure is reported once, as a [`WatchEvent::Refused`], to

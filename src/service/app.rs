@@ -224,7 +224,7 @@ impl Application {
     }
 
     /// Serve on this thread (in an actix system of its own) until stopped, then drain the
-    /// public listener (see [`shutdown`]), stop the admin listener and the follower.
+    /// public listener (see `shutdown`), stop the admin listener and the follower.
     pub fn run_until_stopped(self) -> io::Result<()> {
         let Application {
             state,

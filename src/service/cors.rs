@@ -42,7 +42,7 @@ pub const MAX_AGE_SECONDS: u32 = 600;
 pub struct CorsOrigins(Vec<String>);
 
 impl CorsOrigins {
-    /// The allow-list of these origins, each checked by [`parse_origin`].
+    /// The allow-list of these origins, each checked by `parse_origin`.
     pub fn new<S: AsRef<str>>(origins: &[S]) -> Result<CorsOrigins, String> {
         let mut list = Vec::with_capacity(origins.len());
         for origin in origins {

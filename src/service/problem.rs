@@ -155,7 +155,7 @@ impl Kind {
     }
 }
 
-/// One faulty observation of a batch, listed in [`Problem::errors`].
+/// One faulty observation of a batch, listed in the problem's `errors` member.
 #[derive(Debug, Clone, Serialize, PartialEq)]
 pub struct FieldError {
     /// The problem type of this observation's fault.

@@ -3,7 +3,7 @@
 //! The statistics are the engine's; this module only drives a [`Scorer`] over the
 //! observations, records the scoring metrics once per request, refuses an answer that is not
 //! finite (422 `not-computable`, never a `null` where a number is promised), and writes the
-//! answer ([`super::answer`]). A batch sent with `"on_error": "keep"` instead answers each
+//! answer (`service::answer`). A batch sent with `"on_error": "keep"` instead answers each
 //! faulty observation (one the reader set aside, or one whose answer is not finite) by its
 //! fault, in its place; the others are scored exactly as alone and averaged without it. A batch
 //! in which nothing can be scored is refused as without the option.
@@ -327,7 +327,7 @@ impl Scored<'_> {
     }
 
     /// The answer's JSON bytes (the layout of the module comment, written by
-    /// [`super::answer::Writer`]).
+    /// `service::answer::Writer`).
     pub fn to_json(&self) -> Vec<u8> {
         // Sized from the answer's shape (about 220 bytes per effect, 64 per contribution and
         // 160 per warning), so that a large batch is written without regrowing the buffer.

@@ -9,7 +9,7 @@
 //! ```
 //!
 //! This module only moves bytes; it does not lock. Callers that must not race (promoters,
-//! uploaders) hold the model's lock ([`super::lock`]) around these calls, which is also what
+//! uploaders) hold the model's lock (`registry::store::lock`) around these calls, which is also what
 //! makes [`sweep_temporaries`] safe: under the lock, any temporary file left behind belongs to
 //! a writer that died.
 

@@ -12,7 +12,7 @@
 //! Setting both sources is refused, as is a token shorter than [`MIN_TOKEN`] characters (16:
 //! a one-character token can be guessed in under a hundred requests) or one with characters
 //! other than visible ASCII (it could not be sent in a header as written). A token shorter than
-//! [`SHORT_TOKEN`] starts with a warning. Without either source, no
+//! `SHORT_TOKEN` starts with a warning. Without either source, no
 //! admin route starts ([`AdminToken::configured`] returns `None`, and `ogive serve` says so).
 //!
 //! Every request must carry exactly one `Authorization: Bearer TOKEN` header (the scheme in any
@@ -158,7 +158,7 @@ impl AdminToken {
     }
 
     /// The token of the command line and environment: from `file`, or from `variable` (the
-    /// value of [`TOKEN_ENV`]), or `None` when neither is set.
+    /// value of `TOKEN_ENV`), or `None` when neither is set.
     pub fn configured(
         file: Option<&Path>,
         variable: Option<&[u8]>,
@@ -191,7 +191,7 @@ impl AdminToken {
         format!("admin:{}", self.label)
     }
 
-    /// Whether the configured token is shorter than [`SHORT_TOKEN`].
+    /// Whether the configured token is shorter than `SHORT_TOKEN`.
     pub fn is_short(&self) -> bool {
         self.secret.len() < SHORT_TOKEN
     }

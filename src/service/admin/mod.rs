@@ -10,7 +10,7 @@
 //! ```
 //!
 //! The admin listener shares the public listener's [`AppState`] (the registry, the metrics,
-//! the shadow scoring and the limits) and its [`Follower`], and is stopped with it. It has
+//! the shadow scoring and the limits) and its `Follower`, and is stopped with it. It has
 //! no route without a token: [`AdminToken::configured`] returning `None` means `ogive serve`
 //! starts no admin listener at all and says so. Its requests go through the same middleware as
 //! the public ones: request id, the header size limit (`--max-header-bytes`), the log line
