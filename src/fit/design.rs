@@ -1,5 +1,11 @@
-//! The design matrix: one row of term values per observation, stored row-major as `f64`, and
-//! the blocked, parallel reduction over its rows that every pass of the fit uses.
+//! The design matrix: one value per observation and term, stored in blocks of
+//! [`ROWS_PER_BLOCK`] rows, each block column-major (a block's first term for every one of its
+//! rows, then its second, …), and the blocked, parallel reduction over its rows that every pass
+//! of the fit uses.
+//!
+//! Column-major blocks are what make a pass fast: the linear index, the score and every entry
+//! of the information matrix are then sums along contiguous runs of a block, which the
+//! compiler turns into vector instructions, with no copy of the rows per pass.
 //!
 //! Term values come from [`Term::value`], the function the engine scores with, so a model's
 //! check cases reproduce exactly what the fit saw.
@@ -14,8 +20,6 @@ use std::ops::Range;
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Mutex;
 
-use nalgebra::{DMatrixView, DMatrixViewMut};
-
 use crate::model::{Term, Value};
 
 use super::reader::ColumnData;
@@ -28,17 +32,66 @@ pub const ROWS_PER_BLOCK: usize = 16_384;
 pub struct Design {
     rows: usize,
     columns: usize,
+    /// Block after block, each `columns` runs of the block's rows.
     values: Vec<f64>,
+}
+
+/// Some consecutive rows of one block of the design: one contiguous run per term.
+#[derive(Debug, Clone, Copy)]
+pub struct Rows<'a> {
+    values: &'a [f64],
+    /// The distance between the starts of two terms' runs (the block's length).
+    stride: usize,
+    /// The offset of the first row inside its block.
+    offset: usize,
+    len: usize,
+    terms: usize,
+}
+
+impl<'a> Rows<'a> {
+    /// Term `j`'s values for these rows.
+    #[inline]
+    pub fn column(&self, j: usize) -> &'a [f64] {
+        let start = j * self.stride + self.offset;
+        &self.values[start..start + self.len]
+    }
+
+    /// How many rows.
+    #[inline]
+    pub fn len(&self) -> usize {
+        self.len
+    }
+
+    /// How many terms.
+    #[inline]
+    pub fn terms(&self) -> usize {
+        self.terms
+    }
 }
 
 impl Design {
     /// A design from row-major values (`rows × columns`); `None` if the length does not match.
     #[cfg(test)]
     pub(crate) fn from_row_major(rows: usize, columns: usize, values: Vec<f64>) -> Option<Design> {
-        (values.len() == rows * columns).then_some(Design {
+        if values.len() != rows * columns {
+            return None;
+        }
+        let mut blocked = vec![0.0; values.len()];
+        for (block, out) in blocked
+            .chunks_mut(ROWS_PER_BLOCK * columns.max(1))
+            .enumerate()
+        {
+            let len = out.len() / columns.max(1);
+            for r in 0..len {
+                for j in 0..columns {
+                    out[j * len + r] = values[(block * ROWS_PER_BLOCK + r) * columns + j];
+                }
+            }
+        }
+        Some(Design {
             rows,
             columns,
-            values,
+            values: blocked,
         })
     }
 
@@ -47,9 +100,8 @@ impl Design {
         let k = terms.len();
         let mut values = vec![0.0; rows * k];
         let no_shares: Vec<Vec<f64>> = vec![Vec::new(); columns.len()];
-        let chunk_rows = ROWS_PER_BLOCK;
         let chunks: Vec<(usize, &mut [f64])> = values
-            .chunks_mut(chunk_rows * k.max(1))
+            .chunks_mut(ROWS_PER_BLOCK * k.max(1))
             .enumerate()
             .collect();
         let queue = Mutex::new(chunks.into_iter());
@@ -60,21 +112,11 @@ impl Design {
                     let mut observation = vec![Value::Number(0.0); columns.len()];
                     loop {
                         let next = queue.lock().ok().and_then(|mut q| q.next());
-                        let Some((chunk, out)) = next else { break };
-                        let first = chunk * chunk_rows;
-                        for (r, row) in out.chunks_mut(k.max(1)).enumerate() {
-                            let i = first + r;
-                            for (value, column) in observation.iter_mut().zip(columns) {
-                                *value = match column {
-                                    ColumnData::Numeric(x) => Value::Number(x[i]),
-                                    ColumnData::Categorical { codes, .. } => {
-                                        Value::Level(codes[i] as usize)
-                                    }
-                                };
-                            }
-                            for (cell, term) in row.iter_mut().zip(terms) {
-                                *cell = term.value(&observation, &no_shares);
-                            }
+                        let Some((block, out)) = next else { break };
+                        let first = block * ROWS_PER_BLOCK;
+                        let len = out.len() / k.max(1);
+                        for (term, run) in terms.iter().zip(out.chunks_mut(len.max(1))) {
+                            fill_run(term, columns, first, run, &mut observation, &no_shares);
                         }
                     }
                 });
@@ -97,16 +139,56 @@ impl Design {
         self.columns
     }
 
-    /// Row `i`.
+    /// Rows `range`, which lie inside one block (as every range [`reduce_rows`] hands out does).
     #[inline]
-    pub fn row(&self, i: usize) -> &[f64] {
-        &self.values[i * self.columns..(i + 1) * self.columns]
+    pub fn rows_of(&self, range: Range<usize>) -> Rows<'_> {
+        let block = range.start / ROWS_PER_BLOCK;
+        let block_start = block * ROWS_PER_BLOCK;
+        let stride = ROWS_PER_BLOCK.min(self.rows - block_start);
+        assert!(
+            range.end <= block_start + stride,
+            "rows {range:?} span two blocks"
+        );
+        let base = block_start * self.columns;
+        Rows {
+            values: &self.values[base..base + stride * self.columns],
+            stride,
+            offset: range.start - block_start,
+            len: range.len(),
+            terms: self.columns,
+        }
     }
+}
 
-    /// Rows `range`, row-major.
-    #[inline]
-    pub fn rows_of(&self, range: Range<usize>) -> &[f64] {
-        &self.values[range.start * self.columns..range.end * self.columns]
+/// One term's values for the rows of a block starting at row `first`: a covariate's column or
+/// the intercept directly, any other term through [`Term::value`].
+fn fill_run(
+    term: &Term,
+    columns: &[ColumnData],
+    first: usize,
+    run: &mut [f64],
+    observation: &mut [Value],
+    no_shares: &[Vec<f64>],
+) {
+    match term {
+        Term::Intercept => run.fill(1.0),
+        Term::Covariate(c) if matches!(columns[*c], ColumnData::Numeric(_)) => {
+            if let ColumnData::Numeric(x) = &columns[*c] {
+                run.copy_from_slice(&x[first..first + run.len()]);
+            }
+        }
+        _ => {
+            for (r, cell) in run.iter_mut().enumerate() {
+                let i = first + r;
+                for (value, column) in observation.iter_mut().zip(columns) {
+                    *value = match column {
+                        ColumnData::Numeric(x) => Value::Number(x[i]),
+                        ColumnData::Categorical { codes, .. } => Value::Level(codes[i] as usize),
+                    };
+                }
+                *cell = term.value(observation, no_shares);
+            }
+        }
     }
 }
 
@@ -187,34 +269,51 @@ pub fn reduce_rows<A: Send>(
     total
 }
 
-/// Add `Σ wᵢ xᵢ xᵢᵀ` over a block of rows (row-major, `k` columns) to `matrix` (`k × k`), as one
-/// matrix product `Xᵀ (W X)` so that it runs at the speed of a blocked, vectorised GEMM; with
-/// no weights it adds `XᵀX`. The result is symmetric up to rounding; callers finish with
-/// [`symmetrise`].
-pub fn add_weighted_gram(matrix: &mut [f64], rows: &[f64], weights: Option<&[f64]>, k: usize) {
-    if k == 0 || rows.is_empty() {
-        return;
-    }
-    let n = rows.len() / k;
-    let scaled: Vec<f64>;
-    let right = match weights {
-        Some(w) => {
-            let mut out = vec![0.0; rows.len()];
-            for ((target, x), &wi) in out.chunks_exact_mut(k).zip(rows.chunks_exact(k)).zip(w) {
-                for (t, &v) in target.iter_mut().zip(x) {
-                    *t = v * wi;
-                }
-            }
-            scaled = out;
-            &scaled[..]
+/// Lanes of the vectorised sums: four independent partial sums per run, added at the end.
+const LANES: usize = 4;
+
+/// `Σᵢ aᵢ bᵢ` in [`LANES`] partial sums (a fixed order, so the same bits on every run).
+#[inline]
+pub fn dot(a: &[f64], b: &[f64]) -> f64 {
+    let mut lanes = [0.0; LANES];
+    let (a_body, a_tail) = a.split_at(a.len() - a.len() % LANES);
+    let b_body = &b[..a_body.len()];
+    for (x, y) in a_body.chunks_exact(LANES).zip(b_body.chunks_exact(LANES)) {
+        for l in 0..LANES {
+            lanes[l] += x[l] * y[l];
         }
-        None => rows,
-    };
-    // Xᵀ is the row-major block read column-major: k × n with strides (1, k).
-    let transposed = DMatrixView::from_slice_with_strides(rows, k, n, 1, k);
-    let weighted = DMatrixView::from_slice_with_strides(right, n, k, k, 1);
-    let mut out = DMatrixViewMut::from_slice(matrix, k, k);
-    out.gemm(1.0, &transposed, &weighted, 1.0);
+    }
+    let mut tail = 0.0;
+    for (x, y) in a_tail.iter().zip(&b[a_body.len()..]) {
+        tail += x * y;
+    }
+    (lanes[0] + lanes[1]) + (lanes[2] + lanes[3]) + tail
+}
+
+/// Add `Σ wᵢ xᵢ xᵢᵀ` over some rows to the lower triangle of `matrix` (row-major `k × k`);
+/// with no weights, `XᵀX`. `scratch` holds one row-length run. Callers finish with
+/// [`symmetrise`].
+pub fn add_weighted_gram(
+    matrix: &mut [f64],
+    rows: Rows<'_>,
+    weights: Option<&[f64]>,
+    scratch: &mut Vec<f64>,
+) {
+    let k = rows.terms();
+    for a in 0..k {
+        let column = rows.column(a);
+        let weighted: &[f64] = match weights {
+            Some(w) => {
+                scratch.clear();
+                scratch.extend(column.iter().zip(w).map(|(x, v)| x * v));
+                scratch
+            }
+            None => column,
+        };
+        for b in 0..=a {
+            matrix[a * k + b] += dot(weighted, rows.column(b));
+        }
+    }
 }
 
 /// Make a row-major square matrix exactly symmetric by copying its lower triangle up.
@@ -233,13 +332,14 @@ pub fn gram(design: &Design, weights: Option<&[f64]>) -> Vec<f64> {
     let k = design.columns();
     let mut g = reduce_rows(
         design.rows(),
-        || vec![0.0; k * k],
-        |acc, range| {
+        || (vec![0.0; k * k], Vec::new()),
+        |(acc, scratch), range| {
             let block_weights = weights.map(|w| &w[range.clone()]);
-            add_weighted_gram(acc, design.rows_of(range), block_weights, k)
+            add_weighted_gram(acc, design.rows_of(range), block_weights, scratch)
         },
-        |total, part| total.iter_mut().zip(part).for_each(|(t, p)| *t += p),
-    );
+        |total, part| total.0.iter_mut().zip(part.0).for_each(|(t, p)| *t += p),
+    )
+    .0;
     symmetrise(&mut g, k);
     g
 }

@@ -170,7 +170,9 @@ pub(crate) fn indices(design: &Design, beta: &[f64]) -> Vec<f64> {
         design.rows(),
         Vec::new,
         |acc: &mut Vec<f64>, range| {
-            acc.extend(range.map(|i| likelihood::index(design.row(i), beta)));
+            let mut block = Vec::new();
+            likelihood::indices_of(design.rows_of(range), beta, &mut block);
+            acc.extend(block);
         },
         |total, part| total.extend(part),
     )

@@ -28,11 +28,12 @@
 //! guarded by their asymptotes where F or 1 − F underflows, so a far-out observation gives a
 //! large finite score rather than NaN.
 
+use std::cell::RefCell;
 use std::f64::consts::PI;
 
 use crate::link::Link;
 
-use super::design::{add_weighted_gram, reduce_rows, symmetrise, Design};
+use super::design::{add_weighted_gram, dot, reduce_rows, symmetrise, Design, Rows};
 
 /// `½·log(2π)`.
 const HALF_LN_2PI: f64 = 0.918_938_533_204_672_8;
@@ -151,27 +152,26 @@ fn log_one_plus(x: f64) -> f64 {
 /// The logit contribution from one exponential and one `log1p`: with e = exp(−|z|),
 ///
 /// ```text
-/// F = 1/(1+e) or e/(1+e)    log F = −log1p(e) or z − log1p(e)    w = F(1 − F)    s = y − F
+/// F(|z|) = 1/(1+e)   1 − F(|z|) = e/(1+e)   log F = min(z, 0) − log1p(e)
+/// log(1 − F) = −max(z, 0) − log1p(e)        w = F(1 − F)    s = y − F
 /// ```
+///
+/// written with selects rather than branches: the signs of z and the outcomes are as good as
+/// random over a data set, so branches on them would be mispredicted half the time.
 #[inline]
 fn logit_pointwise(z: f64, y: f64) -> Pointwise {
     let e = (-z.abs()).exp();
-    let (p, q) = if z >= 0.0 {
-        (1.0 / (1.0 + e), e / (1.0 + e))
-    } else {
-        (e / (1.0 + e), 1.0 / (1.0 + e))
-    };
-    let log1pe = log_one_plus(e);
+    let near = 1.0 / (1.0 + e);
+    let far = e * near;
     let positive = z >= 0.0;
-    let log_likelihood = match (y > 0.5, positive) {
-        (true, true) | (false, false) => -log1pe,
-        (true, false) => z - log1pe,
-        (false, true) => -z - log1pe,
-    };
+    let p = if positive { near } else { far };
+    let q = if positive { far } else { near };
+    let one = y > 0.5;
+    let beyond = if one { (-z).max(0.0) } else { z.max(0.0) };
     let w = p * q;
     Pointwise {
-        log_likelihood,
-        score: if y > 0.5 { q } else { -p },
+        log_likelihood: -log_one_plus(e) - beyond,
+        score: if one { q } else { -p },
         observed_weight: w,
         expected_weight: w,
     }
@@ -231,14 +231,33 @@ pub struct Sums {
     pub matrix: Vec<f64>,
 }
 
-/// The linear index `xᵀβ`.
-#[inline]
-pub fn index(x: &[f64], beta: &[f64]) -> f64 {
-    x.iter().zip(beta).map(|(a, b)| a * b).sum()
+/// One thread's working runs for a pass: the index, score and matrix weight of each row of a
+/// block, and the weighted run the information matrix is summed from.
+#[derive(Default)]
+struct PassScratch {
+    index: Vec<f64>,
+    scores: Vec<f64>,
+    weights: Vec<f64>,
+    run: Vec<f64>,
+}
+
+thread_local! {
+    static PASS_SCRATCH: RefCell<PassScratch> = RefCell::new(PassScratch::default());
+}
+
+/// The linear indices `xᵢᵀβ` of some rows, into `out`, the terms added in order.
+pub fn indices_of(rows: Rows<'_>, beta: &[f64], out: &mut Vec<f64>) {
+    out.clear();
+    out.resize(rows.len(), 0.0);
+    for (j, &b) in beta.iter().enumerate() {
+        for (z, &x) in out.iter_mut().zip(rows.column(j)) {
+            *z += x * b;
+        }
+    }
 }
 
 /// Accumulate the log-likelihood, the score and the requested matrix at `beta`, with each
-/// observation weighted by `weights[i]` (1 without weights).
+/// observation weighted by `weights[i]` (1 without weights), in one pass over the design.
 pub fn accumulate(
     design: &Design,
     outcome: &[f64],
@@ -257,39 +276,46 @@ pub fn accumulate(
             matrix: vec![0.0; size],
         },
         |acc, range| {
-            let mut row_weights = Vec::with_capacity(if size > 0 { range.len() } else { 0 });
-            for i in range.clone() {
-                let v = weights.map_or(1.0, |w| w[i]);
-                let x = design.row(i);
-                if v == 0.0 {
-                    // A zero weight removes the row, even where its terms are extreme.
-                    if size > 0 {
-                        row_weights.push(0.0);
+            PASS_SCRATCH.with(|scratch| {
+                let scratch = &mut *scratch.borrow_mut();
+                let rows = design.rows_of(range.clone());
+                indices_of(rows, beta, &mut scratch.index);
+                scratch.scores.clear();
+                scratch.weights.clear();
+                let outcome = &outcome[range.clone()];
+                let block_weights = weights.map(|w| &w[range.clone()]);
+                for (r, (&z, &y)) in scratch.index.iter().zip(outcome).enumerate() {
+                    let v = block_weights.map_or(1.0, |w| w[r]);
+                    if v == 0.0 {
+                        // A zero weight removes the row, even where its terms are extreme.
+                        scratch.scores.push(0.0);
+                        scratch.weights.push(0.0);
+                        continue;
                     }
-                    continue;
+                    let p = pointwise(link, z, y);
+                    acc.log_likelihood += v * p.log_likelihood;
+                    let score = v * p.score;
+                    scratch.scores.push(score);
+                    scratch.weights.push(match matrix {
+                        Matrix::None => 0.0,
+                        Matrix::Observed => v * p.observed_weight,
+                        Matrix::Expected => v * p.expected_weight,
+                        Matrix::ScoreOuter => v * p.score * p.score,
+                        Matrix::WeightedScoreOuter => score * score,
+                    });
                 }
-                let p = pointwise(link, index(x, beta), outcome[i]);
-                acc.log_likelihood += v * p.log_likelihood;
-                let score = v * p.score;
-                for (g, &xj) in acc.gradient.iter_mut().zip(x) {
-                    *g += score * xj;
+                for (j, g) in acc.gradient.iter_mut().enumerate() {
+                    *g += dot(&scratch.scores, rows.column(j));
                 }
-                match matrix {
-                    Matrix::None => {}
-                    Matrix::Observed => row_weights.push(v * p.observed_weight),
-                    Matrix::Expected => row_weights.push(v * p.expected_weight),
-                    Matrix::ScoreOuter => row_weights.push(v * p.score * p.score),
-                    Matrix::WeightedScoreOuter => row_weights.push(score * score),
+                if size > 0 {
+                    add_weighted_gram(
+                        &mut acc.matrix,
+                        rows,
+                        Some(&scratch.weights),
+                        &mut scratch.run,
+                    );
                 }
-            }
-            if size > 0 {
-                add_weighted_gram(
-                    &mut acc.matrix,
-                    design.rows_of(range),
-                    Some(&row_weights),
-                    k,
-                );
-            }
+            })
         },
         |total, part| {
             total.log_likelihood += part.log_likelihood;

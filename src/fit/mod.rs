@@ -17,7 +17,7 @@
 //! terms        parse --terms, expand categorical covariates into level indicators
 //! reader       CSV → outcome and covariate columns (parallel, bounded, row-numbered errors)
 //! kinds        binary / count / continuous for numeric columns
-//! design       the design matrix (row-major f64) and the blocked parallel reduction
+//! design       the design matrix (column-major blocks of f64) and the blocked parallel reduction
 //! rank         collinear terms, named with their combination
 //! separation   complete and quasi-complete separation, named with term and direction
 //! likelihood   ℓ, score, observed and expected information for every link

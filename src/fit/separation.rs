@@ -21,7 +21,7 @@ use crate::link::Link;
 
 use super::design::{reduce_rows, Design};
 use super::error::FitError;
-use super::likelihood::index;
+use super::likelihood::indices_of;
 
 /// Fitted probabilities closer than this to the outcome count as perfectly predicted.
 pub const PERFECT_FIT: f64 = 1e-10;
@@ -125,13 +125,15 @@ pub fn check_single_terms(
         design.rows(),
         || vec![Extremes::new(); k],
         |acc, range| {
-            for i in range {
-                if weights.is_some_and(|w| w[i] == 0.0) {
-                    continue;
-                }
-                let one = outcome[i] > 0.5;
-                for (e, &x) in acc.iter_mut().zip(design.row(i)) {
-                    if one {
+            let rows = design.rows_of(range.clone());
+            let outcome = &outcome[range.clone()];
+            let block_weights = weights.map(|w| &w[range.clone()]);
+            for (j, e) in acc.iter_mut().enumerate() {
+                for (r, (&x, &y)) in rows.column(j).iter().zip(outcome).enumerate() {
+                    if block_weights.is_some_and(|w| w[r] == 0.0) {
+                        continue;
+                    }
+                    if y > 0.5 {
                         e.min1 = e.min1.min(x);
                         e.max1 = e.max1.max(x);
                     } else {
@@ -169,16 +171,18 @@ pub fn diagnose(
         design.rows(),
         || (0u64, 0u64, 0.0, vec![0.0; k], vec![0.0; k]),
         |acc, range| {
-            for i in range {
-                let v = weights.map_or(1.0, |w| w[i]);
+            let rows = design.rows_of(range.clone());
+            let mut index = Vec::new();
+            indices_of(rows, beta, &mut index);
+            let row_weight = |r: usize| weights.map_or(1.0, |w| w[range.start + r]);
+            for (r, &z) in index.iter().enumerate() {
+                let v = row_weight(r);
                 if v == 0.0 {
                     continue;
                 }
                 acc.1 += 1;
                 acc.2 += v;
-                let x = design.row(i);
-                let z = index(x, beta);
-                let miss = if outcome[i] > 0.5 {
+                let miss = if outcome[range.start + r] > 0.5 {
                     link.complement(z)
                 } else {
                     link.probability(z)
@@ -186,9 +190,12 @@ pub fn diagnose(
                 if miss < PERFECT_FIT {
                     acc.0 += 1;
                 }
-                for ((sum, square), &xj) in acc.3.iter_mut().zip(acc.4.iter_mut()).zip(x) {
-                    *sum += v * xj;
-                    *square += v * xj * xj;
+            }
+            for (j, (sum, square)) in acc.3.iter_mut().zip(acc.4.iter_mut()).enumerate() {
+                for (r, &x) in rows.column(j).iter().enumerate() {
+                    let v = row_weight(r);
+                    *sum += v * x;
+                    *square += v * x * x;
                 }
             }
         },
