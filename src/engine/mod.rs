@@ -164,6 +164,13 @@ pub struct Options {
     quantile: f64,
 }
 
+/// The level nearly every request asks for, and the quantile [`normal_quantile`] gives for it
+/// (Φ⁻¹(0.975), one unit in the last place below scipy.stats.norm.ppf(0.975) =
+/// 1.959963984540054): kept so that the quantile's rational approximation does not run on
+/// every request; a unit test holds it to the function's bits.
+const COMMON_LEVEL: f64 = 0.95;
+const COMMON_LEVEL_QUANTILE: f64 = 1.959_963_984_540_053_8;
+
 /// The interval level is not strictly between 0 and 1.
 #[derive(Debug, Clone, Copy, PartialEq, thiserror::Error)]
 #[error("the interval level must lie strictly between 0 and 1, got {0}")]
@@ -181,7 +188,11 @@ impl Options {
             intervals: true,
             contributions: true,
             level,
-            quantile: normal_quantile(0.5 + level / 2.0),
+            quantile: if level == COMMON_LEVEL {
+                COMMON_LEVEL_QUANTILE
+            } else {
+                normal_quantile(0.5 + level / 2.0)
+            },
         })
     }
 
@@ -866,6 +877,20 @@ impl Scorer {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_common_level_keeps_the_quantile_the_approximation_gives() {
+        assert_eq!(
+            normal_quantile(0.5 + COMMON_LEVEL / 2.0).to_bits(),
+            COMMON_LEVEL_QUANTILE.to_bits()
+        );
+        // scipy.stats.norm.ppf(0.975) = 1.959963984540054; the approximation is within an ulp.
+        assert!((COMMON_LEVEL_QUANTILE - 1.959963984540054).abs() <= 4.0 * f64::EPSILON);
+        let common = Options::new(COMMON_LEVEL).expect("a valid level");
+        assert_eq!(common.quantile().to_bits(), COMMON_LEVEL_QUANTILE.to_bits());
+        let other = Options::new(0.9).expect("a valid level");
+        assert_eq!(other.quantile().to_bits(), normal_quantile(0.95).to_bits());
+    }
 
     /// The direct quadratic form of the gradient c·t + e (e on `involved`), for comparison.
     fn direct(v: &[f64], t: &[f64], c: f64, involved: &[usize], e: &[f64]) -> f64 {

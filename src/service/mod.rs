@@ -17,6 +17,7 @@
 //! direct.rs       a well-formed probability request read straight into values
 //! observations.rs observations → engine values, service bounds
 //! scoring.rs      driving the engine for a probability request
+//! scorers.rs      each thread's engine scratch per model version, kept between requests
 //! curve.rs        the curve of one covariate, its ETag
 //! etag.rs         entity tags and If-None-Match for the read routes
 //! openapi.rs      the OpenAPI 3.1 document (openapi.json + per-model paths)
@@ -52,6 +53,7 @@ pub(crate) mod openapi;
 pub mod problem;
 pub(crate) mod request_id;
 pub(crate) mod routes;
+pub(crate) mod scorers;
 pub mod scoring;
 pub(crate) mod shutdown;
 pub(crate) mod state;

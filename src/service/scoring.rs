@@ -24,10 +24,13 @@
 //! Receipts are sealed by monitoring ([`crate::monitoring::monitor::Monitor::record_scored`]) and
 //! handed in with [`Scored::set_receipts`]; without monitoring an answer carries none.
 
+use std::sync::Arc;
+
 use super::answer::{Shown, Writer};
 use super::dto::{ProbabilityRequest, AT_MEANS, NO_COVARIANCE, SATURATED};
 use super::observations::field_error;
 use super::problem::{FieldError, Kind, Problem};
+use super::scorers::with_scorer;
 use crate::engine::{effect_slots, Answer, Average, Averager, Scorer, Warning};
 use crate::metrics::ScoringMetrics;
 use crate::model::{Model, Value};
@@ -163,7 +166,22 @@ fn not_computable(index: usize, batch: bool) -> Problem {
 /// Score every observation (`values` is `n × covariates`, already checked); `faults` are the
 /// observations of a batch set aside by the reader (`"on_error": "keep"`: they are answered by
 /// their faults in their places, and an observation whose answer is not finite joins them).
+/// The engine's scratch is this thread's kept scorer for `model` ([`super::scorers`]).
 pub fn score<'a>(
+    model: &'a Arc<Model>,
+    request: &'a ProbabilityRequest,
+    values: &[Value],
+    faults: Vec<FieldError>,
+    request_id: &'a str,
+    metrics: &ScoringMetrics,
+) -> Result<Scored<'a>, Problem> {
+    with_scorer(model, |scorer| {
+        score_with(scorer, model, request, values, faults, request_id, metrics)
+    })
+}
+
+fn score_with<'a>(
+    scorer: &mut Scorer,
     model: &'a Model,
     request: &'a ProbabilityRequest,
     values: &[Value],
@@ -174,7 +192,6 @@ pub fn score<'a>(
     let width = model.covariates.len().max(1);
     let n = values.len() / width;
     let keep = request.keep_faulty && request.batch;
-    let mut scorer = Scorer::new(model);
     let mut averager = request
         .average_effects
         .then(|| Averager::new(model, scorer.slots().len()));
