@@ -338,7 +338,7 @@ impl ReceiptKeys {
     }
 
     /// One receipt per probability, all for `model`'s `version` scored at `scored_at_ms`, with
-    /// fresh random ids (from this thread's generator: see [`fill_ids`]).
+    /// fresh random ids (from this thread's generator: see `fill_ids`).
     pub fn seal_all(
         &self,
         model: &str,

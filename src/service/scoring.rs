@@ -166,7 +166,7 @@ fn not_computable(index: usize, batch: bool) -> Problem {
 /// Score every observation (`values` is `n × covariates`, already checked); `faults` are the
 /// observations of a batch set aside by the reader (`"on_error": "keep"`: they are answered by
 /// their faults in their places, and an observation whose answer is not finite joins them).
-/// The engine's scratch is this thread's kept scorer for `model` ([`super::scorers`]).
+/// The engine's scratch is this thread's kept scorer for `model` (`service::scorers`).
 pub fn score<'a>(
     model: &'a Arc<Model>,
     request: &'a ProbabilityRequest,
