@@ -218,15 +218,17 @@ impl Options {
 }
 
 impl Default for Options {
-    /// Everything on at the 0.95 level.
+    /// Everything on at the 0.95 level: the same options, to the bit, as `Options::new(0.95)`,
+    /// which the HTTP routes and the command line build, so a library caller's intervals match
+    /// the service's.
     fn default() -> Self {
         Options {
             effects: true,
             elasticities: false,
             intervals: true,
             contributions: true,
-            level: 0.95,
-            quantile: 1.959_963_984_540_054,
+            level: COMMON_LEVEL,
+            quantile: COMMON_LEVEL_QUANTILE,
         }
     }
 }
@@ -992,7 +994,11 @@ mod tests {
     #[test]
     fn default_quantile_is_the_95_percent_normal_quantile() {
         let fresh = Options::new(0.95).unwrap();
-        assert!((fresh.quantile() - Options::default().quantile()).abs() < 1e-14);
+        assert_eq!(fresh, Options::default());
+        assert_eq!(
+            fresh.quantile().to_bits(),
+            Options::default().quantile().to_bits()
+        );
         assert!(Options::new(1.0).is_err());
         assert!(Options::new(f64::NAN).is_err());
     }
