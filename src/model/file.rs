@@ -290,13 +290,13 @@ impl Weighting {
             M::Frequency => format!(
                 "frequency weights from column '{}' (sum {}, weighted outcome rate {:.6})",
                 self.column.as_deref().unwrap_or(""),
-                self.weight_sum,
+                weight_sum_text(self.weight_sum),
                 self.sample_rate
             ),
             M::Sampling => format!(
                 "sampling weights from column '{}' (sum {}, weighted outcome rate {:.6}); HC0 sandwich covariance",
                 self.column.as_deref().unwrap_or(""),
-                self.weight_sum,
+                weight_sum_text(self.weight_sum),
                 self.sample_rate
             ),
             M::PopulationIntercept => format!(
@@ -312,6 +312,15 @@ impl Weighting {
             ),
         }
     }
+}
+
+/// A sum of weights as the summary prints it: rounded to 12 significant digits, then written
+/// in the shortest form that reads back to that, so that the rounding of the summation
+/// (…000000001) does not reach the reader while any real fraction does. The model file keeps
+/// the exact sum.
+fn weight_sum_text(sum: f64) -> String {
+    let rounded: f64 = format!("{sum:.11e}").parse().unwrap_or(sum);
+    format!("{rounded}")
 }
 
 /// The ways a fit can weight its observations.
@@ -350,4 +359,21 @@ pub fn json_schema() -> serde_json::Value {
         .into_generator()
         .into_root_schema_for::<ModelFile>();
     serde_json::to_value(schema).unwrap_or_default()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::weight_sum_text;
+
+    #[test]
+    fn weight_sums_print_without_summation_noise() {
+        assert_eq!(weight_sum_text(300.0), "300");
+        assert_eq!(weight_sum_text(0.1 + 0.2), "0.3");
+        let tenths: f64 = std::iter::repeat_n(0.1, 10).sum();
+        assert_eq!(tenths.to_string(), "0.9999999999999999");
+        assert_eq!(weight_sum_text(tenths), "1");
+        assert_eq!(weight_sum_text(12_345.678_9), "12345.6789");
+        assert_eq!(weight_sum_text(2.5e-7), "0.00000025");
+        assert_eq!(weight_sum_text(1e16 + 0.5), "10000000000000000");
+    }
 }
