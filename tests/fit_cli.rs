@@ -2,24 +2,15 @@
 //! writes (which `ogive check` accepts), the exit status and message of a failure, and no
 //! progress output when stderr is not a terminal.
 
+mod support;
+
 use std::path::PathBuf;
 use std::process::Command;
 
+use support::process::succeeded;
+
 fn ogive() -> Command {
     Command::new(env!("CARGO_BIN_EXE_ogive"))
-}
-
-/// Run `command`, assert that it succeeded (showing its standard error if not), and return
-/// what it printed.
-#[track_caller]
-fn succeeded(command: &mut Command) -> std::process::Output {
-    let run = command.output().expect("run ogive");
-    assert!(
-        run.status.success(),
-        "{}",
-        String::from_utf8_lossy(&run.stderr)
-    );
-    run
 }
 
 /// Run the fit `command`, assert that it succeeded, and return the model file it wrote at `out`.

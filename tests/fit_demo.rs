@@ -21,7 +21,7 @@ use nalgebra::{DMatrix, DVector};
 use ogive::link::normal_quantile;
 use ogive::model::Model;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
-use support::process::{copy_tree, write_executable};
+use support::process::{copy_tree, succeeded, write_executable};
 use support::tolerances::fit::REFIT_RELATIVE;
 
 fn root() -> PathBuf {
@@ -142,18 +142,12 @@ fn assert_same_json(ours: &serde_json::Value, committed: &serde_json::Value, at:
 #[test]
 fn refitting_the_demo_data_gives_the_committed_models() {
     let scratch = tempfile::tempdir().expect("tempdir");
-    let run = std::process::Command::new("bash")
-        .arg(root().join("demo-data/fit-demo-models.sh"))
-        .env("OGIVE", env!("CARGO_BIN_EXE_ogive"))
-        .env("MODEL_FILES", scratch.path())
-        .env("SKIP_GENERATE", "1")
-        .output()
-        .expect("run the demo fit script");
-    assert!(
-        run.status.success(),
-        "the demo fit script failed:\n{}\n{}",
-        String::from_utf8_lossy(&run.stdout),
-        String::from_utf8_lossy(&run.stderr)
+    succeeded(
+        std::process::Command::new("bash")
+            .arg(root().join("demo-data/fit-demo-models.sh"))
+            .env("OGIVE", env!("CARGO_BIN_EXE_ogive"))
+            .env("MODEL_FILES", scratch.path())
+            .env("SKIP_GENERATE", "1"),
     );
     for name in ["lease-arrears", "rebate-uptake"] {
         let committed = root().join("model-files").join(name);
@@ -226,20 +220,14 @@ fn the_demo_script_without_ogive_builds_under_cargo_target_dir() {
     let path = std::env::var_os("PATH").unwrap_or_default();
     let mut search = vec![tools];
     search.extend(std::env::split_paths(&path));
-    let run = std::process::Command::new("bash")
-        .arg(root().join("demo-data/fit-demo-models.sh"))
-        .env_remove("OGIVE")
-        .env("CARGO_TARGET_DIR", &target)
-        .env("MODEL_FILES", &models)
-        .env("SKIP_GENERATE", "1")
-        .env("PATH", std::env::join_paths(search).expect("PATH"))
-        .output()
-        .expect("run the demo script");
-    assert!(
-        run.status.success(),
-        "{}{}",
-        String::from_utf8_lossy(&run.stdout),
-        String::from_utf8_lossy(&run.stderr)
+    succeeded(
+        std::process::Command::new("bash")
+            .arg(root().join("demo-data/fit-demo-models.sh"))
+            .env_remove("OGIVE")
+            .env("CARGO_TARGET_DIR", &target)
+            .env("MODEL_FILES", &models)
+            .env("SKIP_GENERATE", "1")
+            .env("PATH", std::env::join_paths(search).expect("PATH")),
     );
     for name in ["lease-arrears", "rebate-uptake"] {
         assert!(models.join(name).join("live").is_file(), "{name}: live");

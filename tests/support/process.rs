@@ -3,8 +3,23 @@
 //! ports, a child process killed when dropped, plain GETs, and waiting for an exit.
 
 use std::path::Path;
-use std::process::{Child, ExitStatus};
+use std::process::{Child, Command, ExitStatus, Output};
 use std::time::{Duration, Instant};
+
+/// Run `command` to its end, assert that it succeeded (showing what it printed on both
+/// streams if not), and return its output.
+#[track_caller]
+pub fn succeeded(command: &mut Command) -> Output {
+    let run = command.output().expect("run the command");
+    assert!(
+        run.status.success(),
+        "{command:?} failed ({}):\n{}\n{}",
+        run.status,
+        String::from_utf8_lossy(&run.stdout),
+        String::from_utf8_lossy(&run.stderr)
+    );
+    run
+}
 
 /// A free loopback port (the kernel picks it; released at once for the server to take).
 pub fn free_port() -> u16 {
