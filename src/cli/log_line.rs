@@ -106,38 +106,10 @@ where
 
 #[cfg(test)]
 mod tests {
-    use std::io;
-    use std::sync::{Arc, Mutex};
-
     use serde_json::{json, Value as Json};
-    use tracing_subscriber::fmt::MakeWriter;
 
     use super::*;
-
-    #[derive(Clone, Default)]
-    struct Captured(Arc<Mutex<Vec<u8>>>);
-
-    impl io::Write for Captured {
-        fn write(&mut self, bytes: &[u8]) -> io::Result<usize> {
-            self.0
-                .lock()
-                .expect("not poisoned")
-                .extend_from_slice(bytes);
-            Ok(bytes.len())
-        }
-
-        fn flush(&mut self) -> io::Result<()> {
-            Ok(())
-        }
-    }
-
-    impl<'a> MakeWriter<'a> for Captured {
-        type Writer = Captured;
-
-        fn make_writer(&'a self) -> Captured {
-            self.clone()
-        }
-    }
+    use crate::service::access_log::tests::Captured;
 
     fn lines_of(log: impl FnOnce()) -> Vec<String> {
         let captured = Captured::default();

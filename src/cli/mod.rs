@@ -56,26 +56,37 @@ pub enum Command {
 /// Set up `tracing`: JSON lines for `serve` (`cli::log_line`), compact text on stderr otherwise; level from
 /// `RUST_LOG` (default `info` for `serve`, `warn` for the other commands).
 ///
-/// `serve` writes its lines from a background thread through a buffer that is flushed whenever
-/// no line is waiting, so a request never waits for stderr and a busy server writes many lines
-/// per system call. Nothing is dropped: when the queue is full, the logging thread holds the
-/// caller back. Keep the returned guard alive until the end of `main`: dropping it writes what is
-/// queued. A process killed outright (SIGKILL) can lose the lines of its last moments.
-pub fn init_logging(cli: &Cli) -> Option<tracing_appender::non_blocking::WorkerGuard> {
+/// `serve` writes its lines through `service::access_log`: every thread appends whole lines to
+/// one buffer that a background thread writes out, gathering lines for at most a couple of
+/// milliseconds, so a request never waits for stderr and a busy server writes many lines per
+/// system call; request lines are written there by hand, without the logging crate's dispatch.
+/// Nothing is dropped: when 8 MiB wait unwritten, an appending thread waits for the writer.
+/// Keep the returned guard alive until the end of `main`: dropping it writes what is waiting.
+/// A process killed outright (SIGKILL) can lose the lines of its last moments.
+pub fn init_logging(cli: &Cli) -> Option<crate::service::access_log::LogGuard> {
+    use crate::service::access_log::{self, LogSink, REQUEST_TARGET};
     use tracing_subscriber::EnvFilter;
     let serving = matches!(cli.command, Command::Serve(_));
     let filter = EnvFilter::try_from_default_env()
         .unwrap_or_else(|_| EnvFilter::new(if serving { "info" } else { "warn" }));
     let builder = tracing_subscriber::fmt().with_env_filter(filter);
     if serving {
-        let (writer, guard) = tracing_appender::non_blocking::NonBlockingBuilder::default()
-            .lossy(false)
-            .thread_name("ogive-log")
-            .finish(std::io::BufWriter::new(std::io::stderr()));
-        let _ = builder
-            .with_writer(writer)
+        let Ok((sink, guard)) = LogSink::start(std::io::stderr(), "ogive-log") else {
+            let _ = builder
+                .with_writer(std::io::stderr)
+                .event_format(log_line::JsonLines)
+                .try_init();
+            return None;
+        };
+        if builder
+            .with_writer(sink.clone())
             .event_format(log_line::JsonLines)
-            .try_init();
+            .try_init()
+            .is_ok()
+        {
+            let requests = tracing::enabled!(target: REQUEST_TARGET, tracing::Level::INFO);
+            access_log::install(sink, requests);
+        }
         Some(guard)
     } else {
         let _ = builder

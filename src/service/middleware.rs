@@ -2,7 +2,7 @@
 //! oversized headers, records the request metrics (an admin route's label is prefixed `admin:`),
 //! closes the connection after each answer while the process drains (`Connection: close`, so
 //! that keep-alive clients move to another replica instead of meeting a closed socket), and
-//! writes the request's single JSON log line. Beside it,
+//! writes the request's single JSON log line (`service::access_log`). Beside it,
 //! [`Guarded`] wraps every handler so that a panic answers that one request with a 500 instead
 //! of taking down a worker and the connections it carries.
 //!
@@ -25,6 +25,7 @@ use actix_web::http::ConnectionType;
 use actix_web::middleware::Next;
 use actix_web::{web, Error, HttpMessage, ResponseError};
 
+use super::access_log::{self, RequestLine};
 use super::problem::{Kind, Problem};
 use super::request_id::{RequestId, HEADER};
 use super::state::AppState;
@@ -207,7 +208,7 @@ pub async fn observe(
     if request.app_data::<AdminListener>().is_some() {
         route = format!("{ADMIN_ROUTE_PREFIX}{route}").into();
     }
-    let scored = request.extensions().get::<Scored>().cloned();
+    let extensions = request.extensions();
     record(
         state.as_ref(),
         &request_id,
@@ -215,8 +216,9 @@ pub async fn observe(
         method,
         status,
         seconds,
-        scored.as_ref(),
+        extensions.get::<Scored>(),
     );
+    drop(extensions);
     Ok(response)
 }
 
@@ -233,18 +235,32 @@ fn record(
     if let Some(state) = state {
         state.metrics.record_request(route, method, status, seconds);
     }
-    tracing::info!(
-        request_id = request_id.as_str(),
-        route,
-        method,
-        status,
-        // To the microsecond: finer digits are clock noise and made lines like 0.010655999999999999.
-        latency_ms = (seconds * 1e6).round() / 1e3,
-        model = scored.map(|s| s.model.as_str()),
-        version = scored.map(|s| s.version.as_str()),
-        observations = scored.and_then(|s| s.observations.as_deref()),
-        "request"
-    );
+    // To the microsecond: finer digits are clock noise and made lines like 0.010655999999999999.
+    let latency_ms = (seconds * 1e6).round() / 1e3;
+    match access_log::installed() {
+        Some(Some(sink)) => sink.request(&RequestLine {
+            request_id: request_id.as_str(),
+            route,
+            method,
+            status,
+            latency_ms,
+            model: scored.map(|s| s.model.as_str()),
+            version: scored.map(|s| s.version.as_str()),
+            observations: scored.and_then(|s| s.observations.as_deref()),
+        }),
+        Some(None) => {}
+        None => tracing::info!(
+            request_id = request_id.as_str(),
+            route,
+            method,
+            status,
+            latency_ms,
+            model = scored.map(|s| s.model.as_str()),
+            version = scored.map(|s| s.version.as_str()),
+            observations = scored.and_then(|s| s.observations.as_deref()),
+            "request"
+        ),
+    }
 }
 
 #[cfg(test)]

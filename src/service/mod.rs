@@ -22,6 +22,7 @@
 //! etag.rs         entity tags and If-None-Match for the read routes
 //! openapi.rs      the OpenAPI 3.1 document (openapi.json + per-model paths)
 //! middleware.rs   request id, header limit, panic catching, metrics, the log line
+//! access_log.rs   the log's shared buffer and writer thread, the request line by hand
 //! request_id.rs   X-Request-Id validation and generation
 //! example.rs      an example observation and curl command for a model
 //! shutdown.rs     signals, draining, graceful stop
@@ -33,6 +34,7 @@
 //! The service contains no statistics: it parses, calls the engine, and writes what the engine
 //! computed.
 
+pub mod access_log;
 pub mod admin;
 pub(crate) mod answer;
 pub(crate) mod app;
