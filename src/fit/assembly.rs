@@ -10,6 +10,9 @@ use crate::model::file::{
 };
 use crate::model::{FORMAT_NAME, FORMAT_VERSION};
 
+use crate::link::Link;
+
+use super::design::reduce_rows;
 use super::error::FitError;
 use super::estimation::{indices, Prepared};
 use super::newton::Estimate;
@@ -36,21 +39,27 @@ pub(crate) struct Parts<'a> {
 pub(crate) fn assemble(parts: Parts<'_>) -> Result<Fitted, FitError> {
     let (request, checked, sample, shapes) =
         (parts.request, parts.checked, parts.sample, parts.shapes);
-    let (prepared, estimate) = (parts.prepared, parts.estimate);
+    let (prepared, mut estimate) = (parts.prepared, parts.estimate);
     let (covariance, covariance_type) = (parts.covariance, parts.covariance_type);
     let weights = sample.weights();
     let weighting_record = weighting::record(&checked.weighting, sample.outcome(), weights);
     let beta = served_coefficients(&estimate, &prepared.labels, weighting_record.as_ref());
 
-    // Fitted index and probabilities, then the design is no longer needed.
-    let index = indices(&prepared.design, &beta);
+    // Fitted index and probabilities, then the design is no longer needed. The last Newton
+    // pass kept the index at the estimate; a shifted intercept needs it anew.
+    let index = if beta == estimate.coefficients && estimate.index.len() == sample.rows() {
+        std::mem::take(&mut estimate.index)
+    } else {
+        indices(&prepared.design, &beta)
+    };
     let Prepared {
         design,
         labels,
         collinearity,
+        ..
     } = prepared;
     drop(design);
-    let probabilities: Vec<f64> = index.iter().map(|&z| request.link.probability(z)).collect();
+    let probabilities = probabilities(request.link, &index);
 
     let mut remarks: Vec<String> = collinearity.into_iter().collect();
     if let Some(w) = &weighting_record {
@@ -131,6 +140,21 @@ pub(crate) fn assemble(parts: Parts<'_>) -> Result<Fitted, FitError> {
         .collect();
     let file = check_cases::attach(file, observations)?;
     Ok(Fitted { file, report })
+}
+
+/// `F(zᵢ)` for every row, on the worker threads.
+fn probabilities(link: Link, index: &[f64]) -> Vec<f64> {
+    reduce_rows(
+        index.len(),
+        Vec::new,
+        |part: &mut Vec<f64>, range| part.extend(index[range].iter().map(|&z| link.probability(z))),
+        |total, part| {
+            if total.is_empty() {
+                total.reserve(index.len());
+            }
+            total.extend(part)
+        },
+    )
 }
 
 /// The coefficients the model file serves: the estimate, with the intercept shifted by the

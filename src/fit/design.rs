@@ -5,7 +5,8 @@
 //!
 //! Column-major blocks are what make a pass fast: the linear index, the score and every entry
 //! of the information matrix are then sums along contiguous runs of a block, which the
-//! compiler turns into vector instructions, with no copy of the rows per pass.
+//! compiler turns into vector instructions, with no copy of the rows per pass (the sums
+//! themselves are [`super::kernel`]'s).
 //!
 //! Term values come from [`Term::value`], the function the engine scores with, so a model's
 //! check cases reproduce exactly what the fit saw.
@@ -225,6 +226,19 @@ pub fn worker_threads() -> usize {
     })
 }
 
+/// `run` on this many threads (on the calling one alone for one).
+fn run_on(threads: usize, run: impl Fn() + Sync) {
+    if threads <= 1 {
+        run();
+    } else {
+        std::thread::scope(|scope| {
+            for _ in 0..threads {
+                scope.spawn(&run);
+            }
+        });
+    }
+}
+
 /// Reduce `rows` rows in blocks: `work` folds a range of rows into a fresh accumulator, and the
 /// block accumulators are combined in block order with `combine`.
 pub fn reduce_rows<A: Send>(
@@ -251,15 +265,7 @@ pub fn reduce_rows<A: Send>(
             *slot = Some(acc);
         }
     };
-    if threads <= 1 {
-        run();
-    } else {
-        std::thread::scope(|scope| {
-            for _ in 0..threads {
-                scope.spawn(run);
-            }
-        });
-    }
+    run_on(threads, run);
     let mut total = init();
     for slot in slots {
         if let Some(acc) = slot.into_inner().ok().flatten() {
@@ -269,51 +275,33 @@ pub fn reduce_rows<A: Send>(
     total
 }
 
-/// Lanes of the vectorised sums: four independent partial sums per run, added at the end.
-const LANES: usize = 4;
-
-/// `Σᵢ aᵢ bᵢ` in [`LANES`] partial sums (a fixed order, so the same bits on every run).
-#[inline]
-pub fn dot(a: &[f64], b: &[f64]) -> f64 {
-    let mut lanes = [0.0; LANES];
-    let (a_body, a_tail) = a.split_at(a.len() - a.len() % LANES);
-    let b_body = &b[..a_body.len()];
-    for (x, y) in a_body.chunks_exact(LANES).zip(b_body.chunks_exact(LANES)) {
-        for l in 0..LANES {
-            lanes[l] += x[l] * y[l];
+/// `work(0)`, …, `work(count − 1)` on the worker threads, in order: for per-column work that
+/// needs no reduction over rows (each item is computed whole by one thread, so its bits do not
+/// depend on the number of threads).
+pub fn each_parallel<T: Send>(count: usize, work: impl Fn(usize) -> T + Sync) -> Vec<T> {
+    let next = AtomicUsize::new(0);
+    let slots: Vec<Mutex<Option<T>>> = (0..count).map(|_| Mutex::new(None)).collect();
+    let run = || loop {
+        let i = next.fetch_add(1, Ordering::Relaxed);
+        if i >= count {
+            break;
         }
-    }
-    let mut tail = 0.0;
-    for (x, y) in a_tail.iter().zip(&b[a_body.len()..]) {
-        tail += x * y;
-    }
-    (lanes[0] + lanes[1]) + (lanes[2] + lanes[3]) + tail
-}
-
-/// Add `Σ wᵢ xᵢ xᵢᵀ` over some rows to the lower triangle of `matrix` (row-major `k × k`);
-/// with no weights, `XᵀX`. `scratch` holds one row-length run. Callers finish with
-/// [`symmetrise`].
-pub fn add_weighted_gram(
-    matrix: &mut [f64],
-    rows: Rows<'_>,
-    weights: Option<&[f64]>,
-    scratch: &mut Vec<f64>,
-) {
-    let k = rows.terms();
-    for a in 0..k {
-        let column = rows.column(a);
-        let weighted: &[f64] = match weights {
-            Some(w) => {
-                scratch.clear();
-                scratch.extend(column.iter().zip(w).map(|(x, v)| x * v));
-                scratch
-            }
-            None => column,
-        };
-        for b in 0..=a {
-            matrix[a * k + b] += dot(weighted, rows.column(b));
+        let value = work(i);
+        if let Ok(mut slot) = slots[i].lock() {
+            *slot = Some(value);
         }
-    }
+    };
+    let threads = worker_threads().min(count.max(1));
+    run_on(threads, run);
+    slots
+        .into_iter()
+        .map(|slot| {
+            slot.into_inner()
+                .ok()
+                .flatten()
+                .expect("every item was computed")
+        })
+        .collect()
 }
 
 /// Make a row-major square matrix exactly symmetric by copying its lower triangle up.
@@ -323,23 +311,4 @@ pub fn symmetrise(matrix: &mut [f64], k: usize) {
             matrix[b * k + a] = matrix[a * k + b];
         }
     }
-}
-
-/// `XᵀWX`, the Gram matrix of the design with the rows weighted (`XᵀX` without weights), for
-/// the rank and collinearity checks: a row of weight 0 adds nothing, so a design is judged by
-/// the observations that count.
-pub fn gram(design: &Design, weights: Option<&[f64]>) -> Vec<f64> {
-    let k = design.columns();
-    let mut g = reduce_rows(
-        design.rows(),
-        || (vec![0.0; k * k], Vec::new()),
-        |(acc, scratch), range| {
-            let block_weights = weights.map(|w| &w[range.clone()]);
-            add_weighted_gram(acc, design.rows_of(range), block_weights, scratch)
-        },
-        |total, part| total.0.iter_mut().zip(part.0).for_each(|(t, p)| *t += p),
-    )
-    .0;
-    symmetrise(&mut g, k);
-    g
 }

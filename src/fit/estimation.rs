@@ -1,5 +1,6 @@
 //! Estimation: the design matrix and the checks it must pass before any iteration (rank,
-//! collinearity, one-term separation), Newton–Raphson from the starting intercept, a failed
+//! collinearity, one-term separation; all from one survey pass, which also gives the first
+//! Newton step its sums), Newton–Raphson from the starting intercept, a failed
 //! maximisation named (separation, singular information, no convergence), and the coefficient
 //! covariance:
 //!
@@ -11,12 +12,13 @@
 
 use crate::link::Link;
 
-use super::design::{self, reduce_rows, Design};
+use super::design::{reduce_rows, Design};
 use super::error::FitError;
 use super::likelihood::{self, accumulate, Matrix};
 use super::newton::{self, Estimate};
 use super::options::{Checked, CovarianceType, FitRequest};
 use super::sample::Sample;
+use super::survey::Survey;
 use super::terms::{self, CovariateShape};
 use super::{rank, separation, weighting, Progress};
 
@@ -29,6 +31,8 @@ pub(crate) struct Prepared {
     pub labels: Vec<String>,
     /// The note of a nearly collinear design.
     pub collinearity: Option<String>,
+    /// The survey of the design.
+    pub survey: Survey,
 }
 
 /// Build the design from the terms and refuse one that cannot be estimated: collinear terms
@@ -44,15 +48,17 @@ pub(crate) fn prepare(
     let labels: Vec<String> = design_terms.iter().map(|t| t.label()).collect();
     let resolved: Vec<_> = design_terms.iter().map(|t| t.term.clone()).collect();
     let design = Design::build(&sample.table.columns, sample.rows(), &resolved);
-    let gram = design::gram(&design, sample.weights());
+    let survey = Survey::of(&design, sample.outcome(), sample.weights());
+    let gram = survey.gram();
     rank::check_rank(&gram, &labels, sample.counted)?;
     let collinearity = rank::collinearity_note(&rank::collinearity(&gram, labels.len()), &labels);
     drop(gram);
-    separation::check_single_terms(&design, sample.outcome(), sample.weights(), &labels)?;
+    separation::check_single_terms(survey.extremes(), &labels)?;
     Ok(Prepared {
         design,
         labels,
         collinearity,
+        survey,
     })
 }
 
@@ -93,12 +99,23 @@ pub(crate) fn estimate(
     let options = newton::NewtonOptions {
         max_iterations: request.max_iterations,
     };
+    let start = start(request.link, labels, sample);
+    // Every row's index at the start is the intercept's value (0 without one).
+    let index = labels
+        .iter()
+        .zip(&start)
+        .find(|(l, _)| *l == "intercept")
+        .map_or(0.0, |(_, &b)| b);
+    let at_start = prepared.survey.sums_at_constant_index(request.link, index);
     newton::maximise(
         design,
         sample.outcome(),
         sample.weights(),
         request.link,
-        &start(request.link, labels, sample),
+        newton::Start {
+            coefficients: start,
+            sums: at_start,
+        },
         options,
         &Iterations(progress),
     )

@@ -28,12 +28,12 @@
 //! guarded by their asymptotes where F or 1 − F underflows, so a far-out observation gives a
 //! large finite score rather than NaN.
 
-use std::cell::RefCell;
 use std::f64::consts::PI;
 
-use crate::link::Link;
+use crate::link::{Link, LinkValues};
 
-use super::design::{add_weighted_gram, dot, reduce_rows, symmetrise, Design, Rows};
+use super::design::{reduce_rows, symmetrise, Design, Rows};
+use super::kernel::{add_gram_chunk, add_packed_to, add_products, total, wide, CHUNK, LANES};
 
 /// `½·log(2π)`.
 const HALF_LN_2PI: f64 = 0.918_938_533_204_672_8;
@@ -52,15 +52,15 @@ fn density_ratio(link: Link, z: f64) -> f64 {
     }
 }
 
-/// `λ₁ = f/F`.
+/// `λ₁ = f/F`, from the link's values at z.
 #[inline]
-fn ratio_one(link: Link, z: f64) -> f64 {
+fn ratio_one(link: Link, z: f64, values: &LinkValues) -> f64 {
     match link {
-        Link::Logit => link.complement(z),
+        Link::Logit => values.complement,
         _ => {
-            let p = link.probability(z);
+            let p = values.probability;
             if p > TINY {
-                link.density(z) / p
+                values.density / p
             } else {
                 match link {
                     // Mills ratio: φ(z)/Φ(z) → −z as z → −∞.
@@ -74,16 +74,16 @@ fn ratio_one(link: Link, z: f64) -> f64 {
     }
 }
 
-/// `λ₀ = f/(1 − F)`.
+/// `λ₀ = f/(1 − F)`, from the link's values at z.
 #[inline]
-fn ratio_zero(link: Link, z: f64) -> f64 {
+fn ratio_zero(link: Link, z: f64, values: &LinkValues) -> f64 {
     match link {
-        Link::Logit => link.probability(z),
+        Link::Logit => values.probability,
         Link::Cloglog => z.exp(),
         _ => {
-            let q = link.complement(z);
+            let q = values.complement;
             if q > TINY {
-                link.density(z) / q
+                values.density / q
             } else {
                 match link {
                     Link::Probit => z,
@@ -94,10 +94,9 @@ fn ratio_zero(link: Link, z: f64) -> f64 {
     }
 }
 
-/// `log F(z)`, with the asymptote where F underflows.
+/// The asymptote of `log F(z)` where `value`, the link's own, is not finite.
 #[inline]
-pub fn log_probability(link: Link, z: f64) -> f64 {
-    let value = link.log_probability(z);
+fn log_probability_from(link: Link, z: f64, value: f64) -> f64 {
     if value.is_finite() {
         return value;
     }
@@ -109,10 +108,9 @@ pub fn log_probability(link: Link, z: f64) -> f64 {
     }
 }
 
-/// `log(1 − F(z))`, with the asymptote where 1 − F underflows.
+/// The asymptote of `log(1 − F(z))` where `value`, the link's own, is not finite.
 #[inline]
-pub fn log_complement(link: Link, z: f64) -> f64 {
-    let value = link.log_complement(z);
+fn log_complement_from(link: Link, z: f64, value: f64) -> f64 {
     if value.is_finite() {
         return value;
     }
@@ -183,19 +181,29 @@ pub fn pointwise(link: Link, z: f64, y: f64) -> Pointwise {
     if link == Link::Logit {
         return logit_pointwise(z, y);
     }
-    let one = ratio_one(link, z);
-    let zero = ratio_zero(link, z);
+    // One evaluation of the link gives F, 1 − F and f for every term below (the link's own
+    // log F is log of its F, and log(1 − F) that of its 1 − F but for cloglog's −eᶻ).
+    let values = link.evaluate(z);
+    let one = ratio_one(link, z, &values);
+    let zero = ratio_zero(link, z, &values);
     let h = density_ratio(link, z);
     if y > 0.5 {
         Pointwise {
-            log_likelihood: log_probability(link, z),
+            log_likelihood: log_probability_from(link, z, values.probability.ln()),
             score: one,
             observed_weight: one * (one - h),
             expected_weight: one * zero,
         }
     } else {
         Pointwise {
-            log_likelihood: log_complement(link, z),
+            log_likelihood: log_complement_from(
+                link,
+                z,
+                match link {
+                    Link::Cloglog => -z.exp(),
+                    _ => values.complement.ln(),
+                },
+            ),
             score: -zero,
             observed_weight: zero * (zero + h),
             expected_weight: one * zero,
@@ -229,20 +237,8 @@ pub struct Sums {
     pub gradient: Vec<f64>,
     /// The requested matrix, row-major `k × k` (empty for [`Matrix::None`]).
     pub matrix: Vec<f64>,
-}
-
-/// One thread's working runs for a pass: the index, score and matrix weight of each row of a
-/// block, and the weighted run the information matrix is summed from.
-#[derive(Default)]
-struct PassScratch {
-    index: Vec<f64>,
-    scores: Vec<f64>,
-    weights: Vec<f64>,
-    run: Vec<f64>,
-}
-
-thread_local! {
-    static PASS_SCRATCH: RefCell<PassScratch> = RefCell::new(PassScratch::default());
+    /// Every row's index `xᵢᵀβ`, in row order, when the pass keeps it (else empty).
+    pub index: Vec<f64>,
 }
 
 /// The linear indices `xᵢᵀβ` of some rows, into `out`, the terms added in order.
@@ -256,6 +252,100 @@ pub fn indices_of(rows: Rows<'_>, beta: &[f64], out: &mut Vec<f64>) {
     }
 }
 
+/// What one pass computes, and where.
+#[derive(Clone, Copy)]
+struct Pass<'a> {
+    outcome: &'a [f64],
+    weights: Option<&'a [f64]>,
+    link: Link,
+    beta: &'a [f64],
+    matrix: Matrix,
+    keep_index: bool,
+}
+
+/// One block of a pass, chunk by chunk (see [`super::kernel`]): the index, the pointwise terms,
+/// the score and the lower triangle of the matrix of each chunk while its rows are in cache.
+#[inline(always)]
+fn block_body(pass: &Pass<'_>, rows: Rows<'_>, first: usize, out: &mut Sums) {
+    let k = rows.terms();
+    let mut gradient_lanes = vec![[0.0; LANES]; k];
+    let triangle = if pass.matrix == Matrix::None {
+        0
+    } else {
+        k * (k + 1) / 2
+    };
+    let mut matrix_lanes = vec![[0.0; LANES]; triangle];
+    let mut index = [0.0; CHUNK];
+    let mut scores = [0.0; CHUNK];
+    let mut row_weights = [0.0; CHUNK];
+    let mut run = [0.0; CHUNK];
+    let mut start = 0;
+    while start < rows.len() {
+        let n = CHUNK.min(rows.len() - start);
+        let z = &mut index[..n];
+        z.fill(0.0);
+        for (j, &b) in pass.beta.iter().enumerate() {
+            for (z, &x) in z.iter_mut().zip(&rows.column(j)[start..start + n]) {
+                *z += x * b;
+            }
+        }
+        if pass.keep_index {
+            out.index.extend_from_slice(z);
+        }
+        let outcome = &pass.outcome[first + start..first + start + n];
+        let chunk_weights = pass.weights.map(|w| &w[first + start..first + start + n]);
+        for r in 0..n {
+            let v = chunk_weights.map_or(1.0, |w| w[r]);
+            if v == 0.0 {
+                // A zero weight removes the row, even where its terms are extreme.
+                scores[r] = 0.0;
+                row_weights[r] = 0.0;
+                continue;
+            }
+            let p = pointwise(pass.link, z[r], outcome[r]);
+            out.log_likelihood += v * p.log_likelihood;
+            let score = v * p.score;
+            scores[r] = score;
+            row_weights[r] = match pass.matrix {
+                Matrix::None => 0.0,
+                Matrix::Observed => v * p.observed_weight,
+                Matrix::Expected => v * p.expected_weight,
+                Matrix::ScoreOuter => v * p.score * p.score,
+                Matrix::WeightedScoreOuter => score * score,
+            };
+        }
+        for (j, lanes) in gradient_lanes.iter_mut().enumerate() {
+            add_products(lanes, &scores[..n], &rows.column(j)[start..start + n]);
+        }
+        if triangle > 0 {
+            add_gram_chunk(&mut matrix_lanes, rows, start, &row_weights[..n], &mut run);
+        }
+        start += n;
+    }
+    for (g, lanes) in out.gradient.iter_mut().zip(&gradient_lanes) {
+        *g += total(lanes);
+    }
+    if triangle > 0 {
+        add_packed_to(&mut out.matrix, &matrix_lanes, k);
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+fn block_wide(pass: &Pass<'_>, rows: Rows<'_>, first: usize, out: &mut Sums) {
+    block_body(pass, rows, first, out)
+}
+
+/// [`block_body`] in the code chosen at run time (the same bits either way).
+fn block(pass: &Pass<'_>, rows: Rows<'_>, first: usize, out: &mut Sums) {
+    #[cfg(target_arch = "x86_64")]
+    if wide() {
+        // SAFETY: the processor has AVX2 (checked by `wide`).
+        return unsafe { block_wide(pass, rows, first, out) };
+    }
+    block_body(pass, rows, first, out)
+}
+
 /// Accumulate the log-likelihood, the score and the requested matrix at `beta`, with each
 /// observation weighted by `weights[i]` (1 without weights), in one pass over the design.
 pub fn accumulate(
@@ -266,56 +356,52 @@ pub fn accumulate(
     beta: &[f64],
     matrix: Matrix,
 ) -> Sums {
+    pass(design, outcome, weights, link, beta, matrix, false)
+}
+
+/// The sums with [`Matrix::Observed`] at `beta`, also keeping every row's index `xᵢᵀβ` in
+/// [`Sums::index`] (a Newton step's pass, whose index is the fitted one if it is the last).
+pub fn accumulate_keeping_index(
+    design: &Design,
+    outcome: &[f64],
+    weights: Option<&[f64]>,
+    link: Link,
+    beta: &[f64],
+) -> Sums {
+    pass(design, outcome, weights, link, beta, Matrix::Observed, true)
+}
+
+fn pass(
+    design: &Design,
+    outcome: &[f64],
+    weights: Option<&[f64]>,
+    link: Link,
+    beta: &[f64],
+    matrix: Matrix,
+    keep_index: bool,
+) -> Sums {
     let k = design.columns();
     let size = if matrix == Matrix::None { 0 } else { k * k };
-    let mut sums = reduce_rows(
+    let pass = Pass {
+        outcome,
+        weights,
+        link,
+        beta,
+        matrix,
+        keep_index,
+    };
+    let empty = || Sums {
+        log_likelihood: 0.0,
+        gradient: vec![0.0; k],
+        matrix: vec![0.0; size],
+        index: Vec::new(),
+    };
+    let mut total = reduce_rows(
         design.rows(),
-        || Sums {
-            log_likelihood: 0.0,
-            gradient: vec![0.0; k],
-            matrix: vec![0.0; size],
-        },
+        empty,
         |acc, range| {
-            PASS_SCRATCH.with(|scratch| {
-                let scratch = &mut *scratch.borrow_mut();
-                let rows = design.rows_of(range.clone());
-                indices_of(rows, beta, &mut scratch.index);
-                scratch.scores.clear();
-                scratch.weights.clear();
-                let outcome = &outcome[range.clone()];
-                let block_weights = weights.map(|w| &w[range.clone()]);
-                for (r, (&z, &y)) in scratch.index.iter().zip(outcome).enumerate() {
-                    let v = block_weights.map_or(1.0, |w| w[r]);
-                    if v == 0.0 {
-                        // A zero weight removes the row, even where its terms are extreme.
-                        scratch.scores.push(0.0);
-                        scratch.weights.push(0.0);
-                        continue;
-                    }
-                    let p = pointwise(link, z, y);
-                    acc.log_likelihood += v * p.log_likelihood;
-                    let score = v * p.score;
-                    scratch.scores.push(score);
-                    scratch.weights.push(match matrix {
-                        Matrix::None => 0.0,
-                        Matrix::Observed => v * p.observed_weight,
-                        Matrix::Expected => v * p.expected_weight,
-                        Matrix::ScoreOuter => v * p.score * p.score,
-                        Matrix::WeightedScoreOuter => score * score,
-                    });
-                }
-                for (j, g) in acc.gradient.iter_mut().enumerate() {
-                    *g += dot(&scratch.scores, rows.column(j));
-                }
-                if size > 0 {
-                    add_weighted_gram(
-                        &mut acc.matrix,
-                        rows,
-                        Some(&scratch.weights),
-                        &mut scratch.run,
-                    );
-                }
-            })
+            acc.index.reserve(range.len());
+            block(&pass, design.rows_of(range.clone()), range.start, acc);
         },
         |total, part| {
             total.log_likelihood += part.log_likelihood;
@@ -329,12 +415,18 @@ pub fn accumulate(
                 .iter_mut()
                 .zip(part.matrix)
                 .for_each(|(t, p)| *t += p);
+            if keep_index {
+                if total.index.is_empty() {
+                    total.index.reserve(design.rows());
+                }
+                total.index.extend(part.index);
+            }
         },
     );
     if size > 0 {
-        symmetrise(&mut sums.matrix, k);
+        symmetrise(&mut total.matrix, k);
     }
-    sums
+    total
 }
 
 /// The log-likelihood of the constant-probability model: with n the sum of the weights (the

@@ -18,6 +18,8 @@
 //! reader       CSV → outcome and covariate columns (parallel, bounded, row-numbered errors)
 //! kinds        binary / count / continuous for numeric columns
 //! design       the design matrix (column-major blocks of f64) and the blocked parallel reduction
+//! kernel       the sums of a pass: sixteen lanes, chunks in cache, AVX2 chosen at run time
+//! survey       one pass before the fit: Gram matrices and extremes by outcome, the start's sums
 //! rank         collinear terms, named with their combination
 //! separation   complete and quasi-complete separation, named with term and direction
 //! likelihood   ℓ, score, observed and expected information for every link
@@ -46,6 +48,7 @@ pub(crate) mod check_cases;
 pub(crate) mod design;
 pub(crate) mod error;
 pub(crate) mod estimation;
+pub(crate) mod kernel;
 pub(crate) mod kinds;
 pub(crate) mod likelihood;
 pub(crate) mod newton;
@@ -56,6 +59,7 @@ pub(crate) mod report;
 pub(crate) mod sample;
 pub(crate) mod separation;
 pub(crate) mod summaries;
+pub(crate) mod survey;
 pub(crate) mod terms;
 pub(crate) mod weighting;
 pub(crate) mod write;

@@ -23,7 +23,7 @@ use nalgebra::{DMatrix, DVector};
 use crate::link::Link;
 
 use super::design::Design;
-use super::likelihood::{accumulate, Matrix, Sums};
+use super::likelihood::{accumulate, accumulate_keeping_index, Matrix, Sums};
 
 /// Settings of the maximisation.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -61,6 +61,8 @@ pub struct Estimate {
     pub fisher_steps: u32,
     /// Step halvings, over all iterations.
     pub halvings: u32,
+    /// Every row's index `xᵢᵀβ̂`, kept from the last pass (empty if no step was taken).
+    pub index: Vec<f64>,
 }
 
 /// Why the maximisation stopped without an estimate.
@@ -108,7 +110,18 @@ fn estimate(
         information: at.matrix,
         fisher_steps,
         halvings,
+        index: at.index,
     }
+}
+
+/// Where the maximisation starts: the coefficients, and the log-likelihood, score and observed
+/// information there (which the caller may have without a pass of its own).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Start {
+    /// β₀.
+    pub coefficients: Vec<f64>,
+    /// The sums at β₀ with [`Matrix::Observed`].
+    pub sums: Sums,
 }
 
 /// Maximise the log-likelihood from `start`.
@@ -117,13 +130,13 @@ pub fn maximise(
     outcome: &[f64],
     weights: Option<&[f64]>,
     link: Link,
-    start: &[f64],
+    start: Start,
     options: NewtonOptions,
     observer: &dyn IterationObserver,
 ) -> Result<Estimate, Stopped> {
     let k = design.columns();
-    let mut beta = start.to_vec();
-    let mut at = accumulate(design, outcome, weights, link, &beta, Matrix::Observed);
+    let mut beta = start.coefficients;
+    let mut at = start.sums;
     let mut previous_change: Option<(f64, f64)> = None;
     let mut fisher_steps = 0;
     let mut halvings = 0;
@@ -182,14 +195,14 @@ pub fn maximise(
             fisher_steps += 1;
         }
         let mut scale = 1.0;
-        let mut accepted: Option<(Vec<f64>, Sums)> = None;
+        let mut accepted = None;
         for _ in 0..=MAX_HALVINGS {
             let trial: Vec<f64> = beta
                 .iter()
                 .zip(step.iter())
                 .map(|(b, s)| b + scale * s)
                 .collect();
-            let sums = accumulate(design, outcome, weights, link, &trial, Matrix::Observed);
+            let sums = accumulate_keeping_index(design, outcome, weights, link, &trial);
             let tolerance = 1e-12 * at.log_likelihood.abs();
             if sums.log_likelihood.is_finite()
                 && sums.log_likelihood >= at.log_likelihood - tolerance

@@ -282,17 +282,22 @@ pub(crate) fn shapes(
     names: &[String],
     columns: &[ColumnData],
 ) -> Result<Vec<CovariateShape>, FitError> {
+    // Each numeric column's kind reads every value: one column per worker thread.
+    let numeric_kinds = super::design::each_parallel(columns.len(), |c| match &columns[c] {
+        ColumnData::Numeric(values) => Some(if request.count.contains(&names[c]) {
+            kinds::overridden_kind(&names[c], values, CovariateKind::Count)
+        } else if request.continuous.contains(&names[c]) {
+            Ok(CovariateKind::Continuous)
+        } else {
+            Ok(kinds::infer_kind(values))
+        }),
+        ColumnData::Categorical { .. } => None,
+    });
     let mut out = Vec::with_capacity(names.len());
-    for (name, column) in names.iter().zip(columns) {
+    for ((name, column), numeric_kind) in names.iter().zip(columns).zip(numeric_kinds) {
         let shape = match column {
-            ColumnData::Numeric(values) => {
-                let kind = if request.count.contains(name) {
-                    kinds::overridden_kind(name, values, CovariateKind::Count)?
-                } else if request.continuous.contains(name) {
-                    CovariateKind::Continuous
-                } else {
-                    kinds::infer_kind(values)
-                };
+            ColumnData::Numeric(_) => {
+                let kind = numeric_kind.unwrap_or(Ok(CovariateKind::Continuous))?;
                 CovariateShape {
                     name: name.clone(),
                     kind,

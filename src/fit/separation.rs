@@ -22,34 +22,10 @@ use crate::link::Link;
 use super::design::{reduce_rows, Design};
 use super::error::FitError;
 use super::likelihood::indices_of;
+use super::survey::Extremes;
 
 /// Fitted probabilities closer than this to the outcome count as perfectly predicted.
 pub const PERFECT_FIT: f64 = 1e-10;
-
-#[derive(Debug, Clone, Copy)]
-struct Extremes {
-    min0: f64,
-    max0: f64,
-    min1: f64,
-    max1: f64,
-}
-
-impl Extremes {
-    fn new() -> Extremes {
-        Extremes {
-            min0: f64::INFINITY,
-            max0: f64::NEG_INFINITY,
-            min1: f64::INFINITY,
-            max1: f64::NEG_INFINITY,
-        }
-    }
-    fn merge(&mut self, o: Extremes) {
-        self.min0 = self.min0.min(o.min0);
-        self.max0 = self.max0.max(o.max0);
-        self.min1 = self.min1.min(o.min1);
-        self.max1 = self.max1.max(o.max1);
-    }
-}
 
 fn format_value(x: f64) -> String {
     format!("{}", (x * 1e9).round() / 1e9)
@@ -111,40 +87,10 @@ fn describe(label: &str, e: &Extremes, intercept: bool) -> Option<(&'static str,
     None
 }
 
-/// The exact one-term check, run before the fit. `labels[j] == "intercept"` marks the
-/// intercept column.
-pub fn check_single_terms(
-    design: &Design,
-    outcome: &[f64],
-    weights: Option<&[f64]>,
-    labels: &[String],
-) -> Result<(), FitError> {
-    let k = design.columns();
+/// The exact one-term check, run before the fit, from each term's extremes by outcome (the
+/// survey's). `labels[j] == "intercept"` marks the intercept column.
+pub fn check_single_terms(extremes: &[Extremes], labels: &[String]) -> Result<(), FitError> {
     let intercept = labels.iter().any(|l| l == "intercept");
-    let extremes = reduce_rows(
-        design.rows(),
-        || vec![Extremes::new(); k],
-        |acc, range| {
-            let rows = design.rows_of(range.clone());
-            let outcome = &outcome[range.clone()];
-            let block_weights = weights.map(|w| &w[range.clone()]);
-            for (j, e) in acc.iter_mut().enumerate() {
-                for (r, (&x, &y)) in rows.column(j).iter().zip(outcome).enumerate() {
-                    if block_weights.is_some_and(|w| w[r] == 0.0) {
-                        continue;
-                    }
-                    if y > 0.5 {
-                        e.min1 = e.min1.min(x);
-                        e.max1 = e.max1.max(x);
-                    } else {
-                        e.min0 = e.min0.min(x);
-                        e.max0 = e.max0.max(x);
-                    }
-                }
-            }
-        },
-        |total, part| total.iter_mut().zip(part).for_each(|(t, p)| t.merge(p)),
-    );
     for (j, e) in extremes.iter().enumerate() {
         if labels[j] == "intercept" {
             continue;
