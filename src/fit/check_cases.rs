@@ -12,6 +12,7 @@ use crate::engine::Scorer;
 use crate::model::file::{CheckCase, CovariateKind, ModelFile};
 use crate::model::{Model, ModelError, ModelProblem};
 
+use super::design::reduce_rows;
 use super::reader::ColumnData;
 
 /// How many check cases a fitted model carries.
@@ -19,24 +20,47 @@ pub const CHECK_CASES: usize = 7;
 
 /// Rows whose indices are the minimum, the maximum, and closest to evenly spaced values between.
 pub fn spread_rows(indices: &[f64], count: usize) -> Vec<usize> {
-    let Some(first) = indices.first() else {
+    if indices.is_empty() {
         return Vec::new();
-    };
-    let (low, high) = indices
-        .iter()
-        .fold((*first, *first), |(l, h), &z| (l.min(z), h.max(z)));
+    }
+    let (low, high) = reduce_rows(
+        indices.len(),
+        || (f64::INFINITY, f64::NEG_INFINITY),
+        |(l, h), range| {
+            for &z in &indices[range] {
+                *l = l.min(z);
+                *h = h.max(z);
+            }
+        },
+        |t, p| *t = (t.0.min(p.0), t.1.max(p.1)),
+    );
     let targets: Vec<f64> = (0..count)
         .map(|m| low + (high - low) * m as f64 / (count.max(2) - 1) as f64)
         .collect();
-    let mut best = vec![(f64::INFINITY, 0usize); count];
-    for (i, &z) in indices.iter().enumerate() {
-        for (target, slot) in targets.iter().zip(best.iter_mut()) {
-            let distance = (z - target).abs();
+    // The first row at the least distance from each target: blocks are combined in row order
+    // and only a strictly closer row replaces a slot.
+    let closer = |best: &mut Vec<(f64, usize)>, candidate: &[(f64, usize)]| {
+        for (slot, &(distance, i)) in best.iter_mut().zip(candidate) {
             if distance < slot.0 {
                 *slot = (distance, i);
             }
         }
-    }
+    };
+    let best = reduce_rows(
+        indices.len(),
+        || vec![(f64::INFINITY, 0usize); count],
+        |best, range| {
+            for i in range {
+                for (target, slot) in targets.iter().zip(best.iter_mut()) {
+                    let distance = (indices[i] - target).abs();
+                    if distance < slot.0 {
+                        *slot = (distance, i);
+                    }
+                }
+            }
+        },
+        |total, part| closer(total, &part),
+    );
     let mut rows: Vec<usize> = best.into_iter().map(|(_, i)| i).collect();
     rows.dedup();
     rows

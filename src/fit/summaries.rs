@@ -28,6 +28,7 @@ use nalgebra::DMatrix;
 use crate::model::file::{CovariateKind, Histogram, JointSpec, TrainingSummary};
 
 use super::design::reduce_rows;
+use super::kernel::{add_packed_to, add_products, packed, CHUNK, LANES};
 
 /// The largest sample used to place decile edges.
 pub const QUANTILE_SAMPLE: usize = 10_000;
@@ -126,7 +127,9 @@ fn decile_edges(sample: &[f64], low: f64, high: f64) -> Vec<f64> {
     strictly_increasing(candidates)
 }
 
-/// Count values into bins `[eᵢ, eᵢ₊₁)`, the last one closed.
+/// Count values into bins `[eᵢ, eᵢ₊₁)`, the last one closed. A value's bin is the number of
+/// interior edges at or below it, counted edge by edge over a chunk of values (no branch per
+/// value).
 pub fn count_into(values: &[f64], edges: &[f64]) -> Vec<u64> {
     let bins = edges.len() - 1;
     let interior = &edges[1..bins];
@@ -134,8 +137,18 @@ pub fn count_into(values: &[f64], edges: &[f64]) -> Vec<u64> {
         values.len(),
         || vec![0u64; bins],
         |acc, range| {
-            for &x in &values[range] {
-                acc[interior.partition_point(|&e| e <= x)] += 1;
+            let mut bin = [0u32; CHUNK];
+            for chunk in values[range].chunks(CHUNK) {
+                let bin = &mut bin[..chunk.len()];
+                bin.fill(0);
+                for &e in interior {
+                    for (b, &x) in bin.iter_mut().zip(chunk) {
+                        *b += u32::from(e <= x);
+                    }
+                }
+                for &b in bin.iter() {
+                    acc[b as usize] += 1;
+                }
             }
         },
         |t, p| t.iter_mut().zip(p).for_each(|(a, b)| *a += b),
@@ -220,14 +233,19 @@ pub fn joint(names: &[String], columns: &[&[f64]], means: &[f64]) -> Option<Join
         n,
         || vec![0.0; m * m],
         |acc, range| {
-            for i in range {
-                for a in 0..m {
-                    let da = columns[a][i] - means[a];
-                    for b in 0..=a {
-                        acc[a * m + b] += da * (columns[b][i] - means[b]);
-                    }
+            let len = range.len();
+            let centred = centred(columns, means, range);
+            let mut lanes = vec![[0.0; LANES]; m * (m + 1) / 2];
+            for a in 0..m {
+                for b in 0..=a {
+                    add_products(
+                        &mut lanes[packed(a, b)],
+                        &centred[a * len..(a + 1) * len],
+                        &centred[b * len..(b + 1) * len],
+                    );
                 }
             }
+            add_packed_to(acc, &lanes, m);
         },
         |t, p| t.iter_mut().zip(p).for_each(|(a, b)| *a += b),
     );
@@ -240,26 +258,34 @@ pub fn joint(names: &[String], columns: &[&[f64]], means: &[f64]) -> Option<Join
         }
     }
     let flat: Vec<f64> = covariance.iter().flatten().copied().collect();
-    let precision = DMatrix::from_row_slice(m, m, &flat).cholesky()?.inverse();
+    let inverse = DMatrix::from_row_slice(m, m, &flat).cholesky()?.inverse();
+    let precision: Vec<f64> = (0..m * m).map(|i| inverse[(i / m, i % m)]).collect();
+    // Per row q = Σₐ dₐ (Σ_b P_ab d_b), the sums in term order, taken a block's rows at a time.
     let max_squared = reduce_rows(
         n,
         || 0.0f64,
         |acc, range| {
-            let mut d = vec![0.0; m];
-            for i in range {
-                for a in 0..m {
-                    d[a] = columns[a][i] - means[a];
-                }
-                let mut q = 0.0;
-                for a in 0..m {
-                    let mut inner = 0.0;
-                    for b in 0..m {
-                        inner += precision[(a, b)] * d[b];
+            let len = range.len();
+            let centred = centred(columns, means, range);
+            let mut quadratic = vec![0.0; len];
+            let mut inner = vec![0.0; len];
+            for a in 0..m {
+                inner.fill(0.0);
+                for b in 0..m {
+                    let p = precision[a * m + b];
+                    for (u, &d) in inner.iter_mut().zip(&centred[b * len..(b + 1) * len]) {
+                        *u += p * d;
                     }
-                    q += d[a] * inner;
                 }
-                *acc = acc.max(q);
+                for ((q, &u), &d) in quadratic
+                    .iter_mut()
+                    .zip(&inner)
+                    .zip(&centred[a * len..(a + 1) * len])
+                {
+                    *q += d * u;
+                }
             }
+            *acc = quadratic.iter().fold(*acc, |most, &q| most.max(q));
         },
         |t, p| *t = t.max(p),
     );
@@ -270,6 +296,15 @@ pub fn joint(names: &[String], columns: &[&[f64]], means: &[f64]) -> Option<Join
         covariance,
         max_distance,
     })
+}
+
+/// Rows `range` of each column less its mean, column after column.
+fn centred(columns: &[&[f64]], means: &[f64], range: std::ops::Range<usize>) -> Vec<f64> {
+    let mut out = Vec::with_capacity(columns.len() * range.len());
+    for (column, &mean) in columns.iter().zip(means) {
+        out.extend(column[range.clone()].iter().map(|&x| x - mean));
+    }
+    out
 }
 
 /// Whether a covariate kind enters the joint block.
