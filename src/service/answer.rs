@@ -18,10 +18,18 @@
 //!
 //! Why by hand: in the load benchmark, serializing a batch's answers through serde_json (a
 //! map per object, every key and name escaped byte by byte) took half of the server's CPU.
+//!
+//! The text that every answer of a model version repeats is written once ([`Phrases`], kept
+//! per thread beside the scorer): each effect's opening (its covariate, level, reference and
+//! kind, escaped, up to `"effect":`) and each contribution's opening; an interval's closing
+//! with the level's number is formatted once per request rather than for every interval. An
+//! answer then copies those phrases and formats only its own numbers.
+
+use std::ops::Range;
 
 use super::dto::warning_code;
 use super::problem::{echo_number, FieldError};
-use crate::engine::{Answer, Average, Effect, EffectSlot, Interval, Warning};
+use crate::engine::{effect_slots, Answer, Average, Effect, EffectSlot, Interval, Warning};
 use crate::json_text::{push_f64, push_str, push_u64};
 use crate::model::Model;
 
@@ -36,21 +44,110 @@ pub struct Shown {
     pub observation: bool,
 }
 
-/// An answer being written: the buffer, the model whose names it copies and the interval
-/// level of its intervals.
+/// The text every answer of a model version repeats, escaped and joined once into one
+/// buffer: each effect's opening by slot and each contribution's opening by covariate. Each
+/// thread keeps a model version's phrases beside its scorer (`service::scorers`).
+///
+/// ```text
+/// effect opening        {"covariate":NAME,["level":LEVEL,"reference":REFERENCE,]"kind":KIND,"effect":
+/// contribution opening  {"covariate":NAME,"contribution":
+/// ```
+#[derive(Debug)]
+pub struct Phrases {
+    text: String,
+    /// By effect slot, in [`effect_slots`] order.
+    effect_openings: Vec<Range<usize>>,
+    /// The position in `effect_openings` of each covariate's first slot.
+    first_slot: Vec<usize>,
+    /// By covariate.
+    contribution_openings: Vec<Range<usize>>,
+}
+
+impl Phrases {
+    /// The phrases of `model`'s answers.
+    pub fn new(model: &Model) -> Phrases {
+        let slots = effect_slots(model);
+        let mut text = String::with_capacity(96 * slots.len() + 48 * model.covariates.len());
+        let mut effect_openings = Vec::with_capacity(slots.len());
+        let mut first_slot = vec![0; model.covariates.len()];
+        for (s, slot) in slots.iter().enumerate() {
+            if s == 0 || slots[s - 1].covariate != slot.covariate {
+                first_slot[slot.covariate] = s;
+            }
+            let start = text.len();
+            let covariate = &model.covariates[slot.covariate];
+            text.push_str("{\"covariate\":");
+            push_str(&mut text, &covariate.name);
+            if let Some(level) = slot.level {
+                text.push_str(",\"level\":");
+                push_str(&mut text, &covariate.levels[level]);
+                text.push_str(",\"reference\":");
+                push_str(&mut text, &covariate.levels[covariate.reference]);
+            }
+            text.push_str(",\"kind\":");
+            push_str(&mut text, slot.kind.name());
+            text.push_str(",\"effect\":");
+            effect_openings.push(start..text.len());
+        }
+        let contribution_openings = model
+            .covariates
+            .iter()
+            .map(|covariate| {
+                let start = text.len();
+                text.push_str("{\"covariate\":");
+                push_str(&mut text, &covariate.name);
+                text.push_str(",\"contribution\":");
+                start..text.len()
+            })
+            .collect();
+        Phrases {
+            text,
+            effect_openings,
+            first_slot,
+            contribution_openings,
+        }
+    }
+
+    /// `{"covariate":...,"effect":` for `slot` of `model`.
+    fn effect_opening(&self, model: &Model, slot: &EffectSlot) -> &str {
+        // A categorical covariate's slots are its levels in order, the reference left out.
+        let first = self.first_slot[slot.covariate];
+        let index = match slot.level {
+            Some(level) if level > model.covariates[slot.covariate].reference => first + level - 1,
+            Some(level) => first + level,
+            None => first,
+        };
+        &self.text[self.effect_openings[index].clone()]
+    }
+
+    /// `{"covariate":NAME,"contribution":` for covariate `covariate`.
+    fn contribution_opening(&self, covariate: usize) -> &str {
+        &self.text[self.contribution_openings[covariate].clone()]
+    }
+}
+
+/// An answer being written: the buffer, the model whose names it copies, its phrases, and an
+/// interval's closing with the request's level (`,"level":LEVEL}`), formatted once.
 pub struct Writer<'a> {
     out: String,
     model: &'a Model,
-    level: f64,
+    phrases: &'a Phrases,
+    interval_closing: String,
 }
 
 impl<'a> Writer<'a> {
-    /// A writer with room for `capacity` bytes.
-    pub fn new(model: &'a Model, level: f64, capacity: usize) -> Writer<'a> {
+    /// A writer with room for `capacity` bytes, for answers at interval level `level`;
+    /// `phrases` are `model`'s.
+    pub fn new(model: &'a Model, phrases: &'a Phrases, level: f64, capacity: usize) -> Writer<'a> {
+        let mut interval_closing = String::with_capacity(32);
+        interval_closing.push_str(",\"level\":");
+        push_f64(&mut interval_closing, level);
+        interval_closing.push('}');
         Writer {
             out: String::with_capacity(capacity),
             model,
-            level,
+            phrases,
+            interval_closing,
         }
     }
 
@@ -125,53 +222,46 @@ impl<'a> Writer<'a> {
         self.out.push(']');
     }
 
+    /// `,"std_error":SE,"interval":{...}` for what is given.
     fn error(&mut self, std_error: Option<f64>, interval: Option<Interval>) {
         if let Some(se) = std_error {
-            self.number_member("std_error", se);
+            self.raw(",\"std_error\":");
+            self.number(se);
         }
         if let Some(interval) = interval {
-            self.key("interval");
-            self.raw("{\"lower\":");
+            self.raw(",\"interval\":{\"lower\":");
             self.number(interval.lower);
             self.raw(",\"upper\":");
             self.number(interval.upper);
-            self.raw(",\"level\":");
-            self.number(self.level);
-            self.raw("}");
+            self.out.push_str(&self.interval_closing);
         }
     }
 
-    fn slot(&mut self, slot: &EffectSlot) {
-        let model = self.model;
-        let covariate = &model.covariates[slot.covariate];
-        self.text_member("covariate", &covariate.name);
-        if let Some(level) = slot.level {
-            self.text_member("level", &covariate.levels[level]);
-            self.text_member("reference", &covariate.levels[covariate.reference]);
-        }
-        self.text_member("kind", slot.kind.name());
+    /// The opening of an effect's object, up to `"effect":`.
+    fn effect_opening(&mut self, slot: &EffectSlot) {
+        self.out
+            .push_str(self.phrases.effect_opening(self.model, slot));
     }
 
     fn effect(&mut self, effect: &Effect) {
-        self.raw("{");
-        self.slot(&effect.slot);
-        self.number_member("effect", effect.effect);
+        self.effect_opening(&effect.slot);
+        self.number(effect.effect);
         self.error(effect.std_error, effect.interval);
         if let Some(e) = effect.elasticity {
-            self.number_member("elasticity", e);
+            self.raw(",\"elasticity\":");
+            self.number(e);
         }
         self.raw("}");
     }
 
     /// One averaged effect, or the averaged probability (no slot), as an object.
     pub fn average(&mut self, average: &Average) {
-        self.raw("{");
         if let Some(slot) = &average.slot {
-            self.slot(slot);
-            self.number_member("effect", average.value);
+            self.effect_opening(slot);
         } else {
-            self.number_member("probability", average.value);
+            self.raw("{\"probability\":");
         }
+        self.number(average.value);
         self.error(average.std_error, average.interval);
         self.raw("}");
     }
@@ -236,7 +326,8 @@ impl<'a> Writer<'a> {
         let model = self.model;
         self.number_member("probability", answer.probability);
         self.error(answer.std_error, answer.interval);
-        self.number_member("linear_index", answer.linear_index);
+        self.raw(",\"linear_index\":");
+        self.number(answer.linear_index);
         if shown.effects {
             self.list("effects", &answer.effects, Self::effect);
         }
@@ -245,9 +336,8 @@ impl<'a> Writer<'a> {
         }
         if shown.contributions {
             self.list("contributions", &answer.contributions, |w, c| {
-                w.raw("{");
-                w.text_member("covariate", &model.covariates[c.covariate].name);
-                w.number_member("contribution", c.contribution);
+                w.out.push_str(w.phrases.contribution_opening(c.covariate));
+                w.number(c.contribution);
                 w.raw("}");
             });
         }
@@ -278,5 +368,60 @@ impl<'a> Writer<'a> {
     /// `"key":` for a member whose value the caller writes.
     pub fn member(&mut self, key: &str) {
         self.key(key);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The lease test model with the reference level of its categorical covariate moved from
+    /// the first level to the third, so that slots fall on both sides of it.
+    fn middle_reference_model() -> Model {
+        let text = include_str!("../../tests/http/models/lease-test/versions/2026-01.json");
+        let mut file: serde_json::Value = serde_json::from_str(text).expect("the test model");
+        file["covariates"][4]["reference"] = serde_json::json!("transport");
+        for term in file["terms"].as_array_mut().expect("terms") {
+            if term["term"] == "sector=transport" {
+                term["term"] = serde_json::json!("sector=retail");
+            }
+        }
+        Model::from_json(file.to_string().as_bytes()).expect("a valid model")
+    }
+
+    /// Reference: serde_json's serializer writing each slot's members, the way every other
+    /// object of the service is written.
+    #[test]
+    fn each_effect_opening_names_its_own_slot_as_a_serializer_writes_it() {
+        let model = middle_reference_model();
+        let phrases = Phrases::new(&model);
+        let slots = effect_slots(&model);
+        assert!(
+            slots.iter().any(|s| s.level == Some(0)) && slots.iter().any(|s| s.level == Some(3))
+        );
+        for slot in &slots {
+            let covariate = &model.covariates[slot.covariate];
+            let mut expected =
+                serde_json::to_string(&serde_json::json!({ "covariate": covariate.name }))
+                    .expect("serialize");
+            expected.pop();
+            if let Some(level) = slot.level {
+                let members = serde_json::json!({
+                    "level": covariate.levels[level],
+                    "reference": covariate.levels[covariate.reference],
+                });
+                let text = serde_json::to_string(&members).expect("serialize");
+                expected.push(',');
+                expected.push_str(&text[1..text.len() - 1]);
+            }
+            expected.push_str(&format!(",\"kind\":\"{}\",\"effect\":", slot.kind.name()));
+            assert_eq!(phrases.effect_opening(&model, slot), expected, "{slot:?}");
+        }
+        for (j, covariate) in model.covariates.iter().enumerate() {
+            let text = serde_json::to_string(&serde_json::json!({ "covariate": covariate.name }))
+                .expect("serialize");
+            let expected = format!("{},\"contribution\":", &text[..text.len() - 1]);
+            assert_eq!(phrases.contribution_opening(j), expected);
+        }
     }
 }

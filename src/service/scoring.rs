@@ -1,6 +1,6 @@
 //! Scoring a checked probability request with the engine and writing the answer's JSON.
 //!
-//! The statistics are the engine's; this module only drives a [`Scorer`] over the
+//! The statistics are the engine's; this module only drives a [`crate::engine::Scorer`] over the
 //! observations, records the scoring metrics once per request, refuses an answer that is not
 //! finite (422 `not-computable`, never a `null` where a number is promised), and writes the
 //! answer (`service::answer`). A batch sent with `"on_error": "keep"` instead answers each
@@ -26,12 +26,12 @@
 
 use std::sync::Arc;
 
-use super::answer::{Shown, Writer};
+use super::answer::{Phrases, Shown, Writer};
 use super::dto::{ProbabilityRequest, AT_MEANS, NO_COVARIANCE, SATURATED};
 use super::observations::field_error;
 use super::problem::{FieldError, Kind, Problem};
-use super::scorers::with_scorer;
-use crate::engine::{effect_slots, Answer, Average, Averager, Scorer, Warning};
+use super::scorers::{with_scratch, Scratch};
+use crate::engine::{effect_slots, Answer, Average, Averager, Warning};
 use crate::metrics::ScoringMetrics;
 use crate::model::{Model, Value};
 
@@ -76,6 +76,8 @@ fn average_is_finite(a: &Average) -> bool {
 /// Everything computed for one request, ready to serialize.
 pub struct Scored<'a> {
     model: &'a Model,
+    /// The model's answer phrases, kept by this thread (`service::scorers`).
+    phrases: Arc<Phrases>,
     request: &'a ProbabilityRequest,
     request_id: &'a str,
     answers: Vec<Answer>,
@@ -175,13 +177,13 @@ pub fn score<'a>(
     request_id: &'a str,
     metrics: &ScoringMetrics,
 ) -> Result<Scored<'a>, Problem> {
-    with_scorer(model, |scorer| {
-        score_with(scorer, model, request, values, faults, request_id, metrics)
+    with_scratch(model, |scratch| {
+        score_with(scratch, model, request, values, faults, request_id, metrics)
     })
 }
 
 fn score_with<'a>(
-    scorer: &mut Scorer,
+    scratch: &mut Scratch,
     model: &'a Model,
     request: &'a ProbabilityRequest,
     values: &[Value],
@@ -189,6 +191,8 @@ fn score_with<'a>(
     request_id: &'a str,
     metrics: &ScoringMetrics,
 ) -> Result<Scored<'a>, Problem> {
+    let phrases = scratch.phrases(model);
+    let scorer = &mut scratch.scorer;
     let width = model.covariates.len().max(1);
     let n = values.len() / width;
     let keep = request.keep_faulty && request.batch;
@@ -285,6 +289,7 @@ fn score_with<'a>(
     }
     Ok(Scored {
         model,
+        phrases,
         request,
         request_id,
         answers,
@@ -360,7 +365,7 @@ impl Scored<'_> {
             observation: true,
         };
         let capacity = 1024 + per_answer * self.answers.len() + 320 * self.faults.len();
-        let mut w = Writer::new(model, level, capacity);
+        let mut w = Writer::new(model, &self.phrases, level, capacity);
         w.raw("{");
         w.text_member("request_id", self.request_id);
         w.text_member("model", model.name());
